@@ -1,0 +1,53 @@
+"""The one program, ``eddyvigil``: sub-commands of DESIGN §5.
+
+Each sub-command lives in its own module, which offers ``add_arguments(parser)`` and
+``run(args) -> int`` (the exit code). This file only wires them together, importing a
+module when its command is chosen so that ``eddyvigil --help`` stays fast.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+
+__all__ = ["main", "build_parser"]
+
+#: command -> (module, one-line help)
+COMMANDS = {
+    "demo": ("monitor.demo", "simulator + monitor + dashboard on the built-in scenario, in one go"),
+    "simulate": ("simulator.cli", "publish synthetic turbulence with known truth"),
+    "watch": ("monitor.watch", "monitor a live stream"),
+    "replay": ("monitor.replay", "feed a recording through the same path as live data"),
+    "export": ("monitor.export", "write recorded samples and summaries to open formats"),
+}
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(
+        prog="eddyvigil",
+        description="Live convergence monitor for turbulence statistics.",
+    )
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", required=True)
+    for name, (module_name, help_text) in COMMANDS.items():
+        module = importlib.import_module(module_name)
+        p = sub.add_parser(
+            name,
+            help=help_text,
+            description=(module.__doc__ or help_text).strip().splitlines()[0],
+            epilog=getattr(module, "EPILOG", None),
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
+        module.add_arguments(p)
+        p.set_defaults(_module=module)
+    return parser
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    return int(args._module.run(args) or 0)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

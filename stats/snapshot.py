@@ -1,0 +1,120 @@
+"""Immutable views of a point's statistics, as readers (summary, dashboard, control) see them.
+
+A pipeline builds a new snapshot a few times per second and publishes it by rebinding one
+attribute; nothing in here is ever mutated after construction.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from types import MappingProxyType
+from typing import Mapping
+
+__all__ = ["Estimate", "PointSnapshot", "STATES"]
+
+#: States a statistic can be in, in the order a run passes through them.
+#: ``warming-up``: too few blocks to trust an error bar; ``converging``: error bar is
+#: trustworthy but wider than the target; ``converged``: target met at 3 consecutive
+#: checkpoints; ``suspect``: the stationarity guard failed for a component it depends on;
+#: ``untargeted``: no target was set (value and error bar still reported).
+STATES = ("warming-up", "converging", "converged", "suspect", "untargeted")
+
+
+def _finite_or_none(x: float | None) -> float | None:
+    if x is None:
+        return None
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+@dataclass(frozen=True, slots=True)
+class Estimate:
+    """One statistic at one moment of one point.
+
+    ``target`` is the allowed half-width of the interval in the statistic's units (already
+    resolved from a relative target), ``half_width`` the current one, ``eta_s`` the predicted
+    acquisition time still needed (0 once converged, None when it cannot be predicted).
+    """
+
+    name: str
+    value: float
+    stderr: float
+    ci_low: float
+    ci_high: float
+    half_width: float
+    target: float | None
+    converged: bool | None
+    eta_s: float | None
+    state: str
+    blocks: int = 0
+    reason: str | None = None
+
+    def to_json(self) -> dict:
+        """The entry of DESIGN §4 ``statistics`` (non-finite numbers become null)."""
+        return {
+            "name": self.name,
+            "value": _finite_or_none(self.value),
+            "stderr": _finite_or_none(self.stderr),
+            "ci_low": _finite_or_none(self.ci_low),
+            "ci_high": _finite_or_none(self.ci_high),
+            "target": _finite_or_none(self.target),
+            "converged": self.converged,
+            "eta_s": _finite_or_none(self.eta_s),
+            "state": self.state,
+            "blocks": int(self.blocks),
+        }
+
+
+@dataclass(frozen=True, slots=True)
+class PointSnapshot:
+    """All statistics of one measurement point at one moment."""
+
+    columns: tuple[str, ...]
+    samples: int
+    duration_s: float
+    confidence: float
+    estimates: tuple[Estimate, ...]
+    converged: bool
+    converged_at_s: float | None
+    k_method: str
+    suspect: Mapping[str, str] = field(default_factory=dict)
+
+    def __post_init__(self):
+        object.__setattr__(self, "suspect", MappingProxyType(dict(self.suspect)))
+
+    def estimate(self, name: str) -> Estimate:
+        for e in self.estimates:
+            if e.name == name:
+                return e
+        raise KeyError(name)
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(e.name for e in self.estimates)
+
+    def targeted(self) -> tuple[Estimate, ...]:
+        return tuple(e for e in self.estimates if e.target is not None)
+
+    def slowest(self) -> Estimate | None:
+        """The targeted statistic furthest from its target (largest ETA; unknown ETA first)."""
+        open_ = [e for e in self.targeted() if not e.converged]
+        if not open_:
+            return None
+        return max(open_, key=lambda e: math.inf if e.eta_s is None else e.eta_s)
+
+    def statistics_json(self) -> list[dict]:
+        return [e.to_json() for e in self.estimates]
+
+    def summary_fields(self) -> dict:
+        """The statistics part of a DESIGN §4 point line (the pipeline adds stream, point, health)."""
+        return {
+            "samples": int(self.samples),
+            "duration_s": float(self.duration_s),
+            "confidence": float(self.confidence),
+            "converged": bool(self.converged),
+            "converged_at_s": _finite_or_none(self.converged_at_s),
+            "k_method": self.k_method,
+            "suspect": dict(self.suspect),
+            "statistics": self.statistics_json(),
+        }
