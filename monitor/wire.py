@@ -80,7 +80,7 @@ _NON_VELOCITY = ("t", "weight")
 
 @dataclass(frozen=True)
 class SamplesMessage:
-    """A block of samples. ``data`` is an (n, len(columns)) read-only view on the received buffer."""
+    """A block of samples; ``data``: (n, len(columns)) read-only view on the received buffer."""
 
     stream: str
     session: str
@@ -106,7 +106,7 @@ class SamplesMessage:
 
     @property
     def velocity(self) -> np.ndarray:
-        """(n, m) velocity samples: the data itself when it has no ``t``/``weight`` column, else a copy."""
+        """(n, m) velocity: ``data`` itself if it has no ``t``/``weight`` column, else a copy."""
         if len(self.velocity_columns) == len(self.columns):
             return self.data
         idx = [i for i, c in enumerate(self.columns) if c not in _NON_VELOCITY]
@@ -224,7 +224,9 @@ def encode_samples(
     return [stream.encode("utf-8"), _header_bytes(header), arr]
 
 
-def encode_point(stream: str, session: str, seq: int, point: dict, extra: dict | None = None) -> list[bytes]:
+def encode_point(
+    stream: str, session: str, seq: int, point: dict, extra: dict | None = None
+) -> list[bytes]:
     """Frames of a point message (a new measurement point begins): ``[topic, header]``."""
     header = _base_header("point", stream, session, seq)
     header["point"] = dict(point)
@@ -306,7 +308,9 @@ def _all_finite(arr: np.ndarray) -> bool:
     return bool(np.isfinite(arr).all())
 
 
-def _decode_samples(header: dict, stream: str, session: str, seq: int, payload: memoryview) -> SamplesMessage:
+def _decode_samples(
+    header: dict, stream: str, session: str, seq: int, payload: memoryview
+) -> SamplesMessage:
     columns = _require(header, "columns")
     dtype = _require(header, "dtype")
     n = _require(header, "n")
@@ -348,7 +352,7 @@ def _decode_samples(header: dict, stream: str, session: str, seq: int, payload: 
     if payload.nbytes != expected:
         raise _Reject(
             "bad_shape",
-            f"samples frame holds {payload.nbytes} bytes, expected {n} x {m} x {itemsize} = {expected}",
+            f"samples frame holds {payload.nbytes} bytes, expected {n}x{m}x{itemsize} = {expected}",
         )
     data = np.frombuffer(payload, dtype=np.dtype(dtype)).reshape(n, m)
     data.flags.writeable = False
@@ -388,7 +392,9 @@ def _decode(frames: Any, max_message_bytes: int, ids: list) -> Message:
         raise _Reject("bad_frames", "a frame is not a buffer") from None
     total = sum(v.nbytes for v in views)
     if total > max_message_bytes:
-        raise _Reject("too_large", f"message of {total} bytes exceeds the limit of {max_message_bytes}")
+        raise _Reject(
+            "too_large", f"message of {total} bytes exceeds the limit of {max_message_bytes}"
+        )
     if len(views) < 2:
         raise _Reject("bad_frames", f"{len(views)} frame(s); at least topic and header are needed")
     try:
@@ -424,9 +430,13 @@ def _decode(frames: Any, max_message_bytes: int, ids: list) -> Message:
     if not _is_int(seq) or seq < 0:
         raise _Reject("bad_field", "seq must be an integer >= 0")
     if len(views) != _KIND_FRAMES[kind]:
-        raise _Reject("bad_frames", f"{kind} message with {len(views)} frames, expected {_KIND_FRAMES[kind]}")
+        raise _Reject(
+            "bad_frames", f"{kind} message with {len(views)} frames, expected {_KIND_FRAMES[kind]}"
+        )
     if stream != topic:
-        raise _Reject("stream_mismatch", f"header stream {stream!r} differs from topic {topic!r}"[:200])
+        raise _Reject(
+            "stream_mismatch", f"header stream {stream!r} differs from topic {topic!r}"[:200]
+        )
     if kind == "samples":
         return _decode_samples(header, stream, session, seq, views[2])
     if kind == "point":
@@ -456,4 +466,6 @@ def decode(frames, max_message_bytes: int = DEFAULT_MAX_MESSAGE_BYTES) -> Messag
     except _Reject as r:
         return Rejection(r.reason, r.detail, ids[0], ids[1], ids[2])
     except Exception as exc:  # a path not foreseen: still a rejection, never a crash
-        return Rejection("bad_frames", f"undecodable message ({type(exc).__name__})", ids[0], ids[1], ids[2])
+        return Rejection(
+            "bad_frames", f"undecodable message ({type(exc).__name__})", ids[0], ids[1], ids[2]
+        )
