@@ -1,0 +1,325 @@
+"""Convergence targets: the targets file of DESIGN §5, its defaults, and relative scales.
+
+A target is the allowed half-width of a statistic's confidence interval, either absolute (in
+the statistic's own units) or relative to a scale that cannot vanish:
+
+=====================================  ====================================================
+family of the statistic                relative to
+=====================================  ====================================================
+means ``U``, ``V``, ``W``              local mean speed ``|U| = sqrt(U^2 + V^2 + W^2)``
+                                       over the components present
+second moments ``uu`` ... and ``k``    ``k``
+third moments ``uuu`` ...              ``k**1.5``
+fourth moments ``uuuu`` ...            ``k**2``
+``skew_*``, ``flat_*``                 1 (a relative target is an absolute one)
+``Tint_*``, ``Neff_*``, ``L_*``,       the magnitude of the statistic itself
+``eta``, ``eps``
+=====================================  ====================================================
+
+Defaults (used when no file is given): confidence 0.95; ``U``, ``V``, ``W`` within 1 % of the
+local mean speed; ``uu``, ``vv``, ``ww``, ``uv``, ``uw``, ``vw`` and ``k`` within 5 % of ``k``.
+Why these are reachable in about 10-30 s at an integral time of a few ms (Gaussian,
+exponential-correlation arithmetic, Lumley & Panofsky 1964; half-width = 1.96 x 1.1 x SE):
+a mean at 20 % turbulence intensity has SE = 0.2 |U| sqrt(2 T_int / T), so 1 % needs
+T >= 3700 T_int (11 s at 3 ms); ``uu`` has SE = uu sqrt(2 T_int / T) and with uu ~ 2k/3 the
+5 % of k target needs T >= 1700 T_int (5 s at 3 ms); ``uv`` (SE = sqrt(uu vv (1 + r^2) T_int / T))
+needs about 1100 T_int. Statistics that are not named are still reported, untargeted.
+
+A file replaces the default list as a whole: its ``[targets]`` table is the complete list of
+targets. A file without a ``[targets]`` table keeps the default targets and only sets the
+confidence. Example (DESIGN §5)::
+
+    confidence = 0.95
+    [targets]
+    U   = { relative = 0.01 }     # +-1 % of the local mean speed
+    uv  = { absolute = 0.02 }     # m^2/s^2
+    uuv = { relative = 0.15 }     # +-15 % of k^(3/2)
+
+>>> t = Targets.from_dict({"targets": {"U": {"relative": 0.01}, "uv": {"absolute": 0.02}}})
+>>> round(t.resolve("U", {"U": 8.0, "V": 6.0}), 6)
+0.1
+>>> t.resolve("uv", {"k": float("nan")}), t.resolve("uu", {"k": 1.0})
+(0.02, None)
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+from types import MappingProxyType
+from typing import Mapping
+
+from stats.names import VELOCITY_LETTERS, family, is_known_name
+
+__all__ = ["TargetsError", "Target", "Targets", "DEFAULT_CONFIDENCE", "DEFAULT_TARGETS"]
+
+#: Confidence level of the intervals when the file does not say.
+DEFAULT_CONFIDENCE = 0.95
+
+#: Default targets as ``name -> relative tolerance`` (see the module docstring for the scales).
+DEFAULT_TARGETS: Mapping[str, float] = MappingProxyType(
+    {
+        "U": 0.01,
+        "V": 0.01,
+        "W": 0.01,
+        "uu": 0.05,
+        "vv": 0.05,
+        "ww": 0.05,
+        "uv": 0.05,
+        "uw": 0.05,
+        "vw": 0.05,
+        "k": 0.05,
+    }
+)
+
+# Families whose relative scale is the magnitude of the statistic itself.
+_SELF_SCALED = ("time_scale", "effective_samples", "length_scale", "dissipation")
+
+# What a relative target is relative to, for describe() and error messages.
+_SCALE_TEXT = {
+    "mean": "of the local mean speed |U|",
+    "second": "of k",
+    "third": "of k^(3/2)",
+    "fourth": "of k^2",
+    "skewness": "(relative to 1)",
+    "flatness": "(relative to 1)",
+}
+
+_UNITS = {
+    "mean": "m/s",
+    "second": "m^2/s^2",
+    "third": "m^3/s^3",
+    "fourth": "m^4/s^4",
+    "skewness": "-",
+    "flatness": "-",
+    "time_scale": "s",
+    "effective_samples": "-",
+    "length_scale": "m",
+    "dissipation": "m^2/s^3",
+}
+
+_TOP_KEYS = ("confidence", "targets")
+_TARGET_KEYS = ("relative", "absolute")
+
+
+class TargetsError(ValueError):
+    """A targets file or mapping that cannot be used; the message is meant for the user."""
+
+
+@dataclass(frozen=True, slots=True)
+class Target:
+    """The tolerance of one statistic: exactly one of ``absolute`` and ``relative`` is set."""
+
+    name: str
+    absolute: float | None = None
+    relative: float | None = None
+
+    def __post_init__(self):
+        if (self.absolute is None) == (self.relative is None):
+            raise TargetsError(f"target {self.name!r}: give exactly one of 'relative' or 'absolute'")
+        for key in _TARGET_KEYS:
+            x = getattr(self, key)
+            if x is not None and not (math.isfinite(x) and x > 0):
+                raise TargetsError(f"target {self.name!r}: {key} must be positive and finite")
+
+    def describe(self) -> str:
+        """One line, e.g. ``"±5 % of k"`` or ``"±0.02 m^2/s^2"``."""
+        fam = family(self.name)
+        if self.absolute is not None:
+            return f"±{self.absolute:g} {_UNITS.get(fam, '')}".rstrip()
+        scale = _SCALE_TEXT.get(fam, f"of |{self.name}|")
+        return f"±{100.0 * self.relative:g} % {scale}"
+
+
+def _is_number(x) -> bool:
+    return isinstance(x, (int, float)) and not isinstance(x, bool)
+
+
+def _suggest(word: str, choices) -> str:
+    close = difflib.get_close_matches(word, list(choices), n=3, cutoff=0.5)
+    return f" (did you mean {', '.join(repr(c) for c in close)}?)" if close else ""
+
+
+def _parse_target(source: str, name, spec) -> Target:
+    where = f"{source}: [targets] {name}"
+    if not isinstance(name, str) or not is_known_name(name):
+        known = _known_names()
+        if isinstance(name, str) and name.lower() in known:
+            hint = f" (did you mean {name.lower()!r}? capitals are means, lower case fluctuations)"
+        else:
+            hint = _suggest(str(name), known)
+        raise TargetsError(
+            f"{where}: unknown statistic name{hint}; names follow DESIGN §3: means U V W, "
+            "stresses uu vv ww uv uw vw, k, third/fourth moments like uuv or uuvv, "
+            "skew_u, flat_u, Tint_u, Neff_u, L_u, eps, eta"
+        )
+    if not isinstance(spec, Mapping):
+        raise TargetsError(
+            f"{where}: expected an inline table like {{ relative = 0.05 }} or "
+            f"{{ absolute = 0.02 }}, got {type(spec).__name__} {spec!r}"
+        )
+    unknown = [k for k in spec if k not in _TARGET_KEYS]
+    if unknown:
+        raise TargetsError(
+            f"{where}: unknown key {unknown[0]!r}{_suggest(str(unknown[0]), _TARGET_KEYS)}; "
+            "use 'relative' or 'absolute'"
+        )
+    if len(spec) != 1:
+        raise TargetsError(
+            f"{where}: give exactly one of 'relative' or 'absolute' (got {len(spec)})"
+        )
+    ((key, value),) = spec.items()
+    if not _is_number(value):
+        raise TargetsError(f"{where}: {key} must be a number, got {type(value).__name__} {value!r}")
+    value = float(value)
+    if not (math.isfinite(value) and value > 0):
+        raise TargetsError(f"{where}: {key} must be positive and finite, got {value!r}")
+    return Target(name=name, **{key: value})
+
+
+def _known_names() -> list[str]:
+    from stats.names import statistic_names
+
+    cols = VELOCITY_LETTERS
+    return statistic_names(cols) + ["eps", "eta"] + [f"L_{c}" for c in cols]
+
+
+@dataclass(frozen=True, slots=True)
+class Targets:
+    """Confidence level and per-statistic tolerances of a run (read-only).
+
+    Build it with :meth:`defaults`, :meth:`from_toml` or :meth:`from_dict`; ``targets`` maps a
+    statistic name to its :class:`Target`.
+    """
+
+    confidence: float = DEFAULT_CONFIDENCE
+    targets: Mapping[str, Target] = field(default_factory=dict)
+
+    def __post_init__(self):
+        c = self.confidence
+        if not _is_number(c) or not (0.0 < float(c) < 1.0):
+            raise TargetsError(f"confidence must be a number strictly between 0 and 1, got {c!r}")
+        object.__setattr__(self, "confidence", float(c))
+        for name, t in self.targets.items():
+            if not isinstance(t, Target) or t.name != name:
+                raise TargetsError(f"targets[{name!r}] must be a Target named {name!r}")
+        object.__setattr__(self, "targets", MappingProxyType(dict(self.targets)))
+
+    # ----------------------------------------------------------------- constructors
+    @classmethod
+    def defaults(cls) -> Targets:
+        """The built-in targets (module docstring)."""
+        return cls(
+            confidence=DEFAULT_CONFIDENCE,
+            targets={n: Target(n, relative=r) for n, r in DEFAULT_TARGETS.items()},
+        )
+
+    @classmethod
+    def from_dict(cls, d: Mapping, *, source: str = "targets") -> Targets:
+        """Targets from a mapping with the TOML file's schema; ``source`` names it in messages."""
+        if not isinstance(d, Mapping):
+            raise TargetsError(f"{source}: expected a table of settings, got {type(d).__name__}")
+        unknown = [k for k in d if k not in _TOP_KEYS]
+        if unknown:
+            raise TargetsError(
+                f"{source}: unknown setting {unknown[0]!r}{_suggest(str(unknown[0]), _TOP_KEYS)}; "
+                "a targets file has 'confidence = 0.95' and a [targets] table"
+            )
+        confidence = d.get("confidence", DEFAULT_CONFIDENCE)
+        if not _is_number(confidence) or not (0.0 < float(confidence) < 1.0):
+            raise TargetsError(
+                f"{source}: confidence must be a number strictly between 0 and 1 "
+                f"(e.g. 0.95), got {confidence!r}"
+            )
+        if "targets" not in d:
+            return cls(confidence=float(confidence), targets=cls.defaults().targets)
+        table = d["targets"]
+        if not isinstance(table, Mapping):
+            raise TargetsError(
+                f"{source}: 'targets' must be a table ([targets] followed by lines like "
+                f"U = {{ relative = 0.01 }}), got {type(table).__name__}"
+            )
+        if not table:
+            raise TargetsError(
+                f"{source}: the [targets] table is empty; name at least one statistic, "
+                "or remove the table to use the defaults"
+            )
+        parsed = {name: _parse_target(source, name, spec) for name, spec in table.items()}
+        return cls(confidence=float(confidence), targets=parsed)
+
+    @classmethod
+    def from_toml(cls, path) -> Targets:
+        """Read a targets file; :class:`TargetsError` says what is wrong and where."""
+        p = Path(path)
+        try:
+            with p.open("rb") as f:
+                data = tomllib.load(f)
+        except OSError as e:
+            raise TargetsError(f"{p}: cannot read the targets file ({e.strerror or e})") from e
+        except tomllib.TOMLDecodeError as e:
+            raise TargetsError(f"{p}: not valid TOML: {e}") from e
+        except UnicodeDecodeError as e:
+            raise TargetsError(f"{p}: not valid TOML: not UTF-8 text ({e.reason})") from e
+        return cls.from_dict(data, source=str(p))
+
+    def to_dict(self) -> dict:
+        """The TOML schema as a plain dict (``from_dict(t.to_dict()) == t``)."""
+        out = {}
+        for name, t in self.targets.items():
+            out[name] = {"absolute": t.absolute} if t.absolute is not None else {"relative": t.relative}
+        return {"confidence": self.confidence, "targets": out}
+
+    # ----------------------------------------------------------------- resolving
+    def scale(self, name: str, values: Mapping[str, float]) -> float:
+        """The scale a relative target of ``name`` multiplies, from the current ``values``.
+
+        NaN when the scale is not yet known (a needed value is missing or not finite).
+        """
+        fam = family(name)
+        if fam == "mean":
+            means = [values[c.upper()] for c in VELOCITY_LETTERS if c.upper() in values]
+            if not means:
+                return math.nan
+            return math.sqrt(math.fsum(float(m) ** 2 for m in means))
+        if fam in ("skewness", "flatness"):
+            return 1.0
+        if fam in ("second", "third", "fourth"):
+            k = float(values.get("k", math.nan))
+            if not k >= 0.0:  # NaN or negative: not a usable energy yet
+                return math.nan
+            return {"second": k, "third": k**1.5, "fourth": k * k}[fam]
+        if fam in _SELF_SCALED:
+            return abs(float(values.get(name, math.nan)))
+        return math.nan
+
+    def resolve(self, name: str, values: Mapping[str, float]) -> float | None:
+        """Absolute half-width allowed for ``name`` now; None if untargeted, NaN if not yet known.
+
+        A relative target whose scale is zero or not finite resolves to NaN: a tolerance of
+        zero could never be met, so "not yet known" is the honest answer.
+        """
+        t = self.targets.get(name)
+        if t is None:
+            return None
+        if t.absolute is not None:
+            return t.absolute
+        s = self.scale(name, values)
+        if not (math.isfinite(s) and s > 0.0):
+            return math.nan
+        return t.relative * s
+
+    def describe(self) -> str:
+        """Human-readable table of the targets, for ``--help`` and the README."""
+        lines = [
+            f"Targets: half-width of the {100.0 * self.confidence:g} % confidence interval",
+        ]
+        if not self.targets:
+            lines.append("  (none: every statistic is reported untargeted)")
+        width = max((len(n) for n in self.targets), default=1)
+        for name, t in self.targets.items():
+            lines.append(f"  {name:<{width}}  {t.describe()}")
+        lines.append("Other statistics are reported without a target.")
+        return "\n".join(lines)
