@@ -47,10 +47,10 @@ from __future__ import annotations
 import difflib
 import math
 import tomllib
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
-from typing import Mapping
 
 from stats.names import VELOCITY_LETTERS, family, is_known_name
 
@@ -119,7 +119,9 @@ class Target:
 
     def __post_init__(self):
         if (self.absolute is None) == (self.relative is None):
-            raise TargetsError(f"target {self.name!r}: give exactly one of 'relative' or 'absolute'")
+            raise TargetsError(
+                f"target {self.name!r}: give exactly one of 'relative' or 'absolute'"
+            )
         for key in _TARGET_KEYS:
             x = getattr(self, key)
             if x is not None and not (math.isfinite(x) and x > 0):
@@ -269,7 +271,9 @@ class Targets:
         """The TOML schema as a plain dict (``from_dict(t.to_dict()) == t``)."""
         out = {}
         for name, t in self.targets.items():
-            out[name] = {"absolute": t.absolute} if t.absolute is not None else {"relative": t.relative}
+            out[name] = (
+                {"absolute": t.absolute} if t.absolute is not None else {"relative": t.relative}
+            )
         return {"confidence": self.confidence, "targets": out}
 
     # ----------------------------------------------------------------- resolving

@@ -75,16 +75,32 @@ def test_mean_speed_uses_only_the_components_present():
     ],
 )
 def test_scales_by_family(name, scale):
-    values = {"U": 3.0, "V": 4.0, "k": 4.0, "Tint_u": 0.003, "Neff_v": 1200.0, "L_u": -0.05,
-              "eps": 12.5, "eta": 1.2e-4}
+    values = {
+        "U": 3.0,
+        "V": 4.0,
+        "k": 4.0,
+        "Tint_u": 0.003,
+        "Neff_v": 1200.0,
+        "L_u": -0.05,
+        "eps": 12.5,
+        "eta": 1.2e-4,
+    }
     t = Targets.from_dict({"targets": {name: {"relative": 0.1}}})
     assert t.scale(name, values) == pytest.approx(scale, rel=1e-14)
     assert t.resolve(name, values) == pytest.approx(0.1 * scale, rel=1e-14)
 
 
 def test_unknown_scale_gives_nan_and_absolute_needs_no_scale():
-    t = Targets.from_dict({"targets": {"uu": {"relative": 0.05}, "uv": {"absolute": 0.01},
-                                       "U": {"relative": 0.01}, "Tint_u": {"relative": 0.1}}})
+    t = Targets.from_dict(
+        {
+            "targets": {
+                "uu": {"relative": 0.05},
+                "uv": {"absolute": 0.01},
+                "U": {"relative": 0.01},
+                "Tint_u": {"relative": 0.1},
+            }
+        }
+    )
     assert math.isnan(t.resolve("uu", {"k": math.nan}))
     assert math.isnan(t.resolve("uu", {}))
     assert math.isnan(t.resolve("uu", {"k": 0.0}))  # zero scale: a tolerance that can never be met
@@ -97,8 +113,16 @@ def test_defaults_are_the_documented_ones():
     t = Targets.defaults()
     assert t.confidence == 0.95
     assert dict((n, x.relative) for n, x in t.targets.items()) == {
-        "U": 0.01, "V": 0.01, "W": 0.01,
-        "uu": 0.05, "vv": 0.05, "ww": 0.05, "uv": 0.05, "uw": 0.05, "vw": 0.05, "k": 0.05,
+        "U": 0.01,
+        "V": 0.01,
+        "W": 0.01,
+        "uu": 0.05,
+        "vv": 0.05,
+        "ww": 0.05,
+        "uv": 0.05,
+        "uw": 0.05,
+        "vw": 0.05,
+        "k": 0.05,
     }
     assert all(x.absolute is None for x in t.targets.values())
     assert dict(DEFAULT_TARGETS) == {n: x.relative for n, x in t.targets.items()}
