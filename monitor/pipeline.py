@@ -1,0 +1,627 @@
+"""The monitor's core loop: decoded messages -> per-stream, per-point statistics -> snapshots.
+
+:class:`Pipeline` takes raw frames (from a socket or a recording, through the one
+:meth:`Pipeline.handle_frames` path) or numpy blocks (the in-process API of an acquisition
+script: :meth:`~Pipeline.begin_point`, :meth:`~Pipeline.feed`, :meth:`~Pipeline.end`) and
+keeps, for every stream, its session, the sequence numbers it expects and one
+``stats.PointStatistics`` for the current measurement point. It never raises on bad input:
+every rejected message is counted under a reason, per stream (current point) and per run.
+
+Choices made where DESIGN leaves room (also stated in README's summary section):
+
+- Samples that arrive before any ``point`` message of their stream go to an *implicit point*
+  whose summary says ``"point": {"id": null}``, unless the samples header carries a ``point``.
+  A samples header whose ``point.id`` differs from the current point's starts a new point (the
+  previous one is finished complete, as at a ``point`` message).
+- The first message seen of a session sets the sequence baseline: messages a publisher sent
+  before the monitor listened are not losses. A later jump forward is a gap; the missing
+  count is ``lost_messages``, less any messages of that stream that arrived in the meantime
+  but were too broken to read a ``seq`` from (they consumed a ``seq`` yet cannot be placed).
+  A loss found when no point is current is charged to the next point of the stream.
+- A ``seq`` at or below the last one seen in the same session is rejected as
+  ``duplicate_seq``; samples whose velocity columns or sampling rate differ from the current
+  point's are rejected as ``layout_changed``; a ``t`` column that steps back across messages
+  is rejected as ``time_backwards``. These reasons come from the pipeline, not the wire.
+- A new session (publisher restart) finishes the current point ``complete: false``, counts a
+  restart and starts fresh sequence expectations.
+- Point ``messages`` counts accepted messages while the point was current (its ``point``
+  message, samples, ``end``); the run line's ``messages`` counts every message received.
+- Statistics snapshots (which drive convergence, ``converged_at_s`` and the control signal)
+  are taken after every samples message, from the data alone, so a replay reproduces a live
+  run's summaries bit for bit; only the published :class:`~monitor.state.RunSnapshot` (for the
+  dashboard and status line) is paced by the clock.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import time
+import traceback
+from collections import Counter
+from collections.abc import Callable, Mapping, Sequence
+
+import numpy as np
+
+from monitor import wire
+from monitor.state import RunSnapshot, StreamView
+from monitor.summary import SummaryWriter
+
+__all__ = ["Pipeline", "PIPELINE_REJECTION_REASONS", "TRACE_ROWS", "HISTORY_ROWS"]
+
+#: Reasons the pipeline itself rejects a well-formed message for (in addition to the wire's).
+PIPELINE_REJECTION_REASONS = (
+    "duplicate_seq", "layout_changed", "time_backwards", "too_many_streams", "internal_error",
+)
+#: Rows kept in a stream's decimated trace.
+TRACE_ROWS = 2000
+#: Rows taken at most from one samples message into the trace.
+TRACE_ROWS_PER_MESSAGE = 256
+#: Entries kept in a point's history; when full, every other entry is dropped.
+HISTORY_ROWS = 2000
+#: Streams tracked at most (protects memory against a flood of invented stream names).
+MAX_STREAMS = 256
+#: Transport events kept for the snapshot.
+MAX_TRANSPORT_EVENTS = 50
+
+_ALL_REASONS = tuple(wire.REJECTION_REASONS) + tuple(
+    r for r in PIPELINE_REJECTION_REASONS if r not in wire.REJECTION_REASONS
+)
+
+
+def _zero_reasons() -> dict[str, int]:
+    return dict.fromkeys(wire.REJECTION_REASONS, 0)
+
+
+class _PointRun:
+    """Book-keeping of the current point of one stream."""
+
+    def __init__(self, index: int, point: dict | None):
+        self.index = index
+        self.point = dict(point) if point is not None else {"id": None}
+        self.stats = None  # stats.PointStatistics, created at the first samples
+        self.columns: tuple[str, ...] | None = None
+        self.rate_hz: float | None = None
+        self.messages = 0
+        self.gaps = 0
+        self.lost = 0
+        self.rejected: Counter = Counter()
+        self.last_t: float | None = None
+        self.snapshot = None  # latest stats.snapshot.PointSnapshot
+        self.converged_signalled = False
+        self.converged_clock: float | None = None
+        self.history: dict[str, list[float]] = {"duration_s": []}
+
+    @property
+    def point_id(self):
+        return self.point.get("id")
+
+
+class _StreamState:
+    """Everything the pipeline knows about one stream."""
+
+    def __init__(self, name: str):
+        self.name = name
+        self.session: str | None = None
+        self.expected_seq: int | None = None
+        self.unreadable_pending = 0
+        self.active = False  # at least one accepted message
+        self.ended = False
+        self.messages = 0  # accepted
+        self.received = 0  # accepted + rejected
+        self.samples = 0
+        self.lost = 0
+        self.gaps = 0
+        self.restarts = 0
+        self.rejected: Counter = Counter()
+        self.carry_gaps = 0
+        self.carry_lost = 0
+        self.carry_rejected: Counter = Counter()
+        self.point: _PointRun | None = None
+        self.points_started = 0
+        self.finished: list[dict] = []
+        self.rate_hz: float | None = None
+        self.trace = np.zeros((TRACE_ROWS, 0))
+        self.trace_columns: tuple[str, ...] = ()
+        self.trace_fill = 0
+        self.rate_mark: tuple[float, int] | None = None
+        self.ingest_rate_hz = 0.0
+
+
+class Pipeline:
+    """Per-stream, per-point statistics of everything received, with summaries and snapshots.
+
+    Parameters
+    ----------
+    targets : stats.Targets, optional
+        Convergence targets; ``stats.Targets.defaults()`` when None.
+    summary : path, text file, list of those, or SummaryWriter, optional
+        Where the DESIGN §4 JSON lines go (each line flushed as written).
+    on_converged : callable, optional
+        ``on_converged(stream, point, at_s, summary_line)``, called once per point as soon as
+        every target of the point is met (the control socket hangs here).
+    recorder : monitor.recorder.Recorder, optional
+        Receives every frame list exactly as received, with the rejection reason if any.
+    snapshot_interval_s : float
+        Shortest wall time between two published :class:`RunSnapshot` (point ends publish
+        at once).
+    clock : callable
+        Monotonic clock in seconds (injected for tests).
+    max_message_bytes : int
+        Application size limit passed to :func:`monitor.wire.decode`.
+    """
+
+    def __init__(
+        self,
+        targets=None,
+        *,
+        summary=None,
+        on_converged: Callable | None = None,
+        recorder=None,
+        snapshot_interval_s: float = 0.25,
+        clock: Callable[[], float] = time.monotonic,
+        max_message_bytes: int = wire.DEFAULT_MAX_MESSAGE_BYTES,
+    ):
+        import stats  # the numba-compiled core is loaded only when a pipeline is built
+
+        self._stats = stats
+        self.targets = targets if targets is not None else stats.Targets.defaults()
+        self._writer = summary if isinstance(summary, SummaryWriter) else SummaryWriter(summary)
+        self._on_converged = on_converged
+        self._recorder = recorder
+        self._interval = float(snapshot_interval_s)
+        self._clock = clock
+        self.max_message_bytes = int(max_message_bytes)
+        self._streams: dict[str, _StreamState] = {}
+        self._rejected: Counter = Counter()
+        self._received = 0
+        self._points_finished = 0
+        self._transport_events: list[str] = []
+        self._sequence = 0
+        self._last_publish = -math.inf
+        self._closed = False
+        self.internal_errors: list[str] = []
+        self.snapshot: RunSnapshot = self._build_snapshot()
+
+    # ------------------------------------------------------------------ socket / replay path
+
+    def handle_frames(self, frames: Sequence, received_at: float | None = None) -> str | None:
+        """Take one multipart message as received; returns the rejection reason or None.
+
+        The frames are recorded (if a recorder is set) exactly as given, with the reason when
+        rejected. Never raises on bad input.
+        """
+        self._received += 1
+        try:
+            msg = wire.decode(frames, self.max_message_bytes)
+            reason = self._dispatch(msg, frames)
+        except Exception:  # a bug must not take the monitor down; it is counted and shown
+            reason = "internal_error"
+            self._internal_error()
+            self._rejected[reason] += 1
+        if self._recorder is not None:
+            self._recorder.write(frames, time.time() if received_at is None else received_at,
+                                 rejected_reason=reason)
+        self._maybe_publish()
+        return reason
+
+    def _dispatch(self, msg, frames) -> str | None:
+        if isinstance(msg, wire.Rejection):
+            self._reject_unplaced(msg, frames)
+            return msg.reason
+        st = self._stream(msg.stream)
+        if st is None:
+            self._rejected["too_many_streams"] += 1
+            return "too_many_streams"
+        st.received += 1
+        reason = self._check_sequence(st, msg.session, msg.seq)
+        if reason is None:
+            if isinstance(msg, wire.SamplesMessage):
+                reason = self._on_samples_message(st, msg)
+            elif isinstance(msg, wire.PointMessage):
+                self._on_point(st, msg.point)
+            else:
+                self._on_end(st, counts_message=True)
+        if reason is not None:
+            self._count_rejection(st, reason)
+        else:
+            st.active = True
+            st.messages += 1
+            if st.point is not None and not isinstance(msg, wire.EndMessage):
+                st.point.messages += 1
+        return reason
+
+    def _reject_unplaced(self, rej, frames) -> None:
+        name = rej.stream if rej.stream is not None else _topic_of(frames)
+        st = self._stream(name) if name is not None else None
+        if st is None:
+            self._rejected[rej.reason] += 1
+            return
+        st.received += 1
+        if rej.session is not None and rej.seq is not None:
+            # it consumed its seq (a repeated seq is simply counted under the wire's reason)
+            self._check_sequence(st, rej.session, rej.seq)
+        else:
+            st.unreadable_pending += 1
+        self._count_rejection(st, rej.reason)
+
+    def _count_rejection(self, st: _StreamState, reason: str) -> None:
+        self._rejected[reason] += 1
+        st.rejected[reason] += 1
+        if st.point is not None:
+            st.point.rejected[reason] += 1
+        else:
+            st.carry_rejected[reason] += 1
+
+    def _check_sequence(self, st: _StreamState, session: str, seq: int) -> str | None:
+        if st.session is None:
+            st.session, st.expected_seq = session, seq + 1
+            return None
+        if session != st.session:
+            if st.point is not None:
+                self._finish_point(st, complete=False)
+            st.restarts += 1
+            st.session, st.expected_seq = session, seq + 1
+            st.unreadable_pending = 0
+            st.ended = False
+            return None
+        if seq < st.expected_seq:
+            return "duplicate_seq"
+        if seq > st.expected_seq:
+            missing = seq - st.expected_seq
+            lost = max(0, missing - st.unreadable_pending)
+            if lost:
+                st.gaps += 1
+                st.lost += lost
+                if st.point is not None:
+                    st.point.gaps += 1
+                    st.point.lost += lost
+                else:
+                    st.carry_gaps += 1
+                    st.carry_lost += lost
+        st.unreadable_pending = 0
+        st.expected_seq = seq + 1
+        return None
+
+    def _on_samples_message(self, st: _StreamState, msg) -> str | None:
+        if msg.point is not None and (st.point is None or msg.point.get("id") != st.point.point_id):
+            self._on_point(st, msg.point)
+        times = msg.times
+        return self._feed_block(
+            st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0
+        )
+
+    # ------------------------------------------------------------------ in-process API
+
+    def begin_point(self, stream: str, point: Mapping) -> None:
+        """Start a new measurement point on ``stream`` (finishing its current one, complete)."""
+        st = self._stream(stream)
+        if st is None:
+            raise ValueError(f"more than {MAX_STREAMS} streams")
+        st.active = True
+        self._on_point(st, dict(point))
+        self._maybe_publish()
+
+    def feed(
+        self,
+        stream: str,
+        block: np.ndarray,
+        columns: Sequence[str] = ("u", "v", "w"),
+        rate_hz: float | None = None,
+        times: np.ndarray | None = None,
+    ) -> str | None:
+        """Feed an ``(n, len(columns))`` block of velocity samples; returns a rejection reason.
+
+        ``rate_hz`` for uniform sampling, or ``times`` (s, one per row) for random sampling.
+        A block that is not finite or not of the stated shape is rejected and counted, never
+        raised on.
+        """
+        st = self._stream(stream)
+        if st is None:
+            raise ValueError(f"more than {MAX_STREAMS} streams")
+        st.received += 1
+        self._received += 1
+        block = np.asarray(block)
+        columns = tuple(columns)
+        reason = None
+        if block.ndim != 2 or block.shape[1] != len(columns) or block.shape[0] < 1:
+            reason = "bad_shape"
+        elif block.dtype.kind != "f":
+            reason = "bad_dtype"
+        elif not np.isfinite(block).all():
+            reason = "non_finite"
+        elif times is not None and (
+            np.shape(times) != (block.shape[0],) or not np.all(np.diff(times) >= 0)
+        ):
+            reason = "time_backwards" if np.shape(times) == (block.shape[0],) else "bad_shape"
+        elif rate_hz is None and times is None:
+            reason = "missing_field"
+        if reason is None:
+            t0 = 0.0
+            if times is None and st.point is not None and st.point.stats is not None:
+                t0 = st.point.stats.n / float(rate_hz)
+            reason = self._feed_block(st, block, columns, rate_hz, times, t0)
+        if reason is None:
+            st.active = True
+            st.messages += 1
+            if st.point is not None:
+                st.point.messages += 1
+        else:
+            self._count_rejection(st, reason)
+        self._maybe_publish()
+        return reason
+
+    def end(self, stream: str) -> None:
+        """The stream is over: finish its current point (complete)."""
+        st = self._stream(stream)
+        if st is None:
+            raise ValueError(f"more than {MAX_STREAMS} streams")
+        self._on_end(st)
+        self._maybe_publish()
+
+    def transport_event(self, text: str) -> None:
+        """Note a transport event (a peer connected, dropped...) for readers of the snapshot."""
+        self._transport_events.append(text)
+        del self._transport_events[:-MAX_TRANSPORT_EVENTS]
+        self._maybe_publish(force=True)
+
+    def close(self) -> None:
+        """Finish every current point (``complete: false``) and write the run line (idempotent)."""
+        if self._closed:
+            return
+        self._closed = True
+        for st in self._streams.values():
+            if st.point is not None:
+                self._finish_point(st, complete=False)
+        self._writer.write(self.run_line())
+        self._writer.close()
+        self.publish()
+
+    # ------------------------------------------------------------------ points
+
+    def _on_point(self, st: _StreamState, point: dict) -> None:
+        if st.point is not None:
+            self._finish_point(st, complete=True)
+        self._start_point(st, point)
+
+    def _start_point(self, st: _StreamState, point: dict | None) -> _PointRun:
+        run = _PointRun(st.points_started, point)
+        st.points_started += 1
+        run.gaps, run.lost, run.rejected = st.carry_gaps, st.carry_lost, st.carry_rejected
+        st.carry_gaps, st.carry_lost, st.carry_rejected = 0, 0, Counter()
+        st.point = run
+        st.ended = False
+        return run
+
+    def _on_end(self, st: _StreamState, counts_message: bool = False) -> None:
+        if st.point is not None:
+            if counts_message:  # the end message belongs to the point it closes
+                st.point.messages += 1
+            self._finish_point(st, complete=True)
+        st.ended = True
+        st.active = True
+
+    def _feed_block(self, st, velocity, columns, rate_hz, times, t0) -> str | None:
+        run = st.point if st.point is not None else self._start_point(st, None)
+        columns = tuple(columns)
+        if run.stats is None:
+            run.columns, run.rate_hz = columns, rate_hz
+            run.stats = self._stats.PointStatistics(columns, rate_hz, targets=self.targets)
+        elif columns != run.columns or rate_hz != run.rate_hz:
+            return "layout_changed"
+        duration_s = None
+        if rate_hz is None:
+            t_first, t_last = float(times[0]), float(times[-1])
+            if run.last_t is not None and t_first < run.last_t:
+                return "time_backwards"
+            duration_s = t_last - (t_first if run.last_t is None else run.last_t)
+            run.last_t = t_last
+        n = velocity.shape[0]
+        if rate_hz is None:
+            run.stats.update(velocity, duration_s=duration_s)
+        else:
+            run.stats.update(velocity)
+        st.samples += n
+        st.rate_hz = rate_hz
+        self._trace(st, velocity, columns, rate_hz, times, t0)
+        self._take_stats_snapshot(st, run)
+        return None
+
+    def _take_stats_snapshot(self, st: _StreamState, run: _PointRun) -> None:
+        snap = run.stats.snapshot()
+        run.snapshot = snap
+        h = run.history
+        h["duration_s"].append(float(snap.duration_s))
+        for e in snap.targeted():
+            h.setdefault(e.name, []).append(float(e.value))
+            h.setdefault(e.name + "_hw", []).append(float(e.half_width))
+            h.setdefault(e.name + "_target", []).append(float(e.target))
+        if len(h["duration_s"]) >= HISTORY_ROWS:
+            for key in h:
+                h[key] = h[key][::2]
+        if snap.converged and not run.converged_signalled:
+            run.converged_signalled = True
+            run.converged_clock = self._clock()
+            if self._on_converged is not None:
+                at_s = snap.converged_at_s if snap.converged_at_s is not None else snap.duration_s
+                try:
+                    self._on_converged(
+                        st.name, dict(run.point), float(at_s), self._point_line(st, run, False)
+                    )
+                except Exception:
+                    self._internal_error()
+
+    def _finish_point(self, st: _StreamState, complete: bool) -> None:
+        run = st.point
+        if run.stats is not None and run.snapshot is None:
+            run.snapshot = run.stats.snapshot()
+        line = self._point_line(st, run, complete)
+        self._writer.write(line)
+        st.finished.append(line)
+        st.point = None
+        self._points_finished += 1
+        self._maybe_publish(force=True)
+
+    # ------------------------------------------------------------------ lines
+
+    def _point_line(self, st: _StreamState, run: _PointRun, complete: bool) -> dict:
+        snap = run.snapshot
+        rejected = _zero_reasons()
+        rejected.update(run.rejected)
+        line = {
+            "v": 1,
+            "kind": "point",
+            "complete": bool(complete),
+            "stream": st.name,
+            "session": st.session,
+            "point": dict(run.point),
+            "point_index": run.index,
+            "samples": 0,
+            "duration_s": 0.0,
+            "messages": run.messages,
+            "gaps": run.gaps,
+            "lost_messages": run.lost,
+            "rejected": rejected,
+            "restarts": st.restarts,
+            "confidence": float(self.targets.confidence),
+            "converged": False,
+            "converged_at_s": None,
+            "k_method": None,
+            "suspect": {},
+            "columns": list(run.columns) if run.columns else [],
+            "rate_hz": run.rate_hz,
+            "statistics": [],
+        }
+        if snap is not None:
+            fields = snap.summary_fields()
+            line.update(fields)
+            # keep the contract order: statistics last
+            line["statistics"] = line.pop("statistics")
+        return line
+
+    def run_line(self) -> dict:
+        """The closing ``run`` line of DESIGN §4 (totals of the whole run)."""
+        rejected = _zero_reasons()
+        rejected.update(self._rejected)
+        return {
+            "v": 1,
+            "kind": "run",
+            "samples": sum(st.samples for st in self._streams.values()),
+            "messages": self._received,
+            "lost": sum(st.lost for st in self._streams.values()),
+            "gaps": sum(st.gaps for st in self._streams.values()),
+            "rejected": rejected,
+            "points": self._points_finished,
+            "streams": sorted(n for n, st in self._streams.items() if st.active),
+            "restarts": sum(st.restarts for st in self._streams.values()),
+        }
+
+    # ------------------------------------------------------------------ state for readers
+
+    @property
+    def streams_seen(self) -> tuple[str, ...]:
+        """Streams with at least one accepted message."""
+        return tuple(n for n, st in self._streams.items() if st.active)
+
+    @property
+    def all_ended(self) -> bool:
+        """True once at least one stream was seen and every stream seen has sent ``end``."""
+        active = [st for st in self._streams.values() if st.active]
+        return bool(active) and all(st.ended for st in active)
+
+    def _stream(self, name: str) -> _StreamState | None:
+        st = self._streams.get(name)
+        if st is None:
+            if len(self._streams) >= MAX_STREAMS:
+                return None
+            st = self._streams[name] = _StreamState(name)
+        return st
+
+    def _trace(self, st, velocity, columns, rate_hz, times, t0) -> None:
+        n, m = velocity.shape
+        if st.trace_columns != columns:
+            st.trace = np.zeros((TRACE_ROWS, m + 1))
+            st.trace_columns, st.trace_fill = columns, 0
+        stride = max(1, -(-n // TRACE_ROWS_PER_MESSAGE))
+        rows = np.arange(0, n, stride)
+        k = len(rows)
+        t = np.asarray(times, dtype=np.float64)[rows] if times is not None else t0 + rows / rate_hz
+        new = np.empty((k, m + 1))
+        new[:, 0] = t
+        new[:, 1:] = velocity[rows]
+        keep = min(st.trace_fill, TRACE_ROWS - k)
+        st.trace[:keep] = st.trace[st.trace_fill - keep: st.trace_fill]
+        st.trace[keep: keep + k] = new
+        st.trace_fill = keep + k
+
+    def _maybe_publish(self, force: bool = False) -> None:
+        if force or self._clock() - self._last_publish >= self._interval:
+            self.publish()
+
+    def publish(self) -> RunSnapshot:
+        """Build and publish a new snapshot now (rebinding :attr:`snapshot`)."""
+        self.snapshot = self._build_snapshot()
+        return self.snapshot
+
+    def _build_snapshot(self) -> RunSnapshot:
+        now = self._clock()
+        self._last_publish = now
+        self._sequence += 1
+        views = {}
+        for name, st in self._streams.items():
+            if st.rate_mark is not None and now > st.rate_mark[0]:
+                dt = now - st.rate_mark[0]
+                st.ingest_rate_hz = (st.samples - st.rate_mark[1]) / dt
+            st.rate_mark = (now, st.samples)
+            run = st.point
+            trace = {}
+            if st.trace_fill:
+                trace["t"] = st.trace[: st.trace_fill, 0]
+                for j, c in enumerate(st.trace_columns):
+                    trace[c] = st.trace[: st.trace_fill, j + 1]
+            history = {k: np.asarray(v) for k, v in run.history.items()} if run else {}
+            views[name] = StreamView(
+                stream=name,
+                session=st.session,
+                point=dict(run.point) if run else None,
+                point_index=run.index if run else st.points_started - 1,
+                stats=run.snapshot if run else None,
+                rate_hz=st.rate_hz,
+                ingest_rate_hz=float(st.ingest_rate_hz),
+                messages=st.messages,
+                lost_messages=st.lost,
+                gaps=st.gaps,
+                restarts=st.restarts,
+                rejected=dict(st.rejected),
+                trace=trace,
+                history=history,
+                finished=tuple(st.finished),
+                ended=st.ended,
+                converged_wall_age_s=(
+                    now - run.converged_clock if run and run.converged_clock is not None else None
+                ),
+            )
+        return RunSnapshot(
+            sequence=self._sequence,
+            created_at=time.time(),
+            streams=views,
+            rejected_total=dict(self._rejected),
+            transport_events=tuple(self._transport_events),
+        )
+
+    def _internal_error(self) -> None:
+        text = traceback.format_exc(limit=4)
+        self.internal_errors.append(text)
+        del self.internal_errors[:-20]
+        print(f"eddyvigil: internal error (message dropped and counted):\n{text}", file=sys.stderr)
+
+
+def _topic_of(frames) -> str | None:
+    """The topic frame as text, if the frames are at least that readable."""
+    try:
+        first = frames[0]
+        buf = getattr(first, "buffer", first)
+        data = bytes(memoryview(buf)[:256])
+        return data.decode("utf-8") or None
+    except Exception:
+        return None
