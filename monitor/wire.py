@@ -418,7 +418,7 @@ def _decode(frames: Any, max_message_bytes: int, ids: list) -> Message:
     if not _is_int(v) or v != PROTOCOL_VERSION:
         raise _Reject("bad_version", f"protocol version {v!r} is not {PROTOCOL_VERSION}"[:200])
     kind = _require(header, "kind")
-    if kind not in _KIND_FRAMES:
+    if not isinstance(kind, str) or kind not in _KIND_FRAMES:
         raise _Reject("bad_kind", f"unknown kind {kind!r}"[:200])
     stream = _require(header, "stream")
     session = _require(header, "session")
