@@ -51,7 +51,11 @@ __all__ = ["Pipeline", "PIPELINE_REJECTION_REASONS", "TRACE_ROWS", "HISTORY_ROWS
 
 #: Reasons the pipeline itself rejects a well-formed message for (in addition to the wire's).
 PIPELINE_REJECTION_REASONS = (
-    "duplicate_seq", "layout_changed", "time_backwards", "too_many_streams", "internal_error",
+    "duplicate_seq",
+    "layout_changed",
+    "time_backwards",
+    "too_many_streams",
+    "internal_error",
 )
 #: Rows kept in a stream's decimated trace.
 TRACE_ROWS = 2000
@@ -200,8 +204,9 @@ class Pipeline:
             self._internal_error()
             self._rejected[reason] += 1
         if self._recorder is not None:
-            self._recorder.write(frames, time.time() if received_at is None else received_at,
-                                 rejected_reason=reason)
+            self._recorder.write(
+                frames, time.time() if received_at is None else received_at, rejected_reason=reason
+            )
         self._maybe_publish()
         return reason
 
@@ -287,9 +292,7 @@ class Pipeline:
         if msg.point is not None and (st.point is None or msg.point.get("id") != st.point.point_id):
             self._on_point(st, msg.point)
         times = msg.times
-        return self._feed_block(
-            st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0
-        )
+        return self._feed_block(st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0)
 
     # ------------------------------------------------------------------ in-process API
 
@@ -550,8 +553,8 @@ class Pipeline:
         new[:, 0] = t
         new[:, 1:] = velocity[rows]
         keep = min(st.trace_fill, TRACE_ROWS - k)
-        st.trace[:keep] = st.trace[st.trace_fill - keep: st.trace_fill]
-        st.trace[keep: keep + k] = new
+        st.trace[:keep] = st.trace[st.trace_fill - keep : st.trace_fill]
+        st.trace[keep : keep + k] = new
         st.trace_fill = keep + k
 
     def _maybe_publish(self, force: bool = False) -> None:

@@ -28,12 +28,33 @@ SUMMARY_VERSION = 1
 
 #: Fields every ``point`` line carries (DESIGN §4); extra fields may follow.
 POINT_FIELDS = (
-    "v", "kind", "complete", "stream", "session", "point", "samples", "duration_s", "messages",
-    "gaps", "lost_messages", "rejected", "confidence", "converged", "converged_at_s", "statistics",
+    "v",
+    "kind",
+    "complete",
+    "stream",
+    "session",
+    "point",
+    "samples",
+    "duration_s",
+    "messages",
+    "gaps",
+    "lost_messages",
+    "rejected",
+    "confidence",
+    "converged",
+    "converged_at_s",
+    "statistics",
 )
 #: Fields of one entry of ``statistics``.
 STATISTIC_FIELDS = (
-    "name", "value", "stderr", "ci_low", "ci_high", "target", "converged", "eta_s",
+    "name",
+    "value",
+    "stderr",
+    "ci_low",
+    "ci_high",
+    "target",
+    "converged",
+    "eta_s",
 )
 #: Fields of the closing ``run`` line.
 RUN_FIELDS = ("v", "kind", "samples", "messages", "lost", "rejected", "points", "streams")

@@ -1,0 +1,66 @@
+"""The control socket of DESIGN §6: "this point has converged", for a traverse controller.
+
+With ``--control ENDPOINT`` the monitor binds a PUB socket there. Once per point, as soon as
+every target of the point is met, it publishes two frames: the stream name and the JSON object
+``{"v": 1, "kind": "converged", "stream", "point", "at_s", "summary"}``, where ``at_s`` is the
+acquisition time into the point and ``summary`` the point's DESIGN §4 line at that moment
+(``"complete": false``: the point is still running). A controller subscribes (to all, or to its
+stream's name) and moves the traverse on. Like any PUB socket it does not queue for a
+subscriber that is not connected yet: connect before the point converges.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+
+import zmq
+
+from monitor.subscriber import open_socket
+from monitor.summary import dumps_line
+
+__all__ = ["ControlPublisher", "converged_message"]
+
+
+def converged_message(stream: str, point: Mapping, at_s: float, summary: Mapping) -> dict:
+    """The JSON object of one ``converged`` signal."""
+    return {
+        "v": 1,
+        "kind": "converged",
+        "stream": stream,
+        "point": dict(point),
+        "at_s": float(at_s),
+        "summary": dict(summary),
+    }
+
+
+class ControlPublisher:
+    """A bound PUB socket sending ``converged`` signals (LINGER 0).
+
+    Raises ``monitor.subscriber.SubscriberError`` (or its ``AddressInUseError``) when the
+    endpoint cannot be bound.
+    """
+
+    def __init__(self, endpoint: str, context: zmq.Context | None = None):
+        self._own_ctx = context is None
+        self._ctx = context if context is not None else zmq.Context()
+        try:
+            self.socket = open_socket(self._ctx, zmq.PUB, endpoint, bind=True)
+        except Exception:
+            if self._own_ctx:
+                self._ctx.term()
+            raise
+        self.endpoint = endpoint
+        self.sent = 0
+
+    def send(self, stream: str, point: Mapping, at_s: float, summary: Mapping) -> None:
+        """Publish one ``converged`` signal; never blocks (PUB drops if nobody listens)."""
+        body = dumps_line(converged_message(stream, point, at_s, summary))
+        self.socket.send_multipart([stream.encode("utf-8"), body.encode("utf-8")])
+        self.sent += 1
+
+    __call__ = send  # usable directly as Pipeline(on_converged=...)
+
+    def close(self) -> None:
+        self.socket.close(linger=0)
+        if self._own_ctx:
+            self._ctx.term()

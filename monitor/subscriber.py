@@ -1,0 +1,252 @@
+"""The monitor's receiving socket: ZeroMQ SUB (default) or PULL, connected or bound.
+
+:class:`Subscriber` opens the socket with LINGER 0, receives multipart messages without
+copying (``copy=False``: the samples frame reaches numpy as a view on ZeroMQ's buffer, no
+per-sample Python work) and hands each frame list to a callback, normally
+:meth:`monitor.pipeline.Pipeline.handle_frames`. A ZeroMQ socket monitor reports transport
+events (peer connected, disconnected, handshake failed) to a second callback, so a peer that
+ZeroMQ drops never goes unnoticed.
+
+Queue depth. ``RCVHWM`` is set to :data:`DEFAULT_RCVHWM` messages (ZeroMQ's default is
+1000). At the typical 16384 rows x 3 float32 per message (196 KiB) that lets about 800 MiB
+queue in the monitor while the statistics catch up after a stall (a dashboard redraw, a
+garbage collection) before a PUB starts dropping; with PUSH/PULL a full queue just slows the
+publisher down. Smaller messages cost proportionally less memory.
+
+Size limit. The application limit (``--max-message-mb``) is enforced by
+:func:`monitor.wire.decode`, which rejects and counts an oversized message. ZeroMQ's own
+``MAXMSGSIZE``, which disconnects a peer without telling anyone, is only set as a far higher
+memory ceiling (:data:`MAXMSGSIZE_FACTOR` times the limit), and a disconnect it causes shows up
+as a transport event.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from collections.abc import Callable, Iterable
+
+import zmq
+from zmq.utils.monitor import recv_monitor_message
+
+__all__ = [
+    "Subscriber",
+    "SubscriberError",
+    "AddressInUseError",
+    "DEFAULT_RCVHWM",
+    "MAXMSGSIZE_FACTOR",
+    "check_endpoint",
+]
+
+DEFAULT_RCVHWM = 4096
+MAXMSGSIZE_FACTOR = 4
+#: Messages taken from the socket per poll before the loop looks at its stop flag again.
+DRAIN_BATCH = 64
+
+_EVENT_TEXT = {
+    zmq.EVENT_CONNECTED: "connected to",
+    zmq.EVENT_ACCEPTED: "accepted a peer on",
+    zmq.EVENT_DISCONNECTED: "peer disconnected from",
+    zmq.EVENT_CLOSED: "connection closed on",
+    zmq.EVENT_ACCEPT_FAILED: "could not accept a peer on",
+    zmq.EVENT_BIND_FAILED: "could not bind",
+}
+for _name, _text in (
+    ("EVENT_HANDSHAKE_FAILED_NO_DETAIL", "handshake failed with"),
+    ("EVENT_HANDSHAKE_FAILED_PROTOCOL", "protocol error (peer cut off) on"),
+    ("EVENT_HANDSHAKE_FAILED_AUTH", "authentication failed on"),
+):
+    if hasattr(zmq, _name):
+        _EVENT_TEXT[getattr(zmq, _name)] = _text
+
+
+class SubscriberError(Exception):
+    """The endpoint cannot be used (malformed, unknown transport, unreachable interface)."""
+
+
+class AddressInUseError(SubscriberError):
+    """``--bind`` to an address some other program already holds."""
+
+
+def check_endpoint(endpoint: str) -> str:
+    """A quick, friendly check of a ZeroMQ endpoint's form; returns it or raises.
+
+    >>> check_endpoint("tcp://127.0.0.1:5555")
+    'tcp://127.0.0.1:5555'
+    >>> check_endpoint("127.0.0.1:5555")
+    Traceback (most recent call last):
+    ...
+    monitor.subscriber.SubscriberError: endpoint '127.0.0.1:5555' has no transport; write it \
+like tcp://127.0.0.1:5555 or ipc:///tmp/probe.sock
+    """
+    transport, sep, rest = endpoint.partition("://")
+    if not sep:
+        raise SubscriberError(
+            f"endpoint {endpoint!r} has no transport; write it like tcp://127.0.0.1:5555 "
+            "or ipc:///tmp/probe.sock"
+        )
+    if transport not in ("tcp", "ipc", "inproc", "pgm", "epgm", "ws", "wss", "vmci"):
+        raise SubscriberError(f"endpoint {endpoint!r}: unknown transport {transport!r}")
+    if not rest:
+        raise SubscriberError(f"endpoint {endpoint!r} has no address")
+    return endpoint
+
+
+def open_socket(ctx: zmq.Context, socket_type: int, endpoint: str, *, bind: bool) -> zmq.Socket:
+    """Create a LINGER-0 socket and bind or connect it, translating ZeroMQ's errors."""
+    check_endpoint(endpoint)
+    sock = ctx.socket(socket_type)
+    sock.setsockopt(zmq.LINGER, 0)
+    try:
+        if bind:
+            sock.bind(endpoint)
+        else:
+            sock.connect(endpoint)
+    except zmq.ZMQError as exc:
+        sock.close(linger=0)
+        if exc.errno == zmq.EADDRINUSE:
+            raise AddressInUseError(f"{endpoint}: address already in use") from None
+        verb = "bind" if bind else "connect"
+        raise SubscriberError(f"cannot {verb} {endpoint}: {exc.strerror}") from None
+    return sock
+
+
+class Subscriber:
+    """A receiving socket and its loop.
+
+    Parameters
+    ----------
+    endpoint : str
+        ZeroMQ endpoint, e.g. ``tcp://127.0.0.1:5555``.
+    bind : bool
+        Bind instead of connect.
+    socket : {"sub", "pull"}
+        SUB (topics filtered by ``streams``) or PULL (back-pressure, no filter).
+    streams : iterable of str
+        Topic filters for SUB (exact stream names); empty subscribes to everything.
+    max_message_bytes : int
+        The application limit; ZeroMQ's ``MAXMSGSIZE`` is set to a multiple of it.
+    rcvhwm : int
+        Receive high-water mark in messages.
+    context : zmq.Context, optional
+        Defaults to a private context, terminated by :meth:`close`.
+    """
+
+    def __init__(
+        self,
+        endpoint: str,
+        *,
+        bind: bool = False,
+        socket: str = "sub",
+        streams: Iterable[str] = (),
+        max_message_bytes: int = 256 * 2**20,
+        rcvhwm: int = DEFAULT_RCVHWM,
+        context: zmq.Context | None = None,
+    ):
+        if socket not in ("sub", "pull"):
+            raise SubscriberError(f"socket must be 'sub' or 'pull', not {socket!r}")
+        self.endpoint = endpoint
+        self._own_ctx = context is None
+        self._ctx = context if context is not None else zmq.Context()
+        self._stop = threading.Event()
+        kind = zmq.SUB if socket == "sub" else zmq.PULL
+        try:
+            self.socket = open_socket(self._ctx, kind, endpoint, bind=bind)
+        except SubscriberError:
+            if self._own_ctx:
+                self._ctx.term()
+            raise
+        self.socket.setsockopt(zmq.RCVHWM, int(rcvhwm))
+        self.socket.setsockopt(zmq.MAXMSGSIZE, MAXMSGSIZE_FACTOR * int(max_message_bytes) + 2**20)
+        if kind == zmq.SUB:
+            topics = list(streams) or [""]
+            for t in topics:
+                self.socket.setsockopt(zmq.SUBSCRIBE, t.encode("utf-8"))
+        self._monitor = self.socket.get_monitor_socket(
+            zmq.EVENT_CONNECTED
+            | zmq.EVENT_DISCONNECTED
+            | zmq.EVENT_ACCEPTED
+            | zmq.EVENT_CLOSED
+            | zmq.EVENT_ACCEPT_FAILED
+            | zmq.EVENT_BIND_FAILED
+            | getattr(zmq, "EVENT_HANDSHAKE_FAILED_NO_DETAIL", 0)
+            | getattr(zmq, "EVENT_HANDSHAKE_FAILED_PROTOCOL", 0)
+            | getattr(zmq, "EVENT_HANDSHAKE_FAILED_AUTH", 0)
+        )
+        self._monitor.setsockopt(zmq.LINGER, 0)
+        self.messages = 0
+        self.disconnects = 0
+
+    def stop(self) -> None:
+        """Ask :meth:`run` to return (thread-safe, also from a signal handler)."""
+        self._stop.set()
+
+    @property
+    def stopping(self) -> bool:
+        return self._stop.is_set()
+
+    def run(
+        self,
+        on_frames: Callable[[list, float], object],
+        *,
+        on_event: Callable[[str], object] | None = None,
+        on_tick: Callable[[], object] | None = None,
+        tick_interval_s: float = 1.0,
+        poll_ms: int = 100,
+        max_messages: int | None = None,
+    ) -> None:
+        """Receive until :meth:`stop` (or ``max_messages``); callbacks run in this thread.
+
+        ``on_frames(frames, received_at)`` gets the ``zmq.Frame`` list and the wall time;
+        ``on_event(text)`` transport events; ``on_tick()`` about every ``tick_interval_s``.
+        """
+        poller = zmq.Poller()
+        poller.register(self.socket, zmq.POLLIN)
+        poller.register(self._monitor, zmq.POLLIN)
+        next_tick = time.monotonic() + tick_interval_s
+        while not self._stop.is_set():
+            ready = dict(poller.poll(poll_ms))
+            if self._monitor in ready:
+                self._drain_events(on_event)
+            if self.socket in ready:
+                for _ in range(DRAIN_BATCH):
+                    try:
+                        frames = self.socket.recv_multipart(zmq.NOBLOCK, copy=False)
+                    except zmq.Again:
+                        break
+                    self.messages += 1
+                    on_frames(frames, time.time())
+                    if max_messages is not None and self.messages >= max_messages:
+                        self._stop.set()
+                        break
+            now = time.monotonic()
+            if on_tick is not None and now >= next_tick:
+                next_tick = now + tick_interval_s
+                on_tick()
+
+    def _drain_events(self, on_event) -> None:
+        while True:
+            try:
+                evt = recv_monitor_message(self._monitor, zmq.NOBLOCK)
+            except zmq.Again:
+                return
+            kind = evt.get("event")
+            if kind == zmq.EVENT_DISCONNECTED:
+                self.disconnects += 1
+            text = _EVENT_TEXT.get(kind)
+            if text is not None and on_event is not None:
+                addr = evt.get("endpoint", b"")
+                if isinstance(addr, bytes):
+                    addr = addr.decode("utf-8", "replace")
+                on_event(f"{time.strftime('%H:%M:%S')} {text} {addr or self.endpoint}")
+
+    def close(self) -> None:
+        """Close both sockets with LINGER 0 (and the private context)."""
+        try:
+            self.socket.disable_monitor()
+        except zmq.ZMQError:
+            pass
+        self._monitor.close(linger=0)
+        self.socket.close(linger=0)
+        if self._own_ctx:
+            self._ctx.term()

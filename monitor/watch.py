@@ -1,0 +1,364 @@
+"""Monitor a live stream: statistics per point, summaries, convergence signals, dashboard.
+
+``eddyvigil watch`` connects (or binds) a SUB or PULL socket to a publisher of wire protocol v1,
+feeds every message through :class:`monitor.pipeline.Pipeline`, writes one summary line per
+finished point (to ``--summary FILE``, to ``DIR/summary.jsonl`` with ``--record DIR``, or to
+standard output when neither is given), optionally records every frame and publishes
+``converged`` signals on ``--control``. With the dashboard (default) it serves it on
+``--host:--port`` until Ctrl-C; with ``--no-dashboard`` it ends by itself once every stream it
+has seen has sent ``end``. A one-line status goes to standard error about once a second
+(every 10 s when standard error is not a terminal; never with ``--quiet``).
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import signal
+import sys
+import threading
+import time
+from pathlib import Path
+
+from monitor.subscriber import DEFAULT_RCVHWM
+
+__all__ = [
+    "add_arguments",
+    "run",
+    "status_line",
+    "StatusPrinter",
+    "EPILOG",
+    "EXIT_OK",
+    "EXIT_ERROR",
+    "EXIT_USAGE",
+    "EXIT_ENDPOINT",
+    "EXIT_TARGETS",
+    "EXIT_RECORDING_EXISTS",
+    "EXIT_ADDRESS_IN_USE",
+    "EXIT_NO_RECORDING",
+    "SETTINGS_FILE",
+]
+
+EXIT_OK = 0
+EXIT_ERROR = 1
+EXIT_USAGE = 2  # argparse
+EXIT_ENDPOINT = 3
+EXIT_TARGETS = 4
+EXIT_RECORDING_EXISTS = 5
+EXIT_ADDRESS_IN_USE = 6
+EXIT_NO_RECORDING = 7
+
+#: Written into a recording directory: what replay needs to reproduce the live summaries.
+SETTINGS_FILE = "monitor-settings.json"
+
+
+def _default_targets_text() -> str:
+    from stats.targets import Targets
+
+    return Targets.defaults().describe()
+
+
+EPILOG = f"""\
+exit codes:
+  0  finished normally (all streams ended, or Ctrl-C / SIGTERM)
+  1  unexpected error
+  2  bad command line
+  3  bad endpoint (malformed, unknown transport, cannot connect or bind)
+  4  targets file unreadable or malformed (the message says where)
+  5  --record DIR already holds a recording (use --append to add to it)
+  6  address already in use (--bind, --control or the dashboard --port)
+
+default targets (without --targets FILE):
+{_default_targets_text()}
+"""
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    where = p.add_mutually_exclusive_group(required=True)
+    where.add_argument(
+        "--connect", metavar="ENDPOINT", help="connect to a publisher, e.g. tcp://127.0.0.1:5555"
+    )
+    where.add_argument("--bind", metavar="ENDPOINT", help="bind and let publishers connect")
+    p.add_argument(
+        "--socket",
+        choices=("sub", "pull"),
+        default="sub",
+        help="SUB (default; drops when behind, counted as gaps) or PULL (back-pressure)",
+    )
+    p.add_argument(
+        "--stream",
+        metavar="NAME",
+        action="append",
+        default=[],
+        help="only this stream (repeatable; SUB topic filter)",
+    )
+    p.add_argument("--record", metavar="DIR", help="record every received frame into DIR")
+    p.add_argument(
+        "--append", action="store_true", help="add to an existing recording and summary file"
+    )
+    p.add_argument("--summary", metavar="FILE", help="write the summary JSON lines to FILE")
+    p.add_argument("--targets", metavar="FILE", help="targets file (TOML); defaults below")
+    p.add_argument("--control", metavar="ENDPOINT", help="bind a PUB here for 'converged' signals")
+    p.add_argument(
+        "--no-dashboard",
+        action="store_true",
+        help="no dashboard; exit once every stream seen has sent 'end'",
+    )
+    p.add_argument("--host", default="127.0.0.1", help="dashboard address (default 127.0.0.1)")
+    p.add_argument("--port", type=int, default=5006, help="dashboard port (default 5006)")
+    p.add_argument(
+        "--max-message-mb",
+        type=float,
+        default=256.0,
+        help="reject messages larger than this (MiB, default 256)",
+    )
+    p.add_argument(
+        "--rcvhwm",
+        type=int,
+        default=DEFAULT_RCVHWM,
+        help=f"receive queue depth in messages (default {DEFAULT_RCVHWM})",
+    )
+    p.add_argument("--quiet", action="store_true", help="no status line")
+
+
+def _fail(code: int, message: str) -> int:
+    print(f"eddyvigil watch: {message}", file=sys.stderr)
+    return code
+
+
+def load_targets(path: str | None):
+    """Targets from a file (or defaults); raises ``stats.targets.TargetsError``."""
+    from stats.targets import Targets
+
+    return Targets.defaults() if path is None else Targets.from_toml(path)
+
+
+def _fmt_count(n: float) -> str:
+    for unit, div in (("G", 1e9), ("M", 1e6), ("k", 1e3)):
+        if abs(n) >= div:
+            return f"{n / div:.3g}{unit}"
+    return f"{n:.0f}"
+
+
+def status_line(snapshot) -> str:
+    """One line per run: stream, point, samples, rate, lost, rejected, slowest statistic + ETA."""
+    parts = []
+    for name, sv in snapshot.streams.items():
+        pid = sv.point.get("id") if sv.point else None
+        samples = sv.stats.samples if sv.stats is not None else 0
+        text = (
+            f"{name} {pid if pid is not None else '-'}: {_fmt_count(samples)} samples "
+            f"{_fmt_count(sv.ingest_rate_hz)}/s lost {sv.lost_messages} "
+            f"rej {sum(sv.rejected.values())}"
+        )
+        if sv.ended:
+            text += " [ended]"
+        elif sv.stats is not None:
+            if sv.stats.converged:
+                text += " converged"
+            else:
+                slow = sv.stats.slowest()
+                if slow is not None:
+                    eta = "?" if slow.eta_s is None else f"{slow.eta_s:.0f}s"
+                    text += f" slowest {slow.name} ETA {eta}"
+        parts.append(text)
+    return " | ".join(parts) or "waiting for data"
+
+
+class StatusPrinter:
+    """Rewrites one status line on a terminal, or prints one every ``plain_interval_s``."""
+
+    def __init__(self, stream=sys.stderr, quiet: bool = False, plain_interval_s: float = 10.0):
+        self._stream = stream
+        self._quiet = quiet
+        self._tty = bool(getattr(stream, "isatty", lambda: False)())
+        self._plain_interval = plain_interval_s
+        self._last = -float("inf")
+
+    def tick(self, snapshot) -> None:
+        if self._quiet:
+            return
+        line = status_line(snapshot)
+        if self._tty:
+            self._stream.write("\r" + line[:200] + "\x1b[K")
+            self._stream.flush()
+        elif time.monotonic() - self._last >= self._plain_interval:
+            self._last = time.monotonic()
+            print(line, file=self._stream, flush=True)
+
+    def event(self, text: str) -> None:
+        if not self._quiet:
+            prefix = "\r\x1b[K" if self._tty else ""
+            print(f"{prefix}eddyvigil: transport: {text}", file=self._stream, flush=True)
+
+    def done(self) -> None:
+        if self._tty and not self._quiet:
+            self._stream.write("\n")
+            self._stream.flush()
+
+
+def write_settings(directory: Path, targets, max_message_bytes: int) -> None:
+    """What a replay needs to reproduce this run's summaries."""
+    (directory / SETTINGS_FILE).write_text(
+        json.dumps(
+            {"v": 1, "targets": targets.to_dict(), "max_message_bytes": max_message_bytes}, indent=1
+        )
+        + "\n",
+        encoding="utf-8",
+    )
+
+
+def install_stop_signals(stop) -> None:
+    """SIGINT and SIGTERM call ``stop()`` (main thread only)."""
+
+    def handler(signum, frame):
+        stop()
+
+    signal.signal(signal.SIGINT, handler)
+    signal.signal(signal.SIGTERM, handler)
+
+
+def run(args: argparse.Namespace) -> int:
+    from monitor.subscriber import AddressInUseError, Subscriber, SubscriberError, check_endpoint
+    from stats.targets import TargetsError
+
+    try:
+        targets = load_targets(args.targets)
+    except TargetsError as exc:
+        return _fail(EXIT_TARGETS, str(exc))
+    if not args.max_message_mb > 0:
+        return _fail(EXIT_USAGE, "--max-message-mb must be positive")
+    max_bytes = int(args.max_message_mb * 2**20)
+    endpoint = args.connect or args.bind
+    try:
+        check_endpoint(endpoint)
+        if args.control:
+            check_endpoint(args.control)
+    except SubscriberError as exc:
+        return _fail(EXIT_ENDPOINT, str(exc))
+    if args.record and not args.append and _holds_recording(Path(args.record)):
+        return _fail(
+            EXIT_RECORDING_EXISTS,
+            f"{args.record} already holds a recording; choose a new directory or add --append",
+        )
+
+    closers = []
+    try:
+        try:
+            sub = Subscriber(
+                endpoint,
+                bind=args.bind is not None,
+                socket=args.socket,
+                streams=args.stream,
+                max_message_bytes=max_bytes,
+                rcvhwm=args.rcvhwm,
+            )
+        except AddressInUseError as exc:
+            return _fail(EXIT_ADDRESS_IN_USE, str(exc))
+        except SubscriberError as exc:
+            return _fail(EXIT_ENDPOINT, str(exc))
+        closers.append(sub.close)
+        control = None
+        if args.control:
+            from monitor.control import ControlPublisher
+
+            try:
+                control = ControlPublisher(args.control)
+            except AddressInUseError as exc:
+                return _fail(EXIT_ADDRESS_IN_USE, f"--control {exc}")
+            except SubscriberError as exc:
+                return _fail(EXIT_ENDPOINT, f"--control {exc}")
+            closers.append(control.close)
+        recorder = None
+        sinks = [args.summary] if args.summary else []
+        if args.record:
+            from monitor.recorder import Recorder, RecordingExistsError
+
+            try:
+                recorder = Recorder(args.record, append=args.append)
+            except RecordingExistsError as exc:
+                return _fail(EXIT_RECORDING_EXISTS, f"{exc}; add --append to add to it")
+            closers.append(recorder.close)
+            write_settings(Path(args.record), targets, max_bytes)
+            sinks.append(Path(args.record) / "summary.jsonl")
+        if not sinks:
+            sinks = [sys.stdout]
+
+        from monitor.pipeline import Pipeline
+        from monitor.summary import SummaryWriter
+
+        writer = SummaryWriter(sinks, append=args.append)
+        pipeline = Pipeline(
+            targets,
+            summary=writer,
+            on_converged=control,
+            recorder=recorder,
+            max_message_bytes=max_bytes,
+        )
+        status = StatusPrinter(quiet=args.quiet)
+
+        def on_frames(frames, received_at):
+            pipeline.handle_frames(frames, received_at)
+            if args.no_dashboard and pipeline.all_ended:
+                sub.stop()
+
+        def on_event(text):
+            status.event(text)
+            pipeline.transport_event(text)
+
+        def on_tick():
+            pipeline.publish()
+            status.tick(pipeline.snapshot)
+
+        def acquire():
+            sub.run(on_frames, on_event=on_event, on_tick=on_tick)
+
+        if args.no_dashboard:
+            install_stop_signals(sub.stop)
+            acquire()
+        else:
+            code = _serve_with_dashboard(args, pipeline, sub, acquire)
+            if code:
+                return code
+        status.done()
+        pipeline.close()
+        if recorder is not None:
+            recorder.flush()
+        return EXIT_OK
+    finally:
+        for close in reversed(closers):
+            close()
+
+
+def _serve_with_dashboard(args, pipeline, sub, acquire) -> int:
+    """Serve the dashboard on the main thread, acquisition in a thread started by the server."""
+    from monitor.dashboard.server import PortInUseError, serve
+
+    thread = threading.Thread(target=acquire, name="eddyvigil-acquisition", daemon=True)
+
+    def on_ready(server):
+        if not args.quiet:
+            print(f"eddyvigil: dashboard at {server.url}", file=sys.stderr, flush=True)
+
+    try:
+        serve(
+            lambda: pipeline.snapshot,
+            host=args.host,
+            port=args.port,
+            on_start=thread.start,
+            on_stop=sub.stop,
+            title="eddyvigil watch",
+            on_ready=on_ready,
+        )
+    except PortInUseError as exc:
+        return _fail(EXIT_ADDRESS_IN_USE, str(exc))
+    finally:
+        sub.stop()
+        if thread.is_alive():
+            thread.join(timeout=10.0)
+    return 0
+
+
+def _holds_recording(directory: Path) -> bool:
+    """True when DIR exists and is not empty (the recorder has the final word)."""
+    return directory.is_dir() and any(directory.iterdir())
