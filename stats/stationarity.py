@@ -1,0 +1,313 @@
+"""Stationarity guard: is the mean of a velocity component drifting during the point?
+
+A drifting run makes every convergence verdict a lie, so each point keeps 32-63 equal-length
+segment means per component (each segment a few blocking block sizes long, so the means are
+nearly independent) and the blocking standard error of the whole-record mean. :func:`assess`
+combines tests on them:
+
+- reverse arrangements (Bendat & Piersol 2010, *Random Data*, 4th ed., §4.5.2 / Table A.7):
+  A = #{i < j : x_i > x_j}, two-sided, exact acceptance region from the Mahonian distribution.
+  Distribution-free, and blind to the error-bar estimate, so it is not weakened when a drift
+  inflates the blocking standard error.
+- half against half: the difference of the first-half and second-half means over its standard
+  error sqrt(SE^2 (N/N1 + N/N2)), from the whole-record blocking SE. Sensitive to steps.
+- least-squares trend: the slope of the segment means against their index, over the standard
+  error the whole-record SE implies for it (segment-mean variance N SE^2).
+
+TUNING
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from fractions import Fraction
+from functools import lru_cache
+from types import MappingProxyType
+
+import numpy as np
+
+__all__ = [
+    "reverse_arrangements",
+    "reverse_arrangement_acceptance",
+    "mahonian_counts",
+    "half_difference_z",
+    "trend_t",
+    "StationarityVerdict",
+    "assess",
+    "MIN_SEGMENTS",
+    "EXACT_LIMIT",
+    "DEFAULT_ALPHA",
+]
+
+#: Default level of the trend test (module docstring: the tuning).
+DEFAULT_ALPHA = 0.008
+
+#: Above this many values the acceptance region comes from the normal approximation.
+EXACT_LIMIT = 200
+
+#: Fewer segment means than this give no verdict (stationary, reason "not enough segments").
+MIN_SEGMENTS = 20
+
+
+def reverse_arrangements(x: np.ndarray) -> int:
+    """Number of reverse arrangements ``A = #{i < j : x_i > x_j}`` (ties do not count).
+
+    Bendat & Piersol (2010), *Random Data*, worked example:
+
+    >>> reverse_arrangements(np.array([5, 3, 8, 1, 9, 2, 7, 4, 6, 0]))
+    26
+    """
+    a = np.asarray(x, dtype=np.float64).ravel()
+    n = a.size
+    if n < 2:
+        return 0
+    if n <= 2048:
+        # Pairwise comparison of the upper triangle: n <= 63 in use, one vectorised pass.
+        gt = a[:, None] > a[None, :]
+        return int(np.count_nonzero(np.triu(gt, k=1)))
+    return int(sum(np.count_nonzero(a[i] > a[i + 1 :]) for i in range(n - 1)))
+
+
+@lru_cache(maxsize=256)
+def mahonian_counts(n: int) -> tuple[int, ...]:
+    """Exact counts of permutations of ``n`` items by number of inversions (A = 0 .. n(n-1)/2).
+
+    Dynamic programme: inserting item i into a permutation of i - 1 items adds 0..i-1
+    inversions, so the counts are a running-window sum (integers, no rounding).
+
+    >>> mahonian_counts(4)
+    (1, 3, 5, 6, 5, 3, 1)
+    """
+    if n < 0:
+        raise ValueError(f"n must be >= 0, got {n}")
+    counts = [1]
+    for i in range(2, n + 1):
+        width = len(counts) + i - 1
+        prefix = [0]
+        for c in counts:
+            prefix.append(prefix[-1] + c)
+        new = []
+        for k in range(width):
+            hi = min(k, len(counts) - 1)
+            lo = max(0, k - (i - 1))
+            new.append(prefix[hi + 1] - prefix[lo])
+        counts = new
+    return tuple(counts)
+
+
+@lru_cache(maxsize=1024)
+def reverse_arrangement_acceptance(n: int, alpha: float) -> tuple[int, int]:
+    """Exact two-sided acceptance region ``lo < A <= hi`` for ``n`` independent values.
+
+    ``lo`` is the largest a with P(A <= a) <= alpha/2 (-1 if none), ``hi`` the smallest a with
+    P(A > a) <= alpha/2; the Mahonian distribution is symmetric, so hi = n(n-1)/2 - lo - 1.
+    Check values (REFERENCES §6, alpha = 0.05):
+
+    >>> [reverse_arrangement_acceptance(n, 0.05) for n in (10, 20, 30, 100)]
+    [(11, 33), (64, 125), (162, 272), (2145, 2804)]
+    """
+    if not (0.0 < alpha < 1.0):
+        raise ValueError(f"alpha must be in (0, 1), got {alpha}")
+    n = int(n)
+    top = n * (n - 1) // 2
+    if n > EXACT_LIMIT:
+        # Normal approximation (Kendall): mu = n(n-1)/4, var = n(2n+5)(n-1)/72.
+        from scipy.stats import norm
+
+        mu = n * (n - 1) / 4.0
+        sd = math.sqrt(n * (2 * n + 5) * (n - 1) / 72.0)
+        lo = math.floor(mu - norm.isf(alpha / 2.0) * sd - 0.5)
+        return lo, top - lo - 1
+    counts = mahonian_counts(n)
+    total = math.factorial(int(n))
+    # Exact rational comparison: alpha given as 0.05 means 1/20, not the nearest double.
+    half = Fraction(repr(float(alpha))) / 2
+    lo, cum = -1, 0
+    for a, c in enumerate(counts):
+        cum += c
+        if Fraction(cum, total) <= half:
+            lo = a
+        else:
+            break
+    return lo, top - lo - 1 if lo >= 0 else top
+
+
+def _halves(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    n = m.size
+    h = n // 2
+    return m[:h], m[n - h :]
+
+
+def half_difference_z(segment_means: np.ndarray, stderr_of_mean: float) -> float:
+    """Second-half mean minus first-half mean, in standard errors of that difference.
+
+    With N segments and halves of N1 = N2 = floor(N/2) segments (the middle one dropped when
+    N is odd), each half mean has variance SE^2 N/N_h when SE is the standard error of the
+    whole-record mean and the segments are independent, so
+    Var(m2 - m1) = SE^2 (N/N1 + N/N2). NaN when there are fewer than 2 segments or SE is not
+    positive and finite.
+
+    >>> half_difference_z(np.array([0.0, 0.0, 1.0, 1.0]), 0.25)
+    2.0
+    """
+    m = np.asarray(segment_means, dtype=np.float64).ravel()
+    se = float(stderr_of_mean)
+    if m.size < 2 or not (math.isfinite(se) and se > 0.0):
+        return math.nan
+    first, second = _halves(m)
+    n = m.size
+    sd = se * math.sqrt(n / first.size + n / second.size)
+    return float((second.mean() - first.mean()) / sd)
+
+
+def trend_t(segment_means: np.ndarray) -> float:
+    """Least-squares slope of the segment means against their index, over its standard error.
+
+    The ordinary regression t statistic (N - 2 degrees of freedom): the scatter is taken from
+    the residuals about the fitted line, so a drift does not inflate it the way it inflates the
+    blocking standard error of the whole-record mean. NaN with fewer than 3 segments or a
+    perfect fit.
+
+    >>> round(trend_t(np.array([0.0, 1.0, 1.0, 3.0])), 6)
+    3.40168
+    """
+    m = np.asarray(segment_means, dtype=np.float64).ravel()
+    n = m.size
+    if n < 3:
+        return math.nan
+    i = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
+    sxx = float(i @ i)
+    mc = m - m.mean()
+    slope = float(i @ mc) / sxx
+    resid = mc - slope * i
+    s2 = float(resid @ resid) / (n - 2)
+    if not s2 > 0.0:
+        return math.nan
+    return slope / math.sqrt(s2 / sxx)
+
+
+@lru_cache(maxsize=256)
+def _t_critical(dof: int, alpha: float) -> float:
+    from scipy.stats import t as student_t
+
+    return float(student_t.isf(alpha / 2.0, dof))
+
+
+@lru_cache(maxsize=64)
+def _z_critical(alpha: float) -> float:
+    from scipy.stats import norm
+
+    return float(norm.isf(alpha / 2.0))
+
+
+@dataclass(frozen=True, slots=True)
+class StationarityVerdict:
+    """Outcome of :func:`assess` for one component of one point.
+
+    ``reason`` is a sentence for the user when ``stationary`` is False, else None;
+    ``details`` holds the test statistics (read-only), or ``{"reason": "not enough segments"}``
+    when no verdict could be reached.
+    """
+
+    stationary: bool
+    reason: str | None = None
+    details: Mapping = field(default_factory=dict)
+
+    def __post_init__(self):
+        object.__setattr__(self, "details", MappingProxyType(dict(self.details)))
+
+
+def _no_verdict(n: int, why: str) -> StationarityVerdict:
+    return StationarityVerdict(
+        True, None, {"reason": "not enough segments", "why": why, "segments": n}
+    )
+
+
+def assess(
+    segment_means: np.ndarray, stderr_of_mean: float, *, alpha: float = DEFAULT_ALPHA
+) -> StationarityVerdict:
+    """Is this component's mean stationary over the point? Never raises on bad input.
+
+    Parameters
+    ----------
+    segment_means
+        Means of N equal-length consecutive segments, in time order (N >= 20 for a verdict).
+    stderr_of_mean
+        Blocking standard error of the whole-record mean. Only the half-against-half test uses
+        it; when it is not positive and finite that test is left out.
+    alpha
+        Level of the trend test; the reverse-arrangement and half-against-half tests run at
+        alpha/4 each (module docstring: the tuning).
+
+    Returns
+    -------
+    StationarityVerdict
+        ``stationary=False`` when any test rejects, with a ``reason`` naming every failed test.
+    """
+    try:
+        m = np.asarray(segment_means, dtype=np.float64).ravel()
+    except (TypeError, ValueError):
+        return _no_verdict(0, "segment means are not numbers")
+    n = int(m.size)
+    if n < MIN_SEGMENTS:
+        return _no_verdict(n, f"{n} segments, {MIN_SEGMENTS} needed")
+    if not np.all(np.isfinite(m)):
+        return _no_verdict(n, "non-finite segment means")
+    if not (isinstance(alpha, (int, float)) and 0.0 < alpha < 1.0):
+        return _no_verdict(n, f"alpha must be in (0, 1), got {alpha!r}")
+    try:
+        se = float(stderr_of_mean)
+    except (TypeError, ValueError):
+        se = math.nan
+    se_ok = math.isfinite(se) and se > 0.0
+
+    failed = []
+    reasons = []
+    # Least-squares trend, the main test (highest power against a linear drift).
+    t = trend_t(m)
+    t_crit = _t_critical(n - 2, float(alpha))
+    drift_se = math.nan
+    if math.isfinite(t):
+        i = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
+        slope = float(i @ (m - m.mean())) / float(i @ i)
+        if se_ok:
+            drift_se = slope * n / se
+        if abs(t) > t_crit:
+            failed.append("trend")
+            if se_ok:
+                reasons.append(
+                    f"trend: mean drifts by {drift_se:+.1f} standard errors over the record "
+                    f"(slope t = {t:.1f}, limit {t_crit:.1f})"
+                )
+            else:
+                reasons.append(f"trend: slope t = {t:.1f} over {n} segments (limit {t_crit:.1f})")
+    # Reverse arrangements: distribution-free, catches monotone drifts of any shape.
+    a = reverse_arrangements(m)
+    lo, hi = reverse_arrangement_acceptance(n, float(alpha) / 4.0)
+    if not lo < a <= hi:
+        failed.append("reverse_arrangements")
+        reasons.append(f"trend: {a} reverse arrangements outside ({lo}, {hi}]")
+    # First half against second half with the blocking SE: catches steps.
+    z = half_difference_z(m, se) if se_ok else math.nan
+    z_crit = _z_critical(float(alpha) / 4.0)
+    if math.isfinite(z) and abs(z) > z_crit:
+        failed.append("halves")
+        reasons.append(f"halves differ by {abs(z):.1f} standard errors (limit {z_crit:.1f})")
+
+    details = {
+        "segments": n,
+        "alpha": float(alpha),
+        "trend_t": t,
+        "trend_t_limit": t_crit,
+        "drift_se": drift_se,
+        "reverse_arrangements": a,
+        "acceptance": (lo, hi),
+        "half_z": z,
+        "half_z_limit": z_crit,
+        "failed": tuple(failed),
+    }
+    if failed:
+        return StationarityVerdict(False, "; ".join(reasons), details)
+    return StationarityVerdict(True, None, details)
