@@ -86,7 +86,8 @@ class _OwnResourcesTornado(BokehTornado):
         if absolute_url is None or absolute_url is False:
             absolute_url = "/"
         root_url = urljoin(absolute_url, self._prefix)
-        return Resources(mode="server", root_url=root_url, path_versioner=StaticHandler.append_version)
+        return Resources(mode="server", root_url=root_url,
+                         path_versioner=StaticHandler.append_version)
 
 
 class _Hooks(LifecycleHandler):

@@ -2,19 +2,454 @@
 
 No Bokeh here: everything returns plain dicts of lists/arrays or HTML strings, so it is tested
 without a server. Text that came over the wire (stream names, point ids, notes) is always
-HTML-escaped before it is put into markup.
+HTML-escaped before it is put into markup. Missing numbers are NaN in columns (Bokeh leaves a
+gap) and an en dash in text.
 """
 
 from __future__ import annotations
 
 import html
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 
-from monitor.state import RunSnapshot
+import numpy as np
 
-__all__ = ["status_html"]
+from monitor.state import RunSnapshot, StreamView
+
+__all__ = [
+    "OKABE_ITO", "STATE_COLOURS", "MEAN_NAMES", "STRESS_NAMES", "statistic_colour", "pick_stream",
+    "Verdict", "verdict", "verdict_html", "health_html", "status_columns", "rows_after",
+    "trace_columns", "history_columns", "halfwidth_columns", "guide_columns",
+    "profile_axis", "profile_columns", "current_profile_columns", "finished_columns",
+    "format_value", "format_duration", "GREY", "targeted_names",
+]
+
+#: Okabe & Ito (2008, "Color universal design") palette: distinguishable with every common
+#: form of colour blindness. Every plot and badge uses these and only these.
+OKABE_ITO = {
+    "black": "#000000", "orange": "#E69F00", "sky": "#56B4E9", "green": "#009E73",
+    "yellow": "#F0E442", "blue": "#0072B2", "vermillion": "#D55E00", "purple": "#CC79A7",
+}
+#: Neutral grey for things that are not yet anything (not part of the palette's hues).
+GREY = "#8C8C8C"
+
+STATE_COLOURS = {
+    "warming-up": GREY,
+    "converging": OKABE_ITO["orange"],
+    "converged": OKABE_ITO["green"],
+    "suspect": OKABE_ITO["vermillion"],
+    "untargeted": OKABE_ITO["sky"],
+}
+
+#: Statistics the running-estimate and profile plots show, in this order.
+MEAN_NAMES = ("U", "V", "W")
+STRESS_NAMES = ("uu", "vv", "ww", "uv", "uw", "vw", "k")
+
+_FIXED_COLOURS = {
+    "U": OKABE_ITO["blue"], "V": OKABE_ITO["vermillion"], "W": OKABE_ITO["purple"],
+    "uu": OKABE_ITO["blue"], "vv": OKABE_ITO["vermillion"], "ww": OKABE_ITO["purple"],
+    "uv": OKABE_ITO["green"], "uw": OKABE_ITO["orange"], "vw": OKABE_ITO["sky"],
+    "k": OKABE_ITO["black"],
+}
+_CYCLE = ("blue", "vermillion", "green", "orange", "purple", "sky", "black", "yellow")
 
 
-def status_html(snapshot: RunSnapshot) -> str:
-    """A one-line overview of the run: how many streams, which snapshot."""
-    names = ", ".join(html.escape(s) for s in snapshot.streams) or "none yet"
-    return f"<div>snapshot {snapshot.sequence}; streams: {names}</div>"
+def statistic_colour(name: str) -> str:
+    """The one colour a statistic has in every plot of the page.
+
+    Means and stresses have fixed colours (a component keeps its hue: ``U`` and ``uu`` are
+    both blue); any other name gets a stable colour from its letters.
+
+    >>> statistic_colour("uv"), statistic_colour("uv") == statistic_colour("uv")
+    ('#009E73', True)
+    """
+    if name in _FIXED_COLOURS:
+        return _FIXED_COLOURS[name]
+    return OKABE_ITO[_CYCLE[sum(name.encode()) % len(_CYCLE)]]
+
+
+def _num(x) -> float:
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        return math.nan
+    return x if math.isfinite(x) else math.nan
+
+
+def format_value(x, digits: int = 4) -> str:
+    """A number for a table cell: ``digits`` significant figures, en dash when missing.
+
+    >>> format_value(8.21349), format_value(-0.000512), format_value(None), format_value(1.5e7)
+    ('8.213', '-0.000512', '–', '1.5e+07')
+    """
+    x = _num(x)
+    if math.isnan(x):
+        return "–"
+    return f"{x:.{digits}g}"
+
+
+def format_duration(seconds) -> str:
+    """Seconds for people: ``42 s``, ``3 min 05 s``, ``1 h 02 min``; en dash when unknown.
+
+    >>> format_duration(41.6), format_duration(185), format_duration(3720), format_duration(None)
+    ('42 s', '3 min 05 s', '1 h 02 min', '–')
+    """
+    s = _num(seconds)
+    if math.isnan(s) or s < 0:
+        return "–"
+    s = round(s)
+    if s < 60:
+        return f"{s} s"
+    if s < 3600:
+        return f"{s // 60} min {s % 60:02d} s"
+    return f"{s // 3600} h {(s % 3600) // 60:02d} min"
+
+
+def pick_stream(snapshot: RunSnapshot, wanted: str | None) -> str | None:
+    """The stream the plots show: ``wanted`` if the run has it, else the first one seen."""
+    if wanted is not None and wanted in snapshot.streams:
+        return wanted
+    return next(iter(snapshot.streams), None)
+
+
+# ---------------------------------------------------------------------------- verdict
+
+
+@dataclass(frozen=True)
+class Verdict:
+    """What to do at a stream's current point, in words a person acts on."""
+
+    headline: str
+    detail: str
+    colour: str
+    text_colour: str
+
+
+def verdict(view: StreamView) -> Verdict:
+    """The point's overall verdict: move on, keep acquiring, or look at the signal.
+
+    ``MOVE ON`` only when every target of the current point is met; a suspect statistic
+    (stationarity guard) says ``CHECK SIGNAL`` whatever the rest says.
+    """
+    point = _point_label(view)
+    snap = view.stats
+    if view.ended and snap is None:
+        return Verdict("RUN ENDED", f"{len(view.finished)} points finished", GREY, "#FFFFFF")
+    if snap is None or snap.samples == 0:
+        return Verdict("WAITING FOR DATA", point, GREY, "#FFFFFF")
+    suspect = [e for e in snap.estimates if e.state == "suspect"]
+    if suspect or snap.suspect:
+        names = ", ".join(sorted({e.name for e in suspect} | set(snap.suspect)))[:80]
+        return Verdict("CHECK SIGNAL", f"{point}: not stationary ({names})",
+                       STATE_COLOURS["suspect"], "#FFFFFF")
+    if snap.converged:
+        at = format_duration(snap.converged_at_s)
+        age = format_duration(view.converged_wall_age_s)
+        return Verdict("MOVE ON", f"{point}: all targets met after {at} of data, {age} ago",
+                       STATE_COLOURS["converged"], "#FFFFFF")
+    targeted = snap.targeted()
+    if not targeted:
+        return Verdict("NO TARGETS", f"{point}: nothing to converge", STATE_COLOURS["untargeted"],
+                       "#000000")
+    if all(e.state == "warming-up" for e in targeted):
+        return Verdict("WARMING UP", f"{point}: too few blocks for an honest error bar yet",
+                       GREY, "#FFFFFF")
+    slow = snap.slowest()
+    eta = "unknown" if slow is None or slow.eta_s is None else f"≈ {format_duration(slow.eta_s)}"
+    met = sum(1 for e in targeted if e.converged)
+    name = html.escape(slow.name) if slow is not None else "–"
+    return Verdict("KEEP ACQUIRING",
+                   f"{point}: {met}/{len(targeted)} targets met; slowest {name}, {eta} more",
+                   STATE_COLOURS["converging"], "#000000")
+
+
+def _point_label(view: StreamView) -> str:
+    p = view.point or {}
+    pid = html.escape(str(p.get("id", "no point yet")))
+    return f"point {pid}" if view.point else pid
+
+
+def verdict_html(snapshot: RunSnapshot) -> str:
+    """One large, unmistakable badge per stream (headline words, not just a colour)."""
+    if not snapshot.streams:
+        return _badge("", Verdict("WAITING FOR DATA", "no stream has been heard yet", GREY,
+                                  "#FFFFFF"))
+    return "".join(_badge(html.escape(name), verdict(v)) for name, v in snapshot.streams.items())
+
+
+def _badge(stream: str, v: Verdict) -> str:
+    return (
+        f'<div style="display:inline-block;margin:4px 8px 4px 0;padding:10px 18px;'
+        f'border-radius:6px;background:{v.colour};color:{v.text_colour};min-width:380px">'
+        f'<div style="font-size:13px;opacity:0.9">{stream}</div>'
+        f'<div style="font-size:34px;font-weight:700;letter-spacing:1px">{v.headline}</div>'
+        f'<div style="font-size:14px">{v.detail}</div></div>'
+    )
+
+
+# ---------------------------------------------------------------------------- health
+
+
+def health_html(snapshot: RunSnapshot) -> str:
+    """Sample rate, lost messages, restarts and rejections per stream; non-zero is flagged.
+
+    A flagged cell carries a "!" as well as a colour, so it does not depend on colour vision.
+    """
+    head = ("<tr><th>stream</th><th>rate (Hz)</th><th>received (Hz)</th><th>messages</th>"
+            "<th>lost</th><th>gaps</th><th>restarts</th><th>rejected</th></tr>")
+    rows = []
+    for name, v in snapshot.streams.items():
+        rejected = {k: int(n) for k, n in v.rejected.items() if n}
+        rej = ", ".join(f"{html.escape(str(k))} {n}" for k, n in sorted(rejected.items()))
+        cells = [
+            _cell(html.escape(name)),
+            _cell(format_value(v.rate_hz, 6) if v.rate_hz else "varies"),
+            _cell(format_value(v.ingest_rate_hz, 4)),
+            _cell(str(v.messages)),
+            _cell(str(v.lost_messages), flag=v.lost_messages > 0),
+            _cell(str(v.gaps), flag=v.gaps > 0),
+            _cell(str(v.restarts), flag=v.restarts > 0),
+            _cell(rej or "0", flag=bool(rejected)),
+        ]
+        rows.append("<tr>" + "".join(cells) + "</tr>")
+    extra = ""
+    other = {k: int(n) for k, n in snapshot.rejected_total.items() if n}
+    if other:
+        listed = ", ".join(f"{html.escape(str(k))} {n}" for k, n in sorted(other.items()))
+        extra += f'<div style="{_FLAG}">! rejected in this run: {listed}</div>'
+    for event in snapshot.transport_events[-3:]:
+        extra += f'<div style="{_FLAG}">! transport: {html.escape(str(event))}</div>'
+    table = (f'<table style="border-collapse:collapse;font-size:13px">{head}{"".join(rows)}'
+             "</table>")
+    return table + extra
+
+
+_FLAG = (f"background:{OKABE_ITO['vermillion']};color:#FFFFFF;font-weight:700;padding:2px 6px;"
+         "margin-top:2px")
+
+
+def _cell(text: str, flag: bool = False) -> str:
+    if flag:
+        return f'<td style="{_FLAG}">! {text}</td>'
+    return f'<td style="padding:2px 8px">{text}</td>'
+
+
+# ---------------------------------------------------------------------------- status board
+
+
+def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
+    """The status board: one row per targeted statistic of every stream's current point."""
+    cols: dict[str, list] = {k: [] for k in (
+        "stream", "point", "name", "value", "target", "state", "eta", "colour")}
+    for name, v in snapshot.streams.items():
+        if v.stats is None:
+            continue
+        pid = str((v.point or {}).get("id", "–"))
+        for e in v.stats.targeted():
+            cols["stream"].append(name)
+            cols["point"].append(pid)
+            cols["name"].append(e.name)
+            cols["value"].append(f"{format_value(e.value)} ± {format_value(e.half_width, 2)}")
+            cols["target"].append(f"± {format_value(e.target, 2)}")
+            cols["state"].append(e.state)
+            cols["eta"].append("done" if e.converged else format_duration(e.eta_s))
+            cols["colour"].append(STATE_COLOURS.get(e.state, GREY))
+    return cols
+
+
+# ---------------------------------------------------------------------------- time series
+
+
+def rows_after(columns: Mapping[str, np.ndarray], key: str, last: float | None
+               ) -> tuple[dict[str, np.ndarray], bool]:
+    """Rows whose ``key`` is beyond ``last`` (what to stream), or everything on a restart.
+
+    Returns ``(rows, reset)``: ``reset`` is True when the page must replace its data (nothing
+    shown yet, or ``key`` went backwards: a new point or a restarted publisher).
+
+    >>> rows, reset = rows_after({"t": np.array([0.0, 1.0, 2.0])}, "t", 1.0)
+    >>> rows["t"].tolist(), reset
+    ([2.0], False)
+    >>> rows_after({"t": np.array([0.0, 0.5])}, "t", 1.0)[1]
+    True
+    """
+    if key not in columns or len(columns[key]) == 0:
+        return {k: np.asarray(v)[:0] for k, v in columns.items()}, last is not None
+    k = np.asarray(columns[key])
+    if last is None or k[-1] < last:
+        return {c: np.asarray(v) for c, v in columns.items()}, True
+    start = int(np.searchsorted(k, last, side="right"))
+    return {c: np.asarray(v)[start:] for c, v in columns.items()}, False
+
+
+def trace_columns(view: StreamView | None, components: Sequence[str] = ("u", "v", "w")
+                  ) -> dict[str, np.ndarray]:
+    """The decimated live trace, one column per velocity component (NaN where absent)."""
+    t = np.asarray(view.trace.get("t", np.empty(0)) if view else np.empty(0), dtype=float)
+    out = {"t": t}
+    for c in components:
+        col = view.trace.get(c) if view else None
+        out[c] = np.asarray(col, dtype=float) if col is not None else np.full(t.shape, np.nan)
+    return out
+
+
+def history_columns(view: StreamView | None, names: Sequence[str] = MEAN_NAMES + STRESS_NAMES
+                    ) -> dict[str, np.ndarray]:
+    """Running estimates with their confidence band: ``NAME``, ``NAME_lo``, ``NAME_hi``.
+
+    Statistics without history (untargeted) are NaN, so the plot shows nothing for them.
+    """
+    h = view.history if view is not None else {}
+    d = np.asarray(h.get("duration_s", np.empty(0)), dtype=float)
+    out = {"duration_s": d}
+    nan = np.full(d.shape, np.nan)
+    for n in names:
+        value = np.asarray(h[n], dtype=float) if n in h else nan
+        hw = np.asarray(h[n + "_hw"], dtype=float) if n + "_hw" in h else nan
+        out[n] = value
+        out[n + "_lo"] = value - hw
+        out[n + "_hi"] = value + hw
+    return out
+
+
+def targeted_names(view: StreamView | None) -> list[str]:
+    """Names of the statistics with a target in the current point's history."""
+    if view is None:
+        return []
+    return [k[:-7] for k in view.history if k.endswith("_target")]
+
+
+def halfwidth_columns(view: StreamView | None, names: Sequence[str]) -> dict[str, np.ndarray]:
+    """Half-width over target for each ``name`` against acquisition time (log-log ready).
+
+    1 is the target; values that cannot sit on a log axis (non-positive, non-finite) are NaN.
+    """
+    h = view.history if view is not None else {}
+    d = np.asarray(h.get("duration_s", np.empty(0)), dtype=float)
+    out = {"duration_s": np.where(d > 0, d, np.nan)}
+    for n in names:
+        if n + "_hw" in h and n + "_target" in h:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                r = np.asarray(h[n + "_hw"], dtype=float) / np.asarray(h[n + "_target"], float)
+        else:
+            r = np.full(d.shape, np.nan)
+        out[n] = np.where(np.isfinite(r) & (r > 0), r, np.nan)
+    return out
+
+
+def guide_columns(view: StreamView | None, span: float = 1e4) -> dict[str, list]:
+    """T^(-1/2) guides through the current half-width of every open targeted statistic.
+
+    An error bar of a stationary signal shrinks as 1/√T, so the guide of a statistic at
+    ratio r (half-width / target) after T seconds reaches the target at T·r². The line is drawn
+    from now to there (at most ``span`` times now). Source: the variance of a time average,
+    ``Var ≈ 2σ²T_int/T`` (Lumley & Panofsky 1964; Tennekes & Lumley 1972 §6.4).
+    """
+    out: dict[str, list] = {"xs": [], "ys": [], "name": [], "colour": []}
+    if view is None or view.stats is None:
+        return out
+    t_now = _num(view.stats.duration_s)
+    if not t_now > 0:
+        return out
+    for e in view.stats.targeted():
+        r = _num(e.half_width) / _num(e.target) if _num(e.target) > 0 else math.nan
+        if e.converged or not r > 0 or math.isnan(r):
+            continue
+        t_end = t_now * min(max(r * r, 1.0), span)
+        out["xs"].append([t_now, t_end])
+        out["ys"].append([r, r * math.sqrt(t_now / t_end)])
+        out["name"].append(e.name)
+        out["colour"].append(statistic_colour(e.name))
+    return out
+
+
+# ---------------------------------------------------------------------------- traverse
+
+
+def profile_axis(view: StreamView | None) -> str:
+    """The traverse coordinate: whichever of x, y, z varies most over the points so far."""
+    if view is None:
+        return "y"
+    pts = [dict(s.get("point") or {}) for s in view.finished]
+    if view.point:
+        pts.append(dict(view.point))
+    best, spread = "y", 0.0
+    for axis in ("x", "y", "z"):
+        vals = [_num(p.get(axis)) for p in pts]
+        vals = [v for v in vals if not math.isnan(v)]
+        if len(vals) > 1 and max(vals) - min(vals) > spread:
+            best, spread = axis, max(vals) - min(vals)
+    return best
+
+
+def _stat_entry(summary: Mapping, name: str) -> Mapping | None:
+    for s in summary.get("statistics") or ():
+        if isinstance(s, Mapping) and s.get("name") == name:
+            return s
+    return None
+
+
+def profile_columns(view: StreamView | None, axis: str,
+                    names: Sequence[str] = MEAN_NAMES + STRESS_NAMES) -> dict[str, list]:
+    """Finished points as profile rows: coordinate, ``NAME``, ``NAME_lo``, ``NAME_hi`` (CI)."""
+    out: dict[str, list] = {"coord": [], "id": []}
+    for n in names:
+        out[n], out[n + "_lo"], out[n + "_hi"] = [], [], []
+    for s in (view.finished if view is not None else ()):
+        point = s.get("point") or {}
+        out["coord"].append(_num(point.get(axis)))
+        out["id"].append(str(point.get("id", "")))
+        for n in names:
+            e = _stat_entry(s, n) or {}
+            out[n].append(_num(e.get("value")))
+            out[n + "_lo"].append(_num(e.get("ci_low")))
+            out[n + "_hi"].append(_num(e.get("ci_high")))
+    return out
+
+
+def current_profile_columns(view: StreamView | None, axis: str,
+                            names: Sequence[str] = MEAN_NAMES + STRESS_NAMES) -> dict[str, list]:
+    """The current point in the same columns as :func:`profile_columns` (zero or one row)."""
+    out: dict[str, list] = {"coord": [], "id": []}
+    for n in names:
+        out[n], out[n + "_lo"], out[n + "_hi"] = [], [], []
+    if view is None or view.stats is None or not view.point:
+        return out
+    out["coord"].append(_num(view.point.get(axis)))
+    out["id"].append(str(view.point.get("id", "")))
+    have = set(view.stats.names)
+    for n in names:
+        e = view.stats.estimate(n) if n in have else None
+        out[n].append(_num(e.value) if e else math.nan)
+        out[n + "_lo"].append(_num(e.ci_low) if e else math.nan)
+        out[n + "_hi"].append(_num(e.ci_high) if e else math.nan)
+    return out
+
+
+def finished_columns(view: StreamView | None) -> dict[str, list]:
+    """The table of finished points (DESIGN §4 summaries), oldest first."""
+    keys = ("id", "x", "y", "z", "samples", "duration", "converged", "lost", "U", "k")
+    out: dict[str, list] = {k: [] for k in keys}
+    for s in (view.finished if view is not None else ()):
+        point = s.get("point") or {}
+        out["id"].append(str(point.get("id", "")))
+        for axis in ("x", "y", "z"):
+            out[axis].append(format_value(point.get(axis)))
+        out["samples"].append(str(s.get("samples", "–")))
+        out["duration"].append(format_duration(s.get("duration_s")))
+        if s.get("converged"):
+            conv = f"yes, after {format_duration(s.get('converged_at_s'))}"
+        else:
+            conv = "no"
+        if s.get("complete") is False:
+            conv += " (cut short)"
+        out["converged"].append(conv)
+        out["lost"].append(str(s.get("lost_messages", 0)))
+        for n in ("U", "k"):
+            e = _stat_entry(s, n) or {}
+            lo, hi = _num(e.get("ci_low")), _num(e.get("ci_high"))
+            hw = (hi - lo) / 2 if not (math.isnan(lo) or math.isnan(hi)) else math.nan
+            out[n].append(f"{format_value(e.get('value'))} ± {format_value(hw, 2)}")
+    return out
+
