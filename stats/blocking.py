@@ -1,0 +1,283 @@
+"""BlockingAccumulator: standard errors of means of correlated series in O(log N) memory.
+
+Online dyadic blocking (Flyvbjerg & Petersen 1989, J. Chem. Phys. 91:461) of the vector of
+monomial means over base blocks of ``base`` samples. Each level keeps sums, outer-product sums
+and lag-one product sums of its block means, so the blocking curve of *any* linear combination
+of the monomials (the influence series of any statistic, see ``delta.py``) can be read off at
+any time. The level is chosen by Jonsson's M-test (Jonsson 2018, Phys. Rev. E 98:043304) with
+chi-squared(d - j) degrees of freedom, and the finite-block bias is cancelled by the lugsail
+combination 2 V_j - V_{j-1} (Vats & Flegal).
+
+Samples are shifted by a reference (the first block's mean) before any power is taken, so a
+1e8 offset costs no precision. A short list of equal-length *segment* means of each component
+is kept too, for the stationarity guard.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+from scipy import stats as sps
+
+from stats.kernels import blocking_push, monomial_block_means
+from stats.monomials import layout
+
+__all__ = ["BlockingAccumulator", "LevelChoice", "choose_level", "MIN_BLOCKS_PER_LEVEL"]
+
+#: levels with fewer blocks than this take no part in the level choice
+MIN_BLOCKS_PER_LEVEL = 4
+#: kept segment means: between SEGMENTS // 2 and SEGMENTS - 1 complete ones
+SEGMENTS = 64
+
+
+@lru_cache(maxsize=256)
+def _chi2_99(df: int) -> float:
+    return float(sps.chi2.ppf(0.99, df))
+
+
+@dataclass(frozen=True)
+class LevelChoice:
+    """Outcome of the blocking analysis of one series (arrays over statistics)."""
+
+    variance: np.ndarray  # variance of the statistic's estimate (lugsail), NaN when unknown
+    level: np.ndarray  # chosen level j (int, -1 when unknown)
+    blocks: np.ndarray  # number of blocks at the chosen level
+    block_samples: np.ndarray  # samples per block at the chosen level
+    relative_error: np.ndarray  # relative standard error of sqrt(variance)
+
+
+def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) -> LevelChoice:
+    """Jonsson's choice with the lugsail correction, for each row of ``c0``/``gamma`` (S, L).
+
+    ``n`` (L,) is the number of blocks per level. Level 0 is never used on its own: the lugsail
+    combination needs the level below, and it costs only a factor 2 in block count.
+    """
+    S, L = c0.shape
+    usable = np.flatnonzero(n >= MIN_BLOCKS_PER_LEVEL)
+    var = np.full(S, np.nan)
+    level = np.full(S, -1, dtype=np.int64)
+    blocks = np.zeros(S, dtype=np.int64)
+    rel = np.full(S, np.nan)
+    if usable.size < 2:
+        return LevelChoice(var, level, blocks, np.zeros(S, dtype=np.int64), rel)
+    K = int(usable[-1]) + 1
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r2 = n[None, :K] * (gamma[:, :K] / c0[:, :K]) ** 2
+    r2 = np.where(np.isfinite(r2), r2, np.inf)
+    # M_j = sum_{k >= j} n_k (gamma_k / c0_k)^2, compared with the chi2(K - j) 0.99 quantile
+    M = np.cumsum(r2[:, ::-1], axis=1)[:, ::-1]
+    for s in range(S):
+        j = None
+        for jj in range(K):
+            if M[s, jj] < _chi2_99(K - jj):
+                j = jj
+                break
+        if j is None:
+            continue
+        j = max(j, 1)
+        if n[j] < 2 or n[j - 1] < 2:
+            continue
+        vj = c0[s, j] / (n[j] - 1)
+        vm = c0[s, j - 1] / (n[j - 1] - 1)
+        v = max(vj, 2.0 * vj - vm)
+        var[s] = v
+        level[s] = j
+        blocks[s] = n[j]
+        # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n) = 5/n
+        # for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
+        # the standard error's relative error is half of its square root.
+        rel[s] = 0.5 * np.sqrt(5.0 / max(n[j] - 1, 1))
+    return LevelChoice(var, level, blocks, np.where(level >= 0, base * 2 ** np.maximum(level, 0), 0), rel)
+
+
+class BlockingAccumulator:
+    """Dyadic blocking of monomial means of ``x - ref`` over base blocks of ``base`` samples."""
+
+    def __init__(self, m: int, base: int = 64, max_levels: int = 40, ref=None):
+        if base < 2 or base & (base - 1):
+            raise ValueError("base must be a power of two >= 2")
+        self.layout = layout(m)
+        self.m = m
+        self.base = base
+        D = self.layout.n_monomials
+        self.D = D
+        # parts that will be merged must share a reference: pass one (e.g. a nominal mean)
+        self.ref: np.ndarray | None = None if ref is None else np.asarray(ref, dtype=np.float64)
+        self.carry = np.empty((0, m))
+        L = max_levels
+        self.count = np.zeros(L, dtype=np.int64)
+        self.S = np.zeros((L, D))
+        self.Q = np.zeros((L, D, D))
+        self.P = np.zeros((L, D, D))
+        self.first = np.zeros((L, D))
+        self.last = np.zeros((L, D))
+        self.has_last = np.zeros(L, dtype=np.bool_)
+        self.pending = np.zeros((L, D))
+        self.has_pending = np.zeros(L, dtype=np.bool_)
+        # segment store (component means of x - ref)
+        self.seg_sums = np.zeros((SEGMENTS, m))
+        self.seg_full = 0
+        self.seg_len = 1  # in base blocks
+        self.seg_fill = 0
+        self.seg_cur = np.zeros(m)
+
+    @classmethod
+    def empty(cls, m: int, base: int = 64, ref=None) -> BlockingAccumulator:
+        return cls(m, base, ref=ref)
+
+    @property
+    def n(self) -> int:
+        """Samples inside complete base blocks (the rest waits in ``carry``)."""
+        return int(self.count[0]) * self.base
+
+    def copy(self) -> BlockingAccumulator:
+        new = BlockingAccumulator.__new__(BlockingAccumulator)
+        for k, v in self.__dict__.items():
+            setattr(new, k, v.copy() if isinstance(v, np.ndarray) else v)
+        return new
+
+    def update(self, block: np.ndarray) -> BlockingAccumulator:
+        block = np.asarray(block)
+        if block.shape[0] == 0:
+            return self
+        if self.ref is None:
+            self.ref = block.mean(axis=0, dtype=np.float64)
+        base = self.base
+        if self.carry.shape[0]:
+            need = base - self.carry.shape[0]
+            head = np.concatenate([self.carry, block[:need]])
+            block = block[need:]
+            if head.shape[0] < base:
+                self.carry = head
+                return self
+            self._push(head)
+        nfull = (block.shape[0] // base) * base
+        if nfull:
+            self._push(block[:nfull])
+        self.carry = np.array(block[nfull:], dtype=np.float64)
+        return self
+
+    def _push(self, rows: np.ndarray) -> None:
+        nb = rows.shape[0] // self.base
+        y = np.empty((self.D, nb))
+        lay = self.layout
+        monomial_block_means(rows, self.ref, self.base, lay.mono_parent, lay.mono_last, y)
+        blocking_push(y, self.count, self.S, self.Q, self.P, self.first, self.last,
+                      self.has_last, self.pending, self.has_pending)
+        self._add_segments(y[: self.m])
+
+    def _add_segments(self, means: np.ndarray) -> None:
+        i, nb = 0, means.shape[1]
+        while i < nb:
+            take = min(self.seg_len - self.seg_fill, nb - i)
+            self.seg_cur += means[:, i : i + take].sum(axis=1)
+            self.seg_fill += take
+            i += take
+            if self.seg_fill == self.seg_len:
+                self.seg_sums[self.seg_full] = self.seg_cur
+                self.seg_full += 1
+                self.seg_cur = np.zeros(self.m)
+                self.seg_fill = 0
+                if self.seg_full == SEGMENTS:
+                    self.seg_sums[: SEGMENTS // 2] = self.seg_sums[0::2] + self.seg_sums[1::2]
+                    self.seg_sums[SEGMENTS // 2 :] = 0.0
+                    self.seg_full = SEGMENTS // 2
+                    self.seg_len *= 2
+                    # the partial segment now counts against the doubled length
+                    # (it was started at the old length, so keep filling it)
+
+    def segment_means(self) -> np.ndarray:
+        """(n_segments, m) means of x over the complete, equal-length segments."""
+        if self.ref is None:
+            return np.empty((0, self.m))
+        return self.seg_sums[: self.seg_full] / self.seg_len + self.ref
+
+    def segment_samples(self) -> int:
+        return self.seg_len * self.base
+
+    def merge(self, other: BlockingAccumulator) -> BlockingAccumulator:
+        """Blocking state of ``self`` followed by ``other`` (inputs untouched).
+
+        Level sums add and the lag products are linked across the seam; each part keeps its
+        own block alignment, so the result is statistically equivalent to, but not digit for
+        digit the same as, one pass over the concatenation. Both parts must share ``ref``
+        (an empty part takes the other's).
+        """
+        if other.m != self.m or other.base != self.base:
+            raise ValueError("cannot merge blocking states of different shape")
+        if other.ref is None:
+            return self.copy()
+        if self.ref is None:
+            return other.copy()
+        if not np.array_equal(self.ref, other.ref):
+            raise ValueError("blocking states merge only with a common reference (use empty(ref=...))")
+        new = self.copy()
+        both = (self.count > 0) & (other.count > 0)
+        link = np.einsum("ka,kb->kab", self.last, other.first)
+        link = 0.5 * (link + np.swapaxes(link, 1, 2))
+        new.P = self.P + other.P + np.where(both[:, None, None], np.triu(link), 0.0)
+        new.S = self.S + other.S
+        new.Q = self.Q + other.Q
+        new.first = np.where((self.count > 0)[:, None], self.first, other.first)
+        new.last = np.where((other.count > 0)[:, None], other.last, self.last)
+        new.has_last = self.has_last | other.has_last
+        new.count = self.count + other.count
+        # the later part's unpaired block means wait for their pairs; the earlier part's lone
+        # pending values stay counted at their own level only
+        new.pending = other.pending.copy()
+        new.has_pending = other.has_pending.copy()
+        new.carry = np.empty((0, self.m))
+        new._merge_segments(other)
+        if self.carry.shape[0] or other.carry.shape[0]:
+            new.update(np.concatenate([self.carry, other.carry]))
+        return new
+
+    def _merge_segments(self, other: BlockingAccumulator) -> None:
+        def coarsened(sums, full, length, target):
+            sums = sums[:full]
+            while length < target:
+                half = sums.shape[0] // 2
+                sums = sums[0 : 2 * half : 2] + sums[1 : 2 * half : 2]
+                length *= 2
+            return sums
+
+        target = max(self.seg_len, other.seg_len)
+        both = np.concatenate([
+            coarsened(self.seg_sums, self.seg_full, self.seg_len, target),
+            coarsened(other.seg_sums, other.seg_full, other.seg_len, target),
+        ])
+        while both.shape[0] >= SEGMENTS:
+            half = both.shape[0] // 2
+            both = both[0 : 2 * half : 2] + both[1 : 2 * half : 2]
+            target *= 2
+        self.seg_sums = np.zeros((SEGMENTS, self.m))
+        self.seg_sums[: both.shape[0]] = both
+        self.seg_full = both.shape[0]
+        self.seg_len = target
+        self.seg_fill = 0
+        self.seg_cur = np.zeros(self.m)
+
+    def analyse(self, grad: np.ndarray) -> LevelChoice:
+        """Blocking analysis of the series ``grad @ y`` for each row of ``grad`` (S, D)."""
+        L = int(np.count_nonzero(self.count))
+        n = self.count[:L].astype(np.float64)
+        S = grad.shape[0]
+        if L == 0:
+            return choose_level(np.zeros((S, 0)), np.zeros((S, 0)), n, self.base)
+        mu = self.S[0] / self.count[0]  # global means of the monomials (all base blocks)
+        Q = self.Q[:L] + np.triu(self.Q[:L], 1).transpose(0, 2, 1)
+        P = self.P[:L] + np.triu(self.P[:L], 1).transpose(0, 2, 1)
+        g = grad
+        zq = np.einsum("sa,kab,sb->sk", g, Q, g)
+        zp = np.einsum("sa,kab,sb->sk", g, P, g)
+        zs = g @ self.S[:L].T
+        zf = g @ self.first[:L].T
+        zl = g @ self.last[:L].T
+        zmu = g @ mu
+        mu_ = zmu[:, None]
+        # variance about the *global* mean, (S2 - 2 mu S1 + n mu^2) / n (REFERENCES §2 pitfall)
+        c0 = (zq - 2 * mu_ * zs + n * mu_**2) / n
+        gamma = (zp - mu_ * (2 * zs - zf - zl) + (n - 1) * mu_**2) / n
+        return choose_level(c0, gamma, n, self.base)

@@ -1,0 +1,95 @@
+"""When may the user stop? Checkpoint bookkeeping and the time still needed.
+
+A statistic is converged only when, at three consecutive geometric checkpoints of the sample
+count, all of these held (REFERENCES §11, after Chow & Robbins 1965 and Glynn & Whitt 1992):
+
+* at least ``MIN_BLOCKS`` blocks at the chosen blocking level;
+* the relative error of the standard error itself at most ``MAX_SE_RELATIVE_ERROR``;
+* the half-width (t-quantile on the block count times the lugsail standard error), inflated
+  by the safety factor ``STOP_MARGIN``, at most the target;
+* the stationarity guard passed for every component the statistic depends on.
+
+Checking only at geometric checkpoints, and asking for three in a row, keeps the verdict from
+firing on one lucky low-noise draw; the margin covers the remaining low bias of estimated
+errors at the moment of stopping. The ETA follows from the 1/T scaling of the variance.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+__all__ = [
+    "MIN_BLOCKS",
+    "MAX_SE_RELATIVE_ERROR",
+    "STOP_MARGIN",
+    "CHECKPOINT_GROWTH",
+    "STREAK",
+    "Checkpoints",
+    "eta_seconds",
+    "passes",
+]
+
+MIN_BLOCKS = 64
+MAX_SE_RELATIVE_ERROR = 0.15
+STOP_MARGIN = 1.1
+CHECKPOINT_GROWTH = 1.1
+STREAK = 3
+#: blocks needed before an ETA is offered at all (the SE is then known to about +-30 %)
+ETA_MIN_BLOCKS = 16
+
+
+def passes(half_width: float, target: float | None, blocks: int, se_rel_err: float,
+           stationary: bool) -> bool:
+    """True when every stopping condition holds at this moment."""
+    if target is None or not math.isfinite(target) or not math.isfinite(half_width):
+        return False
+    return (
+        stationary
+        and blocks >= MIN_BLOCKS
+        and se_rel_err <= MAX_SE_RELATIVE_ERROR
+        and STOP_MARGIN * half_width <= target
+    )
+
+
+def eta_seconds(half_width: float, target: float | None, blocks: int, duration_s: float) -> float | None:
+    """Predicted acquisition time still needed, from Var ~ 1/T and the block-count floor.
+
+    None while it cannot be predicted (no target, unknown error, too few blocks).
+    """
+    if target is None or not (math.isfinite(target) and target > 0):
+        return None
+    if not math.isfinite(half_width) or blocks < ETA_MIN_BLOCKS or duration_s <= 0:
+        return None
+    need = duration_s * (STOP_MARGIN * half_width / target) ** 2
+    need = max(need, duration_s * MIN_BLOCKS / blocks)
+    # three consecutive geometric checkpoints follow the first pass
+    need *= CHECKPOINT_GROWTH ** (STREAK - 1)
+    return max(0.0, need - duration_s)
+
+
+@dataclass
+class Checkpoints:
+    """Geometric checkpoints of the sample count and the pass streak of each statistic."""
+
+    first: int = 1024
+    next_n: int = 1024
+    streak: dict[str, int] = field(default_factory=dict)
+    converged_at_s: float | None = None
+
+    def due(self, n: int) -> bool:
+        return n >= self.next_n
+
+    def record(self, n: int, results: dict[str, bool], duration_s: float) -> None:
+        """Record the pass/fail of each targeted statistic at a checkpoint reached at ``n``."""
+        for name, ok in results.items():
+            self.streak[name] = self.streak.get(name, 0) + 1 if ok else 0
+        self.next_n = max(int(math.ceil(n * CHECKPOINT_GROWTH)), n + 1)
+        if results and self.converged_at_s is None and all(self.is_converged(k) for k in results):
+            self.converged_at_s = duration_s
+
+    def is_converged(self, name: str) -> bool:
+        return self.streak.get(name, 0) >= STREAK
+
+    def copy(self) -> Checkpoints:
+        return Checkpoints(self.first, self.next_n, dict(self.streak), self.converged_at_s)

@@ -1,0 +1,190 @@
+"""Numba kernels of the statistics core.
+
+Plain loops over float64 arrays that fill ``out`` arrays; no state, no validation: shapes and
+dtypes are the business of the Python classes that call them (``moments.py``, ``blocking.py``).
+
+Two numerical choices are made here:
+
+* Moments of a block are computed in two passes (block mean, then central products), which is
+  both faster and far stabler than per-sample Welford updates on hot-wire data with a large mean
+  and small fluctuations; guarded by ``tests/test_moments.py::test_large_offset_regression``.
+* The inner loops run over a short chunk of samples held transposed (component-major) so LLVM
+  can vectorise the reductions; ``fastmath`` only allows re-association of those sums (inputs
+  are finite by the time they get here, the wire decoder rejects NaN/inf).
+"""
+
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+__all__ = ["central_sums", "monomial_block_means", "blocking_push"]
+
+_CHUNK = 128
+_FAST = {"nnan", "ninf", "nsz", "arcp", "contract", "reassoc"}
+
+
+@numba.njit(cache=True, fastmath=_FAST)
+def central_sums(x, c2, c3p, c3k, c4p, c4l, mean, s2, s3, s4):
+    """Mean and central co-moment *sums* of a block ``x`` (n, m).
+
+    ``c2`` (n2, 2) lists index pairs; an order-3 combo ``q`` is order-2 combo ``c3p[q]`` times
+    component ``c3k[q]``, an order-4 combo is order-3 combo ``c4p[q]`` times ``c4l[q]``.
+    Fills ``mean`` (m,), ``s2`` (n2,), ``s3`` (n3,), ``s4`` (n4,) (sums, not averages).
+    """
+    n, m = x.shape
+    n2 = c2.shape[0]
+    n3 = c3p.shape[0]
+    n4 = c4p.shape[0]
+    for i in range(m):
+        acc = 0.0
+        for t in range(n):
+            acc += x[t, i]
+        mean[i] = acc / n if n > 0 else np.nan
+    for q in range(n2):
+        s2[q] = 0.0
+    for q in range(n3):
+        s3[q] = 0.0
+    for q in range(n4):
+        s4[q] = 0.0
+    dev = np.empty((m, _CHUNK))
+    p2 = np.empty((n2, _CHUNK))
+    p3 = np.empty((n3, _CHUNK))
+    for start in range(0, n, _CHUNK):
+        L = min(_CHUNK, n - start)
+        for t in range(L):
+            for i in range(m):
+                dev[i, t] = x[start + t, i] - mean[i]
+        for q in range(n2):
+            a = c2[q, 0]
+            b = c2[q, 1]
+            acc = 0.0
+            for t in range(L):
+                v = dev[a, t] * dev[b, t]
+                p2[q, t] = v
+                acc += v
+            s2[q] += acc
+        for q in range(n3):
+            pp = c3p[q]
+            k = c3k[q]
+            acc = 0.0
+            for t in range(L):
+                v = p2[pp, t] * dev[k, t]
+                p3[q, t] = v
+                acc += v
+            s3[q] += acc
+        for q in range(n4):
+            pp = c4p[q]
+            k = c4l[q]
+            acc = 0.0
+            for t in range(L):
+                acc += p3[pp, t] * dev[k, t]
+            s4[q] += acc
+
+
+@numba.njit(cache=True, fastmath=_FAST)
+def monomial_block_means(x, ref, base, parent, last, out):
+    """Means over consecutive base blocks of ``base`` rows of every monomial of ``x - ref``.
+
+    Monomial ``q`` is monomial ``parent[q]`` times component ``last[q]`` (``parent[q] == -1``:
+    degree one). ``x`` has ``nb * base`` rows; ``out`` is (D, nb), component-major so that the
+    blocking kernel reads contiguous rows.
+    """
+    n, m = x.shape
+    D = parent.shape[0]
+    nb = n // base
+    mono = np.empty((D, base))
+    inv = 1.0 / base
+    for b in range(nb):
+        start = b * base
+        for q in range(D):
+            k = last[q]
+            pq = parent[q]
+            acc = 0.0
+            if pq < 0:
+                for t in range(base):
+                    v = x[start + t, k] - ref[k]
+                    mono[q, t] = v
+                    acc += v
+            else:
+                for t in range(base):
+                    v = mono[pq, t] * mono[k, t]
+                    mono[q, t] = v
+                    acc += v
+            out[q, b] = acc * inv
+
+
+@numba.njit(cache=True, fastmath=_FAST)
+def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending):
+    """Push block-mean vectors ``y`` (D, n) into the dyadic blocking levels.
+
+    Level ``k`` keeps, for the vector series of its block means: ``count[k]``, the sum
+    ``S[k]`` (D,), the upper triangle of the sum of outer products ``Q[k]`` (D, D), the upper
+    triangle of the symmetrised lag-one product sum ``P[k]`` (sum of (y_i y_{i+1}^T +
+    y_{i+1} y_i^T) / 2), the first and last vectors, and a pending vector waiting for its pair.
+    Pairs of level-``k`` values are averaged into level ``k + 1`` (Flyvbjerg & Petersen 1989).
+    Returns the number of levels in use.
+    """
+    D = y.shape[0]
+    nlev = count.shape[0]
+    cur = y
+    used = 0
+    for k in range(nlev):
+        n = cur.shape[1]
+        if n == 0:
+            break
+        used = k + 1
+        # sums and outer products
+        for a in range(D):
+            acc = 0.0
+            for t in range(n):
+                acc += cur[a, t]
+            S[k, a] += acc
+            for b in range(a, D):
+                acc = 0.0
+                for t in range(n):
+                    acc += cur[a, t] * cur[b, t]
+                Q[k, a, b] += acc
+        # lag-one products, including the link to the previous call's last vector
+        for a in range(D):
+            for b in range(a, D):
+                acc = 0.0
+                for t in range(n - 1):
+                    acc += cur[a, t] * cur[b, t + 1] + cur[b, t] * cur[a, t + 1]
+                if has_last[k]:
+                    acc += last[k, a] * cur[b, 0] + last[k, b] * cur[a, 0]
+                P[k, a, b] += 0.5 * acc
+        if count[k] == 0:
+            for a in range(D):
+                first[k, a] = cur[a, 0]
+        for a in range(D):
+            last[k, a] = cur[a, n - 1]
+        has_last[k] = True
+        count[k] += n
+        # pair averages for the next level
+        start = 0
+        npend = 0
+        if has_pending[k]:
+            npend = 1
+        total = n + npend
+        nxt = np.empty((D, total // 2))
+        j = 0
+        t = 0
+        if has_pending[k]:
+            for a in range(D):
+                nxt[a, 0] = 0.5 * (pending[k, a] + cur[a, 0])
+            j = 1
+            t = 1
+            has_pending[k] = False
+        while t + 1 < n:
+            for a in range(D):
+                nxt[a, j] = 0.5 * (cur[a, t] + cur[a, t + 1])
+            j += 1
+            t += 2
+        if t < n:
+            for a in range(D):
+                pending[k, a] = cur[a, t]
+            has_pending[k] = True
+        start = j
+        cur = nxt[:, :start]
+    return used

@@ -1,0 +1,132 @@
+"""MomentAccumulator: count, means and central co-moments of order 2-4 of m components.
+
+One-pass over the stream, mergeable: ``update`` computes the moments of a block with a two-pass
+kernel and combines them with what came before by the same pairwise formula that ``merge``
+uses (Chan, Golub & LeVeque 1979; Pébay 2008, multivariate form). Moments are population
+moments (divide by N), as <u'v'> is defined.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from stats.kernels import central_sums
+from stats.monomials import Layout, layout, shift_sums
+
+__all__ = ["MomentAccumulator", "Moments"]
+
+
+def _frozen(a: np.ndarray) -> np.ndarray:
+    a = np.array(a, dtype=np.float64, copy=True)
+    a.setflags(write=False)
+    return a
+
+
+@dataclass(frozen=True)
+class Moments:
+    """Population moments at one moment: ``mean`` (m,), ``m2``/``m3``/``m4`` per combo (NaN if n == 0)."""
+
+    n: int
+    mean: np.ndarray
+    m2: np.ndarray
+    m3: np.ndarray
+    m4: np.ndarray
+    layout: Layout
+
+    def co_moment(self, combo: tuple[int, ...]) -> float:
+        arr = {2: self.m2, 3: self.m3, 4: self.m4}[len(combo)]
+        return float(arr[self.layout.index[tuple(sorted(combo))]])
+
+    def covariance(self) -> np.ndarray:
+        """The Reynolds-stress tensor <u_i' u_j'> (m, m)."""
+        m = self.layout.m
+        out = np.empty((m, m))
+        for (i, j), q in ((c, self.layout.index[c]) for c in self.layout.combos[2]):
+            out[i, j] = out[j, i] = self.m2[q]
+        return out
+
+
+class MomentAccumulator:
+    """Streaming co-moments of order 2-4 (sums of central products, Pébay's M_p)."""
+
+    def __init__(self, m: int):
+        if not 1 <= m <= 3:
+            raise ValueError(f"1 to 3 velocity components are supported, got {m}")
+        self.layout = layout(m)
+        self.n = 0
+        self.mean = np.zeros(m)
+        self.s2 = np.zeros(len(self.layout.combos[2]))
+        self.s3 = np.zeros(len(self.layout.combos[3]))
+        self.s4 = np.zeros(len(self.layout.combos[4]))
+
+    @classmethod
+    def empty(cls, m: int) -> MomentAccumulator:
+        return cls(m)
+
+    @property
+    def m(self) -> int:
+        return self.layout.m
+
+    def copy(self) -> MomentAccumulator:
+        new = MomentAccumulator(self.m)
+        new.n = self.n
+        new.mean = self.mean.copy()
+        new.s2, new.s3, new.s4 = self.s2.copy(), self.s3.copy(), self.s4.copy()
+        return new
+
+    def update(self, block: np.ndarray) -> MomentAccumulator:
+        """Add a block (n, m) of samples; returns self."""
+        block = np.asarray(block)
+        if block.ndim != 2 or block.shape[1] != self.m:
+            raise ValueError(f"expected a block of shape (n, {self.m}), got {block.shape}")
+        if block.shape[0] == 0:
+            return self
+        lay = self.layout
+        mean = np.empty(self.m)
+        s2 = np.empty_like(self.s2)
+        s3 = np.empty_like(self.s3)
+        s4 = np.empty_like(self.s4)
+        central_sums(block, lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l, mean, s2, s3, s4)
+        self._combine(block.shape[0], mean, s2, s3, s4)
+        return self
+
+    def merge(self, other: MomentAccumulator) -> MomentAccumulator:
+        """A new accumulator holding both inputs' samples (inputs untouched)."""
+        if other.m != self.m:
+            raise ValueError("cannot merge accumulators of different component counts")
+        new = self.copy()
+        if other.n:
+            new._combine(other.n, other.mean, other.s2, other.s3, other.s4)
+        return new
+
+    def _combine(self, nb: int, mean_b, s2b, s3b, s4b) -> None:
+        na = self.n
+        if na == 0:
+            self.n, self.mean = nb, np.array(mean_b, dtype=np.float64)
+            self.s2, self.s3, self.s4 = s2b.copy(), s3b.copy(), s4b.copy()
+            return
+        n = na + nb
+        delta = mean_b - self.mean
+        lay = self.layout
+        # each side's central sums re-centred on the combined mean, then added
+        a2, a3, a4 = shift_sums(lay, na, self.s2, self.s3, self.s4, -delta * (nb / n))
+        b2, b3, b4 = shift_sums(lay, nb, s2b, s3b, s4b, delta * (na / n))
+        self.mean = self.mean + delta * (nb / n)
+        self.s2, self.s3, self.s4 = a2 + b2, a3 + b3, a4 + b4
+        self.n = n
+
+    def raw_about(self, ref: np.ndarray) -> np.ndarray:
+        """Means of every monomial of ``x - ref`` (degree 1-4, monomial layout)."""
+        lay = self.layout
+        shift = self.mean - ref
+        r2, r3, r4 = shift_sums(lay, self.n, self.s2, self.s3, self.s4, shift)
+        return np.concatenate([shift, r2 / self.n, r3 / self.n, r4 / self.n])
+
+    def moments(self) -> Moments:
+        n = self.n
+        div = n if n > 0 else np.nan
+        mean = self.mean if n > 0 else np.full(self.m, np.nan)
+        return Moments(n, _frozen(mean), _frozen(self.s2 / div), _frozen(self.s3 / div),
+                       _frozen(self.s4 / div), self.layout)

@@ -1,0 +1,146 @@
+"""Index layout of co-moments and monomials for m velocity components.
+
+A *combo* is a sorted index tuple such as ``(0, 1, 1)`` (the co-moment ``uvv``). Monomials of
+degree 1-4 are laid out degree by degree, degree one first so that monomial ``i`` is component
+``i``. The tables here let the kernels build each product from a lower-order one, and let
+``shift_sums`` move central sums from one centre to another (the merge formula of Pébay 2008,
+in its multivariate form: expand the product of shifted deviations over subsets).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from functools import lru_cache
+from itertools import combinations, combinations_with_replacement
+
+import numba
+import numpy as np
+
+__all__ = ["Layout", "layout", "shift_sums"]
+
+
+@dataclass(frozen=True)
+class Layout:
+    m: int
+    combos: tuple[tuple[tuple[int, ...], ...], ...]  # combos[p] for p = 0..4 (0: (), 1: (i,))
+    index: dict  # combo tuple -> index within its order
+    # kernel tables (see kernels.central_sums / monomial_block_means)
+    c2: np.ndarray
+    c3p: np.ndarray
+    c3k: np.ndarray
+    c4p: np.ndarray
+    c4l: np.ndarray
+    mono_parent: np.ndarray
+    mono_last: np.ndarray
+    mono_offset: tuple[int, ...]  # start of each degree (1..4) in the monomial vector
+    # shift tables: one row per (target combo, subset of its positions with size != 1)
+    t_order: np.ndarray  # order p of the target
+    t_target: np.ndarray  # index of the target combo within order p
+    t_src_order: np.ndarray  # size s of the subset (0 or 2..p)
+    t_src: np.ndarray  # index of the subset combo within order s
+    t_comp: np.ndarray  # (T, 4) components of the complement, -1 padded
+
+    @property
+    def n_monomials(self) -> int:
+        return sum(len(self.combos[p]) for p in (1, 2, 3, 4))
+
+    def monomial_index(self, combo: tuple[int, ...]) -> int:
+        return self.mono_offset[len(combo) - 1] + self.index[combo]
+
+
+@lru_cache(maxsize=8)
+def layout(m: int) -> Layout:
+    combos = tuple(tuple(combinations_with_replacement(range(m), p)) for p in range(5))
+    index = {}
+    for p in range(5):
+        for q, c in enumerate(combos[p]):
+            index[c] = q
+    c2 = np.array(combos[2], dtype=np.int64).reshape(-1, 2)
+    c3p = np.array([index[c[:2]] for c in combos[3]], dtype=np.int64)
+    c3k = np.array([c[2] for c in combos[3]], dtype=np.int64)
+    c4p = np.array([index[c[:3]] for c in combos[4]], dtype=np.int64)
+    c4l = np.array([c[3] for c in combos[4]], dtype=np.int64)
+    offs = []
+    parent, last = [], []
+    off = 0
+    for p in (1, 2, 3, 4):
+        offs.append(off)
+        for c in combos[p]:
+            parent.append(-1 if p == 1 else offs[p - 2] + index[c[:-1]])
+            last.append(c[-1])
+        off += len(combos[p])
+    rows = []
+    for p in (2, 3, 4):
+        for q, c in enumerate(combos[p]):
+            for s in range(p + 1):
+                if s == 1:
+                    continue
+                for sub in combinations(range(p), s):
+                    comp = [c[i] for i in range(p) if i not in sub]
+                    src = index[tuple(sorted(c[i] for i in sub))] if s >= 2 else 0
+                    rows.append((p, q, s, src, comp + [-1] * (4 - len(comp))))
+    return Layout(
+        m=m,
+        combos=combos,
+        index=index,
+        c2=c2,
+        c3p=c3p,
+        c3k=c3k,
+        c4p=c4p,
+        c4l=c4l,
+        mono_parent=np.array(parent, dtype=np.int64),
+        mono_last=np.array(last, dtype=np.int64),
+        mono_offset=tuple(offs),
+        t_order=np.array([r[0] for r in rows], dtype=np.int64),
+        t_target=np.array([r[1] for r in rows], dtype=np.int64),
+        t_src_order=np.array([r[2] for r in rows], dtype=np.int64),
+        t_src=np.array([r[3] for r in rows], dtype=np.int64),
+        t_comp=np.array([r[4] for r in rows], dtype=np.int64),
+    )
+
+
+@numba.njit(cache=True)
+def _shift_kernel(n, s2, s3, s4, shift, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4):
+    for q in range(o2.shape[0]):
+        o2[q] = 0.0
+    for q in range(o3.shape[0]):
+        o3[q] = 0.0
+    for q in range(o4.shape[0]):
+        o4[q] = 0.0
+    for r in range(t_order.shape[0]):
+        so = t_src_order[r]
+        if so == 0:
+            v = n
+        elif so == 2:
+            v = s2[t_src[r]]
+        elif so == 3:
+            v = s3[t_src[r]]
+        else:
+            v = s4[t_src[r]]
+        for j in range(4):
+            c = t_comp[r, j]
+            if c >= 0:
+                v *= shift[c]
+        p = t_order[r]
+        if p == 2:
+            o2[t_target[r]] += v
+        elif p == 3:
+            o3[t_target[r]] += v
+        else:
+            o4[t_target[r]] += v
+
+
+def shift_sums(lay: Layout, n: float, s2, s3, s4, shift):
+    """Sums of products of ``(x - c) + shift`` from central sums about ``c``.
+
+    Central sums (first-order sums zero) of ``n`` samples about their mean ``c`` become sums
+    about ``c - shift``. Returns new arrays (inputs untouched).
+    """
+    o2 = np.empty_like(s2)
+    o3 = np.empty_like(s3)
+    o4 = np.empty_like(s4)
+    _shift_kernel(
+        float(n), s2, s3, s4, np.asarray(shift, dtype=np.float64),
+        lay.t_order, lay.t_target, lay.t_src_order, lay.t_src, lay.t_comp, o2, o3, o4,
+    )
+    return o2, o3, o4

@@ -1,0 +1,240 @@
+"""PointStatistics: everything eddyvigil knows about one measurement point.
+
+Composes the moment accumulator (values), the blocking accumulator (errors for correlated
+data), the delta-method table (which series to block for each statistic), the stationarity
+guard and the stopping rule, and turns them into an immutable :class:`PointSnapshot`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import lru_cache
+
+import numpy as np
+from scipy import stats as sps
+
+from stats.blocking import BlockingAccumulator
+from stats.convergence import Checkpoints, eta_seconds, passes
+from stats.delta import K_METHODS, StatisticTable
+from stats.moments import MomentAccumulator
+from stats.names import components_of
+from stats.snapshot import Estimate, PointSnapshot
+from stats.stationarity import assess
+from stats.targets import Targets
+
+__all__ = ["PointStatistics", "DEFAULT_BASE_BLOCK"]
+
+#: samples per base block of the blocking hierarchy (its level 0); see blocking.py
+DEFAULT_BASE_BLOCK = 64
+
+
+@lru_cache(maxsize=4096)
+def _t_quantile(p: float, df: int) -> float:
+    return float(sps.t.ppf(p, df))
+
+
+@dataclass(frozen=True)
+class _Evaluation:
+    names: tuple[str, ...]
+    values: np.ndarray
+    stderr: np.ndarray
+    blocks: np.ndarray
+    se_rel_err: np.ndarray
+    half_width: np.ndarray
+    suspect: dict
+
+
+class PointStatistics:
+    """Mean, Reynolds stresses, k, third/fourth moments, skewness, flatness, integral time
+    scales and effective sample counts of one point, with standard errors and verdicts.
+
+    Parameters
+    ----------
+    columns
+        Velocity component names in column order, e.g. ``("u", "v", "w")``.
+    rate_hz
+        Uniform sampling rate; None for random sampling (then ``update`` takes ``duration_s``).
+    targets
+        Tolerances (default: :meth:`Targets.defaults`).
+    confidence
+        Confidence of reported intervals (default: the targets' confidence).
+    """
+
+    def __init__(self, columns, rate_hz: float | None, targets: Targets | None = None,
+                 confidence: float | None = None, base: int = DEFAULT_BASE_BLOCK, ref=None):
+        self.columns = tuple(columns)
+        m = len(self.columns)
+        self.rate_hz = None if rate_hz is None else float(rate_hz)
+        self.targets = targets if targets is not None else Targets.defaults()
+        self.confidence = float(confidence if confidence is not None else self.targets.confidence)
+        self.moments = MomentAccumulator(m)
+        self.blocking = BlockingAccumulator(m, base=base, ref=ref)
+        self.table = StatisticTable(self.columns, self.moments.layout)
+        self.checkpoints = Checkpoints()
+        self._duration_s = 0.0
+        self._cache: _Evaluation | None = None
+
+    @classmethod
+    def empty(cls, columns, rate_hz, targets=None, confidence=None, **kw) -> PointStatistics:
+        return cls(columns, rate_hz, targets, confidence, **kw)
+
+    # ------------------------------------------------------------------ state
+    @property
+    def n(self) -> int:
+        return self.moments.n
+
+    @property
+    def duration_s(self) -> float:
+        if self.rate_hz is not None:
+            return self.n / self.rate_hz
+        return self._duration_s
+
+    def update(self, block: np.ndarray, duration_s: float | None = None) -> PointStatistics:
+        """Add a block (n, m) of velocity samples in time order; returns self."""
+        block = np.asarray(block)
+        if block.ndim != 2 or block.shape[1] != len(self.columns):
+            raise ValueError(f"expected a block of shape (n, {len(self.columns)}), got {block.shape}")
+        if block.dtype not in (np.float32, np.float64):
+            block = block.astype(np.float64)
+        if block.shape[0] == 0:
+            return self
+        if self.rate_hz is None:
+            if duration_s is None or not math.isfinite(duration_s) or duration_s < 0:
+                raise ValueError("random sampling (rate_hz None) needs the block's duration_s")
+            self._duration_s += float(duration_s)
+        self.moments.update(block)
+        self.blocking.update(block)
+        self._cache = None
+        if self.checkpoints.due(self.n):
+            ev = self._evaluate()
+            self.checkpoints.record(self.n, self._passes(ev), self.duration_s)
+        return self
+
+    def merge(self, other: PointStatistics) -> PointStatistics:
+        """A new object for ``self`` followed in time by ``other`` (inputs untouched).
+
+        Values merge exactly; error estimates merge as in :meth:`BlockingAccumulator.merge`
+        (parts need a common ``ref``). Verdict history restarts from the merged state.
+        """
+        if other.columns != self.columns:
+            raise ValueError("cannot merge points with different columns")
+        new = PointStatistics(self.columns, self.rate_hz, self.targets, self.confidence,
+                              base=self.blocking.base)
+        new.moments = self.moments.merge(other.moments)
+        new.blocking = self.blocking.merge(other.blocking)
+        new._duration_s = self._duration_s + other._duration_s
+        return new
+
+    # ------------------------------------------------------------- evaluation
+    def _evaluate(self) -> _Evaluation:
+        if self._cache is not None:
+            return self._cache
+        tab = self.table
+        m = len(self.columns)
+        names = tab.names + tuple(f"Tint_{c}" for c in self.columns) + tuple(
+            f"Neff_{c}" for c in self.columns)
+        S = len(names)
+        nan = np.full(S, np.nan)
+        if self.n < 2 or self.blocking.ref is None:
+            ev = _Evaluation(names, nan, nan.copy(), np.zeros(S, dtype=np.int64), nan.copy(),
+                             nan.copy(), {})
+            self._cache = ev
+            return ev
+        ref = self.blocking.ref
+        raw = self.moments.raw_about(ref)
+        values, grad = tab.values_and_gradient(raw, ref)
+        choice = self.blocking.analyse(grad)
+        var = choice.variance
+        se = np.sqrt(var)
+        blocks = choice.blocks
+        rel = choice.relative_error
+        # integral time scale and effective sample count from the error of the mean:
+        # Var(mean) = 2 sigma^2 Tint / T, N_eff = sigma^2 / Var(mean) (REFERENCES §1)
+        T = self.duration_s
+        sig2 = values[m : 2 * m]
+        var_mean = var[:m]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            tint = T * var_mean / (2.0 * sig2)
+            neff = sig2 / var_mean
+        # relative error of a variance estimate is twice that of its square root
+        values = np.concatenate([values, tint, neff])
+        se = np.concatenate([se, 2 * rel[:m] * tint, 2 * rel[:m] * neff])
+        blocks = np.concatenate([blocks, blocks[:m], blocks[:m]])
+        rel = np.concatenate([rel, rel[:m], rel[:m]])
+        p = 0.5 * (1.0 + self.confidence)
+        tq = np.array([_t_quantile(p, int(b) - 1) if b >= 2 else np.nan for b in blocks])
+        hw = tq * se
+        suspect = {}
+        seg = self.blocking.segment_means()
+        for i, c in enumerate(self.columns):
+            verdict = assess(seg[:, i] if seg.shape[0] else seg.reshape(0), float(se[i]))
+            if not verdict.stationary:
+                suspect[c] = verdict.reason or "not stationary"
+        ev = _Evaluation(names, values, se, blocks.astype(np.int64), rel, hw, suspect)
+        self._cache = ev
+        return ev
+
+    def _value_map(self, ev: _Evaluation) -> dict[str, float]:
+        return {n: float(v) for n, v in zip(ev.names, ev.values)}
+
+    def _passes(self, ev: _Evaluation) -> dict[str, bool]:
+        vals = self._value_map(ev)
+        out = {}
+        for i, name in enumerate(ev.names):
+            target = self.targets.resolve(name, vals)
+            if target is None:
+                continue
+            stationary = not (components_of(name) & set(ev.suspect))
+            out[name] = passes(float(ev.half_width[i]), target, int(ev.blocks[i]),
+                               float(ev.se_rel_err[i]), stationary)
+        return out
+
+    def snapshot(self) -> PointSnapshot:
+        """An immutable view of every statistic now."""
+        ev = self._evaluate()
+        vals = self._value_map(ev)
+        T = self.duration_s
+        estimates = []
+        all_conv = True
+        any_target = False
+        for i, name in enumerate(ev.names):
+            v, se, hw = float(ev.values[i]), float(ev.stderr[i]), float(ev.half_width[i])
+            blocks = int(ev.blocks[i])
+            target = self.targets.resolve(name, vals)
+            bad = sorted(components_of(name) & set(ev.suspect))
+            reason = None
+            if target is None:
+                converged, eta = None, None
+                state = "suspect" if bad else "untargeted"
+            else:
+                any_target = True
+                converged = self.checkpoints.is_converged(name) and not bad
+                eta = 0.0 if converged else eta_seconds(hw, target, blocks, T)
+                if bad:
+                    state, reason = "suspect", "; ".join(f"{c}: {ev.suspect[c]}" for c in bad)
+                elif converged:
+                    state = "converged"
+                elif blocks < 64 or not math.isfinite(hw) or ev.se_rel_err[i] > 0.15:
+                    state, reason = "warming-up", f"{blocks} blocks at the chosen level, 64 needed"
+                else:
+                    state = "converging"
+                if not converged:
+                    all_conv = False
+            estimates.append(Estimate(
+                name=name, value=v, stderr=se, ci_low=v - hw, ci_high=v + hw, half_width=hw,
+                target=None if target is None else float(target), converged=converged,
+                eta_s=eta, state=state, blocks=blocks, reason=reason,
+            ))
+        converged = any_target and all_conv
+        return PointSnapshot(
+            columns=self.columns,
+            samples=self.n,
+            duration_s=T,
+            confidence=self.confidence,
+            estimates=tuple(estimates),
+            converged=converged,
+            converged_at_s=self.checkpoints.converged_at_s if converged else None,
+            k_method=K_METHODS[len(self.columns)],
+            suspect=ev.suspect,
+        )
