@@ -213,9 +213,13 @@ class Scenario:
     raw: dict = field(default_factory=dict, repr=False)
 
     def with_rate(self, rate_hz: float | None) -> Scenario:
-        """The same scenario at another (fine-clock) sampling rate."""
+        """The same scenario at another row rate (the mean data rate for random sampling)."""
         if rate_hz is None:
             return self
+        if self.sampling == "random":
+            if not 0 < rate_hz <= 0.2 * self.rate_hz:
+                raise ScenarioError(f"--rate for random sampling must be <= {0.2 * self.rate_hz:g} Hz")
+            return Scenario(**{**self.__dict__, "data_rate_hz": float(rate_hz)})
         return Scenario(**{**self.__dict__, "rate_hz": float(rate_hz)})
 
     def point_faults(self, point: PointSpec) -> dict:
