@@ -237,7 +237,11 @@ class Pipeline:
         return reason
 
     def _reject_unplaced(self, rej, frames) -> None:
-        name = rej.stream if rej.stream is not None else _topic_of(frames)
+        # the topic names the stream the publisher sent on (a header naming another stream
+        # is exactly what stream_mismatch rejects), so it takes precedence
+        name = _topic_of(frames)
+        if name is None:
+            name = rej.stream
         st = self._stream(name) if name is not None else None
         if st is None:
             self._rejected[rej.reason] += 1

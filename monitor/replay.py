@@ -57,7 +57,9 @@ def parse_speed(text: str) -> float | None:
     try:
         value = float(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"speed must be a positive number or 'max', not {text!r}")
+        raise argparse.ArgumentTypeError(
+            f"speed must be a positive number or 'max', not {text!r}"
+        ) from None
     if not value > 0 or value == float("inf"):
         raise argparse.ArgumentTypeError(f"speed must be a positive number or 'max', not {text!r}")
     return value
@@ -173,11 +175,10 @@ def run(args: argparse.Namespace) -> int:
 
         max_bytes = int(settings.get("max_message_bytes", DEFAULT_MAX_MESSAGE_BYTES))
 
-    try:
-        first = iter(_records(directory, None))
-        next(first, None)
-    except Exception as exc:  # the recorder says why it is not a recording
-        return _fail(EXIT_NO_RECORDING, f"{directory}: not a readable recording ({exc})")
+    from monitor.recorder import holds_recording
+
+    if not holds_recording(directory):
+        return _fail(EXIT_NO_RECORDING, f"{directory} holds no recording (made by watch --record)")
 
     if args.publish:
         return _republish(args, directory)

@@ -236,7 +236,9 @@ def run(args: argparse.Namespace) -> int:
             check_endpoint(args.control)
     except SubscriberError as exc:
         return _fail(EXIT_ENDPOINT, str(exc))
-    if args.record and not args.append and _holds_recording(Path(args.record)):
+    from monitor.recorder import holds_recording
+
+    if args.record and not args.append and holds_recording(args.record):
         return _fail(
             EXIT_RECORDING_EXISTS,
             f"{args.record} already holds a recording; choose a new directory or add --append",
@@ -357,8 +359,3 @@ def _serve_with_dashboard(args, pipeline, sub, acquire) -> int:
         if thread.is_alive():
             thread.join(timeout=10.0)
     return 0
-
-
-def _holds_recording(directory: Path) -> bool:
-    """True when DIR exists and is not empty (the recorder has the final word)."""
-    return directory.is_dir() and any(directory.iterdir())
