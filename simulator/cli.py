@@ -10,7 +10,7 @@ import argparse
 import math
 import sys
 
-__all__ = ["add_arguments", "run", "parse_speed", "EPILOG"]
+__all__ = ["add_arguments", "run", "main", "parse_speed", "EPILOG"]
 
 EPILOG = """\
 speed: 1 = real time (the sample clock is honoured against a monotonic clock), N = N times
@@ -117,3 +117,15 @@ def run(args: argparse.Namespace) -> int:
     except ValueError as e:
         print(f"eddyvigil simulate: {e}", file=sys.stderr)
         return 2
+
+
+def main(argv: list[str] | None = None) -> int:
+    """``python -m simulator.cli ...``: the same command without the ``eddyvigil`` wrapper."""
+    parser = argparse.ArgumentParser(prog="eddyvigil simulate", description=__doc__.splitlines()[0],
+                                     epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    add_arguments(parser)
+    return run(parser.parse_args(argv))
+
+
+if __name__ == "__main__":
+    sys.exit(main())
