@@ -198,7 +198,9 @@ class _Page:
 
         _set_text(self.verdict, views.verdict_html(snap))
         _set_text(self.health, views.health_html(snap))
-        self.status_source.data = views.status_columns(snap)
+        status = views.status_columns(snap)
+        if status != dict(self.status_source.data):
+            self.status_source.data = status
 
         identity = (name, view.session, view.point_index) if view is not None else None
         new_point = identity != self.identity

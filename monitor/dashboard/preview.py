@@ -60,7 +60,7 @@ class PreviewRun:
             scale = speed if name in ("U", "V") else truth["k"]
             target = rel * scale
             hw = target * at1 / math.sqrt(max(t, 1e-3))
-            wobble = 0.6 * hw * math.sin(7.0 * t + len(name))
+            wobble = 0.6 * hw * math.sin(1.3 * t + len(name))
             state = "warming-up" if t < 1.0 else ("converged" if hw <= target else "converging")
             eta_s = 0.0 if state == "converged" else (t * ((hw / target) ** 2 - 1) if t >= 1.0
                                                       else None)
@@ -108,7 +108,7 @@ class PreviewRun:
         for e in targeted:
             rel, at1 = next((r, a) for n, r, a in _TARGETED if n == e.name)
             hw = e.target * at1 / np.sqrt(hist_t)
-            history[e.name] = self._truth(y)[e.name] + 0.6 * hw * np.sin(7.0 * hist_t)
+            history[e.name] = self._truth(y)[e.name] + 0.6 * hw * np.sin(1.3 * hist_t + len(e.name))
             history[e.name + "_hw"] = hw
             history[e.name + "_target"] = np.full(hist_t.shape, e.target)
         view = StreamView(

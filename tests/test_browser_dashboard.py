@@ -1,0 +1,199 @@
+"""The dashboard in a real headless Chromium, over a real websocket, fully offline.
+
+The server runs in a thread on a free port with a synthetic run that changes over time
+(:class:`monitor.dashboard.preview.PreviewRun`). The browser setup follows the project's
+BROWSER.md (explicit chromedriver, SE_OFFLINE, fresh profile).
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import struct
+import tempfile
+import threading
+import time
+import zlib
+from pathlib import Path
+
+import pytest
+
+from monitor.dashboard.preview import PreviewRun
+from monitor.dashboard.server import DashboardServer
+
+CHROMIUM = "/usr/bin/chromium"
+CHROMEDRIVER = "/usr/bin/chromedriver"
+
+pytestmark = pytest.mark.browser
+
+
+def _browser_or_skip():
+    have = os.path.exists(CHROMIUM) and os.path.exists(CHROMEDRIVER)
+    if not have:
+        if os.environ.get("CI"):
+            pytest.fail("CI is set but Chromium/chromedriver are missing: this test must run")
+        pytest.skip("Chromium and chromedriver not installed (CI unset): browser test not run")
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+
+    os.environ["SE_OFFLINE"] = "true"
+    profile = tempfile.mkdtemp(prefix="eddyvigil-chromium-")
+    options = webdriver.ChromeOptions()
+    options.binary_location = CHROMIUM
+    for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                 "--no-first-run", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync", f"--user-data-dir={profile}",
+                 "--window-size=1280,1400"):
+        options.add_argument(flag)
+    driver = webdriver.Chrome(service=Service(CHROMEDRIVER), options=options)
+    return driver, profile
+
+
+class _ServerThread:
+    """A DashboardServer on a free port in its own thread (its own event loop)."""
+
+    def __init__(self, get_snapshot, on_start=None, on_stop=None):
+        self.ready = threading.Event()
+        self.server: DashboardServer | None = None
+        self.error: BaseException | None = None
+        self.thread = threading.Thread(target=self._run, args=(get_snapshot, on_start, on_stop),
+                                       daemon=True)
+        self.thread.start()
+        assert self.ready.wait(20), "dashboard server did not come up within 20 s"
+        if self.error is not None:
+            raise self.error
+
+    def _run(self, get_snapshot, on_start, on_stop):
+        try:
+            self.server = DashboardServer(get_snapshot, port=0, on_start=on_start,
+                                          on_stop=on_stop)
+            self.server.start()
+        except BaseException as exc:  # noqa: B036 - handed to the test thread
+            self.error = exc
+            self.ready.set()
+            return
+        self.ready.set()
+        self.server.run()
+        self.server.close()
+
+    def stop(self):
+        self.server.stop()
+        self.thread.join(20)
+        assert not self.thread.is_alive(), "dashboard server thread did not stop within 20 s"
+
+
+def _wait_for(driver, script, timeout_s=20.0, what=""):
+    """Poll ``script`` in the page until it returns something truthy (bounded in time)."""
+    deadline = time.monotonic() + timeout_s
+    for _ in range(int(timeout_s / 0.1) + 1):
+        value = driver.execute_script(script)
+        if value:
+            return value
+        if time.monotonic() > deadline:
+            break
+        time.sleep(0.1)
+    raise AssertionError(f"timed out after {timeout_s} s waiting for {what or script}")
+
+
+def _png_colours(path: Path) -> int:
+    """Distinct RGB(A) colours in a PNG (decoded here with zlib; PNG spec, W3C 2003)."""
+    data = path.read_bytes()
+    assert data[:8] == b"\x89PNG\r\n\x1a\n"
+    pos, idat, width, height, ctype = 8, b"", 0, 0, 0
+    while pos < len(data):
+        (length,) = struct.unpack(">I", data[pos:pos + 4])
+        kind = data[pos + 4:pos + 8]
+        body = data[pos + 8:pos + 8 + length]
+        if kind == b"IHDR":
+            width, height, _depth, ctype = struct.unpack(">IIBB", body[:10])
+        elif kind == b"IDAT":
+            idat += body
+        pos += 12 + length
+    channels = {2: 3, 6: 4}[ctype]
+    raw = zlib.decompress(idat)
+    stride = width * channels
+    colours = set()
+    prev = bytearray(stride)
+    # Undo the PNG row filters (None, Sub, Up, Average, Paeth) on every 8th row.
+    for y in range(height):
+        f = raw[y * (stride + 1)]
+        line = bytearray(raw[y * (stride + 1) + 1:(y + 1) * (stride + 1)])
+        for i in range(stride):
+            a = line[i - channels] if i >= channels else 0
+            b = prev[i]
+            c = prev[i - channels] if i >= channels else 0
+            if f == 1:
+                line[i] = (line[i] + a) & 255
+            elif f == 2:
+                line[i] = (line[i] + b) & 255
+            elif f == 3:
+                line[i] = (line[i] + (a + b) // 2) & 255
+            elif f == 4:
+                p = a + b - c
+                pa, pb, pc = abs(p - a), abs(p - b), abs(p - c)
+                pred = a if pa <= pb and pa <= pc else (b if pb <= pc else c)
+                line[i] = (line[i] + pred) & 255
+        if y % 8 == 0:
+            for x in range(0, stride, channels * 4):
+                colours.add(bytes(line[x:x + 3]))
+        prev = line
+    return len(colours)
+
+
+def test_dashboard_updates_live_in_a_real_browser(tmp_path):
+    driver, profile = _browser_or_skip()
+    run = PreviewRun(point_s=4.0, points=5)
+    started = time.monotonic()
+    hooks = []
+    # Run time goes 8x faster than the wall clock so points finish within the test.
+    srv = _ServerThread(lambda: run.snapshot(8.0 * (time.monotonic() - started)),
+                        on_start=lambda: hooks.append("start"),
+                        on_stop=lambda: hooks.append("stop"))
+    try:
+        url = srv.server.url
+        driver.set_page_load_timeout(30)
+        driver.get(url)
+        _wait_for(driver, "return window.Bokeh !== undefined && Bokeh.documents.length > 0",
+                  what="the Bokeh document (websocket connected)")
+        model = "Bokeh.documents[0].get_model_by_name"
+        _wait_for(driver, f"return {model}('status_source').data.name.length > 0",
+                  what="status board rows")
+        first_verdict = driver.execute_script(f"return {model}('verdict').text")
+        first_t = driver.execute_script(
+            f"const t = {model}('trace_source').data.t; return t[t.length - 1]")
+        # The trace streams on: its last time moves forward, over the websocket.
+        _wait_for(driver, f"const t = {model}('trace_source').data.t;"
+                          f"return t.length > 0 && t[t.length - 1] > {first_t} + 1.0",
+                  what="new trace rows")
+        # A point finishes: the traverse table and profile get rows.
+        _wait_for(driver, f"return {model}('finished_source').data.id.length >= 1",
+                  timeout_s=25, what="a finished point in the traverse table")
+        _wait_for(driver, f"return {model}('verdict').text != {first_verdict!r}",
+                  what="the verdict to change")
+        assert "point P" in driver.execute_script(f"return {model}('verdict').text")
+        n_lines = driver.execute_script(f"return {model}('halfwidth_source').data.xs.length")
+        assert n_lines == 6  # the six targeted statistics of the preview run
+        health = driver.execute_script(f"return {model}('health').text")
+        assert "non_finite 2" in health and "! " in health  # non-zero rejections are flagged
+
+        origin = url.rstrip("/")
+        resources = driver.execute_script(
+            "return performance.getEntriesByType('resource').map(e => e.name)")
+        assert resources, "the page loaded no resources at all"
+        foreign = [r for r in resources if not r.startswith(origin + "/")]
+        assert not foreign, f"resources from outside the dashboard server: {foreign}"
+        assert any("/static/js/bokeh" in r for r in resources)
+
+        time.sleep(0.5)
+        shot = tmp_path / "dashboard.png"
+        driver.save_screenshot(str(shot))
+        keep = os.environ.get("EDDYVIGIL_SCREENSHOT_DIR")
+        if keep:
+            shutil.copy(shot, Path(keep) / "test_browser_dashboard.png")
+        assert shot.stat().st_size > 20_000, "screenshot suspiciously small: blank page?"
+        assert _png_colours(shot) > 8, "screenshot has too few colours: blank page?"
+    finally:
+        driver.quit()
+        shutil.rmtree(profile, ignore_errors=True)
+        srv.stop()
+    assert hooks == ["start", "stop"], "on_start/on_stop must run exactly once per server"
