@@ -163,7 +163,7 @@ class BlockingAccumulator:
         nb = rows.shape[0] // self.base
         y = np.empty((self.D, nb))
         lay = self.layout
-        monomial_block_means(rows, self.ref, self.base, lay.mono_parent, lay.mono_last, y)
+        monomial_block_means(rows, self.ref, self.base, lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l, y)
         blocking_push(y, self.count, self.S, self.Q, self.P, self.first, self.last,
                       self.has_last, self.pending, self.has_pending)
         self._add_segments(y[: self.m])
@@ -217,7 +217,7 @@ class BlockingAccumulator:
         both = (self.count > 0) & (other.count > 0)
         link = np.einsum("ka,kb->kab", self.last, other.first)
         link = 0.5 * (link + np.swapaxes(link, 1, 2))
-        new.P = self.P + other.P + np.where(both[:, None, None], np.triu(link), 0.0)
+        new.P = self.P + other.P + np.where(both[:, None, None], link, 0.0)
         new.S = self.S + other.S
         new.Q = self.Q + other.Q
         new.first = np.where((self.count > 0)[:, None], self.first, other.first)
@@ -267,8 +267,8 @@ class BlockingAccumulator:
         if L == 0:
             return choose_level(np.zeros((S, 0)), np.zeros((S, 0)), n, self.base)
         mu = self.S[0] / self.count[0]  # global means of the monomials (all base blocks)
-        Q = self.Q[:L] + np.triu(self.Q[:L], 1).transpose(0, 2, 1)
-        P = self.P[:L] + np.triu(self.P[:L], 1).transpose(0, 2, 1)
+        Q = self.Q[:L]
+        P = self.P[:L]
         g = grad
         zq = np.einsum("sa,kab,sb->sk", g, Q, g)
         zp = np.einsum("sa,kab,sb->sk", g, P, g)

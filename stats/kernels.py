@@ -83,89 +83,110 @@ def central_sums(x, c2, c3p, c3k, c4p, c4l, mean, s2, s3, s4):
 
 
 @numba.njit(cache=True, fastmath=_FAST)
-def monomial_block_means(x, ref, base, parent, last, out):
+def monomial_block_means(x, ref, base, c2, c3p, c3k, c4p, c4l, out):
     """Means over consecutive base blocks of ``base`` rows of every monomial of ``x - ref``.
 
-    Monomial ``q`` is monomial ``parent[q]`` times component ``last[q]`` (``parent[q] == -1``:
-    degree one). ``x`` has ``nb * base`` rows; ``out`` is (D, nb), component-major so that the
-    blocking kernel reads contiguous rows.
+    Monomials are laid out degree by degree (degree one first, then the combos of
+    ``central_sums``). ``x`` has ``nb * base`` rows; ``out`` is (D, nb), component-major so
+    that the blocking kernel reads contiguous rows. Each degree has its own scratch array so
+    LLVM can see that reads and writes never alias, and vectorises the loops.
     """
     n, m = x.shape
-    D = parent.shape[0]
+    n2 = c2.shape[0]
+    n3 = c3p.shape[0]
+    n4 = c4p.shape[0]
     nb = n // base
-    mono = np.empty((D, base))
+    dev = np.empty((m, base))
+    p2 = np.empty((n2, base))
+    p3 = np.empty((n3, base))
     inv = 1.0 / base
+    o2 = m
+    o3 = m + n2
+    o4 = m + n2 + n3
     for b in range(nb):
         start = b * base
-        for q in range(D):
-            k = last[q]
-            pq = parent[q]
+        for t in range(base):
+            for i in range(m):
+                dev[i, t] = x[start + t, i] - ref[i]
+        for i in range(m):
             acc = 0.0
-            if pq < 0:
-                for t in range(base):
-                    v = x[start + t, k] - ref[k]
-                    mono[q, t] = v
-                    acc += v
-            else:
-                for t in range(base):
-                    v = mono[pq, t] * mono[k, t]
-                    mono[q, t] = v
-                    acc += v
-            out[q, b] = acc * inv
+            for t in range(base):
+                acc += dev[i, t]
+            out[i, b] = acc * inv
+        for q in range(n2):
+            a = c2[q, 0]
+            c = c2[q, 1]
+            acc = 0.0
+            for t in range(base):
+                v = dev[a, t] * dev[c, t]
+                p2[q, t] = v
+                acc += v
+            out[o2 + q, b] = acc * inv
+        for q in range(n3):
+            pp = c3p[q]
+            k = c3k[q]
+            acc = 0.0
+            for t in range(base):
+                v = p2[pp, t] * dev[k, t]
+                p3[q, t] = v
+                acc += v
+            out[o3 + q, b] = acc * inv
+        for q in range(n4):
+            pp = c4p[q]
+            k = c4l[q]
+            acc = 0.0
+            for t in range(base):
+                acc += p3[pp, t] * dev[k, t]
+            out[o4 + q, b] = acc * inv
 
 
-@numba.njit(cache=True, fastmath=_FAST)
+@numba.njit(cache=True)
 def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending):
     """Push block-mean vectors ``y`` (D, n) into the dyadic blocking levels.
 
     Level ``k`` keeps, for the vector series of its block means: ``count[k]``, the sum
-    ``S[k]`` (D,), the upper triangle of the sum of outer products ``Q[k]`` (D, D), the upper
-    triangle of the symmetrised lag-one product sum ``P[k]`` (sum of (y_i y_{i+1}^T +
-    y_{i+1} y_i^T) / 2), the first and last vectors, and a pending vector waiting for its pair.
-    Pairs of level-``k`` values are averaged into level ``k + 1`` (Flyvbjerg & Petersen 1989).
+    ``S[k]`` (D,), the sum of outer products ``Q[k]`` (D, D), the symmetrised lag-one product
+    sum ``P[k]`` (sum of (y_i y_{i+1}^T + y_{i+1} y_i^T) / 2), the first and last vectors, and
+    a pending vector waiting for its pair. Pairs of level-``k`` values are averaged into level
+    ``k + 1`` (Flyvbjerg & Petersen 1989). The products go through BLAS (``np.dot`` on
+    contiguous arrays): the per-element loop version ran at a fifth of the speed.
     Returns the number of levels in use.
     """
     D = y.shape[0]
     nlev = count.shape[0]
-    cur = y
+    cur = np.ascontiguousarray(y)
     used = 0
     for k in range(nlev):
         n = cur.shape[1]
         if n == 0:
             break
         used = k + 1
-        # sums and outer products
+        if has_last[k]:
+            # prepend the previous call's last vector so the lag products link up
+            ext = np.empty((D, n + 1))
+            ext[:, 0] = last[k]
+            ext[:, 1:] = cur
+        else:
+            ext = cur
         for a in range(D):
             acc = 0.0
             for t in range(n):
                 acc += cur[a, t]
             S[k, a] += acc
-            for b in range(a, D):
-                acc = 0.0
-                for t in range(n):
-                    acc += cur[a, t] * cur[b, t]
-                Q[k, a, b] += acc
-        # lag-one products, including the link to the previous call's last vector
-        for a in range(D):
-            for b in range(a, D):
-                acc = 0.0
-                for t in range(n - 1):
-                    acc += cur[a, t] * cur[b, t + 1] + cur[b, t] * cur[a, t + 1]
-                if has_last[k]:
-                    acc += last[k, a] * cur[b, 0] + last[k, b] * cur[a, 0]
-                P[k, a, b] += 0.5 * acc
+        Q[k] += np.dot(cur, cur.T)
+        m = ext.shape[1]
+        if m > 1:
+            lo = np.ascontiguousarray(ext[:, : m - 1])
+            hi = np.ascontiguousarray(ext[:, 1:])
+            lag = np.dot(lo, hi.T)
+            P[k] += 0.5 * (lag + lag.T)
         if count[k] == 0:
-            for a in range(D):
-                first[k, a] = cur[a, 0]
-        for a in range(D):
-            last[k, a] = cur[a, n - 1]
+            first[k] = cur[:, 0]
+        last[k] = cur[:, n - 1]
         has_last[k] = True
         count[k] += n
         # pair averages for the next level
-        start = 0
-        npend = 0
-        if has_pending[k]:
-            npend = 1
+        npend = 1 if has_pending[k] else 0
         total = n + npend
         nxt = np.empty((D, total // 2))
         j = 0
@@ -185,6 +206,5 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
             for a in range(D):
                 pending[k, a] = cur[a, t]
             has_pending[k] = True
-        start = j
-        cur = nxt[:, :start]
+        cur = nxt
     return used
