@@ -26,10 +26,11 @@ Choices made where DESIGN leaves room (also stated in README's summary section):
   restart and starts fresh sequence expectations.
 - Point ``messages`` counts accepted messages while the point was current (its ``point``
   message, samples, ``end``); the run line's ``messages`` counts every message received.
-- Statistics snapshots (which drive convergence, ``converged_at_s`` and the control signal)
-  are taken after every samples message, from the data alone, so a replay reproduces a live
-  run's summaries bit for bit; only the published :class:`~monitor.state.RunSnapshot` (for the
-  dashboard and status line) is paced by the clock.
+- Convergence and ``converged_at_s`` are decided by the statistics at their own checkpoints
+  of the sample count, from the data alone, so a replay reproduces a live run's summaries bit
+  for bit whatever its pace. The pipeline takes a statistics snapshot right after each
+  checkpoint (when the control signal may fire), when it publishes a
+  :class:`~monitor.state.RunSnapshot` (paced by the clock) and when a point ends.
 """
 
 from __future__ import annotations
@@ -92,6 +93,7 @@ class _PointRun:
         self.rejected: Counter = Counter()
         self.last_t: float | None = None
         self.snapshot = None  # latest stats.snapshot.PointSnapshot
+        self.stale = False  # data arrived since the last statistics snapshot
         self.converged_signalled = False
         self.converged_clock: float | None = None
         self.history: dict[str, list[float]] = {"duration_s": []}
@@ -424,6 +426,7 @@ class Pipeline:
             duration_s = t_last - (t_first if run.last_t is None else run.last_t)
             run.last_t = t_last
         n = velocity.shape[0]
+        mark = _checkpoint_mark(run.stats)
         if rate_hz is None:
             run.stats.update(velocity, duration_s=duration_s)
         else:
@@ -431,10 +434,18 @@ class Pipeline:
         st.samples += n
         st.rate_hz = rate_hz
         self._trace(st, velocity, columns, rate_hz, times, t0)
-        self._take_stats_snapshot(st, run)
+        # Convergence is decided at the statistics' own checkpoints (inside update, from the
+        # data alone), and right after one the evaluation is cached, so a snapshot is cheap
+        # then; between checkpoints the verdict cannot change and the costly evaluation waits
+        # for the next publication (pace of the clock) or the end of the point.
+        if mark is None or _checkpoint_mark(run.stats) != mark or run.snapshot is None:
+            self._take_stats_snapshot(st, run)
+        else:
+            run.stale = True
         return None
 
     def _take_stats_snapshot(self, st: _StreamState, run: _PointRun) -> None:
+        run.stale = False
         snap = run.stats.snapshot()
         run.snapshot = snap
         h = run.history
@@ -460,8 +471,8 @@ class Pipeline:
 
     def _finish_point(self, st: _StreamState, complete: bool) -> None:
         run = st.point
-        if run.stats is not None and run.snapshot is None:
-            run.snapshot = run.stats.snapshot()
+        if run.stats is not None and (run.snapshot is None or run.stale):
+            self._take_stats_snapshot(st, run)
         line = self._point_line(st, run, complete)
         self._writer.write(line)
         st.finished.append(line)
@@ -581,6 +592,8 @@ class Pipeline:
                 st.ingest_rate_hz = (st.samples - st.rate_mark[1]) / dt
             st.rate_mark = (now, st.samples)
             run = st.point
+            if run is not None and run.stale:
+                self._take_stats_snapshot(st, run)
             trace = {}
             if st.trace_fill:
                 trace["t"] = st.trace[: st.trace_fill, 0]
@@ -621,6 +634,12 @@ class Pipeline:
         self.internal_errors.append(text)
         del self.internal_errors[:-20]
         print(f"eddyvigil: internal error (message dropped and counted):\n{text}", file=sys.stderr)
+
+
+def _checkpoint_mark(point_stats):
+    """The sample count of the statistics' next convergence checkpoint (None if unknown)."""
+    checkpoints = getattr(point_stats, "checkpoints", None)
+    return getattr(checkpoints, "next_n", None)
 
 
 def _topic_of(frames) -> str | None:

@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from conftest import MALFORMED_REASONS, StreamWriter
 
-from monitor.pipeline import HISTORY_ROWS, TRACE_ROWS, Pipeline
+from monitor.pipeline import TRACE_ROWS, Pipeline
 from monitor.summary import POINT_FIELDS, RUN_FIELDS, missing_fields
 from stats.targets import Targets
 
@@ -241,15 +241,18 @@ def test_random_sampling_duration_from_time_column_and_steps_back_rejected():
     np.testing.assert_allclose(stat(point, "U"), u.mean(), rtol=1e-12)
 
 
-def test_snapshot_is_rebound_frozen_and_bounded():
+def test_snapshot_is_rebound_frozen_and_bounded(monkeypatch):
+    import monitor.pipeline
+
+    monkeypatch.setattr(monitor.pipeline, "HISTORY_ROWS", 32)
     clock = FakeClock()
     p = Pipeline(summary=io.StringIO(), clock=clock, snapshot_interval_s=0.25)
     w = StreamWriter(rate_hz=20000.0)
     first = p.snapshot
     p.handle_frames(w.point("P"))
     seen = {id(first), id(p.snapshot)}
-    for b in blocks(10, HISTORY_ROWS + 50, n=64):
-        clock.t += 0.1
+    for b in blocks(10, 150, n=64):
+        clock.t += 0.3
         p.handle_frames(w.samples(b))
         seen.add(id(p.snapshot))
     snap = p.snapshot
@@ -257,7 +260,8 @@ def test_snapshot_is_rebound_frozen_and_bounded():
     assert len(seen) > 100  # republished as the clock advanced
     assert len(view.trace["t"]) <= TRACE_ROWS and len(view.trace["u"]) == len(view.trace["t"])
     assert np.all(np.diff(view.trace["t"]) > 0)
-    assert 0 < len(view.history["duration_s"]) < HISTORY_ROWS
+    assert 0 < len(view.history["duration_s"]) < 32
+    assert len(view.history["U"]) == len(view.history["duration_s"])
     with pytest.raises(ValueError):
         view.trace["u"][0] = 1.0
     with pytest.raises(AttributeError):
