@@ -1,4 +1,4 @@
-"""Publish synthetic turbulence with known truth over ZeroMQ (the built-in wake traverse by default).
+"""Publish synthetic turbulence with known truth over ZeroMQ (built-in wake traverse by default).
 
 The samples follow wire protocol v1; every point's prescribed statistics (and, for the wake,
 its k-budget terms) can be written to a JSON truth file with ``--truth``.
@@ -40,7 +40,9 @@ def parse_speed(text: str) -> float:
     try:
         v = float(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"speed must be a number > 0 or 'max', not {text!r}") from None
+        raise argparse.ArgumentTypeError(
+            f"speed must be a number > 0 or 'max', not {text!r}"
+        ) from None
     if not (v > 0 and math.isfinite(v)):
         raise argparse.ArgumentTypeError("speed must be > 0")
     return v
@@ -68,27 +70,69 @@ def _positive_float(text: str) -> float:
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     where = parser.add_mutually_exclusive_group(required=True)
-    where.add_argument("--bind", metavar="ENDPOINT", help="bind the socket here (e.g. tcp://127.0.0.1:5556)")
-    where.add_argument("--connect", metavar="ENDPOINT", help="connect the socket to a bound monitor")
-    parser.add_argument("--socket", choices=("pub", "push"), default="pub", help="socket type (default pub)")
-    parser.add_argument("--scenario", default="wake", metavar="NAME|PATH",
-                        help="built-in scenario name or TOML file (default wake)")
-    parser.add_argument("--rate", type=_positive_float, metavar="HZ",
-                        help="rows per second (the mean data rate for random sampling)")
-    parser.add_argument("--speed", type=parse_speed, default=1.0, metavar="1|N|max",
-                        help="pacing relative to real time (default 1)")
+    where.add_argument(
+        "--bind", metavar="ENDPOINT", help="bind the socket here (e.g. tcp://127.0.0.1:5556)"
+    )
+    where.add_argument(
+        "--connect", metavar="ENDPOINT", help="connect the socket to a bound monitor"
+    )
+    parser.add_argument(
+        "--socket", choices=("pub", "push"), default="pub", help="socket type (default pub)"
+    )
+    parser.add_argument(
+        "--scenario",
+        default="wake",
+        metavar="NAME|PATH",
+        help="built-in scenario name or TOML file (default wake)",
+    )
+    parser.add_argument(
+        "--rate",
+        type=_positive_float,
+        metavar="HZ",
+        help="rows per second (the mean data rate for random sampling)",
+    )
+    parser.add_argument(
+        "--speed",
+        type=parse_speed,
+        default=1.0,
+        metavar="1|N|max",
+        help="pacing relative to real time (default 1)",
+    )
     parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
-    parser.add_argument("--follow-control", metavar="ENDPOINT",
-                        help="monitor control socket: next point when the current one converged")
-    parser.add_argument("--block", type=_positive_int, metavar="N",
-                        help="rows per samples message (default: 50 ms of data)")
-    parser.add_argument("--point-seconds", type=_positive_float, metavar="S",
-                        help="time per point, the cap with --follow-control (default: the scenario's)")
-    parser.add_argument("--truth", metavar="FILE", help="write the truth of every point to FILE (JSON)")
-    parser.add_argument("--settle", type=float, default=0.3, metavar="S",
-                        help="PUB only: wait after a peer connected (default 0.3 s)")
-    parser.add_argument("--wait-peer", type=float, default=5.0, metavar="S",
-                        help="PUB only: wait at most S for a peer to connect (default 5 s)")
+    parser.add_argument(
+        "--follow-control",
+        metavar="ENDPOINT",
+        help="monitor control socket: next point when the current one converged",
+    )
+    parser.add_argument(
+        "--block",
+        type=_positive_int,
+        metavar="N",
+        help="rows per samples message (default: 50 ms of data)",
+    )
+    parser.add_argument(
+        "--point-seconds",
+        type=_positive_float,
+        metavar="S",
+        help="time per point, the cap with --follow-control (default: the scenario's)",
+    )
+    parser.add_argument(
+        "--truth", metavar="FILE", help="write the truth of every point to FILE (JSON)"
+    )
+    parser.add_argument(
+        "--settle",
+        type=float,
+        default=0.3,
+        metavar="S",
+        help="PUB only: wait after a peer connected (default 0.3 s)",
+    )
+    parser.add_argument(
+        "--wait-peer",
+        type=float,
+        default=5.0,
+        metavar="S",
+        help="PUB only: wait at most S for a peer to connect (default 5 s)",
+    )
     parser.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
 
 
@@ -104,10 +148,18 @@ def run(args: argparse.Namespace) -> int:
         print(f"eddyvigil simulate: {e}", file=sys.stderr)
         return 2
     opts = PublisherOptions(
-        endpoint=args.bind or args.connect, bind=args.bind is not None, socket_type=args.socket,
-        speed=args.speed, seed=args.seed, block=args.block, point_seconds=args.point_seconds,
-        follow_control=args.follow_control, truth_path=args.truth, settle_s=max(0.0, args.settle),
-        wait_peer_s=max(0.0, args.wait_peer), quiet=args.quiet,
+        endpoint=args.bind or args.connect,
+        bind=args.bind is not None,
+        socket_type=args.socket,
+        speed=args.speed,
+        seed=args.seed,
+        block=args.block,
+        point_seconds=args.point_seconds,
+        follow_control=args.follow_control,
+        truth_path=args.truth,
+        settle_s=max(0.0, args.settle),
+        wait_peer_s=max(0.0, args.wait_peer),
+        quiet=args.quiet,
     )
     try:
         return Publisher(scenario, opts).run()
@@ -121,8 +173,12 @@ def run(args: argparse.Namespace) -> int:
 
 def main(argv: list[str] | None = None) -> int:
     """``python -m simulator.cli ...``: the same command without the ``eddyvigil`` wrapper."""
-    parser = argparse.ArgumentParser(prog="eddyvigil simulate", description=__doc__.splitlines()[0],
-                                     epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
+    parser = argparse.ArgumentParser(
+        prog="eddyvigil simulate",
+        description=__doc__.splitlines()[0],
+        epilog=EPILOG,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
     add_arguments(parser)
     return run(parser.parse_args(argv))
 

@@ -20,7 +20,7 @@ A TOML ``[faults]`` table configures them (all keys optional)::
     drift        = { rate = [0.02, 0.0, 0.0] }        # m/s per s, from the point's start
     loss         = { probability = 0.01 }             # per samples message
     restart      = { at_messages = [400] }            # message counts (whole run)
-    malformed    = { at_messages = [150], kinds = ["bad_json", "bad_shape", "non_finite", "bad_dtype"] }
+    malformed    = { at_messages = [150], kinds = ["bad_json", "non_finite"] }
 """
 
 from __future__ import annotations
@@ -31,7 +31,13 @@ import numpy as np
 
 from monitor import wire
 
-__all__ = ["SampleFaults", "MessageFaults", "MALFORMED_KINDS", "malformed_frames", "validate_faults"]
+__all__ = [
+    "SampleFaults",
+    "MessageFaults",
+    "MALFORMED_KINDS",
+    "malformed_frames",
+    "validate_faults",
+]
 
 #: malformed message kinds -> the rejection reason a decoder must give them (DESIGN §2)
 MALFORMED_KINDS = {
@@ -56,7 +62,7 @@ _KEYS = {
 
 
 def validate_faults(spec: dict | None) -> dict:
-    """Check a ``[faults]`` table; return it (a copy) or raise ``ValueError`` with a clear message."""
+    """Check a ``[faults]`` table; return a copy or raise ``ValueError`` with a clear message."""
     spec = dict(spec or {})
     for name, table in spec.items():
         if name not in _KEYS:
@@ -204,7 +210,9 @@ class SampleFaults:
             "spikes": [
                 {"row": int(i), "t_s": i / self.rate_hz, "component": int(c), "added": float(v)}
                 for i, c, v in zip(
-                    self.spike_index[spikes], self.spike_component[spikes], self.spike_value[spikes],
+                    self.spike_index[spikes],
+                    self.spike_component[spikes],
+                    self.spike_value[spikes],
                     strict=True,
                 )
             ],
@@ -235,7 +243,9 @@ def malformed_frames(kind: str, stream, session, seq, data, columns, *, rate_hz,
         extra = {"dtype": "<i8"}  # same byte count as <f8: only the dtype is wrong
     elif kind == "bad_version":
         extra = {"v": 99}
-    frames = wire.encode_samples(stream, session, seq, data, columns, rate_hz=rate_hz, t0=t0, extra=extra)
+    frames = wire.encode_samples(
+        stream, session, seq, data, columns, rate_hz=rate_hz, t0=t0, extra=extra
+    )
     frames = [bytes(frames[0]), bytes(frames[1]), memoryview(frames[2]).cast("B").tobytes()]
     if kind == "bad_json":
         frames[1] = frames[1][: len(frames[1]) // 2]
@@ -260,7 +270,9 @@ class MessageFaults:
         self.restart_at = sorted(int(v) for v in spec.get("restart", {}).get("at_messages", ()))
         mal = spec.get("malformed", {})
         self.malformed_at = sorted(int(v) for v in mal.get("at_messages", ()))
-        self.malformed_kinds = tuple(mal.get("kinds", ("bad_json", "bad_shape", "non_finite", "bad_dtype")))
+        self.malformed_kinds = tuple(
+            mal.get("kinds", ("bad_json", "bad_shape", "non_finite", "bad_dtype"))
+        )
         self._rng = np.random.default_rng(seed)
         self.lost: list[dict] = []
         self.restarts: list[dict] = []
@@ -277,4 +289,8 @@ class MessageFaults:
         return message_index in self.malformed_at
 
     def truth(self) -> dict:
-        return {"lost": list(self.lost), "restarts": list(self.restarts), "malformed": list(self.malformed)}
+        return {
+            "lost": list(self.lost),
+            "restarts": list(self.restarts),
+            "malformed": list(self.malformed),
+        }

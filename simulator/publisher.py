@@ -93,7 +93,9 @@ class Publisher:
         self.session_t0 = 0.0  # stream-clock time at which the current session began
         self._stop = False
         self._control = None
-        self.message_faults = MessageFaults(scenario.faults, np.random.SeedSequence([options.seed, 999_983]))
+        self.message_faults = MessageFaults(
+            scenario.faults, np.random.SeedSequence([options.seed, 999_983])
+        )
         self.truth: dict = {}
 
     # ---- small helpers ------------------------------------------------------------------
@@ -150,7 +152,9 @@ class Publisher:
         if self.opt.socket_type == "pub":
             seen = wait_for_peer(self.sock, self.opt.wait_peer_s)
             if not seen:
-                self._log(f"simulate: no subscriber within {self.opt.wait_peer_s:g} s; publishing anyway")
+                self._log(
+                    f"simulate: no subscriber within {self.opt.wait_peer_s:g} s; publishing anyway"
+                )
             time.sleep(self.opt.settle_s)
 
     def _close(self) -> None:
@@ -198,8 +202,9 @@ class Publisher:
     def _malformed_burst(self, data, columns, rate_hz, t0) -> None:
         for kind in self.message_faults.malformed_kinds:
             seq = self._next_seq()
-            frames = malformed_frames(kind, self.scenario.stream, self.session, seq, data, columns,
-                                      rate_hz=rate_hz, t0=t0)
+            frames = malformed_frames(
+                kind, self.scenario.stream, self.session, seq, data, columns, rate_hz=rate_hz, t0=t0
+            )
             self._send(frames)
             self.message_faults.malformed.append(
                 {"session": self.session, "seq": seq, "kind": kind, "reason": MALFORMED_KINDS[kind]}
@@ -209,12 +214,21 @@ class Publisher:
         sc = self.scenario
         rps = sc.rows_per_second
         self.truth = {
-            "v": 1, "kind": "truth", "scenario": sc.name, "source": sc.source,
-            "description": sc.description, "facility": sc.facility, "stream": sc.stream,
-            "columns": list(sc.row_columns), "rate_hz": sc.rate_hz,
-            "data_rate_hz": sc.data_rate_hz, "sampling": sc.sampling, "seed": self.opt.seed,
+            "v": 1,
+            "kind": "truth",
+            "scenario": sc.name,
+            "source": sc.source,
+            "description": sc.description,
+            "facility": sc.facility,
+            "stream": sc.stream,
+            "columns": list(sc.row_columns),
+            "rate_hz": sc.rate_hz,
+            "data_rate_hz": sc.data_rate_hz,
+            "sampling": sc.sampling,
+            "seed": self.opt.seed,
             "speed": None if math.isinf(self.opt.speed) else self.opt.speed,
-            "block": self.block, "points": [],
+            "block": self.block,
+            "points": [],
         }
         np_dtype = np.dtype(sc.dtype)
         for i, point in enumerate(sc.points):
@@ -224,8 +238,13 @@ class Publisher:
             gen = sc.make_generator(point, int(seeds[0]))
             turb = gen.generator if isinstance(gen, RandomSampler) else gen
             max_rows = int(math.ceil(self.point_seconds * rps))
-            faults = SampleFaults(sc.point_faults(point), rps, max_rows,
-                                  np.sqrt(np.diag(turb.total_stress())), int(seeds[1]))
+            faults = SampleFaults(
+                sc.point_faults(point),
+                rps,
+                max_rows,
+                np.sqrt(np.diag(turb.total_stress())),
+                int(seeds[1]),
+            )
             wire_point = point.wire_point(sc.nu)
             first = {"session": self.session, "seq": self.seq}
             self._send(wire.encode_point(sc.stream, self.session, self._next_seq(), wire_point))
@@ -237,9 +256,13 @@ class Publisher:
             point_t0 = self.stream_rows / rps
             mf = self.message_faults
             while rows < max_rows and not self._stop:
-                if mf.restart_due(self.samples_messages) and not self._restarted_at(self.samples_messages):
+                if mf.restart_due(self.samples_messages) and not self._restarted_at(
+                    self.samples_messages
+                ):
                     self._restart()
-                    self._send(wire.encode_point(sc.stream, self.session, self._next_seq(), wire_point))
+                    self._send(
+                        wire.encode_point(sc.stream, self.session, self._next_seq(), wire_point)
+                    )
                 n = min(self.block, max_rows - rows)
                 if isinstance(gen, RandomSampler):
                     k = int(round(n * sc.rate_hz / rps))
@@ -268,16 +291,22 @@ class Publisher:
                 if mf.lose():
                     mf.lost.append({"session": self.session, "seq": seq})
                     continue
-                self._send(wire.encode_samples(sc.stream, self.session, seq, data, sc.row_columns,
-                                               rate_hz=rate, t0=t_first))
+                self._send(
+                    wire.encode_samples(
+                        sc.stream, self.session, seq, data, sc.row_columns, rate_hz=rate, t0=t_first
+                    )
+                )
                 if self._converged_signal(point.id):
                     converged = True
                     break
             record = point_truth(sc, point, int(seeds[0]))
             record.update(
-                rows=taken, fine_clock_samples=fine or None, duration_s=rows / rps,
+                rows=taken,
+                fine_clock_samples=fine or None,
+                duration_s=rows / rps,
                 ended_by="converged" if converged else ("stopped" if self._stop else "time"),
-                first_message=first, faults=faults.truth(),
+                first_message=first,
+                faults=faults.truth(),
             )
             self.truth["points"].append(record)
             self._write_truth(final=False)
@@ -287,7 +316,8 @@ class Publisher:
             return
         self.truth["sessions"] = list(self.sessions)
         self.truth["messages"] = {
-            "sent": self.sent, "samples_messages": self.samples_messages,
+            "sent": self.sent,
+            "samples_messages": self.samples_messages,
             **self.message_faults.truth(),
         }
         self.truth["complete"] = final and not self._stop

@@ -116,10 +116,21 @@ class PlaneWake:
     """Analytic self-similar plane wake (see the module docstring for the formulas)."""
 
     PARAMS = {
-        "U_inf": 10.0, "U_s": 1.5, "half_width": 0.05, "spread": 1.0, "bg": 0.01,
-        "A_uu": 0.36, "A_vv": 0.30, "A_ww": 0.25, "A_uv": 0.16,
-        "c_u": -0.06, "c_v": 0.25, "c_w": 0.0, "length_m": 0.025,
-        "A_shed": 0.0, "f_shed": 50.0,
+        "U_inf": 10.0,
+        "U_s": 1.5,
+        "half_width": 0.05,
+        "spread": 1.0,
+        "bg": 0.01,
+        "A_uu": 0.36,
+        "A_vv": 0.30,
+        "A_ww": 0.25,
+        "A_uv": 0.16,
+        "c_u": -0.06,
+        "c_v": 0.25,
+        "c_w": 0.0,
+        "length_m": 0.025,
+        "A_shed": 0.0,
+        "f_shed": 50.0,
     }
 
     def __init__(self, **params):
@@ -136,7 +147,9 @@ class PlaneWake:
 
     def mean(self, y) -> np.ndarray:
         xi = y / self.p["half_width"]
-        return np.array([self.p["U_inf"] - self.p["U_s"] * math.exp(-math.log(2) * xi**2), 0.0, 0.0])
+        return np.array(
+            [self.p["U_inf"] - self.p["U_s"] * math.exp(-math.log(2) * xi**2), 0.0, 0.0]
+        )
 
     def stress(self, y) -> np.ndarray:
         xi, g = self._g(y)
@@ -177,11 +190,16 @@ class PlaneWake:
         production = -stress[0, 1] * self.d_dy(lambda s: self.mean(s)[0], y)
         transport = -self.d_dy(self.transport_flux, y)
         return PointSpec(
-            id=pid, x=x, y=y, z=z,
-            mean=tuple(mean), stress=tuple(map(tuple, stress)),
+            id=pid,
+            x=x,
+            y=y,
+            z=z,
+            mean=tuple(mean),
+            stress=tuple(map(tuple, stress)),
             length_m=self.p["length_m"] if spectrum == "vonkarman" else None,
             tint_s=self.p["length_m"] / float(np.linalg.norm(mean)) if spectrum == "ou" else None,
-            skew=tuple(self.skew(y)), shedding=shed,
+            skew=tuple(self.skew(y)),
+            shedding=shed,
             budget={"production": production, "turbulent_transport": transport},
         )
 
@@ -218,7 +236,9 @@ class Scenario:
             return self
         if self.sampling == "random":
             if not 0 < rate_hz <= 0.2 * self.rate_hz:
-                raise ScenarioError(f"--rate for random sampling must be <= {0.2 * self.rate_hz:g} Hz")
+                raise ScenarioError(
+                    f"--rate for random sampling must be <= {0.2 * self.rate_hz:g} Hz"
+                )
             return Scenario(**{**self.__dict__, "data_rate_hz": float(rate_hz)})
         return Scenario(**{**self.__dict__, "rate_hz": float(rate_hz)})
 
@@ -226,7 +246,7 @@ class Scenario:
         return validate_faults(point.faults if point.faults is not None else self.faults)
 
     def make_generator(self, point: PointSpec, seed) -> TurbulenceGenerator | RandomSampler:
-        """The signal source of ``point``: its ``next_block(n)`` gives rows in ``self.row_columns``."""
+        """The signal source of ``point``; ``next_block(n)`` gives rows in ``self.row_columns``."""
         m = len(self.columns)
         mean = np.asarray(point.mean, float)[:m]
         stress = np.asarray(point.stress, float)[:m, :m]
@@ -234,18 +254,33 @@ class Scenario:
         if self.spectrum == "vonkarman":
             if point.length_m is None:
                 raise ScenarioError(f"point {point.id}: the von Kármán spectrum needs length_m")
-            gen = VonKarmanGenerator(mean, stress, point.length_m, self.rate_hz, seed,
-                                     skew=skew, shedding=point.shedding, c1=self.c1)
+            gen = VonKarmanGenerator(
+                mean,
+                stress,
+                point.length_m,
+                self.rate_hz,
+                seed,
+                skew=skew,
+                shedding=point.shedding,
+                c1=self.c1,
+            )
         else:
             tint = point.tint_s
             if tint is None:
                 if point.length_m is None:
                     raise ScenarioError(f"point {point.id}: give tint_s or length_m")
                 tint = point.length_m / float(np.linalg.norm(mean))
-            gen = OUGenerator(mean, stress, tint, self.rate_hz, seed, skew=skew, shedding=point.shedding)
+            gen = OUGenerator(
+                mean, stress, tint, self.rate_hz, seed, skew=skew, shedding=point.shedding
+            )
         if self.sampling == "random":
-            return RandomSampler(gen, self.data_rate_hz, seed, probe_diameter_m=self.probe_diameter_m,
-                                 columns=self.columns)
+            return RandomSampler(
+                gen,
+                self.data_rate_hz,
+                seed,
+                probe_diameter_m=self.probe_diameter_m,
+                columns=self.columns,
+            )
         return gen
 
     @property
@@ -258,8 +293,20 @@ class Scenario:
 
 
 def _point_from_table(t: dict, i: int) -> PointSpec:
-    known = {"id", "x", "y", "z", "mean", "stress", "tint_s", "length_m", "skew", "shedding",
-             "faults", "note"}
+    known = {
+        "id",
+        "x",
+        "y",
+        "z",
+        "mean",
+        "stress",
+        "tint_s",
+        "length_m",
+        "skew",
+        "shedding",
+        "faults",
+        "note",
+    }
     unknown = set(t) - known
     if unknown:
         raise ScenarioError(f"[[points]] #{i + 1}: unknown key(s) {sorted(unknown)}")
@@ -278,10 +325,18 @@ def _point_from_table(t: dict, i: int) -> PointSpec:
     skew = tuple(np.broadcast_to(np.asarray(t.get("skew", 0.0), float), (m,)))
     shed = t.get("shedding")
     return PointSpec(
-        id=str(t.get("id", f"P{i + 1:02d}")), x=float(t.get("x", 0.0)), y=float(t.get("y", 0.0)),
-        z=float(t.get("z", 0.0)), mean=mean, stress=tuple(map(tuple, stress)),
-        tint_s=t.get("tint_s"), length_m=t.get("length_m"), skew=skew,
-        shedding=Shedding(**shed) if shed else None, faults=t.get("faults"), note=t.get("note"),
+        id=str(t.get("id", f"P{i + 1:02d}")),
+        x=float(t.get("x", 0.0)),
+        y=float(t.get("y", 0.0)),
+        z=float(t.get("z", 0.0)),
+        mean=mean,
+        stress=tuple(map(tuple, stress)),
+        tint_s=t.get("tint_s"),
+        length_m=t.get("length_m"),
+        skew=skew,
+        shedding=Shedding(**shed) if shed else None,
+        faults=t.get("faults"),
+        note=t.get("note"),
     )
 
 
@@ -315,8 +370,15 @@ def _scenario_from_dict(d: dict, source: str) -> Scenario:
             raise ScenarioError("[traverse] y = [...] positions are required with [flow]")
         for i, y in enumerate(ys):
             try:
-                points.append(model.point(f"P{i + 1:02d}", float(tr.get("x", 0.0)), float(y),
-                                          float(tr.get("z", 0.0)), spectrum))
+                points.append(
+                    model.point(
+                        f"P{i + 1:02d}",
+                        float(tr.get("x", 0.0)),
+                        float(y),
+                        float(tr.get("z", 0.0)),
+                        spectrum,
+                    )
+                )
             except ValueError as e:
                 raise ScenarioError(f"[flow] at y = {y}: {e}") from None
     for i, t in enumerate(d.get("points", [])):
@@ -334,13 +396,23 @@ def _scenario_from_dict(d: dict, source: str) -> Scenario:
         raise ScenarioError("sampling = 'random' needs data_rate_hz")
     return Scenario(
         name=str(s.get("name", Path(source).stem or "scenario")),
-        description=str(s.get("description", "")), facility=str(s.get("facility", "")),
-        stream=str(s.get("stream", "probe-a")), rate_hz=rate,
-        point_seconds=float(s.get("point_seconds", 30.0)), spectrum=spectrum, columns=columns,
-        dtype=dtype, nu=s.get("nu"), c1=float(s.get("c1", 0.49)), sampling=sampling,
+        description=str(s.get("description", "")),
+        facility=str(s.get("facility", "")),
+        stream=str(s.get("stream", "probe-a")),
+        rate_hz=rate,
+        point_seconds=float(s.get("point_seconds", 30.0)),
+        spectrum=spectrum,
+        columns=columns,
+        dtype=dtype,
+        nu=s.get("nu"),
+        c1=float(s.get("c1", 0.49)),
+        sampling=sampling,
         data_rate_hz=None if data_rate is None else float(data_rate),
         probe_diameter_m=float(s.get("probe_diameter_m", 1e-4)),
-        faults=faults, points=tuple(points), source=source, raw=d,
+        faults=faults,
+        points=tuple(points),
+        source=source,
+        raw=d,
     )
 
 

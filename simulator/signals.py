@@ -108,7 +108,7 @@ def von_karman_epsilon(variance, length_m, c1=0.49) -> float:
 
 @dataclass(frozen=True)
 class Shedding:
-    """A periodic component ``amplitude_i sin(2 pi f t + phase_i)`` added to each velocity component."""
+    """A periodic part ``amplitude_i sin(2 pi f t + phase_i)`` added to velocity component i."""
 
     frequency_hz: float
     amplitude: tuple[float, ...]
@@ -195,7 +195,7 @@ class TurbulenceGenerator:
         raise NotImplementedError  # pragma: no cover
 
     def total_stress(self) -> np.ndarray:
-        """Covariance of the output: turbulent stress plus the shedding's ``A_i A_j cos(dphi)/2``."""
+        """Covariance of the output: turbulent stress plus shedding ``A_i A_j cos(dphi)/2``."""
         r = self.stress.copy()
         if self.shedding is not None:
             a, p = self.shedding.amplitudes(self.m), self.shedding.phases(self.m)
@@ -223,13 +223,24 @@ class TurbulenceGenerator:
         )
         if self.shedding is not None:
             # a purely periodic part is not Gaussian: replace its Gaussian pairing terms by
-            # E[s_i s_j s_k s_l] = A_i A_j A_k A_l / 8 [cos(pi+pj-pk-pl) + cos(pi-pj+pk-pl) + cos(pi-pj-pk+pl)]
+            # E[s_i s_j s_k s_l] = A_i A_j A_k A_l / 8
+            #   x [cos(pi+pj-pk-pl) + cos(pi-pj+pk-pl) + cos(pi-pj-pk+pl)]
             a, p = self.shedding.amplitudes(self.m), self.shedding.phases(self.m)
             pi, pj, pk, pl = np.ix_(p, p, p, p)
             aa = np.einsum("i,j,k,l->ijkl", a, a, a, a)
-            exact = aa / 8 * (np.cos(pi + pj - pk - pl) + np.cos(pi - pj + pk - pl) + np.cos(pi - pj - pk + pl))
+            exact = (
+                aa
+                / 8
+                * (
+                    np.cos(pi + pj - pk - pl)
+                    + np.cos(pi - pj + pk - pl)
+                    + np.cos(pi - pj - pk + pl)
+                )
+            )
             gauss = (
-                np.einsum("ij,kl->ijkl", s, s) + np.einsum("ik,jl->ijkl", s, s) + np.einsum("il,jk->ijkl", s, s)
+                np.einsum("ij,kl->ijkl", s, s)
+                + np.einsum("ik,jl->ijkl", s, s)
+                + np.einsum("il,jk->ijkl", s, s)
             )
             q += exact - gauss
         return q
@@ -272,8 +283,16 @@ class OUGenerator(TurbulenceGenerator):
 
     def _fill(self, n, out):
         ou_mixed(
-            self._rng, n, self.rho, self._innovation, self._state,
-            self.skew_a, self._skew_norm, self.chol, self.mean, out,
+            self._rng,
+            n,
+            self.rho,
+            self._innovation,
+            self._state,
+            self.skew_a,
+            self._skew_norm,
+            self.chol,
+            self.mean,
+            out,
         )
 
     def unit_acf(self, lags: int) -> np.ndarray:
@@ -313,8 +332,20 @@ class VonKarmanGenerator(TurbulenceGenerator):
         Kolmogorov constant of the 1-D spectrum used to state ``epsilon``.
     """
 
-    def __init__(self, mean, stress, length_m, rate_hz, seed, *, speed_ms=None, skew=0.0,
-                 shedding=None, c1=0.49, taps=None):
+    def __init__(
+        self,
+        mean,
+        stress,
+        length_m,
+        rate_hz,
+        seed,
+        *,
+        speed_ms=None,
+        skew=0.0,
+        shedding=None,
+        c1=0.49,
+        taps=None,
+    ):
         super().__init__(mean, stress, rate_hz, seed, skew=skew, shedding=shedding)
         if speed_ms is None:
             speed_ms = float(np.linalg.norm(self.mean))
@@ -326,9 +357,13 @@ class VonKarmanGenerator(TurbulenceGenerator):
             taps = 1 << max(10, math.ceil(math.log2(128 * tl * self.rate_hz)))
         self.taps = int(taps)
         f = np.fft.rfftfreq(self.taps, 1.0 / self.rate_hz)
-        gain = np.sqrt(_aliased_unit_psd(f, self.length_m, self.speed_ms, self.rate_hz) * self.rate_hz / 2)
+        gain = np.sqrt(
+            _aliased_unit_psd(f, self.length_m, self.speed_ms, self.rate_hz) * self.rate_hz / 2
+        )
         h = np.roll(np.fft.irfft(gain, self.taps), self.taps // 2)
-        self.kernel = h / math.sqrt(np.sum(h**2))  # unit variance, exactly, for the discrete process
+        self.kernel = h / math.sqrt(
+            np.sum(h**2)
+        )  # unit variance, exactly, for the discrete process
         self._chunk = max(4 * self.taps, 1 << 15)
         self._history = self._rng.standard_normal((self.taps - 1, self.m))
         self._ready = np.empty((0, self.m))
@@ -343,7 +378,7 @@ class VonKarmanGenerator(TurbulenceGenerator):
     def _unit_chunk(self) -> np.ndarray:
         noise = self._rng.standard_normal((self._chunk, self.m))
         buf = np.concatenate([self._history, noise])
-        self._history = buf[-(self.taps - 1):].copy()
+        self._history = buf[-(self.taps - 1) :].copy()
         return sps.fftconvolve(buf, self.kernel[:, None], mode="valid", axes=0)
 
     def _fill(self, n, out):
@@ -353,7 +388,9 @@ class VonKarmanGenerator(TurbulenceGenerator):
             parts.append(c)
             have += c.shape[0]
         pool = np.concatenate(parts) if len(parts) > 1 else self._ready
-        skew_mix(np.ascontiguousarray(pool[:n]), self.skew_a, self._skew_norm, self.chol, self.mean, out)
+        skew_mix(
+            np.ascontiguousarray(pool[:n]), self.skew_a, self._skew_norm, self.chol, self.mean, out
+        )
         self._ready = pool[n:]
 
     def unit_acf(self, lags: int) -> np.ndarray:
@@ -375,9 +412,10 @@ class VonKarmanGenerator(TurbulenceGenerator):
         u (the skew transform raises the small-scale structure function by that factor).
         """
         a2 = self.skew_a[0] ** 2
-        return von_karman_epsilon(self.stress[0, 0], self.length_m, self.c1) * (
-            (1 + 4 * a2) / (1 + 2 * a2)
-        ) ** 1.5
+        return (
+            von_karman_epsilon(self.stress[0, 0], self.length_m, self.c1)
+            * ((1 + 4 * a2) / (1 + 2 * a2)) ** 1.5
+        )
 
 
 class RandomSampler:
@@ -392,8 +430,15 @@ class RandomSampler:
     shape (k, m + 2), columns ``self.columns``.
     """
 
-    def __init__(self, generator: TurbulenceGenerator, data_rate_hz, seed, *,
-                 probe_diameter_m=1e-4, columns=("u", "v", "w")):
+    def __init__(
+        self,
+        generator: TurbulenceGenerator,
+        data_rate_hz,
+        seed,
+        *,
+        probe_diameter_m=1e-4,
+        columns=("u", "v", "w"),
+    ):
         self.generator = generator
         mean_speed = float(np.linalg.norm(generator.mean))
         if mean_speed <= 0:

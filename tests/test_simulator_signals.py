@@ -101,7 +101,9 @@ def test_ou_reproduces_mean_stress_and_integral_time():
     t_est = -k / (4000.0 * math.log(r_k))
     assert t_est == pytest.approx(0.005, rel=0.03)
     # discrete integral time dt (1/2 + rho/(1-rho)) = (dt/2) coth(dt/2T) (REFERENCES §1)
-    assert g.integral_time_s()[0] == pytest.approx(0.5 / 4000 / math.tanh(0.5 / 4000 / 0.005), rel=1e-12)
+    assert g.integral_time_s()[0] == pytest.approx(
+        0.5 / 4000 / math.tanh(0.5 / 4000 / 0.005), rel=1e-12
+    )
 
 
 @pytest.mark.parametrize("make", ["ou", "vk", "lda", "shed"])
@@ -111,11 +113,21 @@ def test_block_size_independence(make):
         if make == "ou":
             return OUGenerator([1.0, 0, 0], R_CHECK, 0.01, 1000.0, seed=5, skew=0.1)
         if make == "vk":
-            return VonKarmanGenerator([8.0, 0, 0], R_CHECK, 0.02, 2000.0, seed=5, skew=[0.1, 0, -0.1])
+            return VonKarmanGenerator(
+                [8.0, 0, 0], R_CHECK, 0.02, 2000.0, seed=5, skew=[0.1, 0, -0.1]
+            )
         if make == "shed":
-            return OUGenerator([1.0, 0, 0], R_CHECK, 0.01, 1000.0, seed=5,
-                               shedding=Shedding(12.0, (0.1, 0.3, 0.0), (0.0, 1.0)))
-        return RandomSampler(OUGenerator([5.0, 0, 0], R_CHECK, 0.01, 10000.0, seed=5), 500.0, seed=6)
+            return OUGenerator(
+                [1.0, 0, 0],
+                R_CHECK,
+                0.01,
+                1000.0,
+                seed=5,
+                shedding=Shedding(12.0, (0.1, 0.3, 0.0), (0.0, 1.0)),
+            )
+        return RandomSampler(
+            OUGenerator([5.0, 0, 0], R_CHECK, 0.01, 10000.0, seed=5), 500.0, seed=6
+        )
 
     n = 50_000
     whole = build().next_block(n)
@@ -143,7 +155,9 @@ def test_skewed_variant_skewness_and_flatness():
 def test_mixed_third_moments_match_truth():
     # third co-moments of the Cholesky mix of independent skewed components (multilinearity)
     # against the numpy sample moments of a long nearly white record
-    g = OUGenerator([0.0, 0.0, 0.0], R_CHECK, tint_s=1e-9, rate_hz=1000.0, seed=8, skew=[0.15, -0.1, 0.05])
+    g = OUGenerator(
+        [0.0, 0.0, 0.0], R_CHECK, tint_s=1e-9, rate_hz=1000.0, seed=8, skew=[0.15, -0.1, 0.05]
+    )
     x = g.next_block(400_000)
     d = x - x.mean(axis=0)
     sample = np.einsum("ni,nj,nk->ijk", d, d, d) / d.shape[0]
@@ -187,8 +201,14 @@ def test_von_karman_spectrum_shape_level_and_epsilon():
 
 def test_shedding_adds_a_line_and_its_variance():
     fs, f0, amp = 1000.0, 37.0, 0.5
-    g = OUGenerator([2.0, 0.0, 0.0], np.diag([0.04, 0.02, 0.02]), 0.005, fs, seed=4,
-                    shedding=Shedding(f0, (0.0, amp, 0.0)))
+    g = OUGenerator(
+        [2.0, 0.0, 0.0],
+        np.diag([0.04, 0.02, 0.02]),
+        0.005,
+        fs,
+        seed=4,
+        shedding=Shedding(f0, (0.0, amp, 0.0)),
+    )
     x = g.next_block(400_000)
     f, p = sps.welch(x[:, 1], fs=fs, nperseg=2048)
     assert abs(f[np.argmax(p)] - f0) <= fs / 2048
@@ -202,7 +222,9 @@ def test_random_sampling_velocity_bias_and_weights():
     # arrival rate proportional to |u|: arithmetic mean -> (U^2 + sigma^2)/U = 10.4, variance
     # -> 3.84; residence-time weights recover U = 10 and sigma^2 = 4
     # (McLaughlin & Tiederman 1973, Phys. Fluids 16:2082; check values REFERENCES §9 [V])
-    gen = OUGenerator([10.0, 0.0, 0.0], np.diag([4.0, 1e-8, 1e-8]), tint_s=1e-9, rate_hz=20000.0, seed=41)
+    gen = OUGenerator(
+        [10.0, 0.0, 0.0], np.diag([4.0, 1e-8, 1e-8]), tint_s=1e-9, rate_hz=20000.0, seed=41
+    )
     lda = RandomSampler(gen, 1000.0, seed=42)
     rows = generate(lda, 8_000_000, block=500_000)
     u, t, w = rows[:, 0], rows[:, 3], rows[:, 4]
