@@ -438,7 +438,13 @@ def load_scenario(name_or_path: str | None = None) -> Scenario:
         d = tomllib.loads(text)
     except tomllib.TOMLDecodeError as e:
         raise ScenarioError(f"scenario {source} is not valid TOML: {e}") from None
-    return _scenario_from_dict(d, source)
+    try:
+        return _scenario_from_dict(d, source)
+    except ScenarioError:
+        raise
+    except (ValueError, TypeError, KeyError, AttributeError) as e:
+        # a value of the wrong type somewhere (e.g. rate_hz = "fast"): say so, never a traceback
+        raise ScenarioError(f"scenario {source}: bad value ({type(e).__name__}: {e})") from None
 
 
 def _jsonable(v):
