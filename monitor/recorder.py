@@ -20,9 +20,10 @@ forward to the next record that passes them, and each such event is reported as 
 :class:`RecordingProblem` (in a list the caller passes and through :mod:`logging`); damage that
 runs to the end of the last file is a torn tail, what a crash during a write leaves behind.
 
-The recorder buffers records in memory (no copy of read-only buffers) and writes them in large
-chunks with ``os.writev``: when ``chunk_bytes`` are pending, when a write finds the last flush
-older than ``flush_interval_s``, and from a timer thread so that a quiet stream is written too.
+The recorder queues records in memory (frames by reference, no copy) and a writer thread
+computes the CRCs and writes large chunks with ``os.writev``: when ``chunk_bytes`` are queued,
+when a write finds the last flush older than ``flush_interval_s``, and at least every half
+``flush_interval_s`` otherwise, so that a quiet stream is written too.
 Files are fsynced when rolled and at close; the manifest is rewritten atomically when the
 recorder opens, rolls and closes.
 """
@@ -139,11 +140,18 @@ def _frame_view(frame) -> memoryview:
     view = memoryview(buf if buf is not None else frame)
     if view.format != "B" or view.ndim != 1:
         view = view.cast("B") if view.c_contiguous else memoryview(view.tobytes())
+    if isinstance(frame, bytearray):  # the one common type a caller reuses: copy it now
+        view = memoryview(bytes(view))
     return view
 
 
 class Recorder:
     """Append-only, CRC-framed recorder of received messages.
+
+    :meth:`write` only queues the frames (by reference: do not modify them afterwards; a
+    ``bytearray`` is copied) and returns; a writer thread computes the CRCs and writes large
+    chunks, so the receiving loop does not wait for the disk. When more than
+    ``max_pending_bytes`` are queued, :meth:`write` writes them itself (back-pressure).
 
     Parameters
     ----------
@@ -153,9 +161,11 @@ class Recorder:
     roll_bytes
         Start a new file before one would grow past this size (a record never spans files).
     flush_interval_s
-        Pending records reach the file at least this often, even on a quiet stream.
+        Queued records reach the file at least this often, even on a quiet stream.
     chunk_bytes
-        Write as soon as this much is pending.
+        Write as soon as this much is queued.
+    max_pending_bytes
+        Queue limit before :meth:`write` blocks to write.
     """
 
     def __init__(
@@ -166,6 +176,7 @@ class Recorder:
         roll_bytes: int = DEFAULT_ROLL_BYTES,
         flush_interval_s: float = 0.5,
         chunk_bytes: int = DEFAULT_CHUNK_BYTES,
+        max_pending_bytes: int = 16 * DEFAULT_CHUNK_BYTES,
     ):
         if roll_bytes <= _FILE_HEADER.size:
             raise ValueError("roll_bytes is too small to hold a record")
@@ -175,13 +186,16 @@ class Recorder:
         self.roll_bytes = int(roll_bytes)
         self.flush_interval_s = float(flush_interval_s)
         self.chunk_bytes = int(chunk_bytes)
-        self._lock = threading.Lock()
-        self._pending: list = []
+        self.max_pending_bytes = max(int(max_pending_bytes), self.chunk_bytes)
+        self._lock = threading.Lock()  # queue, counters, manifest
+        self._io_lock = threading.Lock()  # the file descriptor; taken before _lock, never after
+        self._pending: list = []  # ("rec", fixed, views, body_len) | ("roll", file entry)
         self._pending_bytes = 0
         self._pending_records = 0
-        self._file_bytes = 0  # bytes of the current file, written or pending
+        self._file_bytes = 0  # bytes of the newest file, written or queued
         self._fd: int | None = None
         self._closed = False
+        self._error: BaseException | None = None
         self.records = 0  # records accepted by write(), this recorder's lifetime
         self.records_flushed = 0  # of which handed to the operating system
         self.bytes_written = 0
@@ -209,50 +223,46 @@ class Recorder:
         self.directory.mkdir(parents=True, exist_ok=True)
         existing = recording_files(self.directory)
         last = int(_FILE_RE.match(existing[-1].name).group(1)) if existing else 0
-        self._open_file(last + 1)
+        self._file_entry = self._new_entry(last + 1)
+        with self._lock:
+            self._open_file(self._file_entry)
+        self._file_bytes = _FILE_HEADER.size
         self._last_flush = time.monotonic()
         self._stop = threading.Event()
-        self._timer = threading.Thread(target=self._timer_loop, name="recorder-flush", daemon=True)
-        self._timer.start()
+        self._wake = threading.Event()
+        self._writer = threading.Thread(target=self._writer_loop, name="recorder", daemon=True)
+        self._writer.start()
 
     # -- public
 
     @property
     def path(self) -> Path:
-        """The file currently written to."""
+        """The newest file."""
         return self.directory / self._file_entry["name"]
 
     def write(self, frames: Iterable, received_at: float, rejected_reason: str | None = None):
         """Record one message (its frames as received), accepted or rejected with ``reason``."""
         views = [_frame_view(f) for f in frames]
-        views = [v if v.readonly else memoryview(v.tobytes()) for v in views]
         reason = (rejected_reason or "").encode("utf-8")[:65535]
         fixed = _BODY_FIXED.pack(float(received_at), len(reason)) + reason
         fixed += _COUNT.pack(len(views))
-        parts: list = [fixed]
-        for v in views:
-            parts.append(_LEN.pack(v.nbytes))
-            parts.append(v)
-        body_len = sum(memoryview(p).nbytes for p in parts)
-        length = _LEN.pack(body_len)
-        crc = zlib.crc32(length)
-        for p in parts:
-            crc = zlib.crc32(p, crc)
-        head = _RECORD_HEAD.pack(RECORD_MARK, body_len, crc)
-        size = len(head) + body_len
+        body_len = len(fixed) + sum(8 + v.nbytes for v in views)
+        size = _RECORD_HEAD.size + body_len
         with self._lock:
-            if self._closed:
-                raise ValueError("write to a closed Recorder")
+            self._raise_if_unusable()
             if self._file_bytes > _FILE_HEADER.size and self._file_bytes + size > self.roll_bytes:
-                self._roll()
-            self._pending.append(head)
-            self._pending.extend(parts)
+                number = int(_FILE_RE.match(self._file_entry["name"]).group(1)) + 1
+                self._file_entry = self._new_entry(number)
+                self._pending.append(("roll", self._file_entry))
+                self._file_bytes = _FILE_HEADER.size
+            self._pending.append(("rec", fixed, views, body_len))
             self._pending_bytes += size
             self._pending_records += 1
             self._file_bytes += size
             self.records += 1
             entry = self._file_entry
             entry["records"] += 1
+            entry["bytes"] += size
             if entry["first_received_at"] is None:
                 entry["first_received_at"] = float(received_at)
             entry["last_received_at"] = float(received_at)
@@ -261,31 +271,41 @@ class Recorder:
                 self._counts["accepted"] += 1
             else:
                 self._rejected[rejected_reason] += 1
-            if (
-                self._pending_bytes >= self.chunk_bytes
-                or time.monotonic() - self._last_flush >= self.flush_interval_s
-            ):
-                self._flush_locked()
+            pending = self._pending_bytes
+        if pending >= self.max_pending_bytes:
+            self._drain()  # the writer thread is behind: write here (back-pressure)
+        elif (
+            pending >= self.chunk_bytes
+            or time.monotonic() - self._last_flush >= self.flush_interval_s
+        ):
+            self._wake.set()
 
     def flush(self) -> None:
-        """Hand every pending record to the operating system now."""
+        """Hand every queued record to the operating system now."""
+        self._drain()
         with self._lock:
-            if not self._closed:
-                self._flush_locked()
+            self._raise_if_unusable(allow_closed=True)
 
     def close(self) -> None:
-        """Flush, fsync, write the manifest; idempotent."""
-        with self._lock:
-            if self._closed:
-                return
-            self._flush_locked()
-            self._close_file()
-            self._manifest["closed"] = datetime.now(UTC).isoformat(timespec="seconds")
-            self._write_manifest()
-            self._closed = True
-        self._stop.set()
-        if threading.current_thread() is not self._timer:
-            self._timer.join(timeout=5.0)
+        """Write what is queued, fsync, write the manifest; idempotent."""
+        with self._io_lock:
+            with self._lock:
+                if self._closed:
+                    return
+                self._closed = True
+            self._stop.set()
+            self._wake.set()
+            try:
+                self._drain_locked()
+            finally:
+                self._close_file()
+                with self._lock:
+                    self._manifest["closed"] = datetime.now(UTC).isoformat(timespec="seconds")
+                    self._write_manifest()
+        if threading.current_thread() is not self._writer:
+            self._writer.join(timeout=10.0)
+        if self._error is not None:
+            raise OSError(f"recording to {self.directory} failed: {self._error}")
 
     def __enter__(self):
         return self
@@ -293,47 +313,80 @@ class Recorder:
     def __exit__(self, *exc):
         self.close()
 
-    # -- internals (called with the lock held)
+    # -- internals
 
-    def _timer_loop(self):
-        while not self._stop.wait(self.flush_interval_s / 2):
-            with self._lock:
-                if self._closed:
-                    return
-                if (
-                    self._pending
-                    and time.monotonic() - self._last_flush >= self.flush_interval_s / 2
-                ):
-                    self._flush_locked()
+    def _raise_if_unusable(self, allow_closed: bool = False):
+        if self._error is not None:
+            raise OSError(f"recording to {self.directory} failed: {self._error}")
+        if self._closed and not allow_closed:
+            raise ValueError("write to a closed Recorder")
 
-    def _flush_locked(self):
-        self._last_flush = time.monotonic()
-        if not self._pending:
-            return
-        buffers, self._pending = self._pending, []
+    def _writer_loop(self):
+        while not self._stop.is_set():
+            self._wake.wait(self.flush_interval_s / 2)
+            self._wake.clear()
+            if self._stop.is_set():
+                return
+            try:
+                self._drain()
+            except Exception as exc:  # disk full, directory removed: report, stop writing
+                log.error("recording to %s failed: %s", self.directory, exc)
+                self._error = exc
+                return
+
+    def _drain(self):
+        with self._io_lock:
+            if self._fd is not None:
+                self._drain_locked()
+
+    def _drain_locked(self):
+        """Serialise and write everything queued (the io lock held): CRCs are computed here,
+        outside the queue lock, so :meth:`write` does not wait for them."""
+        with self._lock:
+            items, self._pending = self._pending, []
+            nbytes, self._pending_bytes = self._pending_bytes, 0
+            nrec, self._pending_records = self._pending_records, 0
+            self._last_flush = time.monotonic()
+        buffers: list = []
+        for item in items:
+            if item[0] == "roll":
+                _writev_all(self._fd, buffers)
+                buffers = []
+                self._close_file()
+                with self._lock:
+                    self._open_file(item[1])  # also rewrites the manifest
+                continue
+            _, fixed, views, body_len = item
+            length = _LEN.pack(body_len)
+            crc = zlib.crc32(fixed, zlib.crc32(length))
+            parts = [fixed]
+            for v in views:
+                flen = _LEN.pack(v.nbytes)
+                crc = zlib.crc32(v, zlib.crc32(flen, crc))  # releases the GIL on large frames
+                parts.append(flen)
+                parts.append(v)
+            buffers.append(_RECORD_HEAD.pack(RECORD_MARK, body_len, crc))
+            buffers.extend(parts)
         _writev_all(self._fd, buffers)
-        self.bytes_written += self._pending_bytes
-        self._file_entry["bytes"] += self._pending_bytes
-        self.records_flushed += self._pending_records
-        self._pending_bytes = 0
-        self._pending_records = 0
+        self.bytes_written += nbytes
+        self.records_flushed += nrec
 
-    def _open_file(self, number: int):
-        name = _file_name(number)
-        path = self.directory / name
-        flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0)
-        self._fd = os.open(path, flags, 0o644)
-        header = _FILE_HEADER.pack(FILE_MAGIC, FORMAT_VERSION, 0)
-        _writev_all(self._fd, [header])
-        self._file_bytes = len(header)
-        self._file_entry = {
-            "name": name,
+    def _new_entry(self, number: int) -> dict:
+        return {
+            "name": _file_name(number),
             "records": 0,
-            "bytes": len(header),
+            "bytes": _FILE_HEADER.size,
             "first_received_at": None,
             "last_received_at": None,
         }
-        self._manifest["files"].append(self._file_entry)
+
+    def _open_file(self, entry: dict):
+        """Create the file of ``entry`` with its header; list it in the manifest (_lock held)."""
+        path = self.directory / entry["name"]
+        flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_BINARY", 0)
+        self._fd = os.open(path, flags, 0o644)
+        _writev_all(self._fd, [_FILE_HEADER.pack(FILE_MAGIC, FORMAT_VERSION, 0)])
+        self._manifest["files"].append(entry)
         self._write_manifest()
 
     def _close_file(self):
@@ -341,12 +394,6 @@ class Recorder:
             os.fsync(self._fd)
             os.close(self._fd)
             self._fd = None
-
-    def _roll(self):
-        self._flush_locked()
-        self._close_file()
-        number = int(_FILE_RE.match(self._file_entry["name"]).group(1)) + 1
-        self._open_file(number)  # writes the manifest with the finished file's counts
 
     def _load_manifest(self) -> dict:
         try:
