@@ -340,6 +340,15 @@ def _point_from_table(t: dict, i: int) -> PointSpec:
     )
 
 
+def _number(table: dict, key: str, default, section="scenario"):
+    v = table.get(key, default)
+    if v is None:
+        return None
+    if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+        raise ScenarioError(f"[{section}] {key} must be a number, not {v!r}")
+    return float(v)
+
+
 def _scenario_from_dict(d: dict, source: str) -> Scenario:
     s = d.get("scenario", {})
     spectrum = s.get("spectrum", "ou")
@@ -354,7 +363,7 @@ def _scenario_from_dict(d: dict, source: str) -> Scenario:
     dtype = s.get("dtype", "<f8")
     if dtype not in ("<f4", "<f8"):
         raise ScenarioError("dtype must be '<f4' or '<f8'")
-    rate = float(s.get("rate_hz", 4000.0))
+    rate = _number(s, "rate_hz", 4000.0)
     if not rate > 0:
         raise ScenarioError("rate_hz must be > 0")
     points: list[PointSpec] = []
@@ -391,7 +400,7 @@ def _scenario_from_dict(d: dict, source: str) -> Scenario:
             validate_faults(p.faults)
     except ValueError as e:
         raise ScenarioError(str(e)) from None
-    data_rate = s.get("data_rate_hz")
+    data_rate = _number(s, "data_rate_hz", None)
     if sampling == "random" and not data_rate:
         raise ScenarioError("sampling = 'random' needs data_rate_hz")
     return Scenario(
@@ -400,15 +409,15 @@ def _scenario_from_dict(d: dict, source: str) -> Scenario:
         facility=str(s.get("facility", "")),
         stream=str(s.get("stream", "probe-a")),
         rate_hz=rate,
-        point_seconds=float(s.get("point_seconds", 30.0)),
+        point_seconds=_number(s, "point_seconds", 30.0),
         spectrum=spectrum,
         columns=columns,
         dtype=dtype,
-        nu=s.get("nu"),
-        c1=float(s.get("c1", 0.49)),
+        nu=_number(s, "nu", None),
+        c1=_number(s, "c1", 0.49),
         sampling=sampling,
         data_rate_hz=None if data_rate is None else float(data_rate),
-        probe_diameter_m=float(s.get("probe_diameter_m", 1e-4)),
+        probe_diameter_m=_number(s, "probe_diameter_m", 1e-4),
         faults=faults,
         points=tuple(points),
         source=source,
