@@ -32,6 +32,7 @@ from __future__ import annotations
 
 import json
 import logging
+import mmap
 import os
 import re
 import struct
@@ -453,27 +454,27 @@ def _parse_record(buf: memoryview, pos: int) -> tuple[Record, int] | None:
     start = pos + _RECORD_HEAD.size
     if mark != RECORD_MARK or body_len > end - start or body_len < _BODY_FIXED.size + 4:
         return None
-    body = buf[start : start + body_len]
-    if zlib.crc32(body, zlib.crc32(_LEN.pack(body_len))) != crc:
-        return None
-    received_at, rlen = _BODY_FIXED.unpack_from(body, 0)
-    p = _BODY_FIXED.size
-    if p + rlen + 4 > body_len:
-        return None
-    reason = bytes(body[p : p + rlen]).decode("utf-8", errors="replace") or None
-    p += rlen
-    (count,) = _COUNT.unpack_from(body, p)
-    p += 4
-    frames = []
-    for _ in range(count):
-        if p + 8 > body_len:
+    with buf[start : start + body_len] as body:  # released at once: the mmap can then close
+        if zlib.crc32(body, zlib.crc32(_LEN.pack(body_len))) != crc:
             return None
-        (flen,) = _LEN.unpack_from(body, p)
-        p += 8
-        if flen > body_len - p:
+        received_at, rlen = _BODY_FIXED.unpack_from(body, 0)
+        p = _BODY_FIXED.size
+        if p + rlen + 4 > body_len:
             return None
-        frames.append(bytes(body[p : p + flen]))
-        p += flen
+        reason = body[p : p + rlen].tobytes().decode("utf-8", errors="replace") or None
+        p += rlen
+        (count,) = _COUNT.unpack_from(body, p)
+        p += 4
+        frames = []
+        for _ in range(count):
+            if p + 8 > body_len:
+                return None
+            (flen,) = _LEN.unpack_from(body, p)
+            p += 8
+            if flen > body_len - p:
+                return None
+            frames.append(body[p : p + flen].tobytes())  # the one copy, out of the page cache
+            p += flen
     if p != body_len:
         return None
     return Record(received_at, frames, reason), start + body_len
@@ -486,15 +487,29 @@ def _read_file(path: Path, problems: list, is_last: bool) -> Iterator[Record]:
         log.warning("recording %s at byte %d: %s (%s)", path.name, offset, kind, detail)
 
     try:
-        with open(path, "rb") as f:
-            data = f.read()
+        f = open(path, "rb")
     except OSError as exc:
         report(0, "bad_file", f"cannot read: {exc}")
         return
-    buf = memoryview(data)
-    if len(buf) < _FILE_HEADER.size:
-        report(0, "torn_tail" if is_last else "bad_file", "file shorter than its header")
-        return
+    with f:
+        size = os.fstat(f.fileno()).st_size
+        if size < _FILE_HEADER.size:
+            report(0, "torn_tail" if is_last else "bad_file", "file shorter than its header")
+            return
+        try:
+            mm = mmap.mmap(f.fileno(), 0, access=mmap.ACCESS_READ)
+        except (OSError, ValueError) as exc:
+            report(0, "bad_file", f"cannot map: {exc}")
+            return
+        with mm:
+            buf = memoryview(mm)
+            try:
+                yield from _records_of(mm, buf, report, is_last)
+            finally:
+                buf.release()
+
+
+def _records_of(mm: mmap.mmap, buf: memoryview, report, is_last: bool) -> Iterator[Record]:
     magic, version, _ = _FILE_HEADER.unpack_from(buf, 0)
     if magic != FILE_MAGIC or version != FORMAT_VERSION:
         report(0, "bad_file", f"not a version {FORMAT_VERSION} recording file")
@@ -508,9 +523,9 @@ def _read_file(path: Path, problems: list, is_last: bool) -> Iterator[Record]:
             continue
         # Damage: look for the next position where a whole valid record starts.
         bad = pos
-        nxt = data.find(RECORD_MARK, pos + 1)
+        nxt = mm.find(RECORD_MARK, pos + 1)
         while nxt != -1 and _parse_record(buf, nxt) is None:
-            nxt = data.find(RECORD_MARK, nxt + 1)
+            nxt = mm.find(RECORD_MARK, nxt + 1)
         if nxt == -1:
             kind = "torn_tail" if is_last else "corrupt"
             report(bad, kind, f"{len(buf) - bad} bytes to the end of the file skipped")
