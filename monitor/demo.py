@@ -1,0 +1,227 @@
+"""Simulator, monitor and dashboard on one machine in one go, on a built-in scenario.
+
+``eddyvigil demo`` starts two child processes on free loopback endpoints: ``eddyvigil
+simulate`` (a PUB that moves its invented traverse on when told) and ``eddyvigil watch`` (which
+connects to it, serves the dashboard and publishes ``converged`` on a control socket that the
+simulator follows). The monitor runs as a subprocess, exactly as a user would start it, so the
+demo exercises the real command line. The demo prints the dashboard URL, opens a browser
+unless ``--no-browser``, reports each converged point, and on Ctrl-C/SIGTERM stops both
+children (the monitor first, so it writes its summaries), kills anything left of their process
+trees and releases every port.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import signal
+import socket
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+__all__ = ["add_arguments", "run", "free_port", "EPILOG"]
+
+EPILOG = """\
+examples:
+  eddyvigil demo                       # open the dashboard in the default browser
+  eddyvigil demo --no-browser --port 5010 --speed 4
+"""
+
+#: Seconds allowed for each child to stop after being asked before it is killed.
+STOP_GRACE_S = 10.0
+#: Seconds the dashboard gets to come up.
+STARTUP_S = 60.0
+
+
+def free_port(host: str = "127.0.0.1") -> int:
+    """A TCP port that was free a moment ago on ``host`` (the OS picks it)."""
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind((host, 0))
+        return int(s.getsockname()[1])
+
+
+def _speed(text: str) -> str:
+    if text == "max":
+        return text
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"not a number or 'max': {text!r}") from None
+    if not v > 0:
+        raise argparse.ArgumentTypeError("must be > 0")
+    return text
+
+
+def add_arguments(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--no-browser", action="store_true", help="do not open a web browser")
+    p.add_argument("--port", type=int, default=5006,
+                   help="dashboard port on 127.0.0.1 (default 5006; 0 picks a free one)")
+    p.add_argument("--scenario", default=None, metavar="NAME",
+                   help="simulator scenario (default: the simulator's built-in traverse)")
+    p.add_argument("--speed", type=_speed, default="1", metavar="1|N|max",
+                   help="simulated time per wall-clock second (default 1)")
+    p.add_argument("--seed", type=int, default=0, help="random seed of the simulator (default 0)")
+    p.add_argument("--summary", metavar="FILE",
+                   help="summary JSON lines here (default: summary.jsonl in a temporary folder)")
+
+
+def _wait_for_dashboard(host: str, port: int, children: list[subprocess.Popen],
+                        stop: threading.Event) -> bool:
+    """True once the dashboard port accepts connections (False if a child died or on stop).
+
+    A TCP connect, not a page request: every page request makes a Bokeh session.
+    """
+    deadline = time.monotonic() + STARTUP_S
+    for _ in range(int(STARTUP_S / 0.2) + 1):
+        if stop.is_set() or any(c.poll() is not None for c in children):
+            return False
+        try:
+            with socket.create_connection((host, port), timeout=1.0):
+                return True
+        except OSError:
+            pass
+        if time.monotonic() > deadline:
+            return False
+        time.sleep(0.2)
+    return False
+
+
+def _listen_control(endpoint: str, stop: threading.Event) -> None:
+    """Print one line per ``converged`` signal of the monitor (DESIGN §6)."""
+    import json
+
+    import zmq
+
+    ctx = zmq.Context.instance()
+    sub = ctx.socket(zmq.SUB)
+    sub.setsockopt(zmq.LINGER, 0)
+    sub.setsockopt(zmq.SUBSCRIBE, b"")
+    try:
+        sub.connect(endpoint)
+        while not stop.is_set():
+            if not sub.poll(200):
+                continue
+            frames = sub.recv_multipart()
+            try:
+                msg = json.loads(frames[-1])
+                pid = msg.get("point", {}).get("id", "?")
+                print(f"eddyvigil demo: {frames[0].decode(errors='replace')} point {pid} "
+                      f"converged after {float(msg.get('at_s', float('nan'))):.1f} s of data",
+                      flush=True)
+            except (ValueError, AttributeError, TypeError):
+                print("eddyvigil demo: unreadable control message ignored", flush=True)
+    finally:
+        sub.close(linger=0)
+
+
+def _stop_children(children: list[subprocess.Popen]) -> None:
+    """Ask each child to stop, wait, then kill whatever is left of their process trees."""
+    import psutil
+
+    tree = []
+    for c in children:
+        try:
+            p = psutil.Process(c.pid)
+            tree += [p] + p.children(recursive=True)
+        except psutil.NoSuchProcess:
+            pass
+    for c, sig in zip(children, (signal.SIGINT, signal.SIGTERM), strict=False):
+        if c.poll() is None:
+            try:
+                c.send_signal(sig)
+            except ProcessLookupError:
+                pass
+        try:
+            c.wait(STOP_GRACE_S)
+        except subprocess.TimeoutExpired:
+            print(f"eddyvigil demo: {c.args[3]} did not stop in {STOP_GRACE_S:.0f} s; killed",
+                  file=sys.stderr)
+    _, alive = psutil.wait_procs(tree, timeout=1.0)
+    for p in alive:
+        try:
+            p.kill()
+        except psutil.NoSuchProcess:
+            pass
+    psutil.wait_procs(alive, timeout=5.0)
+    for c in children:
+        if c.poll() is None:
+            c.kill()
+            c.wait(5.0)
+
+
+def run(args: argparse.Namespace) -> int:
+    host = "127.0.0.1"
+    port = args.port if args.port else free_port(host)
+    data = f"tcp://{host}:{free_port(host)}"
+    control = f"tcp://{host}:{free_port(host)}"
+    url = f"http://{host}:{port}/"
+    workdir = tempfile.mkdtemp(prefix="eddyvigil-demo-")
+    summary = args.summary or str(Path(workdir) / "summary.jsonl")
+
+    exe = [sys.executable, "-m", "monitor"]
+    watch = exe + ["watch", "--connect", data, "--control", control, "--port", str(port),
+                   "--host", host, "--summary", summary, "--quiet"]
+    simulate = exe + ["simulate", "--bind", data, "--socket", "pub", "--speed", args.speed,
+                      "--seed", str(args.seed), "--follow-control", control,
+                      "--wait-peer", "30", "--quiet"]
+    if args.scenario:
+        simulate += ["--scenario", args.scenario]
+
+    stop = threading.Event()
+
+    def on_signal(_sig, _frame):
+        stop.set()
+
+    previous = {s: signal.signal(s, on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
+    children: list[subprocess.Popen] = []
+    listener = threading.Thread(target=_listen_control, args=(control, stop), daemon=True)
+    code = 0
+    try:
+        # Own sessions: a Ctrl-C at the terminal reaches the demo only, which then stops the
+        # children in order (the monitor first, so it writes its summaries).
+        env = dict(os.environ, BOKEH_RESOURCES="server")
+        children.append(subprocess.Popen(watch, start_new_session=True, env=env))
+        children.append(subprocess.Popen(simulate, start_new_session=True, env=env))
+        listener.start()
+        if not _wait_for_dashboard(host, port, children, stop):
+            if not stop.is_set():
+                bad = [c for c in children if c.poll() is not None]
+                why = (f"{bad[0].args[3]} exited with code {bad[0].returncode}" if bad
+                       else f"no dashboard at {url} within {STARTUP_S:.0f} s")
+                print(f"eddyvigil demo: could not start: {why}", file=sys.stderr)
+                code = bad[0].returncode or 1 if bad else 1
+            return code
+        print(f"eddyvigil demo: dashboard at {url}", flush=True)
+        print(f"eddyvigil demo: data {data}, control {control}, summary {summary}", flush=True)
+        print("eddyvigil demo: Ctrl-C to stop", flush=True)
+        if not args.no_browser:
+            try:
+                import webbrowser
+
+                webbrowser.open(url)
+            except Exception as exc:  # no browser here is fine: the URL is printed
+                print(f"eddyvigil demo: could not open a browser ({exc})", file=sys.stderr)
+        announced = False
+        while not stop.wait(0.2):
+            if children[0].poll() is not None:
+                print(f"eddyvigil demo: the monitor exited with code {children[0].returncode}",
+                      file=sys.stderr)
+                code = children[0].returncode or 1
+                break
+            if children[1].poll() is not None and not announced:
+                announced = True
+                print("eddyvigil demo: the traverse is finished; the dashboard stays up until "
+                      "Ctrl-C", flush=True)
+    finally:
+        stop.set()
+        _stop_children(children)
+        if listener.is_alive():
+            listener.join(5.0)
+        for s, h in previous.items():
+            signal.signal(s, h)
+        print(f"eddyvigil demo: stopped; summaries in {summary}", flush=True)
+    return code
