@@ -270,8 +270,8 @@ class BlockingAccumulator:
         Q = self.Q[:L]
         P = self.P[:L]
         g = grad
-        zq = np.einsum("sa,kab,sb->sk", g, Q, g)
-        zp = np.einsum("sa,kab,sb->sk", g, P, g)
+        zq = (np.matmul(g[None], Q) * g[None]).sum(axis=-1).T  # g^T Q_k g for every (s, k)
+        zp = (np.matmul(g[None], P) * g[None]).sum(axis=-1).T
         zs = g @ self.S[:L].T
         zf = g @ self.first[:L].T
         zl = g @ self.last[:L].T

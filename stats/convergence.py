@@ -72,8 +72,9 @@ def eta_seconds(half_width: float, target: float | None, blocks: int, duration_s
 class Checkpoints:
     """Geometric checkpoints of the sample count and the pass streak of each statistic."""
 
-    first: int = 1024
-    next_n: int = 1024
+    # no verdict is possible before 64 blocks of 2 base blocks (64 samples each) exist
+    first: int = 8192
+    next_n: int = 8192
     streak: dict[str, int] = field(default_factory=dict)
     converged_at_s: float | None = None
 

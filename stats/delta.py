@@ -48,35 +48,53 @@ class StatisticTable:
         names += [f"skew_{c}" for c in self.columns]
         names += [f"flat_{c}" for c in self.columns]
         self.names = tuple(names)
-        # expansion of every central co-moment into monomial means about ref
-        self._terms = {}
-        for p in (2, 3, 4):
-            for c in lay.combos[p]:
-                terms = []
-                for s in range(p + 1):  # raw moments: first-order terms do not vanish
-                    for sub in combinations(range(p), s):
-                        comp = tuple(c[i] for i in range(p) if i not in sub)
-                        mono = lay.monomial_index(tuple(sorted(c[i] for i in sub))) if s else -1
-                        terms.append((mono, comp))
-                self._terms[c] = terms
+        # Expansion of every central co-moment into monomial means about ref, as one table of
+        # terms: raw[mono] * prod(-delta[comp]), summed per combo. Index D (past the end) of
+        # the extended raw vector is 1 and index m of the extended -delta vector is 1, so
+        # padding needs no special case and everything is vectorised.
+        D = lay.n_monomials
+        self.combo_list = [c for p in (2, 3, 4) for c in lay.combos[p]]
+        monos, comps, owner = [], [], []
+        for ci, c in enumerate(self.combo_list):
+            p = len(c)
+            for s in range(p + 1):  # raw moments: first-order terms do not vanish
+                for sub in combinations(range(p), s):
+                    comp = [c[i] for i in range(p) if i not in sub]
+                    monos.append(lay.monomial_index(tuple(sorted(c[i] for i in sub))) if s else D)
+                    comps.append(comp + [m] * (4 - len(comp)))
+                    owner.append(ci)
+        self._mono = np.array(monos)
+        self._comp = np.array(comps)
+        summing = np.zeros((len(monos), len(self.combo_list)))
+        summing[np.arange(len(monos)), owner] = 1.0
+        self._summing = summing
+        self._combo_pos = {c: i for i, c in enumerate(self.combo_list)}
 
-    def central(self, raw: np.ndarray, combo: tuple[int, ...]) -> np.ndarray:
-        """Central co-moment from monomial means ``raw`` (..., D) about ref."""
-        delta = raw[..., : self.m]
-        out = 0.0
-        for mono, comp in self._terms[combo]:
-            v = raw[..., mono] if mono >= 0 else 1.0
-            for c in comp:
-                v = v * (-delta[..., c])
-            out = out + v
-        return out
+    def central_all(self, raw: np.ndarray, delta_rows: np.ndarray | None = None) -> np.ndarray:
+        """All central co-moments (..., n2 + n3 + n4) from monomial means ``raw`` (..., D).
 
-    def evaluate(self, raw: np.ndarray, ref: np.ndarray) -> np.ndarray:
+        ``delta_rows``: optional index per row of ``raw`` into a smaller set of rows that hold
+        every distinct first-degree part (the complex-step probes share most of them).
+        """
+        m = self.m
+        lead = raw[..., :m] if delta_rows is None else raw[delta_rows, :m]
+        one = np.ones(lead.shape[:-1] + (1,), dtype=raw.dtype)
+        negd_ext = np.concatenate([-lead, one], axis=-1)
+        coef = np.prod(negd_ext[..., self._comp], axis=-1)
+        if delta_rows is not None:
+            coef = coef[np.searchsorted(delta_rows, np.minimum(np.arange(raw.shape[0]), delta_rows[-1]))]
+        one = np.ones(raw.shape[:-1] + (1,), dtype=raw.dtype)
+        raw_ext = np.concatenate([raw, one], axis=-1)
+        return (raw_ext[..., self._mono] * coef) @ self._summing
+
+    def evaluate(self, raw: np.ndarray, ref: np.ndarray, delta_rows=None) -> np.ndarray:
         """All statistics (..., S) from monomial means (..., D) about ``ref``."""
         m = self.m
         lay = self.layout
+        cen = self.central_all(raw, delta_rows)
+        pos = self._combo_pos
         cols = [ref[i] + raw[..., i] for i in range(m)]
-        stress = [self.central(raw, c) for c in self.stress_combos]
+        stress = [cen[..., pos[c]] for c in self.stress_combos]
         normal = stress[:m]
         if m == 3:
             k = 0.5 * (normal[0] + normal[1] + normal[2])
@@ -84,12 +102,12 @@ class StatisticTable:
             k = 0.75 * (normal[0] + normal[1])
         else:
             k = 1.5 * normal[0]
-        third = [self.central(raw, c) for c in lay.combos[3]]
-        fourth = [self.central(raw, c) for c in lay.combos[4]]
-        skew = [self.central(raw, (i, i, i)) / normal[i] ** 1.5 for i in range(m)]
-        flat = [self.central(raw, (i, i, i, i)) / normal[i] ** 2 for i in range(m)]
+        third = [cen[..., pos[c]] for c in lay.combos[3]]
+        fourth = [cen[..., pos[c]] for c in lay.combos[4]]
+        skew = [cen[..., pos[(i, i, i)]] / normal[i] ** 1.5 for i in range(m)]
+        flat = [cen[..., pos[(i, i, i, i)]] / normal[i] ** 2 for i in range(m)]
         parts = cols + stress + [k] + third + fourth + skew + flat
-        return np.stack([np.broadcast_to(p, raw.shape[:-1]) for p in parts], axis=-1)
+        return np.stack(parts, axis=-1)
 
     def values_and_gradient(self, raw: np.ndarray, ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Values (S,) and gradient (S, D) with respect to the monomial means."""
@@ -98,7 +116,10 @@ class StatisticTable:
         probe = np.tile(raw.astype(np.complex128), (D + 1, 1))
         probe[np.arange(D), np.arange(D)] += 1j * _STEP
         with np.errstate(invalid="ignore", divide="ignore"):
-            out = self.evaluate(probe, ref.astype(np.complex128))
+            # probes m..D-1 perturb only higher monomials: they share the base row's first-degree part
+            rows = np.arange(self.m + 1)
+            rows[-1] = D
+            out = self.evaluate(probe, ref.astype(np.complex128), delta_rows=rows)
         values = out[D].real
         grad = (out[:D].imag / _STEP).T
         return values, grad

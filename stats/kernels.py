@@ -37,10 +37,12 @@ def central_sums(x, c2, c3p, c3k, c4p, c4l, mean, s2, s3, s4):
     n3 = c3p.shape[0]
     n4 = c4p.shape[0]
     for i in range(m):
+        # sum deviations from the first sample: a 1e8 offset would otherwise cost ~6 digits
+        x0 = x[0, i] if n > 0 else 0.0
         acc = 0.0
         for t in range(n):
-            acc += x[t, i]
-        mean[i] = acc / n if n > 0 else np.nan
+            acc += x[t, i] - x0
+        mean[i] = x0 + acc / n if n > 0 else np.nan
     for q in range(n2):
         s2[q] = 0.0
     for q in range(n3):
