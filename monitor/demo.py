@@ -153,9 +153,24 @@ def _stop_children(children: list[subprocess.Popen]) -> None:
             c.wait(5.0)
 
 
+def _port_taken(host: str, port: int) -> bool:
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        try:
+            s.bind((host, port))
+        except OSError:
+            return True
+    return False
+
+
 def run(args: argparse.Namespace) -> int:
+    from monitor.watch import EXIT_ADDRESS_IN_USE
+
     host = "127.0.0.1"
     port = args.port if args.port else free_port(host)
+    if _port_taken(host, port):
+        print(f"eddyvigil demo: could not start: dashboard port {port} on {host} is already in "
+              f"use; choose another with --port", file=sys.stderr)
+        return EXIT_ADDRESS_IN_USE
     data = f"tcp://{host}:{free_port(host)}"
     control = f"tcp://{host}:{free_port(host)}"
     url = f"http://{host}:{port}/"
