@@ -1,50 +1,46 @@
-"""Synthetic facility with known truth: signals, faults, scenarios and a paced publisher."""
+"""Synthetic facility with known truth: signals, faults, scenarios and a paced publisher.
 
-from simulator.faults import MALFORMED_KINDS, MessageFaults, SampleFaults, malformed_frames
-from simulator.scenario import (
-    PointSpec,
-    Scenario,
-    ScenarioError,
-    builtin_scenarios,
-    load_scenario,
-    moment_names,
-    point_truth,
-)
-from simulator.signals import (
-    VON_KARMAN_A,
-    OUGenerator,
-    RandomSampler,
-    Shedding,
-    TurbulenceGenerator,
-    VonKarmanGenerator,
-    cholesky_factor,
-    generate,
-    skew_moments,
-    von_karman_epsilon,
-    von_karman_psd,
-)
+Public names are imported lazily (PEP 562) so that ``import simulator.cli`` (done by
+``eddyvigil --help``) does not pay for numba and scipy.
+"""
 
-__all__ = [
-    "MALFORMED_KINDS",
-    "MessageFaults",
-    "SampleFaults",
-    "malformed_frames",
-    "PointSpec",
-    "Scenario",
-    "ScenarioError",
-    "builtin_scenarios",
-    "load_scenario",
-    "moment_names",
-    "point_truth",
-    "VON_KARMAN_A",
-    "OUGenerator",
-    "RandomSampler",
-    "Shedding",
-    "TurbulenceGenerator",
-    "VonKarmanGenerator",
-    "cholesky_factor",
-    "generate",
-    "skew_moments",
-    "von_karman_epsilon",
-    "von_karman_psd",
-]
+from __future__ import annotations
+
+import importlib
+
+_HOME = {
+    "MALFORMED_KINDS": "faults",
+    "MessageFaults": "faults",
+    "SampleFaults": "faults",
+    "malformed_frames": "faults",
+    "PointSpec": "scenario",
+    "Scenario": "scenario",
+    "ScenarioError": "scenario",
+    "builtin_scenarios": "scenario",
+    "load_scenario": "scenario",
+    "moment_names": "scenario",
+    "point_truth": "scenario",
+    "VON_KARMAN_A": "signals",
+    "OUGenerator": "signals",
+    "RandomSampler": "signals",
+    "Shedding": "signals",
+    "TurbulenceGenerator": "signals",
+    "VonKarmanGenerator": "signals",
+    "cholesky_factor": "signals",
+    "generate": "signals",
+    "skew_moments": "signals",
+    "von_karman_epsilon": "signals",
+    "von_karman_psd": "signals",
+}
+
+__all__ = list(_HOME)
+
+
+def __getattr__(name: str):
+    if name in _HOME:
+        return getattr(importlib.import_module(f"simulator.{_HOME[name]}"), name)
+    raise AttributeError(f"module 'simulator' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(list(globals()) + __all__)
