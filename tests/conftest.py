@@ -69,7 +69,8 @@ def player_main(argv: list[str]) -> int:
     argv: ``FILE ENDPOINT SOCKET MODE [key=value ...]`` with SOCKET ``pub|push|xpub``, MODE
     ``bind|connect``; keys: ``sndhwm``, ``start`` (first index), ``stop`` (index to stop before,
     exiting without further messages, like a crash), ``pause_every``/``pause_s``,
-    ``pause_before_last`` (s), ``linger_ms`` (how long to let the last messages drain).
+    ``pause_before_last`` (s), ``delay_s`` (before the first message), ``linger_ms`` (how long
+    to let the last messages drain).
     ``xpub`` waits (at most 10 s) until a subscriber has subscribed before sending.
     """
     import zmq
@@ -90,6 +91,7 @@ def player_main(argv: list[str]) -> int:
             sock.recv()
         elif kind == "pub":
             time.sleep(float(opts.get("join_s", 0.5)))
+        time.sleep(float(opts.get("delay_s", 0.0)))
         start, stop = int(opts.get("start", 0)), int(opts.get("stop", len(messages)))
         pause_every = int(opts.get("pause_every", 0))
         pause_s = float(opts.get("pause_s", 0.0))
@@ -149,8 +151,11 @@ class Processes:
         except subprocess.TimeoutExpired:
             p.kill()
             p.wait(timeout=10)
-            out, err = self.output(p)
-            raise AssertionError(f"{p.name} did not finish in {timeout} s\n{err[-3000:]}") from None
+            report = "\n".join(
+                f"--- {q.name} (exit {q.poll()}) stderr:\n{self.output(q)[1][-1500:]}"
+                for q in self.procs
+            )
+            raise AssertionError(f"{p.name} did not finish in {timeout} s\n{report}") from None
 
     def interrupt(self, p: subprocess.Popen, sig=signal.SIGTERM, timeout: float = 30.0) -> int:
         p.send_signal(sig)
