@@ -19,6 +19,7 @@ import asyncio
 import errno
 import functools
 import signal
+import socket
 import threading
 from collections.abc import Callable
 from urllib.parse import urljoin
@@ -30,7 +31,6 @@ from bokeh.resources import Resources
 from bokeh.server.server import BaseServer
 from bokeh.server.tornado import BokehTornado
 from bokeh.server.views.static_handler import StaticHandler
-from tornado import netutil
 from tornado.httpserver import HTTPServer
 from tornado.ioloop import IOLoop
 
@@ -64,8 +64,6 @@ def websocket_origins(host: str, port: int) -> list[str]:
     if host in loopback:
         names = ["127.0.0.1", "localhost"] + (["[::1]"] if host == "::1" else [])
     elif host in ("0.0.0.0", "::"):
-        import socket
-
         names = ["127.0.0.1", "localhost", socket.gethostname(), socket.getfqdn()]
     else:
         names = [host]
@@ -75,6 +73,14 @@ def websocket_origins(host: str, port: int) -> list[str]:
         if entry not in out:
             out.append(entry)
     return out
+
+
+def _listen(host: str, port: int) -> socket.socket:
+    """A listening, non-blocking TCP socket (closed again if anything fails)."""
+    family = socket.AF_INET6 if ":" in host else socket.AF_INET
+    sock = socket.create_server((host or "127.0.0.1", port), family=family, backlog=128)
+    sock.setblocking(False)
+    return sock
 
 
 class _OwnResourcesTornado(BokehTornado):
@@ -146,7 +152,7 @@ class DashboardServer:
         self.host = host
         self.error: BaseException | None = None
         try:
-            sockets = netutil.bind_sockets(port=port, address=host)
+            sockets = [_listen(host, port)]
         except OSError as exc:
             if exc.errno == errno.EADDRINUSE:
                 raise PortInUseError(errno.EADDRINUSE,

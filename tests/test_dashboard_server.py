@@ -1,0 +1,100 @@
+"""The dashboard server over real HTTP on loopback: hooks, origins, own BokehJS, port in use."""
+
+from __future__ import annotations
+
+import socket
+import threading
+import urllib.request
+
+import pytest
+from bokeh.document import Document
+
+from monitor.dashboard.app import build_document
+from monitor.dashboard.preview import PreviewRun
+from monitor.dashboard.server import PortInUseError, serve, websocket_origins
+
+
+def _serve_in_thread(**kw):
+    """Run ``serve`` in a thread; returns (thread, stop_event, server-info dict, errors)."""
+    stop = threading.Event()
+    info, errors = {}, []
+    ready = threading.Event()
+
+    def on_ready(server):
+        info["server"] = server
+        ready.set()
+
+    def target():
+        try:
+            run = PreviewRun()
+            serve(lambda: run.snapshot(3.0), port=0, stop_event=stop, on_ready=on_ready, **kw)
+        except BaseException as exc:  # noqa: B036 - handed to the test thread
+            errors.append(exc)
+            ready.set()
+
+    t = threading.Thread(target=target, daemon=True)
+    t.start()
+    assert ready.wait(20), "server did not come up within 20 s"
+    return t, stop, info, errors
+
+
+def test_serve_runs_hooks_once_serves_its_own_bokehjs_and_stops():
+    calls = []
+    t, stop, info, errors = _serve_in_thread(on_start=lambda: calls.append("start"),
+                                             on_stop=lambda: calls.append("stop"))
+    assert not errors
+    server = info["server"]
+    for _ in range(2):  # two tabs, one server: on_start still runs once
+        with urllib.request.urlopen(server.url, timeout=30) as r:
+            page = r.read().decode()
+        assert r.status == 200
+    assert '<script src="/static/js/bokeh.min.js' in page and "cdn" not in page
+    with urllib.request.urlopen(server.url + "static/js/bokeh.min.js", timeout=30) as r:
+        assert len(r.read()) > 100_000
+    stop.set()
+    t.join(20)
+    assert not t.is_alive()
+    assert calls == ["start", "stop"]
+    with socket.socket() as s:  # the port is released
+        s.setsockopt(socket.SOL_SOCKET, socket.SO_REUSEADDR, 1)
+        s.bind(("127.0.0.1", server.port))
+
+
+def test_a_taken_port_raises_port_in_use_before_anything_starts():
+    calls = []
+    with socket.socket() as taken:
+        taken.bind(("127.0.0.1", 0))
+        taken.listen(1)
+        with pytest.raises(PortInUseError, match="already in use"):
+            serve(lambda: None, port=taken.getsockname()[1], on_start=lambda: calls.append(1))
+    assert calls == []
+
+
+def test_a_failing_on_start_stops_the_server_and_is_raised():
+    def boom():
+        raise RuntimeError("acquisition could not start")
+
+    t, stop, info, errors = _serve_in_thread(on_start=boom)
+    t.join(20)
+    assert not t.is_alive()
+    stop.set()
+    assert len(errors) == 1 and "could not start" in str(errors[0])
+
+
+def test_websocket_origins_are_only_the_forms_we_serve():
+    assert websocket_origins("127.0.0.1", 5006) == ["127.0.0.1:5006", "localhost:5006"]
+    assert websocket_origins("10.0.0.5", 80) == ["10.0.0.5:80"]
+    assert all("*" not in o for o in websocket_origins("0.0.0.0", 5006))
+
+
+def test_page_models_carry_the_names_tests_rely_on():
+    doc = Document()
+    run = PreviewRun(point_s=2.0, points=3)
+    build_document(doc, get_snapshot=lambda: run.snapshot(5.0))
+    for name in ("verdict", "health", "status", "status_source", "trace", "trace_source",
+                 "running_mean", "running_stresses", "halfwidth", "halfwidth_source",
+                 "profile_mean", "profile_stresses", "finished", "finished_source"):
+        assert doc.get_model_by_name(name) is not None, name
+    assert len(doc.session_callbacks) == 1  # ONE periodic callback per page
+    assert len(doc.get_model_by_name("finished_source").data["id"]) == 2
+    assert "KEEP ACQUIRING" in doc.get_model_by_name("verdict").text

@@ -1,0 +1,144 @@
+"""Pure dashboard views against hand-made snapshots (no server, no browser)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from monitor.dashboard import views
+from monitor.state import RunSnapshot, StreamView
+from stats.snapshot import Estimate, PointSnapshot
+
+
+def _est(name, value, hw, target, state, eta=None):
+    converged = None if target is None else state == "converged"
+    return Estimate(name, value, hw / 1.96, value - hw, value + hw, hw, target, converged, eta,
+                    state, blocks=80)
+
+
+def _view(estimates, *, converged=False, name="probe-a", point=None, history=None, trace=None,
+          finished=(), **health):
+    stats = PointSnapshot(("u", "v"), 40_000, 2.0, 0.95, tuple(estimates), converged,
+                          1.5 if converged else None, "two-component")
+    kw = dict(rate_hz=20_000.0, ingest_rate_hz=19_800.0, messages=40, lost_messages=0, gaps=0,
+              restarts=0, rejected={})
+    kw.update(health)
+    return StreamView(stream=name, session="s1", point=point or {"id": "P03", "y": 0.01},
+                      point_index=3, stats=stats, trace=trace or {}, history=history or {},
+                      finished=tuple(finished), converged_wall_age_s=4.0 if converged else None,
+                      **kw)
+
+
+def _run(*views_):
+    return RunSnapshot(7, 0.0, {v.stream: v for v in views_})
+
+
+OPEN = [_est("U", 8.2, 0.05, 0.08, "converged", 0.0), _est("uv", -0.5, 0.03, 0.02, "converging",
+                                                          12.0)]
+
+
+def test_verdict_keeps_acquiring_until_every_target_is_met():
+    v = views.verdict(_view(OPEN))
+    assert v.headline == "KEEP ACQUIRING"
+    assert "1/2 targets met" in v.detail and "slowest uv" in v.detail and "12 s" in v.detail
+    done = views.verdict(_view([_est("U", 8.2, 0.05, 0.08, "converged", 0.0)], converged=True))
+    assert done.headline == "MOVE ON" and "4 s ago" in done.detail
+    assert done.colour == views.STATE_COLOURS["converged"]
+
+
+def test_verdict_flags_suspect_and_warming_up_and_no_data():
+    suspect = [_est("U", 8.2, 0.05, 0.08, "suspect")]
+    assert views.verdict(_view(suspect)).headline == "CHECK SIGNAL"
+    warm = [_est("U", 8.2, 0.5, 0.08, "warming-up")]
+    assert views.verdict(_view(warm)).headline == "WARMING UP"
+    assert "WAITING FOR DATA" in views.verdict_html(RunSnapshot(0, 0.0))
+
+
+def test_text_from_the_wire_is_escaped():
+    evil = "<script>alert(1)</script>"
+    snap = _run(_view(OPEN, name=evil, point={"id": evil}, rejected={evil: 3}))
+    for text in (views.verdict_html(snap), views.health_html(snap)):
+        assert "<script>" not in text and "&lt;script&gt;" in text
+
+
+def test_health_flags_every_non_zero_counter():
+    clean = views.health_html(_run(_view(OPEN)))
+    assert "! " not in clean
+    bad = views.health_html(_run(_view(OPEN, lost_messages=3, restarts=1,
+                                       rejected={"non_finite": 2, "bad_shape": 0})))
+    assert "! 3" in bad and "! 1" in bad and "! non_finite 2" in bad and "bad_shape" not in bad
+
+
+def test_status_board_lists_targeted_statistics_only():
+    est = OPEN + [_est("W", 0.0, 0.01, None, "untargeted")]
+    cols = views.status_columns(_run(_view(est)))
+    assert cols["name"] == ["U", "uv"]
+    assert cols["eta"] == ["done", "12 s"]
+    assert cols["value"][1] == "-0.5 ± 0.03" and cols["target"][1] == "± 0.02"
+    assert set(len(c) for c in cols.values()) == {2}
+
+
+def test_rows_after_streams_only_new_rows_and_resets_on_restart():
+    cols = {"t": np.arange(5.0), "u": np.arange(5.0) * 2}
+    rows, reset = views.rows_after(cols, "t", 2.0)
+    assert not reset and rows["t"].tolist() == [3.0, 4.0] and rows["u"].tolist() == [6.0, 8.0]
+    rows, reset = views.rows_after(cols, "t", 4.0)
+    assert not reset and len(rows["t"]) == 0
+    rows, reset = views.rows_after({"t": np.array([0.1, 0.2])}, "t", 4.0)  # publisher restarted
+    assert reset and rows["t"].tolist() == [0.1, 0.2]
+    assert views.rows_after(cols, "t", None)[1]
+
+
+def test_history_band_is_value_plus_minus_half_width():
+    h = {"duration_s": np.array([1.0, 2.0]), "U": np.array([8.0, 8.1]),
+         "U_hw": np.array([0.2, 0.1]), "U_target": np.array([0.08, 0.08])}
+    cols = views.history_columns(_view(OPEN, history=h))
+    np.testing.assert_allclose(cols["U_lo"], [7.8, 8.0])
+    np.testing.assert_allclose(cols["U_hi"], [8.2, 8.2])
+    assert np.isnan(cols["uv"]).all()  # no history: nothing drawn
+    hw = views.halfwidth_columns(_view(OPEN, history=h), ["U"])
+    np.testing.assert_allclose(hw["U"], [2.5, 1.25])
+
+
+def test_guides_follow_the_inverse_square_root_of_time():
+    # The half-width of a time average falls as T^(-1/2) (Lumley & Panofsky 1964; common
+    # practice): ratio r at T reaches 1 at T * r^2.
+    g = views.guide_columns(_view(OPEN))
+    assert g["name"] == ["uv"]
+    (x0, x1), (y0, y1) = g["xs"][0], g["ys"][0]
+    assert x0 == pytest.approx(2.0) and y0 == pytest.approx(1.5)
+    assert x1 == pytest.approx(2.0 * 1.5 ** 2) and y1 == pytest.approx(1.0)
+    assert y1 / y0 == pytest.approx(math.sqrt(x0 / x1))
+
+
+def _summary(pid, y, u, lo, hi, complete=True):
+    return {"point": {"id": pid, "x": 0.3, "y": y, "z": 0.0}, "samples": 1000,
+            "duration_s": 20.0, "converged": True, "converged_at_s": 12.0, "complete": complete,
+            "lost_messages": 0,
+            "statistics": [{"name": "U", "value": u, "ci_low": lo, "ci_high": hi}]}
+
+
+def test_profiles_and_table_from_finished_summaries():
+    fin = [_summary("P01", -0.01, 7.0, 6.9, 7.1), _summary("P02", 0.0, 8.0, 7.8, 8.2, False)]
+    view = _view(OPEN, finished=fin)
+    axis = views.profile_axis(view)
+    assert axis == "y"
+    prof = views.profile_columns(view, axis)
+    assert prof["coord"] == [-0.01, 0.0] and prof["U_hi"] == [7.1, 8.2]
+    assert all(math.isnan(x) for x in prof["uu"])
+    cur = views.current_profile_columns(view, axis)
+    assert cur["coord"] == [0.01] and cur["U"] == [8.2]
+    table = views.finished_columns(view)
+    assert table["id"] == ["P01", "P02"] and table["U"][1] == "8 ± 0.2"
+    assert table["converged"][1].endswith("(cut short)")
+
+
+def test_palette_is_okabe_ito_and_consistent():
+    # Okabe & Ito (2008), "Color universal design": the eight colours.
+    assert set(views.OKABE_ITO.values()) == {"#000000", "#E69F00", "#56B4E9", "#009E73",
+                                            "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
+    for name in ("U", "uu", "uv", "k", "uuv", "skew_u"):
+        assert views.statistic_colour(name) in views.OKABE_ITO.values()
+    assert views.statistic_colour("U") == views.statistic_colour("uu")  # a component keeps its hue
