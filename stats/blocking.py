@@ -81,7 +81,7 @@ def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) ->
             continue
         vj = c0[s, j] / (n[j] - 1)
         vm = c0[s, j - 1] / (n[j - 1] - 1)
-        v = max(vj, 2.0 * vj - vm)
+        v = max(vj, 2.0 * vj - vm, 0.0)  # rounding can leave c0 a hair below zero
         var[s] = v
         level[s] = j
         blocks[s] = n[j]

@@ -1,0 +1,152 @@
+"""PointStatistics: names, snapshot semantics, worked examples, split and merge invariance."""
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from processes import ar1, turbulence
+from stats import PointStatistics, Targets, statistic_names
+
+
+def test_snapshot_lists_every_statistic_in_design_order():
+    ps = PointStatistics(("u", "v", "w"), rate_hz=1000.0)
+    snap = ps.snapshot()
+    assert snap.names == tuple(statistic_names(("u", "v", "w")))
+    assert len(snap.names) == 3 + 6 + 1 + 10 + 15 + 3 + 3 + 3 + 3
+
+
+def test_too_few_samples_give_nan_and_not_converged():
+    ps = PointStatistics(("u", "v"), rate_hz=1000.0)
+    snap = ps.snapshot()
+    assert snap.samples == 0 and not snap.converged
+    for e in snap.estimates:
+        assert math.isnan(e.value) and math.isnan(e.stderr)
+        assert e.converged in (None, False)
+        j = e.to_json()
+        assert j["value"] is None and j["stderr"] is None
+    ps.update(np.array([[1.0, 2.0]] * 3))
+    snap = ps.snapshot()
+    assert snap.estimate("U").value == 1.0
+    assert math.isnan(snap.estimate("U").stderr)
+    assert snap.estimate("U").state == "warming-up"
+
+
+def test_two_component_k_is_flagged():
+    # k from two components, 3/4 (uu + vv), assuming ww = (uu + vv)/2 (common practice; REFERENCES §8
+    # check: uu = 1, vv = 0.5 gives 1.125).
+    x = np.array([[1.0, 0.0], [-1.0, np.sqrt(0.5)], [1.0, -np.sqrt(0.5)], [-1.0, 0.0]])
+    x = np.tile(x, (256, 1))
+    snap = PointStatistics(("u", "v"), rate_hz=100.0).update(x).snapshot()
+    uu, vv = snap.estimate("uu").value, snap.estimate("vv").value
+    assert snap.estimate("k").value == pytest.approx(0.75 * (uu + vv))
+    assert "two components" in snap.k_method
+
+
+def test_worked_example_error_of_mean_and_time_scale():
+    # REFERENCES §1: f_s = 1 kHz, T_int = 10 ms, sigma = 1 m/s, N = 10 000 -> SE 0.0447 m/s,
+    # N_eff 500; averaged over seeded replicates, the blocking estimate must sit on these.
+    rho = np.exp(-1e-3 / 1e-2)
+    se, tint, neff = [], [], []
+    for r in range(60):
+        x = 10.0 + ar1(np.random.default_rng(r), 40_000, 1, rho)
+        snap = PointStatistics(("u",), rate_hz=1000.0).update(x).snapshot()
+        se.append(snap.estimate("U").stderr * np.sqrt(4))  # scale the 4x longer record to N = 1e4
+        tint.append(snap.estimate("Tint_u").value)
+        neff.append(snap.estimate("Neff_u").value / 4)
+    assert np.mean(se) == pytest.approx(0.0447176, rel=0.06)
+    assert np.mean(tint) == pytest.approx(0.010, rel=0.08)
+    assert np.mean(neff) == pytest.approx(500.08, rel=0.12)
+
+
+def test_values_match_numpy_reference():
+    rng = np.random.default_rng(4)
+    x = turbulence(rng, 50_000, 0.9)
+    snap = PointStatistics(("u", "v", "w"), rate_hz=2000.0).update(x).snapshot()
+    d = x - x.mean(axis=0)
+    assert snap.estimate("U").value == pytest.approx(x[:, 0].mean(), rel=1e-13)
+    assert snap.estimate("uv").value == pytest.approx((d[:, 0] * d[:, 1]).mean(), rel=1e-10)
+    assert snap.estimate("k").value == pytest.approx(0.5 * (d**2).mean(axis=0).sum(), rel=1e-10)
+    assert snap.estimate("uvw").value == pytest.approx((d[:, 0] * d[:, 1] * d[:, 2]).mean(), rel=1e-8)
+    assert snap.estimate("vvww").value == pytest.approx((d[:, 1] ** 2 * d[:, 2] ** 2).mean(), rel=1e-9)
+    from scipy import stats as sps
+
+    assert snap.estimate("skew_w").value == pytest.approx(sps.skew(x[:, 2]), rel=1e-8)
+    assert snap.estimate("flat_v").value == pytest.approx(sps.kurtosis(x[:, 1], fisher=False), rel=1e-9)
+    assert snap.duration_s == pytest.approx(25.0)
+
+
+@settings(max_examples=25, deadline=None)
+@given(cuts=st.lists(st.integers(1, 30_000), min_size=1, max_size=6))
+def test_any_block_split_gives_the_same_snapshot(cuts):
+    rng = np.random.default_rng(12)
+    x = turbulence(rng, 30_000, 0.95).astype(np.float32)
+    whole = PointStatistics(("u", "v", "w"), rate_hz=5000.0).update(x).snapshot()
+    ps = PointStatistics(("u", "v", "w"), rate_hz=5000.0)
+    edges = [0] + sorted(set(cuts)) + [x.shape[0]]
+    for a, b in zip(edges[:-1], edges[1:]):
+        ps.update(x[a:b])
+    split = ps.snapshot()
+    # stated tolerance: values to 1e-9 relative, standard errors to 1e-7 (summation order only)
+    for e, f in zip(whole.estimates, split.estimates):
+        assert e.name == f.name
+        np.testing.assert_allclose(f.value, e.value, rtol=1e-9, atol=1e-12)
+        np.testing.assert_allclose(f.stderr, e.stderr, rtol=1e-7, atol=1e-14)
+        assert f.blocks == e.blocks
+
+
+def test_merge_equals_single_pass_values():
+    rng = np.random.default_rng(9)
+    x = turbulence(rng, 40_000, 0.9)
+    ref = np.array([10.0, 0.5, 0.0])
+    a = PointStatistics(("u", "v", "w"), 1000.0, ref=ref).update(x[:17_000])
+    b = PointStatistics(("u", "v", "w"), 1000.0, ref=ref).update(x[17_000:])
+    whole = PointStatistics(("u", "v", "w"), 1000.0, ref=ref).update(x).snapshot()
+    merged = a.merge(b).snapshot()
+    assert a.n == 17_000 and b.n == 23_000
+    for e, f in zip(whole.estimates, merged.estimates):
+        if e.name.startswith(("Tint_", "Neff_")):  # derived from the (approximately merged) errors
+            np.testing.assert_allclose(f.value, e.value, rtol=0.4)
+            continue
+        np.testing.assert_allclose(f.value, e.value, rtol=1e-9, atol=1e-12)
+        if e.name in ("U", "uu", "uv", "k"):
+            np.testing.assert_allclose(f.stderr, e.stderr, rtol=0.2)
+
+
+def test_random_sampling_duration_and_errors():
+    rng = np.random.default_rng(2)
+    x = ar1(rng, 20_000, 2, 0.5) + [1.0, 0.0]
+    ps = PointStatistics(("u", "v"), rate_hz=None)
+    with pytest.raises(ValueError):
+        ps.update(x[:10])
+    for k in range(0, 20_000, 5000):
+        ps.update(x[k : k + 5000], duration_s=2.5)
+    snap = ps.snapshot()
+    assert snap.duration_s == pytest.approx(10.0)
+    assert np.isfinite(snap.estimate("U").stderr)
+
+
+def test_converges_with_targets_and_reports_eta():
+    targets = Targets.from_dict({"targets": {"U": {"relative": 0.01}, "uu": {"relative": 0.05}}})
+    rng = np.random.default_rng(1)
+    ps = PointStatistics(("u", "v", "w"), rate_hz=2000.0, targets=targets)
+    x = turbulence(rng, 400_000, np.exp(-1 / 10))
+    saw_eta = False
+    for k in range(0, x.shape[0], 4000):
+        ps.update(x[k : k + 4000])
+        snap = ps.snapshot()
+        uu = snap.estimate("uu")
+        if uu.eta_s is not None and uu.eta_s > 0:
+            saw_eta = True
+        if snap.converged:
+            break
+    assert saw_eta
+    assert snap.converged and snap.converged_at_s is not None
+    assert snap.converged_at_s <= snap.duration_s
+    u = snap.estimate("U")
+    assert u.state == "converged" and u.eta_s == 0.0
+    assert 1.1 * u.half_width <= u.target
+    assert snap.estimate("vv").state == "untargeted" and snap.estimate("vv").target is None
+    assert snap.slowest() is None
