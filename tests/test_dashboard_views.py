@@ -142,3 +142,11 @@ def test_palette_is_okabe_ito_and_consistent():
     for name in ("U", "uu", "uv", "k", "uuv", "skew_u"):
         assert views.statistic_colour(name) in views.OKABE_ITO.values()
     assert views.statistic_colour("U") == views.statistic_colour("uu")  # a component keeps its hue
+
+
+def test_transport_trouble_is_flagged_but_a_connection_is_news():
+    snap = RunSnapshot(1, 0.0, {}, transport_events=("10:00:01 connected to tcp://a:1",
+                                                     "10:00:09 connection closed on tcp://a:1"))
+    text = views.health_html(snap)
+    assert "! transport: 10:00:09 connection closed" in text
+    assert "! transport: 10:00:01" not in text and "transport: 10:00:01 connected" in text

@@ -219,11 +219,18 @@ def health_html(snapshot: RunSnapshot) -> str:
         listed = ", ".join(f"{html.escape(str(k))} {n}" for k, n in sorted(other.items()))
         extra += f'<div style="{_FLAG}">! rejected in this run: {listed}</div>'
     for event in snapshot.transport_events[-3:]:
-        extra += f'<div style="{_FLAG}">! transport: {html.escape(str(event))}</div>'
+        text = html.escape(str(event))
+        if any(word in text.lower() for word in _TROUBLE):
+            extra += f'<div style="{_FLAG}">! transport: {text}</div>'
+        else:
+            extra += f'<div style="font-size:12px;padding:2px 6px">transport: {text}</div>'
     table = (f'<table style="border-collapse:collapse;font-size:13px">{head}{"".join(rows)}'
              "</table>")
     return table + extra
 
+
+#: Words that make a transport event a problem rather than news (e.g. "connected").
+_TROUBLE = ("closed", "disconnect", "drop", "lost", "fail", "error", "refused", "limit")
 
 _FLAG = (f"background:{OKABE_ITO['vermillion']};color:#FFFFFF;font-weight:700;padding:2px 6px;"
          "margin-top:2px")
