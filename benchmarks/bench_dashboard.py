@@ -1,0 +1,139 @@
+"""Dashboard figures: tick time, page lag and server CPU with one headless browser attached.
+
+    python benchmarks/bench_dashboard.py [--seconds 10]
+
+1. Periodic-callback time per tick (in-process Bokeh Document, snapshot with a full
+   2000-row trace and 2000-row history, 10 targeted statistics, 9 finished points).
+2. Page lag: the snapshot source stamps the trace's last time with the wall clock when the
+   snapshot is made (as the pipeline would for a sample just received); the browser reads the
+   newest trace time from its own copy of the data and compares it with its clock.
+3. Server CPU (process CPU time / wall time) while one browser is attached.
+Prints figures only; no assertions.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import psutil
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+from bokeh.document import Document  # noqa: E402
+
+from monitor.dashboard.app import build_document  # noqa: E402
+from monitor.dashboard.preview import PreviewRun  # noqa: E402
+from monitor.dashboard.server import DashboardServer  # noqa: E402
+from monitor.state import RunSnapshot, StreamView  # noqa: E402
+
+
+class StampedRun:
+    """Preview run whose trace ends at the wall clock time the snapshot was made."""
+
+    def __init__(self):
+        self.run = PreviewRun(point_s=12.0, points=9)
+        self.start = time.time()
+
+    def snapshot(self) -> RunSnapshot:
+        now = time.time()
+        snap = self.run.snapshot(30.0 + (now - self.start))
+        view = next(iter(snap.streams.values()))
+        t = np.linspace(now - 2.0, now, 2000)
+        trace = {"t": t, "u": 8 + np.sin(t * 40), "v": np.cos(t * 33), "w": np.sin(t * 21)}
+        fields = {f: getattr(view, f) for f in StreamView.__dataclass_fields__}
+        fields["trace"] = trace
+        return RunSnapshot(snap.sequence, now, {view.stream: StreamView(**fields)})
+
+
+def bench_tick(n: int = 200) -> None:
+    src = StampedRun()
+    snaps = [src.snapshot() for _ in range(n)]
+    it = iter(snaps)
+    doc = Document()
+    build_document(doc, get_snapshot=lambda: next(it))
+    cb = next(iter(doc.session_callbacks)).callback
+    times = []
+    for _ in range(n - 1):
+        t0 = time.perf_counter()
+        cb()
+        times.append(time.perf_counter() - t0)
+    ms = np.array(times) * 1e3
+    print(f"tick (periodic callback) time: median {np.median(ms):.2f} ms, "
+          f"p95 {np.percentile(ms, 95):.2f} ms over {len(ms)} ticks")
+
+
+def bench_browser(seconds: float) -> None:
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+
+    src = StampedRun()
+    ready, holder = threading.Event(), {}
+
+    def serve():
+        holder["s"] = DashboardServer(src.snapshot, port=0)
+        holder["s"].start()
+        ready.set()
+        holder["s"].run()
+        holder["s"].close()
+
+    th = threading.Thread(target=serve, daemon=True)
+    th.start()
+    ready.wait(20)
+    os.environ["SE_OFFLINE"] = "true"
+    profile = tempfile.mkdtemp()
+    opts = webdriver.ChromeOptions()
+    opts.binary_location = "/usr/bin/chromium"
+    for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                 "--no-first-run", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync", f"--user-data-dir={profile}",
+                 "--window-size=1280,900"):
+        opts.add_argument(flag)
+    driver = webdriver.Chrome(service=Service("/usr/bin/chromedriver"), options=opts)
+    try:
+        driver.get(holder["s"].url)
+        for _ in range(300):
+            if driver.execute_script("return window.Bokeh !== undefined && "
+                                     "Bokeh.documents.length > 0"):
+                break
+            time.sleep(0.1)
+        time.sleep(2.0)
+        proc = psutil.Process()
+        cpu0, wall0 = sum(proc.cpu_times()[:2]), time.monotonic()
+        lags = []
+        for _ in range(int(seconds / 0.2)):
+            lag = driver.execute_script(
+                "const t = Bokeh.documents[0].get_model_by_name('trace_source').data.t;"
+                "return Date.now() / 1000 - t[t.length - 1];")
+            lags.append(lag)
+            time.sleep(0.2)
+        cpu = (sum(proc.cpu_times()[:2]) - cpu0) / (time.monotonic() - wall0)
+        lags = np.array(lags) * 1e3
+        print(f"page lag (snapshot made -> in the browser's data): median {np.median(lags):.0f} "
+              f"ms, p95 {np.percentile(lags, 95):.0f} ms (tick {250} ms)")
+        print(f"server process CPU with one browser attached (includes this script's selenium "
+              f"polling): {100 * cpu:.0f} % of one core")
+    finally:
+        driver.quit()
+        shutil.rmtree(profile, ignore_errors=True)
+        holder["s"].stop()
+        th.join(10)
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description="dashboard benchmark")
+    ap.add_argument("--seconds", type=float, default=10.0)
+    args = ap.parse_args()
+    bench_tick()
+    bench_browser(args.seconds)
+
+
+if __name__ == "__main__":
+    main()
