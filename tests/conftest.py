@@ -82,6 +82,8 @@ def player_main(argv: list[str]) -> int:
     sock = ctx.socket({"pub": zmq.PUB, "push": zmq.PUSH, "xpub": zmq.XPUB}[kind])
     sock.setsockopt(zmq.LINGER, 0)
     sock.setsockopt(zmq.SNDHWM, int(opts.get("sndhwm", 1000)))
+    if kind == "push":  # queue only to a connected peer, so that LINGER 0 loses nothing queued
+        sock.setsockopt(zmq.IMMEDIATE, 1)
     (sock.bind if mode == "bind" else sock.connect)(endpoint)
     try:
         if kind == "xpub":
@@ -91,6 +93,9 @@ def player_main(argv: list[str]) -> int:
             sock.recv()
         elif kind == "pub":
             time.sleep(float(opts.get("join_s", 0.5)))
+        elif not sock.poll(30_000, zmq.POLLOUT):
+            print("player: no peer within 30 s", file=sys.stderr)
+            return 3
         time.sleep(float(opts.get("delay_s", 0.0)))
         start, stop = int(opts.get("start", 0)), int(opts.get("stop", len(messages)))
         pause_every = int(opts.get("pause_every", 0))
