@@ -68,27 +68,26 @@ def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) ->
     r2 = np.where(np.isfinite(r2), r2, np.inf)
     # M_j = sum_{k >= j} n_k (gamma_k / c0_k)^2, compared with the chi2(K - j) 0.99 quantile
     M = np.cumsum(r2[:, ::-1], axis=1)[:, ::-1]
-    for s in range(S):
-        j = None
-        for jj in range(K):
-            if M[s, jj] < _chi2_99(K - jj):
-                j = jj
-                break
-        if j is None:
-            continue
-        j = max(j, 1)
-        if n[j] < 2 or n[j - 1] < 2:
-            continue
-        vj = c0[s, j] / (n[j] - 1)
-        vm = c0[s, j - 1] / (n[j - 1] - 1)
-        v = max(vj, 2.0 * vj - vm, 0.0)  # rounding can leave c0 a hair below zero
-        var[s] = v
-        level[s] = j
-        blocks[s] = n[j]
-        # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n) = 5/n
-        # for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
-        # the standard error's relative error is half of its square root.
-        rel[s] = 0.5 * np.sqrt(5.0 / max(n[j] - 1, 1))
+    q = np.array([_chi2_99(K - jj) for jj in range(K)])
+    ok = M < q[None, :]
+    found = ok.any(axis=1) & (K >= 2)
+    j = np.maximum(np.argmax(ok, axis=1), 1)  # first level passing; never level 0 alone
+    j = np.minimum(j, K - 1)
+    rows = np.arange(S)
+    nj, nm = n[j], n[j - 1]
+    found &= (nj >= 2) & (nm >= 2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        vj = c0[rows, j] / (nj - 1)
+        vm = c0[rows, j - 1] / (nm - 1)
+    # lugsail 2 V_j - V_{j-1}; never below V_j; rounding can leave c0 a hair below zero
+    v = np.maximum(np.maximum(vj, 2.0 * vj - vm), 0.0)
+    var = np.where(found, v, np.nan)
+    level = np.where(found, j, -1).astype(np.int64)
+    blocks = np.where(found, nj, 0).astype(np.int64)
+    # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n) = 5/n
+    # for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
+    # the standard error's relative error is half of its square root.
+    rel = np.where(found, 0.5 * np.sqrt(5.0 / np.maximum(nj - 1, 1)), np.nan)
     return LevelChoice(var, level, blocks, np.where(level >= 0, base * 2 ** np.maximum(level, 0), 0), rel)
 
 

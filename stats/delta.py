@@ -27,7 +27,7 @@ K_METHODS = {
     1: "k = 3/2 uu: one component, assuming isotropy (common practice)",
 }
 
-_STEP = 1e-100  # complex step; no subtractive cancellation, so it can be this small
+_STEP = 1e-100  # complex step (tests): no subtractive cancellation, so it can be this small
 
 
 class StatisticTable:
@@ -68,30 +68,23 @@ class StatisticTable:
         summing = np.zeros((len(monos), len(self.combo_list)))
         summing[np.arange(len(monos)), owner] = 1.0
         self._summing = summing
+        self._owner = np.array(owner)
         self._combo_pos = {c: i for i, c in enumerate(self.combo_list)}
 
-    def central_all(self, raw: np.ndarray, delta_rows: np.ndarray | None = None) -> np.ndarray:
-        """All central co-moments (..., n2 + n3 + n4) from monomial means ``raw`` (..., D).
-
-        ``delta_rows``: optional index per row of ``raw`` into a smaller set of rows that hold
-        every distinct first-degree part (the complex-step probes share most of them).
-        """
+    def central_all(self, raw: np.ndarray) -> np.ndarray:
+        """All central co-moments (..., n2 + n3 + n4) from monomial means ``raw`` (..., D)."""
         m = self.m
-        lead = raw[..., :m] if delta_rows is None else raw[delta_rows, :m]
-        one = np.ones(lead.shape[:-1] + (1,), dtype=raw.dtype)
-        negd_ext = np.concatenate([-lead, one], axis=-1)
-        coef = np.prod(negd_ext[..., self._comp], axis=-1)
-        if delta_rows is not None:
-            coef = coef[np.searchsorted(delta_rows, np.minimum(np.arange(raw.shape[0]), delta_rows[-1]))]
         one = np.ones(raw.shape[:-1] + (1,), dtype=raw.dtype)
+        negd_ext = np.concatenate([-raw[..., :m], one], axis=-1)
         raw_ext = np.concatenate([raw, one], axis=-1)
-        return (raw_ext[..., self._mono] * coef) @ self._summing
+        terms = raw_ext[..., self._mono] * np.prod(negd_ext[..., self._comp], axis=-1)
+        return terms @ self._summing
 
-    def evaluate(self, raw: np.ndarray, ref: np.ndarray, delta_rows=None) -> np.ndarray:
+    def evaluate(self, raw: np.ndarray, ref: np.ndarray) -> np.ndarray:
         """All statistics (..., S) from monomial means (..., D) about ``ref``."""
         m = self.m
         lay = self.layout
-        cen = self.central_all(raw, delta_rows)
+        cen = self.central_all(raw)
         pos = self._combo_pos
         cols = [ref[i] + raw[..., i] for i in range(m)]
         stress = [cen[..., pos[c]] for c in self.stress_combos]
@@ -109,17 +102,55 @@ class StatisticTable:
         parts = cols + stress + [k] + third + fourth + skew + flat
         return np.stack(parts, axis=-1)
 
+    def central_jacobian(self, raw: np.ndarray) -> np.ndarray:
+        """d(central co-moments)/d(monomial means), (n2 + n3 + n4, D), real arithmetic."""
+        m = self.m
+        D = raw.shape[0]
+        negd_ext = np.append(-raw[:m], 1.0)
+        raw_ext = np.append(raw, 1.0)
+        factors = negd_ext[self._comp]  # (T, 4)
+        coef = np.prod(factors, axis=1)
+        owner = self._owner
+        J = np.zeros((len(self.combo_list), D + 1))
+        np.add.at(J, (owner, self._mono), coef)
+        # each -delta_i factor: d/d raw_i of (-delta_i) is -1; product of the other factors
+        for p in range(4):
+            others = np.prod(np.delete(factors, p, axis=1), axis=1)
+            comp = self._comp[:, p]
+            real = comp < m
+            np.add.at(J, (owner[real], comp[real]), -raw_ext[self._mono[real]] * others[real])
+        return J[:, :D]
+
     def values_and_gradient(self, raw: np.ndarray, ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Values (S,) and gradient (S, D) with respect to the monomial means."""
+        raw = np.asarray(raw, dtype=np.float64)
+        m, lay, pos = self.m, self.layout, self._combo_pos
+        D = raw.shape[0]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            values = self.evaluate(raw, ref)
+            cen = self.central_all(raw)
+            J = self.central_jacobian(raw)
+            rows = [np.eye(D)[i] for i in range(m)]
+            rows += [J[pos[c]] for c in self.stress_combos]
+            normal = [J[pos[(i, i)]] for i in range(m)]
+            kfac = {3: 0.5, 2: 0.75, 1: 1.5}[m]
+            rows.append(kfac * np.sum(normal, axis=0))
+            rows += [J[pos[c]] for c in lay.combos[3]]
+            rows += [J[pos[c]] for c in lay.combos[4]]
+            for i in range(m):
+                c2, c3 = cen[pos[(i, i)]], cen[pos[(i, i, i)]]
+                rows.append(J[pos[(i, i, i)]] / c2**1.5 - 1.5 * c3 / c2**2.5 * normal[i])
+            for i in range(m):
+                c2, c4 = cen[pos[(i, i)]], cen[pos[(i, i, i, i)]]
+                rows.append(J[pos[(i, i, i, i)]] / c2**2 - 2.0 * c4 / c2**3 * normal[i])
+        return values, np.array(rows)
+
+    def values_and_gradient_complex_step(self, raw, ref):
+        """Reference gradient by complex-step differentiation of :meth:`evaluate` (for tests)."""
         raw = np.asarray(raw, dtype=np.float64)
         D = raw.shape[0]
         probe = np.tile(raw.astype(np.complex128), (D + 1, 1))
         probe[np.arange(D), np.arange(D)] += 1j * _STEP
         with np.errstate(invalid="ignore", divide="ignore"):
-            # probes m..D-1 perturb only higher monomials: they share the base row's first-degree part
-            rows = np.arange(self.m + 1)
-            rows[-1] = D
-            out = self.evaluate(probe, ref.astype(np.complex128), delta_rows=rows)
-        values = out[D].real
-        grad = (out[:D].imag / _STEP).T
-        return values, grad
+            out = self.evaluate(probe, ref.astype(np.complex128))
+        return out[D].real, (out[:D].imag / _STEP).T
