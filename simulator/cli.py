@@ -163,6 +163,8 @@ def run(args: argparse.Namespace) -> int:
     )
     try:
         return Publisher(scenario, opts).run()
+    except KeyboardInterrupt:  # Ctrl-C before the publisher's own handler was installed
+        return 130
     except zmq.ZMQError as e:
         print(f"eddyvigil simulate: cannot use {opts.endpoint}: {e}", file=sys.stderr)
         return 2

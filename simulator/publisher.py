@@ -23,7 +23,7 @@ import signal
 import sys
 import time
 import uuid
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 import numpy as np
 import zmq
@@ -53,25 +53,21 @@ class PublisherOptions:
     wait_peer_s: float = 5.0
     sndhwm: int = 1000
     quiet: bool = False
-    extra_header: dict = field(default_factory=dict)
 
 
-def wait_for_peer(sock: zmq.Socket, timeout_s: float) -> bool:
-    """Wait until a peer connects to ``sock`` (or it connects to one); False on timeout."""
-    if timeout_s <= 0:
-        return False
-    mon = sock.get_monitor_socket(zmq.EVENT_ACCEPTED | zmq.EVENT_CONNECTED)
-    try:
-        deadline = time.monotonic() + timeout_s
-        while (left := deadline - time.monotonic()) > 0:
-            if mon.poll(int(left * 1000) + 1):
-                ev = zmq.utils.monitor.recv_monitor_message(mon)
-                if ev["event"] in (zmq.EVENT_ACCEPTED, zmq.EVENT_CONNECTED):
-                    return True
-        return False
-    finally:
-        sock.disable_monitor()
-        mon.close(linger=0)
+def wait_for_peer(monitor_socket: zmq.Socket, timeout_s: float, stop=lambda: False) -> bool:
+    """Wait for a peer on a socket monitor made *before* the bind/connect; False on timeout.
+
+    ``monitor_socket`` comes from ``sock.get_monitor_socket(EVENT_ACCEPTED | EVENT_CONNECTED)``
+    (attached first, so an immediate connection is not missed); ``stop()`` ends the wait early.
+    """
+    deadline = time.monotonic() + timeout_s
+    while not stop() and (left := deadline - time.monotonic()) > 0:
+        if monitor_socket.poll(int(min(left, 0.2) * 1000) + 1):
+            ev = zmq.utils.monitor.recv_monitor_message(monitor_socket)
+            if ev["event"] in (zmq.EVENT_ACCEPTED, zmq.EVENT_CONNECTED):
+                return True
+    return False
 
 
 class Publisher:
@@ -104,8 +100,20 @@ class Publisher:
             print(text, file=sys.stderr, flush=True)
 
     def _send(self, frames) -> None:
-        self.sock.send_multipart(frames, copy=False)
-        self.sent += 1
+        # PUSH blocks while no peer can take the message: wait in short steps so that SIGINT /
+        # SIGTERM still stop us (after a stop, give the message at most 2 s, e.g. for `end`)
+        give_up = None
+        while True:
+            try:
+                self.sock.send_multipart(frames, copy=False)
+                self.sent += 1
+                return
+            except zmq.Again:
+                if self._stop:
+                    give_up = give_up or time.monotonic() + 2.0
+                    if time.monotonic() > give_up:
+                        self._log("simulate: stopped while no peer took the messages")
+                        return
 
     def _next_seq(self) -> int:
         s = self.seq
@@ -144,22 +152,30 @@ class Publisher:
         self.sock = self.ctx.socket(kind)
         self.sock.setsockopt(zmq.LINGER, 2000)  # let the last frames (end) leave on close
         self.sock.setsockopt(zmq.SNDHWM, self.opt.sndhwm)
-        if self.opt.bind:
-            self.sock.bind(self.opt.endpoint)
-        else:
-            self.sock.connect(self.opt.endpoint)
+        self.sock.setsockopt(zmq.SNDTIMEO, 200)  # PUB never blocks; PUSH retries, see _send
+        mon = None
+        if self.opt.socket_type == "pub" and self.opt.wait_peer_s > 0:
+            mon = self.sock.get_monitor_socket(zmq.EVENT_ACCEPTED | zmq.EVENT_CONNECTED)
+        try:
+            if self.opt.bind:
+                self.sock.bind(self.opt.endpoint)
+            else:
+                self.sock.connect(self.opt.endpoint)
+            if mon is not None and not wait_for_peer(mon, self.opt.wait_peer_s, lambda: self._stop):
+                self._log(f"simulate: no peer within {self.opt.wait_peer_s:g} s; publishing anyway")
+        finally:
+            if mon is not None:
+                self.sock.disable_monitor()
+                mon.close(linger=0)
         if self.opt.follow_control:
             self._control = self.ctx.socket(zmq.SUB)
             self._control.setsockopt(zmq.LINGER, 0)
             self._control.setsockopt(zmq.SUBSCRIBE, self.scenario.stream.encode())
             self._control.connect(self.opt.follow_control)
         if self.opt.socket_type == "pub":
-            seen = wait_for_peer(self.sock, self.opt.wait_peer_s)
-            if not seen:
-                self._log(
-                    f"simulate: no subscriber within {self.opt.wait_peer_s:g} s; publishing anyway"
-                )
-            time.sleep(self.opt.settle_s)
+            end = time.monotonic() + self.opt.settle_s  # let the subscription arrive
+            while not self._stop and (left := end - time.monotonic()) > 0:
+                time.sleep(min(left, 0.1))
 
     def _close(self) -> None:
         if self._control is not None:

@@ -282,3 +282,49 @@ def test_cli_refuses_bad_arguments(args, words):
     code, err = _reap(proc, timeout=30)
     assert code == 2
     assert words in err
+
+
+def test_sigterm_mid_point_still_sends_end(ctx, tmp_path):
+    sub = ctx.socket(zmq.SUB)
+    sub.setsockopt(zmq.LINGER, 0)
+    sub.setsockopt(zmq.SUBSCRIBE, b"")
+    port = sub.bind_to_random_port("tcp://127.0.0.1")
+    truth_file = tmp_path / "truth.json"
+    proc = _spawn(
+        "--connect",
+        f"tcp://127.0.0.1:{port}",
+        "--speed",
+        "1",
+        "--scenario",
+        "drift",
+        "--truth",
+        str(truth_file),
+    )
+    msgs = []
+    try:
+        for _ in range(200):
+            if not sub.poll(30_000):
+                break
+            m = wire.decode(sub.recv_multipart())
+            msgs.append(m)
+            if isinstance(m, wire.SamplesMessage) and len(msgs) == 5:
+                proc.terminate()
+            if isinstance(m, wire.EndMessage):
+                break
+    finally:
+        sub.close(linger=0)
+        code, err = _reap(proc)
+    assert code == 130, err
+    assert isinstance(msgs[-1], wire.EndMessage)
+    truth = json.loads(truth_file.read_text())
+    assert truth["complete"] is False
+    assert truth["points"][0]["ended_by"] == "stopped"
+
+
+def test_sigint_stops_a_push_publisher_nobody_reads(tmp_path):
+    port = _free_port()
+    proc = _spawn("--bind", f"tcp://127.0.0.1:{port}", "--socket", "push", "--speed", "max")
+    time.sleep(4.0)  # let it start and block on the first send (no peer)
+    proc.send_signal(2)
+    code, err = _reap(proc, timeout=20)
+    assert code == 130, err
