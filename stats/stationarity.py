@@ -55,6 +55,7 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from fractions import Fraction
 from functools import lru_cache
+from itertools import accumulate
 from types import MappingProxyType
 
 import numpy as np
@@ -113,19 +114,14 @@ def mahonian_counts(n: int) -> tuple[int, ...]:
     """
     if n < 0:
         raise ValueError(f"n must be >= 0, got {n}")
-    counts = [1]
-    for i in range(2, n + 1):
-        width = len(counts) + i - 1
-        prefix = [0]
-        for c in counts:
-            prefix.append(prefix[-1] + c)
-        new = []
-        for k in range(width):
-            hi = min(k, len(counts) - 1)
-            lo = max(0, k - (i - 1))
-            new.append(prefix[hi + 1] - prefix[lo])
-        counts = new
-    return tuple(counts)
+    if n <= 1:
+        return (1,)
+    # built on the cached row for n - 1, so all rows up to n cost one pass in total
+    counts = mahonian_counts(n - 1)
+    prefix = list(accumulate(counts, initial=0))
+    last = len(counts) - 1
+    width = len(counts) + n - 1
+    return tuple(prefix[min(k, last) + 1] - prefix[max(0, k - n + 1)] for k in range(width))
 
 
 @lru_cache(maxsize=1024)
