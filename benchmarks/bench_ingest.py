@@ -1,0 +1,230 @@
+"""Ingest figures: the full pipeline against a bare receiver, replay speed, memory over time.
+
+    python benchmarks/bench_ingest.py [--messages 300] [--long-seconds 20]
+
+1. A publisher process pushes 3-component float32 samples, 16384 rows per message, over tcp
+   loopback (PUSH/PULL: back-pressure, nothing lost) into
+   a. a bare pyzmq PULL that only counts messages (``recv_multipart(copy=False)``), and
+   b. the full monitor path of ``watch --no-dashboard --record``: Subscriber ->
+      Pipeline.handle_frames (decode, every statistic, summaries) -> Recorder,
+   and the samples/s of each are printed with their ratio (measured in this one run).
+2. The recording of 1b replayed at max speed through a fresh Pipeline (samples/s).
+3. RSS of the full path (no recorder, RCVHWM 64 so that ZeroMQ's queue does not dominate)
+   over a long max-speed stream (``--long-seconds``), sampled once a second: start, end, peak.
+Prints figures only; no assertions.
+"""
+
+from __future__ import annotations
+
+import argparse
+import io
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import psutil
+import zmq
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+from monitor import wire  # noqa: E402
+
+ROWS = 16384
+
+
+def publish(endpoint: str, messages: int, seconds: float) -> None:
+    """Child process: PUSH ``messages`` (or for ``seconds`` if > 0) samples messages, then end."""
+    rng = np.random.default_rng(1)
+    block = (np.array([8.0, 0.4, 0.0]) + rng.standard_normal((ROWS, 3))).astype("<f4")
+    ctx = zmq.Context()
+    sock = ctx.socket(zmq.PUSH)
+    sock.setsockopt(zmq.LINGER, 0)
+    sock.setsockopt(zmq.IMMEDIATE, 1)
+    sock.connect(endpoint)
+    seq = 0
+    sock.send_multipart(wire.encode_point("bench", "b1", seq, {"id": "B1"}))
+    seq += 1
+    deadline = time.monotonic() + seconds if seconds > 0 else None
+    i = 0
+    while (deadline is None and i < messages) or (
+        deadline is not None and time.monotonic() < deadline
+    ):
+        frames = wire.encode_samples(
+            "bench", "b1", seq, block, ("u", "v", "w"), rate_hz=20000.0, t0=i * ROWS / 20000.0
+        )
+        sock.send_multipart(frames, copy=False)
+        seq += 1
+        i += 1
+    sock.send_multipart(wire.encode_end("bench", "b1", seq))
+    time.sleep(1.0)  # the PULL side reads the tail before this socket goes
+    sock.close(linger=0)
+    ctx.term()
+
+
+def start_publisher(endpoint: str, messages: int, seconds: float = 0.0) -> subprocess.Popen:
+    return subprocess.Popen(
+        [
+            sys.executable,
+            __file__,
+            "--publish",
+            endpoint,
+            "--messages",
+            str(messages),
+            "--seconds",
+            str(seconds),
+        ]
+    )
+
+
+def free_endpoint() -> str:
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return f"tcp://127.0.0.1:{s.getsockname()[1]}"
+
+
+def bare_receiver(messages: int) -> float:
+    """Samples/s of a PULL that only counts (first samples message to end)."""
+    ep = free_endpoint()
+    ctx = zmq.Context()
+    sock = ctx.socket(zmq.PULL)
+    sock.setsockopt(zmq.LINGER, 0)
+    sock.bind(ep)
+    pub = start_publisher(ep, messages)
+    samples, t_first = 0, None
+    try:
+        for _ in range(messages + 2):
+            if not sock.poll(60_000):
+                break
+            frames = sock.recv_multipart(copy=False)
+            if len(frames) == 3:
+                if t_first is None:
+                    t_first = time.perf_counter()
+                samples += len(frames[2]) // 12
+            elif b'"end"' in frames[1].bytes:
+                break
+        elapsed = time.perf_counter() - t_first
+    finally:
+        sock.close(linger=0)
+        ctx.term()
+        pub.wait(timeout=60)
+    return samples / elapsed
+
+
+def full_path(
+    messages: int,
+    rec_dir: Path | None,
+    seconds: float = 0.0,
+    rss: list | None = None,
+    rcvhwm: int | None = None,
+):
+    """Samples/s of Subscriber -> Pipeline (all statistics) -> Recorder; returns (rate, samples)."""
+    from monitor.pipeline import Pipeline
+    from monitor.recorder import Recorder
+    from monitor.subscriber import Subscriber
+
+    ep = free_endpoint()
+    kw = {} if rcvhwm is None else {"rcvhwm": rcvhwm}
+    sub = Subscriber(ep, bind=True, socket="pull", **kw)
+    recorder = Recorder(rec_dir) if rec_dir is not None else None
+    pipeline = Pipeline(summary=io.StringIO(), recorder=recorder)
+    state = {"t_first": None, "t_last": None}
+    proc = psutil.Process()
+
+    def on_frames(frames, received_at):
+        if state["t_first"] is None and len(frames) == 3:
+            state["t_first"] = time.perf_counter()
+        pipeline.handle_frames(frames, received_at)
+        if pipeline.all_ended:
+            state["t_last"] = time.perf_counter()
+            sub.stop()
+
+    def on_tick():
+        if rss is not None:
+            rss.append(proc.memory_info().rss)
+
+    timer = threading.Timer(600.0, sub.stop)
+    timer.start()
+    pub = start_publisher(ep, messages, seconds)
+    try:
+        sub.run(on_frames, on_tick=on_tick, tick_interval_s=1.0)
+    finally:
+        timer.cancel()
+        sub.close()
+        pub.wait(timeout=60)
+    samples = pipeline.run_line()["samples"]
+    pipeline.close()
+    if recorder is not None:
+        recorder.close()
+    return samples / (state["t_last"] - state["t_first"]), samples
+
+
+def replay_rate(rec_dir: Path) -> tuple[float, int]:
+    from monitor.pipeline import Pipeline
+    from monitor.replay import replay_into
+
+    pipeline = Pipeline(summary=io.StringIO())
+    t = time.perf_counter()
+    replay_into(pipeline, rec_dir, None)
+    elapsed = time.perf_counter() - t
+    samples = pipeline.run_line()["samples"]
+    pipeline.close()
+    return samples / elapsed, samples
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--messages", type=int, default=300, help="messages for figures 1 and 2")
+    ap.add_argument("--long-seconds", type=float, default=20.0, help="duration of figure 3")
+    ap.add_argument("--publish", help=argparse.SUPPRESS)
+    ap.add_argument("--seconds", type=float, default=0.0, help=argparse.SUPPRESS)
+    args = ap.parse_args()
+    if args.publish:
+        publish(args.publish, args.messages, args.seconds)
+        return
+
+    # warm up: load the numba-compiled kernels once so that no figure includes compilation
+    full_path(5, None)
+    bare = bare_receiver(args.messages)
+    with tempfile.TemporaryDirectory() as tmp:
+        rec = Path(tmp) / "rec"
+        full, n_full = full_path(args.messages, rec)
+        size = sum(f.stat().st_size for f in rec.glob("frames-*"))
+        replay, n_replay = replay_rate(rec)
+    print(
+        f"messages of {ROWS} rows x 3 float32 over tcp loopback, PUSH/PULL, {args.messages} "
+        "messages"
+    )
+    print(f"  bare pyzmq receiver (count only): {bare / 1e6:8.1f} Msamples/s")
+    print(
+        f"  full pipeline + recorder:         {full / 1e6:8.2f} Msamples/s "
+        f"({n_full} samples, all arrived)"
+    )
+    print(f"  ratio bare / full:                {bare / full:8.1f}")
+    print(f"  recording size: {size / 2**20:.1f} MiB")
+    print(
+        f"replay at max speed through a fresh pipeline: {replay / 1e6:.2f} Msamples/s "
+        f"({n_replay} samples; {replay / full:.2f} x the live full path)"
+    )
+    rss: list[int] = []
+    # a small receive queue, so that the figure shows the pipeline's memory, not ZeroMQ's queue
+    rate, n_long = full_path(0, None, seconds=args.long_seconds, rss=rss, rcvhwm=64)
+    if rss:
+        print(
+            f"long max-speed stream, {args.long_seconds:g} s, {n_long / 1e6:.0f} Msamples at "
+            f"{rate / 1e6:.2f} Msamples/s: RSS start {rss[0] / 2**20:.0f} MiB, end "
+            f"{rss[-1] / 2**20:.0f} MiB, peak {max(rss) / 2**20:.0f} MiB"
+        )
+    print(
+        f"(a sample is one row of 3 components; a probe at 20 kHz delivers 20000 samples/s, "
+        f"so the full path keeps up with {full / 20000.0:.0f} such probes)"
+    )
+
+
+if __name__ == "__main__":
+    main()
