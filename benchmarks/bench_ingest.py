@@ -217,8 +217,9 @@ def main() -> None:
     if rss:
         print(
             f"long max-speed stream, {args.long_seconds:g} s, {n_long / 1e6:.0f} Msamples at "
-            f"{rate / 1e6:.2f} Msamples/s: RSS start {rss[0] / 2**20:.0f} MiB, end "
-            f"{rss[-1] / 2**20:.0f} MiB, peak {max(rss) / 2**20:.0f} MiB"
+            f"{rate / 1e6:.2f} Msamples/s: RSS after 1 s {rss[0] / 2**20:.0f} MiB, "
+            f"after {len(rss) // 2} s {rss[len(rss) // 2] / 2**20:.0f} MiB, "
+            f"end {rss[-1] / 2**20:.0f} MiB, peak {max(rss) / 2**20:.0f} MiB"
         )
     print(
         f"(a sample is one row of 3 components; a probe at 20 kHz delivers 20000 samples/s, "
