@@ -251,11 +251,16 @@ class Publisher:
             "points": [],
         }
         np_dtype = np.dtype(sc.dtype)
+        seeds = [
+            np.random.SeedSequence([self.opt.seed, i]).generate_state(2)
+            for i in range(len(sc.points))
+        ]
+        # truths first: their set-up (kernel design) then never delays a point's samples
+        truths = [point_truth(sc, p, int(s[0])) for p, s in zip(sc.points, seeds, strict=True)]
         for i, point in enumerate(sc.points):
             if self._stop:
                 break
-            seeds = np.random.SeedSequence([self.opt.seed, i]).generate_state(2)
-            gen = sc.make_generator(point, int(seeds[0]))
+            gen = sc.make_generator(point, int(seeds[i][0]))
             turb = gen.generator if isinstance(gen, RandomSampler) else gen
             max_rows = int(math.ceil(self.point_seconds * rps))
             faults = SampleFaults(
@@ -263,7 +268,7 @@ class Publisher:
                 rps,
                 max_rows,
                 np.sqrt(np.diag(turb.total_stress())),
-                int(seeds[1]),
+                int(seeds[i][1]),
             )
             wire_point = point.wire_point(sc.nu)
             first = {"session": self.session, "seq": self.seq}
@@ -319,7 +324,7 @@ class Publisher:
                 if self._converged_signal(point.id):
                     converged = True
                     break
-            record = point_truth(sc, point, int(seeds[0]))
+            record = dict(truths[i])
             record.update(
                 rows=taken,
                 fine_clock_samples=fine or None,
