@@ -12,6 +12,7 @@ import json
 import signal
 
 import numpy as np
+import pytest
 from conftest import MALFORMED_REASONS, StreamWriter, tcp_endpoint, wait_for, write_messages
 
 from monitor.pipeline import Pipeline
@@ -128,6 +129,7 @@ def _overload_run(procs, tmp_path, socket_kind):
     return messages, point, run, arrived
 
 
+@pytest.mark.slow
 def test_pub_sub_overload_reports_exactly_the_messages_lost(procs, tmp_path):
     messages, point, run, arrived = _overload_run(procs, tmp_path, "pub")
     sent = len(messages)  # seqs 0 .. sent-1, all sent after the subscription arrived
@@ -138,6 +140,7 @@ def test_pub_sub_overload_reports_exactly_the_messages_lost(procs, tmp_path):
     assert point["messages"] == len(arrived) and point["complete"] is True
 
 
+@pytest.mark.slow
 def test_push_pull_under_the_same_load_loses_nothing(procs, tmp_path):
     messages, point, run, arrived = _overload_run(procs, tmp_path, "push")
     assert arrived == list(range(len(messages)))
@@ -179,6 +182,7 @@ def test_publisher_restart_mid_run(procs, tmp_path):
     np.testing.assert_allclose(u_mean, x[:, 0].mean(), rtol=1e-12)
 
 
+@pytest.mark.slow
 def test_monitor_restart_mid_run(procs, tmp_path):
     w = StreamWriter()
     per_point = 40

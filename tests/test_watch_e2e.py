@@ -12,6 +12,7 @@ import json
 import signal
 
 import numpy as np
+import pytest
 import zmq
 from conftest import StreamWriter, tcp_endpoint, wait_for, write_messages
 
@@ -88,6 +89,7 @@ def test_existing_recording_and_address_in_use_give_documented_codes(procs, tmp_
         ctx.term()
 
 
+@pytest.mark.slow
 def test_live_run_control_signals_and_replay_give_identical_summaries(procs, tmp_path):
     targets = tmp_path / "targets.toml"
     targets.write_text(LOOSE_TARGETS)
