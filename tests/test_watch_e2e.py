@@ -263,3 +263,42 @@ def test_sigterm_finishes_points_incomplete_and_exits_zero(procs, tmp_path):
     assert point["complete"] is False and point["point"]["id"] == "T1"
     assert run["kind"] == "run" and run["points"] == 1
     assert (rec / "summary.jsonl").read_text() == (tmp_path / "s.jsonl").read_text()
+
+
+def test_dashboard_mode_serves_the_page_and_stops_cleanly_on_sigint(procs, tmp_path):
+    import urllib.request
+
+    from conftest import free_port
+
+    from monitor.watch import EXIT_ADDRESS_IN_USE as IN_USE
+
+    port = free_port()
+    ep = tcp_endpoint()
+    watch = procs.eddyvigil(
+        "watch",
+        "--bind",
+        ep,
+        "--socket",
+        "pull",
+        "--port",
+        str(port),
+        "--summary",
+        str(tmp_path / "s.jsonl"),
+        name="watch",
+    )
+
+    def page():
+        try:
+            with urllib.request.urlopen(f"http://127.0.0.1:{port}/", timeout=2) as r:
+                return r.status == 200 and b"<html" in r.read().lower()
+        except OSError:
+            return False
+
+    wait_for(page, timeout=60, what="the dashboard page")
+    # a second monitor on the same dashboard port is refused
+    other = procs.eddyvigil("watch", "--bind", tcp_endpoint(), "--port", str(port), name="other")
+    assert procs.wait(other) == IN_USE
+    assert "in use" in procs.output(other)[1]
+    assert procs.interrupt(watch, signal.SIGINT) == 0, procs.output(watch)[1][-2000:]
+    (run,) = read_lines(tmp_path / "s.jsonl")
+    assert run["kind"] == "run" and run["messages"] == 0
