@@ -366,6 +366,8 @@ def _scenario_from_dict(d: dict, source: str) -> Scenario:
     rate = _number(s, "rate_hz", 4000.0)
     if not rate > 0:
         raise ScenarioError("rate_hz must be > 0")
+    if not _number(s, "point_seconds", 30.0) > 0:
+        raise ScenarioError("point_seconds must be > 0")
     points: list[PointSpec] = []
     if "flow" in d:
         flow = dict(d["flow"])
