@@ -226,8 +226,9 @@ def test_monitor_restart_mid_run(procs, tmp_path):
     lines = read_lines(tmp_path / "s2.jsonl")
     points, run = lines[:-1], lines[-1]
     assert run["lost"] == 0  # joining mid-session is not a loss
-    complete = [p for p in points if p["complete"]]
-    assert complete and complete[-1]["point"]["id"] == "D"
+    # the last point was ended by `end`; it is D, or an implicit point if the second monitor
+    # only joined after D's point message (a heavily loaded machine)
+    assert points[-1]["complete"] is True and points[-1]["point"]["id"] in ("D", None)
     for p in points[1:]:  # every point after the one it joined in is whole
         x = truth[p["point"]["id"]]
         assert p["complete"] and p["samples"] == len(x)
