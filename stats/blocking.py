@@ -21,7 +21,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import stats as sps
 
-from stats.kernels import blocking_push, monomial_block_means
+from stats.kernels import block_sums, blocking_push
 from stats.monomials import layout
 
 __all__ = ["BlockingAccumulator", "LevelChoice", "choose_level", "MIN_BLOCKS_PER_LEVEL"]
@@ -104,7 +104,9 @@ class BlockingAccumulator:
         self.D = D
         # parts that will be merged must share a reference: pass one (e.g. a nominal mean)
         self.ref: np.ndarray | None = None if ref is None else np.asarray(ref, dtype=np.float64)
-        self.carry = np.empty((0, m))
+        # a base block begun but not finished: its row count and monomial sums about ref
+        self.carry_n = 0
+        self.carry_sums = np.zeros(D)
         L = max_levels
         self.count = np.zeros(L, dtype=np.int64)
         self.S = np.zeros((L, D))
@@ -128,7 +130,7 @@ class BlockingAccumulator:
 
     @property
     def n(self) -> int:
-        """Samples inside complete base blocks (the rest waits in ``carry``)."""
+        """Samples inside complete base blocks (the rest waits in the carry)."""
         return int(self.count[0]) * self.base
 
     def copy(self) -> BlockingAccumulator:
@@ -138,34 +140,56 @@ class BlockingAccumulator:
         return new
 
     def update(self, block: np.ndarray) -> BlockingAccumulator:
+        """Add a block (n, m) of samples in time order; returns self."""
+        self.ingest(block)
+        return self
+
+    def ingest(self, block: np.ndarray):
+        """Add a block and return its mean and central sums (for a moment accumulator).
+
+        One sweep over the samples serves both: :func:`stats.kernels.block_sums` (two-pass:
+        block mean, then products) gives the block's central co-moment sums and, shifted to
+        ``ref``, the monomial means of every base block. Base blocks are aligned on the
+        stream, not on the blocks it arrives in, so any split of the stream gives the same
+        blocking state.
+        """
         block = np.asarray(block)
-        if block.shape[0] == 0:
-            return self
+        n = block.shape[0]
+        lay = self.layout
+        mean = np.empty(self.m)
+        s2 = np.empty(len(lay.combos[2]))
+        s3 = np.empty(len(lay.combos[3]))
+        s4 = np.empty(len(lay.combos[4]))
+        if n == 0:
+            return None
         if self.ref is None:
             self.ref = block.mean(axis=0, dtype=np.float64)
         base = self.base
-        if self.carry.shape[0]:
-            need = base - self.carry.shape[0]
-            head = np.concatenate([self.carry, block[:need]])
-            block = block[need:]
-            if head.shape[0] < base:
-                self.carry = head
-                return self
-            self._push(head)
-        nfull = (block.shape[0] // base) * base
-        if nfull:
-            self._push(block[:nfull])
-        self.carry = np.array(block[nfull:], dtype=np.float64)
-        return self
-
-    def _push(self, rows: np.ndarray) -> None:
-        nb = rows.shape[0] // self.base
+        head_len = base - self.carry_n if self.carry_n else 0
+        h = min(head_len, n)
+        nb = (n - h) // base
         y = np.empty((self.D, nb))
-        lay = self.layout
-        monomial_block_means(rows, self.ref, self.base, lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l, y)
-        blocking_push(y, self.count, self.S, self.Q, self.P, self.first, self.last,
-                      self.has_last, self.pending, self.has_pending)
-        self._add_segments(y[: self.m])
+        head = np.empty(self.D)
+        tail = np.empty(self.D)
+        block_sums(block, self.ref, base, head_len, lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l,
+                   lay.r_target, lay.r_src, lay.r_comp, mean, s2, s3, s4, y, head, tail)
+        columns = []
+        if h:
+            self.carry_sums += head
+            self.carry_n += h
+            if self.carry_n == base:
+                columns.append(self.carry_sums / base)
+                self.carry_n, self.carry_sums = 0, np.zeros(self.D)
+        if columns:
+            y = np.concatenate([np.stack(columns, axis=1), y], axis=1)
+        if y.shape[1]:
+            blocking_push(y, self.count, self.S, self.Q, self.P, self.first, self.last,
+                          self.has_last, self.pending, self.has_pending)
+            self._add_segments(y[: self.m])
+        rest = n - h - nb * base
+        if rest:
+            self.carry_n, self.carry_sums = rest, tail.copy()
+        return mean, s2, s3, s4
 
     def _add_segments(self, means: np.ndarray) -> None:
         i, nb = 0, means.shape[1]
@@ -227,10 +251,19 @@ class BlockingAccumulator:
         # pending values stay counted at their own level only
         new.pending = other.pending.copy()
         new.has_pending = other.has_pending.copy()
-        new.carry = np.empty((0, self.m))
         new._merge_segments(other)
-        if self.carry.shape[0] or other.carry.shape[0]:
-            new.update(np.concatenate([self.carry, other.carry]))
+        # the two unfinished base blocks (< base samples each) become one; if that reaches a
+        # base block it is pushed as one (slightly longer, when over) base-block mean
+        total = self.carry_n + other.carry_n
+        sums = self.carry_sums + other.carry_sums
+        new.carry_n, new.carry_sums = 0, np.zeros(self.D)
+        if total >= self.base:
+            y = (sums / total)[:, None]
+            blocking_push(y, new.count, new.S, new.Q, new.P, new.first, new.last,
+                          new.has_last, new.pending, new.has_pending)
+            new._add_segments(y[: self.m])
+        elif total:
+            new.carry_n, new.carry_sums = total, sums
         return new
 
     def _merge_segments(self, other: BlockingAccumulator) -> None:

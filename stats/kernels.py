@@ -18,7 +18,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["central_sums", "monomial_block_means", "blocking_push"]
+__all__ = ["central_sums", "monomial_block_means", "block_sums", "blocking_push"]
 
 _CHUNK = 128
 _FAST = {"nnan", "ninf", "nsz", "arcp", "contract", "reassoc"}
@@ -38,10 +38,10 @@ def central_sums(x, c2, c3p, c3k, c4p, c4l, mean, s2, s3, s4):
     n4 = c4p.shape[0]
     for i in range(m):
         # sum deviations from the first sample: a 1e8 offset would otherwise cost ~6 digits
-        x0 = x[0, i] if n > 0 else 0.0
+        x0 = np.float64(x[0, i]) if n > 0 else 0.0  # float64 before subtracting float32 input
         acc = 0.0
         for t in range(n):
-            acc += x[t, i] - x0
+            acc += np.float64(x[t, i]) - x0
         mean[i] = x0 + acc / n if n > 0 else np.nan
     for q in range(n2):
         s2[q] = 0.0
@@ -140,6 +140,122 @@ def monomial_block_means(x, ref, base, c2, c3p, c3k, c4p, c4l, out):
             for t in range(base):
                 acc += p3[pp, t] * dev[k, t]
             out[o4 + q, b] = acc * inv
+
+
+@numba.njit(cache=True, fastmath=_FAST)
+def block_sums(x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, r_comp,
+               mean, s2, s3, s4, y, head, tail):
+    """Both reductions of a block in one two-pass sweep: moments *and* base-block monomials.
+
+    Pass 1: the block mean. Pass 2, chunk by chunk along base-block boundaries: the sums of
+    every monomial (degree 1-4) of ``d = x - mean``; their degree 2-4 parts add up to the
+    block's central sums (``mean``, ``s2``, ``s3``, ``s4``, as :func:`central_sums`), and each
+    chunk's sums are shifted exactly to monomial sums of ``x - ref`` (table ``r_*``). Rows
+    ``[0, head_len)`` complete a base block begun by an earlier block: their sums go to
+    ``head`` (D,); full base blocks give their means in ``y`` (D, nb); the trailing rows'
+    sums go to ``tail`` (D,). One set of products per sample serves both consumers.
+    """
+    n, m = x.shape
+    n2 = c2.shape[0]
+    n3 = c3p.shape[0]
+    n4 = c4p.shape[0]
+    D = m + n2 + n3 + n4
+    o2 = m
+    o3 = m + n2
+    o4 = m + n2 + n3
+    for i in range(m):
+        x0 = np.float64(x[0, i])  # float64 before subtracting float32 input
+        acc = 0.0
+        for t in range(n):
+            acc += np.float64(x[t, i]) - x0
+        mean[i] = x0 + acc / n
+    shift = np.empty(m)
+    for i in range(m):
+        shift[i] = mean[i] - ref[i]
+    for q in range(n2):
+        s2[q] = 0.0
+    for q in range(n3):
+        s3[q] = 0.0
+    for q in range(n4):
+        s4[q] = 0.0
+    for q in range(D):
+        head[q] = 0.0
+        tail[q] = 0.0
+    dev = np.empty((m, base))
+    p2 = np.empty((n2, base))
+    p3 = np.empty((n3, base))
+    cs = np.empty(D)
+    rs = np.empty(D)
+    h = min(head_len, n)
+    nb = (n - h) // base
+    start = 0
+    chunk = 0
+    while start < n:
+        if chunk == 0 and h > 0:
+            L = h
+        elif start + base <= n and (start - h) // base < nb:
+            L = base
+        else:
+            L = n - start
+        for t in range(L):
+            for i in range(m):
+                dev[i, t] = x[start + t, i] - mean[i]
+        for i in range(m):
+            acc = 0.0
+            for t in range(L):
+                acc += dev[i, t]
+            cs[i] = acc
+        for q in range(n2):
+            a = c2[q, 0]
+            c = c2[q, 1]
+            acc = 0.0
+            for t in range(L):
+                v = dev[a, t] * dev[c, t]
+                p2[q, t] = v
+                acc += v
+            cs[o2 + q] = acc
+            s2[q] += acc
+        for q in range(n3):
+            pp = c3p[q]
+            k = c3k[q]
+            acc = 0.0
+            for t in range(L):
+                v = p2[pp, t] * dev[k, t]
+                p3[q, t] = v
+                acc += v
+            cs[o3 + q] = acc
+            s3[q] += acc
+        for q in range(n4):
+            pp = c4p[q]
+            k = c4l[q]
+            acc = 0.0
+            for t in range(L):
+                acc += p3[pp, t] * dev[k, t]
+            cs[o4 + q] = acc
+            s4[q] += acc
+        # exact shift of this chunk's sums from the block mean to ref: x - ref = d + shift
+        for q in range(D):
+            rs[q] = 0.0
+        for r in range(r_target.shape[0]):
+            src = r_src[r]
+            v = L * 1.0 if src < 0 else cs[src]
+            for j in range(4):
+                c = r_comp[r, j]
+                if c >= 0:
+                    v *= shift[c]
+            rs[r_target[r]] += v
+        if chunk == 0 and h > 0:
+            for q in range(D):
+                head[q] = rs[q]
+        elif L == base and (start - h) // base < nb:
+            b = (start - h) // base
+            for q in range(D):
+                y[q, b] = rs[q] / base
+        else:
+            for q in range(D):
+                tail[q] = rs[q]
+        start += L
+        chunk += 1
 
 
 @numba.njit(cache=True)

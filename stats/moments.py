@@ -101,6 +101,12 @@ class MomentAccumulator:
             new._combine(other.n, other.mean, other.s2, other.s3, other.s4)
         return new
 
+    def add_block_sums(self, nb: int, mean_b, s2b, s3b, s4b) -> MomentAccumulator:
+        """Combine a block already reduced to its mean and central sums (pairwise formula)."""
+        if nb:
+            self._combine(nb, mean_b, s2b, s3b, s4b)
+        return self
+
     def _combine(self, nb: int, mean_b, s2b, s3b, s4b) -> None:
         na = self.n
         if na == 0:

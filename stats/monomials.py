@@ -39,6 +39,11 @@ class Layout:
     t_src_order: np.ndarray  # size s of the subset (0 or 2..p)
     t_src: np.ndarray  # index of the subset combo within order s
     t_comp: np.ndarray  # (T, 4) components of the complement, -1 padded
+    # raw shift table over monomials (first-order sums need not vanish): one row per
+    # (target monomial, subset of its positions); source monomial index or -1 (the count)
+    r_target: np.ndarray
+    r_src: np.ndarray
+    r_comp: np.ndarray  # (R, 4), -1 padded
 
     @property
     def n_monomials(self) -> int:
@@ -79,6 +84,15 @@ def layout(m: int) -> Layout:
                     comp = [c[i] for i in range(p) if i not in sub]
                     src = index[tuple(sorted(c[i] for i in sub))] if s >= 2 else 0
                     rows.append((p, q, s, src, comp + [-1] * (4 - len(comp))))
+    r_rows = []
+    for p in (1, 2, 3, 4):
+        for c in combos[p]:
+            target = offs[p - 1] + index[c]
+            for s in range(p + 1):
+                for sub in combinations(range(p), s):
+                    comp = [c[i] for i in range(p) if i not in sub]
+                    src = offs[s - 1] + index[tuple(sorted(c[i] for i in sub))] if s else -1
+                    r_rows.append((target, src, comp + [-1] * (4 - len(comp))))
     return Layout(
         m=m,
         combos=combos,
@@ -96,6 +110,9 @@ def layout(m: int) -> Layout:
         t_src_order=np.array([r[2] for r in rows], dtype=np.int64),
         t_src=np.array([r[3] for r in rows], dtype=np.int64),
         t_comp=np.array([r[4] for r in rows], dtype=np.int64),
+        r_target=np.array([r[0] for r in r_rows], dtype=np.int64),
+        r_src=np.array([r[1] for r in r_rows], dtype=np.int64),
+        r_comp=np.array([r[2] for r in r_rows], dtype=np.int64),
     )
 
 

@@ -103,8 +103,8 @@ class PointStatistics:
             if duration_s is None or not math.isfinite(duration_s) or duration_s < 0:
                 raise ValueError("random sampling (rate_hz None) needs the block's duration_s")
             self._duration_s += float(duration_s)
-        self.moments.update(block)
-        self.blocking.update(block)
+        # one sweep: the blocking kernel also returns the block's central sums
+        self.moments.add_block_sums(block.shape[0], *self.blocking.ingest(block))
         self._cache = None
         if self.checkpoints.due(self.n):
             ev = self._evaluate()
