@@ -143,60 +143,31 @@ def monomial_block_means(x, ref, base, c2, c3p, c3k, c4p, c4l, out):
 
 
 @numba.njit(cache=True, fastmath=_FAST)
-def block_sums(x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, r_comp,
-               mean, s2, s3, s4, y, head, tail):
-    """Both reductions of a block in one two-pass sweep: moments *and* base-block monomials.
-
-    Pass 1: the block mean. Pass 2, chunk by chunk along base-block boundaries: the sums of
-    every monomial (degree 1-4) of ``d = x - mean``; their degree 2-4 parts add up to the
-    block's central sums (``mean``, ``s2``, ``s3``, ``s4``, as :func:`central_sums`), and each
-    chunk's sums are shifted exactly to monomial sums of ``x - ref`` (table ``r_*``). Rows
-    ``[0, head_len)`` complete a base block begun by an earlier block: their sums go to
-    ``head`` (D,); full base blocks give their means in ``y`` (D, nb); the trailing rows'
-    sums go to ``tail`` (D,). One set of products per sample serves both consumers.
-    """
+def _chunk_sums(x, mean, starts, lens, c2, c3p, c3k, c4p, c4l, C, s2, s3, s4):
+    """Pass 2 of :func:`block_sums`: monomial sums of ``x - mean`` per chunk into ``C``."""
     n, m = x.shape
     n2 = c2.shape[0]
     n3 = c3p.shape[0]
     n4 = c4p.shape[0]
-    D = m + n2 + n3 + n4
-    o2 = m
-    o3 = m + n2
-    o4 = m + n2 + n3
-    for i in range(m):
-        x0 = np.float64(x[0, i])  # float64 before subtracting float32 input
-        acc = 0.0
-        for t in range(n):
-            acc += np.float64(x[t, i]) - x0
-        mean[i] = x0 + acc / n
-    shift = np.empty(m)
-    for i in range(m):
-        shift[i] = mean[i] - ref[i]
+    o2 = 1 + m
+    o3 = 1 + m + n2
+    o4 = 1 + m + n2 + n3
     for q in range(n2):
         s2[q] = 0.0
     for q in range(n3):
         s3[q] = 0.0
     for q in range(n4):
         s4[q] = 0.0
-    for q in range(D):
-        head[q] = 0.0
-        tail[q] = 0.0
-    dev = np.empty((m, base))
-    p2 = np.empty((n2, base))
-    p3 = np.empty((n3, base))
-    cs = np.empty(D)
-    rs = np.empty(D)
-    h = min(head_len, n)
-    nb = (n - h) // base
-    start = 0
-    chunk = 0
-    while start < n:
-        if chunk == 0 and h > 0:
-            L = h
-        elif start + base <= n and (start - h) // base < nb:
-            L = base
-        else:
-            L = n - start
+    width = 1
+    for c in range(lens.shape[0]):
+        width = max(width, lens[c])
+    dev = np.empty((m, width))
+    p2 = np.empty((n2, width))
+    p3 = np.empty((n3, width))
+    for c in range(lens.shape[0]):
+        start = starts[c]
+        L = lens[c]
+        C[0, c] = L
         for t in range(L):
             for i in range(m):
                 dev[i, t] = x[start + t, i] - mean[i]
@@ -204,16 +175,16 @@ def block_sums(x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, 
             acc = 0.0
             for t in range(L):
                 acc += dev[i, t]
-            cs[i] = acc
+            C[1 + i, c] = acc
         for q in range(n2):
             a = c2[q, 0]
-            c = c2[q, 1]
+            b = c2[q, 1]
             acc = 0.0
             for t in range(L):
-                v = dev[a, t] * dev[c, t]
+                v = dev[a, t] * dev[b, t]
                 p2[q, t] = v
                 acc += v
-            cs[o2 + q] = acc
+            C[o2 + q, c] = acc
             s2[q] += acc
         for q in range(n3):
             pp = c3p[q]
@@ -223,7 +194,7 @@ def block_sums(x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, 
                 v = p2[pp, t] * dev[k, t]
                 p3[q, t] = v
                 acc += v
-            cs[o3 + q] = acc
+            C[o3 + q, c] = acc
             s3[q] += acc
         for q in range(n4):
             pp = c4p[q]
@@ -231,31 +202,44 @@ def block_sums(x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, 
             acc = 0.0
             for t in range(L):
                 acc += p3[pp, t] * dev[k, t]
-            cs[o4 + q] = acc
+            C[o4 + q, c] = acc
             s4[q] += acc
-        # exact shift of this chunk's sums from the block mean to ref: x - ref = d + shift
-        for q in range(D):
-            rs[q] = 0.0
-        for r in range(r_target.shape[0]):
-            src = r_src[r]
-            v = L * 1.0 if src < 0 else cs[src]
-            for j in range(4):
-                c = r_comp[r, j]
-                if c >= 0:
-                    v *= shift[c]
-            rs[r_target[r]] += v
-        if chunk == 0 and h > 0:
-            for q in range(D):
-                head[q] = rs[q]
-        elif L == base and (start - h) // base < nb:
-            b = (start - h) // base
-            for q in range(D):
-                y[q, b] = rs[q] / base
-        else:
-            for q in range(D):
-                tail[q] = rs[q]
-        start += L
-        chunk += 1
+
+
+@numba.njit(cache=True)
+def block_sums(x, ref, starts, lens, c2, c3p, c3k, c4p, c4l, r_target, r_src, r_comp,
+               mean, s2, s3, s4, R):
+    """Both reductions of a block in one two-pass sweep: moments *and* chunk monomials.
+
+    Pass 1: the block mean. Pass 2, over the chunks ``starts``/``lens`` (cut on base-block
+    boundaries by the caller): the sums of every monomial (degree 1-4) of ``d = x - mean``.
+    Their degree 2-4 parts add up to the block's central sums (``mean``, ``s2``, ``s3``,
+    ``s4``, as :func:`central_sums`). The chunk sums are then shifted exactly to monomial sums
+    of ``x - ref`` (``R``, (D, chunks)): the shift is one linear map for the whole block,
+    built from table ``r_*`` and applied by BLAS, so one set of products per sample serves
+    both consumers.
+    """
+    n, m = x.shape
+    for i in range(m):
+        x0 = np.float64(x[0, i])  # float64 before subtracting float32 input
+        acc = 0.0
+        for t in range(n):
+            acc += np.float64(x[t, i]) - x0
+        mean[i] = x0 + acc / n
+    D = R.shape[0]
+    nc = lens.shape[0]
+    C = np.empty((D + 1, nc))
+    _chunk_sums(x, mean, starts, lens, c2, c3p, c3k, c4p, c4l, C, s2, s3, s4)
+    # x - ref = d + shift: sum prod(d + shift) = sum over subsets (lower sums) * shift powers
+    A = np.zeros((D, D + 1))
+    for r in range(r_target.shape[0]):
+        v = 1.0
+        for j in range(4):
+            c = r_comp[r, j]
+            if c >= 0:
+                v *= mean[c] - ref[c]
+        A[r_target[r], r_src[r] + 1] += v
+    R[:, :] = np.dot(A, C)
 
 
 @numba.njit(cache=True)
@@ -291,13 +275,27 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
             for t in range(n):
                 acc += cur[a, t]
             S[k, a] += acc
-        Q[k] += np.dot(cur, cur.T)
         m = ext.shape[1]
-        if m > 1:
-            lo = np.ascontiguousarray(ext[:, : m - 1])
-            hi = np.ascontiguousarray(ext[:, 1:])
-            lag = np.dot(lo, hi.T)
-            P[k] += 0.5 * (lag + lag.T)
+        if n >= 8:
+            Q[k] += np.dot(cur, cur.T)
+            if m > 1:
+                lo = np.ascontiguousarray(ext[:, : m - 1])
+                hi = np.ascontiguousarray(ext[:, 1:])
+                lag = np.dot(lo, hi.T)
+                P[k] += 0.5 * (lag + lag.T)
+        else:
+            # upper levels see a column or two per call: plain loops beat BLAS call overhead
+            for t in range(n):
+                for a in range(D):
+                    va = cur[a, t]
+                    for b in range(D):
+                        Q[k, a, b] += va * cur[b, t]
+            for t in range(m - 1):
+                for a in range(D):
+                    va = ext[a, t]
+                    wa = ext[a, t + 1]
+                    for b in range(D):
+                        P[k, a, b] += 0.5 * (va * ext[b, t + 1] + wa * ext[b, t])
         if count[k] == 0:
             first[k] = cur[:, 0]
         last[k] = cur[:, n - 1]
