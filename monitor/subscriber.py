@@ -176,6 +176,7 @@ class Subscriber:
         self._monitor.setsockopt(zmq.LINGER, 0)
         self.messages = 0
         self.disconnects = 0
+        self._last_event: tuple | None = None
 
     def stop(self) -> None:
         """Ask :meth:`run` to return (thread-safe, also from a signal handler)."""
@@ -238,6 +239,11 @@ class Subscriber:
                 addr = evt.get("endpoint", b"")
                 if isinstance(addr, bytes):
                     addr = addr.decode("utf-8", "replace")
+                # a connect retry to a publisher that is not up yet closes every ~100 ms:
+                # say it once, not once per retry
+                if (kind, addr) == self._last_event:
+                    continue
+                self._last_event = (kind, addr)
                 on_event(f"{time.strftime('%H:%M:%S')} {text} {addr or self.endpoint}")
 
     def close(self) -> None:
