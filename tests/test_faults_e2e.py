@@ -38,10 +38,18 @@ def recorded_seqs(rec_dir, stream="probe-a") -> list[int]:
     return out
 
 
-def test_malformed_corpus_interleaved_is_counted_and_leaves_statistics_untouched(procs, tmp_path):
+@pytest.mark.parametrize(
+    "per_reason",
+    [3, pytest.param(160, marks=pytest.mark.slow, id="2080-malformed")],
+)
+def test_malformed_corpus_interleaved_is_counted_and_leaves_statistics_untouched(
+    procs, tmp_path, per_reason
+):
+    # 160 per reason x 13 reasons = 2080 malformed messages through a real monitor process
     limit = 2**20
     w = StreamWriter()
-    blocks = white_blocks(21, 3 * len(MALFORMED_REASONS), n=2000)
+    n_rows = 2000 if per_reason < 10 else 256
+    blocks = white_blocks(21, per_reason * len(MALFORMED_REASONS), n=n_rows)
     messages = [w.point("M1", x=0.5)]
     for i, b in enumerate(blocks):
         messages.append(w.malformed(MALFORMED_REASONS[i % len(MALFORMED_REASONS)], b, limit))
@@ -68,8 +76,8 @@ def test_malformed_corpus_interleaved_is_counted_and_leaves_statistics_untouched
     assert missing_fields(point) == [] and missing_fields(run) == []
     assert point["complete"] is True and point["lost_messages"] == 0 and point["gaps"] == 0
     for reason in MALFORMED_REASONS:
-        assert point["rejected"][reason] == 3, reason
-        assert run["rejected"][reason] == 3, reason
+        assert point["rejected"][reason] == per_reason, reason
+        assert run["rejected"][reason] == per_reason, reason
     assert run["messages"] == len(messages)
 
     clean = io.StringIO()
