@@ -168,11 +168,22 @@ class BlockingAccumulator:
         head_len = base - self.carry_n if self.carry_n else 0
         h = min(head_len, n)
         nb = (n - h) // base
-        y = np.empty((self.D, nb))
-        head = np.empty(self.D)
-        tail = np.empty(self.D)
-        block_sums(block, self.ref, base, head_len, lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l,
-                   lay.r_target, lay.r_src, lay.r_comp, mean, s2, s3, s4, y, head, tail)
+        rest = n - h - nb * base
+        # chunks cut on the stream's base-block boundaries: head, full blocks, tail
+        lens = np.full(nb + 2, base, dtype=np.int64)
+        lens[0], lens[-1] = h, rest
+        starts = np.concatenate([[0], h + base * np.arange(nb + 1)]).astype(np.int64)
+        keep = lens > 0
+        R = np.empty((self.D, int(keep.sum())))
+        block_sums(block, self.ref, starts[keep], lens[keep], lay.c2, lay.c3p, lay.c3k, lay.c4p,
+                   lay.c4l, lay.r_target, lay.r_src, lay.r_comp, mean, s2, s3, s4, R)
+        col = 0
+        head = tail = None
+        if h:
+            head, col = R[:, 0], 1
+        y = R[:, col : col + nb] / base
+        if rest:
+            tail = R[:, -1]
         columns = []
         if h:
             self.carry_sums += head
@@ -186,7 +197,6 @@ class BlockingAccumulator:
             blocking_push(y, self.count, self.S, self.Q, self.P, self.first, self.last,
                           self.has_last, self.pending, self.has_pending)
             self._add_segments(y[: self.m])
-        rest = n - h - nb * base
         if rest:
             self.carry_n, self.carry_sums = rest, tail.copy()
         return mean, s2, s3, s4

@@ -53,7 +53,7 @@ def statistic_names(columns: tuple[str, ...] | list[str]) -> list[str]:
     >>> statistic_names(("u", "v"))[:6]
     ['U', 'V', 'uu', 'vv', 'uv', 'k']
     >>> len(statistic_names(("u", "v", "w")))
-    47
+    50
     """
     cols = tuple(columns)
     m = len(cols)
@@ -62,7 +62,7 @@ def statistic_names(columns: tuple[str, ...] | list[str]) -> list[str]:
     names.append("k")
     names += [moment_name(cols, c) for c in moment_combinations(m, 3)]
     names += [moment_name(cols, c) for c in moment_combinations(m, 4)]
-    for prefix in ("skew", "flat", "Tint", "Neff"):
+    for prefix in ("skew", "flat", "Tint", "Neff", "L"):
         names += [f"{prefix}_{c}" for c in cols]
     return names
 

@@ -132,8 +132,8 @@ class PointStatistics:
             return self._cache
         tab = self.table
         m = len(self.columns)
-        names = tab.names + tuple(f"Tint_{c}" for c in self.columns) + tuple(
-            f"Neff_{c}" for c in self.columns)
+        names = tab.names + tuple(
+            f"{prefix}_{c}" for prefix in ("Tint", "Neff", "L") for c in self.columns)
         S = len(names)
         nan = np.full(S, np.nan)
         if self.n < 2 or self.blocking.ref is None:
@@ -157,11 +157,19 @@ class PointStatistics:
         with np.errstate(invalid="ignore", divide="ignore"):
             tint = T * var_mean / (2.0 * sig2)
             neff = sig2 / var_mean
-        # relative error of a variance estimate is twice that of its square root
-        values = np.concatenate([values, tint, neff])
-        se = np.concatenate([se, 2 * rel[:m] * tint, 2 * rel[:m] * neff])
-        blocks = np.concatenate([blocks, blocks[:m], blocks[:m]])
-        rel = np.concatenate([rel, rel[:m], rel[:m]])
+        # integral length by Taylor's hypothesis, convected at the local mean speed |U|
+        speed = np.sqrt(np.sum(values[:m] ** 2))
+        length = speed * tint
+        # relative error of a variance estimate is twice that of its square root; the mean
+        # speed's own relative error adds in quadrature for the length
+        rel_t = 2 * rel[:m]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rel_speed = np.sqrt(np.sum((values[:m] * se[:m]) ** 2)) / speed**2
+        values = np.concatenate([values, tint, neff, length])
+        se = np.concatenate([se, rel_t * tint, rel_t * neff,
+                             np.sqrt(rel_t**2 + rel_speed**2) * length])
+        blocks = np.concatenate([blocks, blocks[:m], blocks[:m], blocks[:m]])
+        rel = np.concatenate([rel, rel[:m], rel[:m], rel[:m]])
         p = 0.5 * (1.0 + self.confidence)
         tq = np.array([_t_quantile(p, int(b) - 1) if b >= 2 else np.nan for b in blocks])
         hw = tq * se

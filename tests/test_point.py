@@ -15,7 +15,7 @@ def test_snapshot_lists_every_statistic_in_design_order():
     ps = PointStatistics(("u", "v", "w"), rate_hz=1000.0)
     snap = ps.snapshot()
     assert snap.names == tuple(statistic_names(("u", "v", "w")))
-    assert len(snap.names) == 3 + 6 + 1 + 10 + 15 + 3 + 3 + 3 + 3
+    assert len(snap.names) == 3 + 6 + 1 + 10 + 15 + 3 + 3 + 3 + 3 + 3
 
 
 def test_too_few_samples_give_nan_and_not_converged():
@@ -55,6 +55,9 @@ def test_worked_example_error_of_mean_and_time_scale():
         snap = PointStatistics(("u",), rate_hz=1000.0).update(x).snapshot()
         se.append(snap.estimate("U").stderr * np.sqrt(4))  # scale the 4x longer record to N = 1e4
         tint.append(snap.estimate("Tint_u").value)
+        # Taylor: L_u = |U| Tint_u (common practice; REFERENCES §7 L_u = U T_int)
+        assert snap.estimate("L_u").value == pytest.approx(
+            abs(snap.estimate("U").value) * tint[-1], rel=1e-12)
         neff.append(snap.estimate("Neff_u").value / 4)
     assert np.mean(se) == pytest.approx(0.0447176, rel=0.06)
     assert np.mean(tint) == pytest.approx(0.010, rel=0.08)
@@ -107,7 +110,7 @@ def test_merge_equals_single_pass_values():
     merged = a.merge(b).snapshot()
     assert a.n == 17_000 and b.n == 23_000
     for e, f in zip(whole.estimates, merged.estimates):
-        if e.name.startswith(("Tint_", "Neff_")):  # derived from the (approximately merged) errors
+        if e.name.startswith(("Tint_", "Neff_", "L_")):  # derived from the (merged) errors
             np.testing.assert_allclose(f.value, e.value, rtol=0.4)
             continue
         np.testing.assert_allclose(f.value, e.value, rtol=1e-9, atol=1e-12)
