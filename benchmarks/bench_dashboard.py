@@ -8,6 +8,11 @@
    snapshot is made (as the pipeline would for a sample just received); the browser reads the
    newest trace time from its own copy of the data and compares it with its clock.
 3. Server CPU (process CPU time / wall time) while one browser is attached.
+4. With a real Pipeline (all statistics) fed in-process from a thread, as ``watch`` runs it:
+   a. page lag at a paced 1 M samples/s (3 components, 16384-row messages): the browser's
+      newest trace time against the feeder's data clock;
+   b. ingest throughput at max speed with the dashboard (server + one browser) on, against
+      the same feed with no dashboard, measured in this one run.
 Prints figures only; no assertions.
 """
 
@@ -127,12 +132,128 @@ def bench_browser(seconds: float) -> None:
         th.join(10)
 
 
+def _frames(n_messages: int, rate_hz: float, rows: int = 16384):
+    from monitor import wire
+
+    rng = np.random.default_rng(3)
+    block = (np.array([8.0, 0.3, 0.0]) + rng.standard_normal((rows, 3))).astype("<f4")
+    yield wire.encode_point("live", "s1", 0, {"id": "L1", "x": 0.0, "y": 0.0, "z": 0.0})
+    for i in range(n_messages):
+        yield wire.encode_samples("live", "s1", i + 1, block, ("u", "v", "w"), rate_hz=rate_hz,
+                                  t0=i * rows / rate_hz)
+
+
+def _feed(pipe, n_messages, rate_hz, paced: bool, stop: threading.Event) -> float:
+    """Feed messages (paced to rate_hz or as fast as possible); returns samples/s achieved."""
+    start = time.monotonic()
+    rows = 16384
+    done = 0
+    for i, frames in enumerate(_frames(n_messages, rate_hz)):
+        if stop.is_set():
+            break
+        if paced and i > 0:
+            due = start + (i - 1) * rows / rate_hz
+            delay = due - time.monotonic()
+            if delay > 0:
+                time.sleep(delay)
+        pipe.handle_frames(frames, time.monotonic())
+        done = i
+    return done * rows / (time.monotonic() - start)
+
+
+def _browser():
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+
+    os.environ["SE_OFFLINE"] = "true"
+    profile = tempfile.mkdtemp()
+    opts = webdriver.ChromeOptions()
+    opts.binary_location = "/usr/bin/chromium"
+    for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+                 "--no-first-run", "--disable-background-networking",
+                 "--disable-component-update", "--disable-sync", f"--user-data-dir={profile}",
+                 "--window-size=1280,900"):
+        opts.add_argument(flag)
+    return webdriver.Chrome(service=Service("/usr/bin/chromedriver"), options=opts), profile
+
+
+def bench_live(seconds: float, max_messages: int) -> None:
+    from monitor.pipeline import Pipeline
+
+    # b (off): the same feed with no dashboard at all
+    pipe = Pipeline()
+    off = _feed(pipe, max_messages, 1e6, paced=False, stop=threading.Event())
+    pipe.close()
+
+    pipe = Pipeline()
+    box = {"pipe": pipe}  # the page reads whichever pipeline is current
+    ready, holder = threading.Event(), {}
+
+    def serve():
+        holder["s"] = DashboardServer(lambda: box["pipe"].snapshot, port=0)
+        holder["s"].start()
+        ready.set()
+        holder["s"].run()
+        holder["s"].close()
+
+    th = threading.Thread(target=serve, daemon=True)
+    th.start()
+    ready.wait(20)
+    driver, profile = _browser()
+    stop = threading.Event()
+    try:
+        driver.get(holder["s"].url)
+        for _ in range(300):
+            if driver.execute_script("return window.Bokeh !== undefined && "
+                                     "Bokeh.documents.length > 0"):
+                break
+            time.sleep(0.1)
+        # a: paced 1 M samples/s, lag = feeder's data clock - newest trace time in the page
+        n_paced = int(seconds * 1e6 / 16384) + 1
+        t_start = time.time()
+        feeder = threading.Thread(target=_feed, args=(pipe, n_paced, 1e6, True, stop))
+        feeder.start()
+        time.sleep(3.0)
+        lags = []
+        while feeder.is_alive() and len(lags) < 5 * seconds:
+            t_page = driver.execute_script(
+                "const s = Bokeh.documents[0].get_model_by_name('trace_source');"
+                "const t = s.data.t; return t.length ? t[t.length - 1] : null;")
+            if t_page is not None:
+                lags.append((time.time() - t_start) - t_page)
+            time.sleep(0.2)
+        stop.set()
+        feeder.join(30)
+        pipe.close()
+        lags = np.array(lags) * 1e3
+        if lags.size:
+            print(f"live page lag at 1 M samples/s (sample due -> in the browser's data): "
+                  f"median {np.median(lags):.0f} ms, p95 {np.percentile(lags, 95):.0f} ms, "
+                  f"max {lags.max():.0f} ms over {lags.size} reads")
+        # b (on): max speed with the server and the browser attached
+        pipe2 = Pipeline()
+        box["pipe"] = pipe2
+        on = _feed(pipe2, max_messages, 1e6, paced=False, stop=threading.Event())
+        pipe2.close()
+        print(f"ingest at max speed, in process: dashboard off {off / 1e6:.1f} M samples/s, "
+              f"on (server + 1 browser) {on / 1e6:.1f} M samples/s, ratio on/off {on / off:.2f}")
+    finally:
+        stop.set()
+        driver.quit()
+        shutil.rmtree(profile, ignore_errors=True)
+        holder["s"].stop()
+        th.join(10)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description="dashboard benchmark")
     ap.add_argument("--seconds", type=float, default=10.0)
+    ap.add_argument("--max-messages", type=int, default=400,
+                    help="messages of 16384 rows for the on/off ingest comparison")
     args = ap.parse_args()
     bench_tick()
     bench_browser(args.seconds)
+    bench_live(args.seconds, args.max_messages)
 
 
 if __name__ == "__main__":
