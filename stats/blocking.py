@@ -169,21 +169,11 @@ class BlockingAccumulator:
         h = min(head_len, n)
         nb = (n - h) // base
         rest = n - h - nb * base
-        # chunks cut on the stream's base-block boundaries: head, full blocks, tail
-        lens = np.full(nb + 2, base, dtype=np.int64)
-        lens[0], lens[-1] = h, rest
-        starts = np.concatenate([[0], h + base * np.arange(nb + 1)]).astype(np.int64)
-        keep = lens > 0
-        R = np.empty((self.D, int(keep.sum())))
-        block_sums(block, self.ref, starts[keep], lens[keep], lay.c2, lay.c3p, lay.c3k, lay.c4p,
-                   lay.c4l, lay.r_target, lay.r_src, lay.r_comp, mean, s2, s3, s4, R)
-        col = 0
-        head = tail = None
-        if h:
-            head, col = R[:, 0], 1
-        y = R[:, col : col + nb] / base
-        if rest:
-            tail = R[:, -1]
+        R = np.empty((self.D, nb + 2))
+        block_sums(block, self.ref, base, head_len, lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l,
+                   lay.r_target, lay.r_src, lay.r_comp, mean, s2, s3, s4, R)
+        head, tail = R[:, 0], R[:, nb + 1]
+        y = R[:, 1 : nb + 1] / base
         columns = []
         if h:
             self.carry_sums += head

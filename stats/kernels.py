@@ -207,15 +207,17 @@ def _chunk_sums(x, mean, starts, lens, c2, c3p, c3k, c4p, c4l, C, s2, s3, s4):
 
 
 @numba.njit(cache=True)
-def block_sums(x, ref, starts, lens, c2, c3p, c3k, c4p, c4l, r_target, r_src, r_comp,
+def block_sums(x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, r_comp,
                mean, s2, s3, s4, R):
     """Both reductions of a block in one two-pass sweep: moments *and* chunk monomials.
 
-    Pass 1: the block mean. Pass 2, over the chunks ``starts``/``lens`` (cut on base-block
-    boundaries by the caller): the sums of every monomial (degree 1-4) of ``d = x - mean``.
+    Pass 1: the block mean. Pass 2, over chunks cut on the stream's base-block boundaries
+    (``head_len`` rows finish a base block begun earlier, then full blocks of ``base`` rows,
+    then the tail): the sums of every monomial (degree 1-4) of ``d = x - mean``.
     Their degree 2-4 parts add up to the block's central sums (``mean``, ``s2``, ``s3``,
     ``s4``, as :func:`central_sums`). The chunk sums are then shifted exactly to monomial sums
-    of ``x - ref`` (``R``, (D, chunks)): the shift is one linear map for the whole block,
+    of ``x - ref`` (``R``, (D, nb + 2): column 0 the head, 1..nb the full blocks, nb + 1 the
+    tail; absent chunks are zero): the shift is one linear map for the whole block,
     built from table ``r_*`` and applied by BLAS, so one set of products per sample serves
     both consumers.
     """
@@ -227,7 +229,15 @@ def block_sums(x, ref, starts, lens, c2, c3p, c3k, c4p, c4l, r_target, r_src, r_
             acc += np.float64(x[t, i]) - x0
         mean[i] = x0 + acc / n
     D = R.shape[0]
-    nc = lens.shape[0]
+    h = min(head_len, n)
+    nb = (n - h) // base
+    nc = nb + 2
+    starts = np.empty(nc, dtype=np.int64)
+    lens = np.empty(nc, dtype=np.int64)
+    starts[0], lens[0] = 0, h
+    for b in range(nb):
+        starts[1 + b], lens[1 + b] = h + b * base, base
+    starts[nc - 1], lens[nc - 1] = h + nb * base, n - h - nb * base
     C = np.empty((D + 1, nc))
     _chunk_sums(x, mean, starts, lens, c2, c3p, c3k, c4p, c4l, C, s2, s3, s4)
     # x - ref = d + shift: sum prod(d + shift) = sum over subsets (lower sums) * shift powers

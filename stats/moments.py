@@ -13,7 +13,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from stats.kernels import central_sums
-from stats.monomials import Layout, layout, shift_sums
+from stats.monomials import Layout, layout, merge_sums, shift_sums
 
 __all__ = ["MomentAccumulator", "Moments"]
 
@@ -113,15 +113,10 @@ class MomentAccumulator:
             self.n, self.mean = nb, np.array(mean_b, dtype=np.float64)
             self.s2, self.s3, self.s4 = s2b.copy(), s3b.copy(), s4b.copy()
             return
-        n = na + nb
-        delta = mean_b - self.mean
-        lay = self.layout
-        # each side's central sums re-centred on the combined mean, then added
-        a2, a3, a4 = shift_sums(lay, na, self.s2, self.s3, self.s4, -delta * (nb / n))
-        b2, b3, b4 = shift_sums(lay, nb, s2b, s3b, s4b, delta * (na / n))
-        self.mean = self.mean + delta * (nb / n)
-        self.s2, self.s3, self.s4 = a2 + b2, a3 + b3, a4 + b4
-        self.n = n
+        mean, s2, s3, s4 = merge_sums(self.layout, na, self.mean, self.s2, self.s3, self.s4,
+                                      nb, np.asarray(mean_b, dtype=np.float64), s2b, s3b, s4b)
+        self.mean, self.s2, self.s3, self.s4 = mean, s2, s3, s4
+        self.n = na + nb
 
     def raw_about(self, ref: np.ndarray) -> np.ndarray:
         """Means of every monomial of ``x - ref`` (degree 1-4, monomial layout)."""
