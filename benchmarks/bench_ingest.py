@@ -148,7 +148,7 @@ def full_path(
         if rss is not None:
             rss.append(proc.memory_info().rss)
 
-    timer = threading.Timer(600.0, sub.stop)
+    timer = threading.Timer(max(600.0, seconds + 120.0), sub.stop)  # a safety net only
     timer.start()
     pub = start_publisher(ep, messages, seconds)
     try:
@@ -156,7 +156,11 @@ def full_path(
     finally:
         timer.cancel()
         sub.close()
-        pub.wait(timeout=60)
+        try:
+            pub.wait(timeout=60)
+        except subprocess.TimeoutExpired:
+            pub.kill()
+            pub.wait()
     samples = pipeline.run_line()["samples"]
     pipeline.close()
     if recorder is not None:
