@@ -75,15 +75,12 @@ def bench_tick(n: int = 200) -> None:
           f"p95 {np.percentile(ms, 95):.2f} ms over {len(ms)} ticks")
 
 
-def bench_browser(seconds: float) -> None:
-    from selenium import webdriver
-    from selenium.webdriver.chrome.service import Service
-
-    src = StampedRun()
+def _start_server(get_snapshot):
+    """A dashboard server on a free port in its own thread (its own event loop)."""
     ready, holder = threading.Event(), {}
 
     def serve():
-        holder["s"] = DashboardServer(src.snapshot, port=0)
+        holder["s"] = DashboardServer(get_snapshot, port=0)
         holder["s"].start()
         ready.set()
         holder["s"].run()
@@ -92,16 +89,13 @@ def bench_browser(seconds: float) -> None:
     th = threading.Thread(target=serve, daemon=True)
     th.start()
     ready.wait(20)
-    os.environ["SE_OFFLINE"] = "true"
-    profile = tempfile.mkdtemp()
-    opts = webdriver.ChromeOptions()
-    opts.binary_location = "/usr/bin/chromium"
-    for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
-                 "--no-first-run", "--disable-background-networking",
-                 "--disable-component-update", "--disable-sync", f"--user-data-dir={profile}",
-                 "--window-size=1280,900"):
-        opts.add_argument(flag)
-    driver = webdriver.Chrome(service=Service("/usr/bin/chromedriver"), options=opts)
+    return holder, th
+
+
+def bench_browser(seconds: float) -> None:
+    src = StampedRun()
+    holder, th = _start_server(src.snapshot)
+    driver, profile = _browser()
     try:
         driver.get(holder["s"].url)
         for _ in range(300):
@@ -187,18 +181,7 @@ def bench_live(seconds: float, max_messages: int) -> None:
 
     pipe = Pipeline()
     box = {"pipe": pipe}  # the page reads whichever pipeline is current
-    ready, holder = threading.Event(), {}
-
-    def serve():
-        holder["s"] = DashboardServer(lambda: box["pipe"].snapshot, port=0)
-        holder["s"].start()
-        ready.set()
-        holder["s"].run()
-        holder["s"].close()
-
-    th = threading.Thread(target=serve, daemon=True)
-    th.start()
-    ready.wait(20)
+    holder, th = _start_server(lambda: box["pipe"].snapshot)
     driver, profile = _browser()
     stop = threading.Event()
     try:

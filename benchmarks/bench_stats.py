@@ -77,8 +77,9 @@ def start_cost(cache_dir):
     )
     env = dict(os.environ, NUMBA_CACHE_DIR=cache_dir)
     root = os.path.join(os.path.dirname(__file__), "..")
-    out = subprocess.run([sys.executable, "-c", code], env=env, cwd=root, capture_output=True,
-                         text=True, check=True)
+    out = subprocess.run(
+        [sys.executable, "-c", code], env=env, cwd=root, capture_output=True, text=True, check=True
+    )
     return float(out.stdout.strip())
 
 
@@ -128,24 +129,33 @@ def main():
     t_hist = timed(run_history, hb)
     rate = n / t_ours
     print(f"samples: {n:,} in blocks of {ROWS} rows x 3 components, float32; one core")
-    print(f"PointStatistics.update (moments + blocking errors + checkpoints): {rate / 1e6:8.1f} M samples/s")
+    print(
+        "PointStatistics.update (moments + blocking errors + checkpoints): "
+        f"{rate / 1e6:8.1f} M samples/s"
+    )
     print(f"  MomentAccumulator alone:                   {n / t_mom / 1e6:8.1f} M samples/s")
     print(f"  BlockingAccumulator alone:                 {n / t_blk / 1e6:8.1f} M samples/s")
     print(f"numpy per-block moments (same combine):      {n / t_np / 1e6:8.1f} M samples/s")
     hist_rate = len(hb) * ROWS / t_hist
     print(f"numpy recompute from history ({len(hb)} blocks):   {hist_rate / 1e6:8.1f} M samples/s")
-    print(f"ratio ours / numpy per-block moments: {t_np / t_ours:6.1f} x "
-          f"(ours also computes all blocking errors)")
+    print(
+        f"ratio ours / numpy per-block moments: {t_np / t_ours:6.1f} x "
+        f"(ours also computes all blocking errors)"
+    )
     print(f"ratio ours / recompute-from-history ({len(hb)} blocks only): {rate / hist_rate:6.1f} x")
     with tempfile.TemporaryDirectory() as cache:
         cold = start_cost(cache)
         warm = start_cost(cache)
-    print(f"start: first update+snapshot in a fresh process {cold:.2f} s cold (compiling), "
-          f"{warm:.2f} s warm (numba cache)")
+    print(
+        f"start: first update+snapshot in a fresh process {cold:.2f} s cold (compiling), "
+        f"{warm:.2f} s warm (numba cache)"
+    )
     short = PointStatistics(("u", "v", "w"), 20000.0).update(blocks[0])
     long_ = ours()
-    print(f"accumulator state: {state_bytes(short) / 1024:.0f} KiB after {ROWS:,} samples, "
-          f"{state_bytes(long_) / 1024:.0f} KiB after {n:,} samples")
+    print(
+        f"accumulator state: {state_bytes(short) / 1024:.0f} KiB after {ROWS:,} samples, "
+        f"{state_bytes(long_) / 1024:.0f} KiB after {n:,} samples"
+    )
 
 
 if __name__ == "__main__":

@@ -88,7 +88,9 @@ def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) ->
     # for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
     # the standard error's relative error is half of its square root.
     rel = np.where(found, 0.5 * np.sqrt(5.0 / np.maximum(nj - 1, 1)), np.nan)
-    return LevelChoice(var, level, blocks, np.where(level >= 0, base * 2 ** np.maximum(level, 0), 0), rel)
+    return LevelChoice(
+        var, level, blocks, np.where(level >= 0, base * 2 ** np.maximum(level, 0), 0), rel
+    )
 
 
 class BlockingAccumulator:
@@ -170,8 +172,25 @@ class BlockingAccumulator:
         nb = (n - h) // base
         rest = n - h - nb * base
         R = np.empty((self.D, nb + 2))
-        block_sums(block, self.ref, base, head_len, lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l,
-                   lay.r_target, lay.r_src, lay.r_comp, mean, s2, s3, s4, R)
+        block_sums(
+            block,
+            self.ref,
+            base,
+            head_len,
+            lay.c2,
+            lay.c3p,
+            lay.c3k,
+            lay.c4p,
+            lay.c4l,
+            lay.r_target,
+            lay.r_src,
+            lay.r_comp,
+            mean,
+            s2,
+            s3,
+            s4,
+            R,
+        )
         head, tail = R[:, 0], R[:, nb + 1]
         y = R[:, 1 : nb + 1] / base
         columns = []
@@ -184,8 +203,18 @@ class BlockingAccumulator:
         if columns:
             y = np.concatenate([np.stack(columns, axis=1), y], axis=1)
         if y.shape[1]:
-            blocking_push(y, self.count, self.S, self.Q, self.P, self.first, self.last,
-                          self.has_last, self.pending, self.has_pending)
+            blocking_push(
+                y,
+                self.count,
+                self.S,
+                self.Q,
+                self.P,
+                self.first,
+                self.last,
+                self.has_last,
+                self.pending,
+                self.has_pending,
+            )
             self._add_segments(y[: self.m])
         if rest:
             self.carry_n, self.carry_sums = rest, tail.copy()
@@ -235,7 +264,9 @@ class BlockingAccumulator:
         if self.ref is None:
             return other.copy()
         if not np.array_equal(self.ref, other.ref):
-            raise ValueError("blocking states merge only with a common reference (use empty(ref=...))")
+            raise ValueError(
+                "blocking states merge only with a common reference (use empty(ref=...))"
+            )
         new = self.copy()
         both = (self.count > 0) & (other.count > 0)
         link = np.einsum("ka,kb->kab", self.last, other.first)
@@ -259,8 +290,18 @@ class BlockingAccumulator:
         new.carry_n, new.carry_sums = 0, np.zeros(self.D)
         if total >= self.base:
             y = (sums / total)[:, None]
-            blocking_push(y, new.count, new.S, new.Q, new.P, new.first, new.last,
-                          new.has_last, new.pending, new.has_pending)
+            blocking_push(
+                y,
+                new.count,
+                new.S,
+                new.Q,
+                new.P,
+                new.first,
+                new.last,
+                new.has_last,
+                new.pending,
+                new.has_pending,
+            )
             new._add_segments(y[: self.m])
         elif total:
             new.carry_n, new.carry_sums = total, sums
@@ -276,10 +317,12 @@ class BlockingAccumulator:
             return sums
 
         target = max(self.seg_len, other.seg_len)
-        both = np.concatenate([
-            coarsened(self.seg_sums, self.seg_full, self.seg_len, target),
-            coarsened(other.seg_sums, other.seg_full, other.seg_len, target),
-        ])
+        both = np.concatenate(
+            [
+                coarsened(self.seg_sums, self.seg_full, self.seg_len, target),
+                coarsened(other.seg_sums, other.seg_full, other.seg_len, target),
+            ]
+        )
         while both.shape[0] >= SEGMENTS:
             half = both.shape[0] // 2
             both = both[0 : 2 * half : 2] + both[1 : 2 * half : 2]

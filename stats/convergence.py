@@ -39,8 +39,9 @@ STREAK = 3
 ETA_MIN_BLOCKS = 16
 
 
-def passes(half_width: float, target: float | None, blocks: int, se_rel_err: float,
-           stationary: bool) -> bool:
+def passes(
+    half_width: float, target: float | None, blocks: int, se_rel_err: float, stationary: bool
+) -> bool:
     """True when every stopping condition holds at this moment."""
     if target is None or not math.isfinite(target) or not math.isfinite(half_width):
         return False
@@ -52,7 +53,9 @@ def passes(half_width: float, target: float | None, blocks: int, se_rel_err: flo
     )
 
 
-def eta_seconds(half_width: float, target: float | None, blocks: int, duration_s: float) -> float | None:
+def eta_seconds(
+    half_width: float, target: float | None, blocks: int, duration_s: float
+) -> float | None:
     """Predicted acquisition time still needed, from Var ~ 1/T and the block-count floor.
 
     None while it cannot be predicted (no target, unknown error, too few blocks).

@@ -31,7 +31,7 @@ _STEP = 1e-100  # complex step (tests): no subtractive cancellation, so it can b
 
 
 class StatisticTable:
-    """Names of the moment-based statistics of ``columns`` and their evaluation from monomial means."""
+    """Moment-based statistics of ``columns``: names, and evaluation from monomial means."""
 
     def __init__(self, columns: tuple[str, ...], lay: Layout):
         self.columns = tuple(columns)
@@ -121,7 +121,9 @@ class StatisticTable:
             np.add.at(J, (owner[real], comp[real]), -raw_ext[self._mono[real]] * others[real])
         return J[:, :D]
 
-    def values_and_gradient(self, raw: np.ndarray, ref: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def values_and_gradient(
+        self, raw: np.ndarray, ref: np.ndarray
+    ) -> tuple[np.ndarray, np.ndarray]:
         """Values (S,) and gradient (S, D) with respect to the monomial means."""
         raw = np.asarray(raw, dtype=np.float64)
         m, lay, pos = self.m, self.layout, self._combo_pos

@@ -18,128 +18,43 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["central_sums", "monomial_block_means", "block_sums", "blocking_push"]
+__all__ = ["central_sums", "block_sums", "blocking_push"]
 
 _CHUNK = 128
 _FAST = {"nnan", "ninf", "nsz", "arcp", "contract", "reassoc"}
 
 
-@numba.njit(cache=True, fastmath=_FAST)
+@numba.njit(cache=True)
 def central_sums(x, c2, c3p, c3k, c4p, c4l, mean, s2, s3, s4):
-    """Mean and central co-moment *sums* of a block ``x`` (n, m).
+    """Mean and central co-moment *sums* of a block ``x`` (n, m), in two passes.
 
     ``c2`` (n2, 2) lists index pairs; an order-3 combo ``q`` is order-2 combo ``c3p[q]`` times
     component ``c3k[q]``, an order-4 combo is order-3 combo ``c4p[q]`` times ``c4l[q]``.
     Fills ``mean`` (m,), ``s2`` (n2,), ``s3`` (n3,), ``s4`` (n4,) (sums, not averages).
     """
     n, m = x.shape
-    n2 = c2.shape[0]
-    n3 = c3p.shape[0]
-    n4 = c4p.shape[0]
+    _block_mean(x, mean)
+    nc = (n + _CHUNK - 1) // _CHUNK
+    starts = np.arange(nc) * _CHUNK
+    lens = np.minimum(n - starts, _CHUNK)
+    C = np.empty((1 + m + c2.shape[0] + c3p.shape[0] + c4p.shape[0], nc))
+    _chunk_sums(x, mean, starts, lens, c2, c3p, c3k, c4p, c4l, C, s2, s3, s4)
+
+
+@numba.njit(cache=True)
+def _block_mean(x, mean):
+    """Pass 1: the mean of each column, summed as deviations from the first row (a 1e8
+    offset would otherwise cost about six digits); NaN for an empty block."""
+    n, m = x.shape
     for i in range(m):
-        # sum deviations from the first sample: a 1e8 offset would otherwise cost ~6 digits
-        x0 = np.float64(x[0, i]) if n > 0 else 0.0  # float64 before subtracting float32 input
+        if n == 0:
+            mean[i] = np.nan
+            continue
+        x0 = np.float64(x[0, i])  # float64 before subtracting float32 input
         acc = 0.0
         for t in range(n):
             acc += np.float64(x[t, i]) - x0
-        mean[i] = x0 + acc / n if n > 0 else np.nan
-    for q in range(n2):
-        s2[q] = 0.0
-    for q in range(n3):
-        s3[q] = 0.0
-    for q in range(n4):
-        s4[q] = 0.0
-    dev = np.empty((m, _CHUNK))
-    p2 = np.empty((n2, _CHUNK))
-    p3 = np.empty((n3, _CHUNK))
-    for start in range(0, n, _CHUNK):
-        L = min(_CHUNK, n - start)
-        for t in range(L):
-            for i in range(m):
-                dev[i, t] = x[start + t, i] - mean[i]
-        for q in range(n2):
-            a = c2[q, 0]
-            b = c2[q, 1]
-            acc = 0.0
-            for t in range(L):
-                v = dev[a, t] * dev[b, t]
-                p2[q, t] = v
-                acc += v
-            s2[q] += acc
-        for q in range(n3):
-            pp = c3p[q]
-            k = c3k[q]
-            acc = 0.0
-            for t in range(L):
-                v = p2[pp, t] * dev[k, t]
-                p3[q, t] = v
-                acc += v
-            s3[q] += acc
-        for q in range(n4):
-            pp = c4p[q]
-            k = c4l[q]
-            acc = 0.0
-            for t in range(L):
-                acc += p3[pp, t] * dev[k, t]
-            s4[q] += acc
-
-
-@numba.njit(cache=True, fastmath=_FAST)
-def monomial_block_means(x, ref, base, c2, c3p, c3k, c4p, c4l, out):
-    """Means over consecutive base blocks of ``base`` rows of every monomial of ``x - ref``.
-
-    Monomials are laid out degree by degree (degree one first, then the combos of
-    ``central_sums``). ``x`` has ``nb * base`` rows; ``out`` is (D, nb), component-major so
-    that the blocking kernel reads contiguous rows. Each degree has its own scratch array so
-    LLVM can see that reads and writes never alias, and vectorises the loops.
-    """
-    n, m = x.shape
-    n2 = c2.shape[0]
-    n3 = c3p.shape[0]
-    n4 = c4p.shape[0]
-    nb = n // base
-    dev = np.empty((m, base))
-    p2 = np.empty((n2, base))
-    p3 = np.empty((n3, base))
-    inv = 1.0 / base
-    o2 = m
-    o3 = m + n2
-    o4 = m + n2 + n3
-    for b in range(nb):
-        start = b * base
-        for t in range(base):
-            for i in range(m):
-                dev[i, t] = x[start + t, i] - ref[i]
-        for i in range(m):
-            acc = 0.0
-            for t in range(base):
-                acc += dev[i, t]
-            out[i, b] = acc * inv
-        for q in range(n2):
-            a = c2[q, 0]
-            c = c2[q, 1]
-            acc = 0.0
-            for t in range(base):
-                v = dev[a, t] * dev[c, t]
-                p2[q, t] = v
-                acc += v
-            out[o2 + q, b] = acc * inv
-        for q in range(n3):
-            pp = c3p[q]
-            k = c3k[q]
-            acc = 0.0
-            for t in range(base):
-                v = p2[pp, t] * dev[k, t]
-                p3[q, t] = v
-                acc += v
-            out[o3 + q, b] = acc * inv
-        for q in range(n4):
-            pp = c4p[q]
-            k = c4l[q]
-            acc = 0.0
-            for t in range(base):
-                acc += p3[pp, t] * dev[k, t]
-            out[o4 + q, b] = acc * inv
+        mean[i] = x0 + acc / n
 
 
 @numba.njit(cache=True, fastmath=_FAST)
@@ -207,8 +122,9 @@ def _chunk_sums(x, mean, starts, lens, c2, c3p, c3k, c4p, c4l, C, s2, s3, s4):
 
 
 @numba.njit(cache=True)
-def block_sums(x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, r_comp,
-               mean, s2, s3, s4, R):
+def block_sums(
+    x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, r_comp, mean, s2, s3, s4, R
+):
     """Both reductions of a block in one two-pass sweep: moments *and* chunk monomials.
 
     Pass 1: the block mean. Pass 2, over chunks cut on the stream's base-block boundaries
@@ -222,12 +138,7 @@ def block_sums(x, ref, base, head_len, c2, c3p, c3k, c4p, c4l, r_target, r_src, 
     both consumers.
     """
     n, m = x.shape
-    for i in range(m):
-        x0 = np.float64(x[0, i])  # float64 before subtracting float32 input
-        acc = 0.0
-        for t in range(n):
-            acc += np.float64(x[t, i]) - x0
-        mean[i] = x0 + acc / n
+    _block_mean(x, mean)
     D = R.shape[0]
     h = min(head_len, n)
     nb = (n - h) // base

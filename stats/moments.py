@@ -26,7 +26,7 @@ def _frozen(a: np.ndarray) -> np.ndarray:
 
 @dataclass(frozen=True)
 class Moments:
-    """Population moments at one moment: ``mean`` (m,), ``m2``/``m3``/``m4`` per combo (NaN if n == 0)."""
+    """Population moments: ``mean`` (m,), ``m2``/``m3``/``m4`` per combo (NaN if n == 0)."""
 
     n: int
     mean: np.ndarray
@@ -113,8 +113,19 @@ class MomentAccumulator:
             self.n, self.mean = nb, np.array(mean_b, dtype=np.float64)
             self.s2, self.s3, self.s4 = s2b.copy(), s3b.copy(), s4b.copy()
             return
-        mean, s2, s3, s4 = merge_sums(self.layout, na, self.mean, self.s2, self.s3, self.s4,
-                                      nb, np.asarray(mean_b, dtype=np.float64), s2b, s3b, s4b)
+        mean, s2, s3, s4 = merge_sums(
+            self.layout,
+            na,
+            self.mean,
+            self.s2,
+            self.s3,
+            self.s4,
+            nb,
+            np.asarray(mean_b, dtype=np.float64),
+            s2b,
+            s3b,
+            s4b,
+        )
         self.mean, self.s2, self.s3, self.s4 = mean, s2, s3, s4
         self.n = na + nb
 
@@ -129,5 +140,11 @@ class MomentAccumulator:
         n = self.n
         div = n if n > 0 else np.nan
         mean = self.mean if n > 0 else np.full(self.m, np.nan)
-        return Moments(n, _frozen(mean), _frozen(self.s2 / div), _frozen(self.s3 / div),
-                       _frozen(self.s4 / div), self.layout)
+        return Moments(
+            n,
+            _frozen(mean),
+            _frozen(self.s2 / div),
+            _frozen(self.s3 / div),
+            _frozen(self.s4 / div),
+            self.layout,
+        )

@@ -24,7 +24,7 @@ class Layout:
     m: int
     combos: tuple[tuple[tuple[int, ...], ...], ...]  # combos[p] for p = 0..4 (0: (), 1: (i,))
     index: dict  # combo tuple -> index within its order
-    # kernel tables (see kernels.central_sums / monomial_block_means)
+    # kernel tables (see kernels.central_sums / block_sums)
     c2: np.ndarray
     c3p: np.ndarray
     c3k: np.ndarray
@@ -117,8 +117,22 @@ def layout(m: int) -> Layout:
 
 
 @numba.njit(cache=True)
-def _shift_kernel(n, s2, s3, s4, shift, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4,
-                  accumulate=False):
+def _shift_kernel(
+    n,
+    s2,
+    s3,
+    s4,
+    shift,
+    t_order,
+    t_target,
+    t_src_order,
+    t_src,
+    t_comp,
+    o2,
+    o3,
+    o4,
+    accumulate=False,
+):
     if not accumulate:
         for q in range(o2.shape[0]):
             o2[q] = 0.0
@@ -150,8 +164,27 @@ def _shift_kernel(n, s2, s3, s4, shift, t_order, t_target, t_src_order, t_src, t
 
 
 @numba.njit(cache=True)
-def _merge_kernel(na, mean_a, a2, a3, a4, nb, mean_b, b2, b3, b4,
-                  t_order, t_target, t_src_order, t_src, t_comp, mean, o2, o3, o4):
+def _merge_kernel(
+    na,
+    mean_a,
+    a2,
+    a3,
+    a4,
+    nb,
+    mean_b,
+    b2,
+    b3,
+    b4,
+    t_order,
+    t_target,
+    t_src_order,
+    t_src,
+    t_comp,
+    mean,
+    o2,
+    o3,
+    o4,
+):
     n = na + nb
     m = mean_a.shape[0]
     sa = np.empty(m)
@@ -162,8 +195,9 @@ def _merge_kernel(na, mean_a, a2, a3, a4, nb, mean_b, b2, b3, b4,
         sb[i] = delta * (na / n)
         mean[i] = mean_a[i] + delta * (nb / n)
     _shift_kernel(na, a2, a3, a4, sa, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4)
-    _shift_kernel(nb, b2, b3, b4, sb, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4,
-                  True)
+    _shift_kernel(
+        nb, b2, b3, b4, sb, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4, True
+    )
 
 
 def merge_sums(lay: Layout, na, mean_a, a2, a3, a4, nb, mean_b, b2, b3, b4):
@@ -171,9 +205,27 @@ def merge_sums(lay: Layout, na, mean_a, a2, a3, a4, nb, mean_b, b2, b3, b4):
     combined mean, then added. Returns (mean, s2, s3, s4) as new arrays."""
     mean = np.empty_like(mean_a)
     o2, o3, o4 = np.empty_like(a2), np.empty_like(a3), np.empty_like(a4)
-    _merge_kernel(float(na), mean_a, a2, a3, a4, float(nb), mean_b, b2, b3, b4,
-                  lay.t_order, lay.t_target, lay.t_src_order, lay.t_src, lay.t_comp,
-                  mean, o2, o3, o4)
+    _merge_kernel(
+        float(na),
+        mean_a,
+        a2,
+        a3,
+        a4,
+        float(nb),
+        mean_b,
+        b2,
+        b3,
+        b4,
+        lay.t_order,
+        lay.t_target,
+        lay.t_src_order,
+        lay.t_src,
+        lay.t_comp,
+        mean,
+        o2,
+        o3,
+        o4,
+    )
     return mean, o2, o3, o4
 
 
@@ -187,7 +239,18 @@ def shift_sums(lay: Layout, n: float, s2, s3, s4, shift):
     o3 = np.empty_like(s3)
     o4 = np.empty_like(s4)
     _shift_kernel(
-        float(n), s2, s3, s4, np.asarray(shift, dtype=np.float64),
-        lay.t_order, lay.t_target, lay.t_src_order, lay.t_src, lay.t_comp, o2, o3, o4,
+        float(n),
+        s2,
+        s3,
+        s4,
+        np.asarray(shift, dtype=np.float64),
+        lay.t_order,
+        lay.t_target,
+        lay.t_src_order,
+        lay.t_src,
+        lay.t_comp,
+        o2,
+        o3,
+        o4,
     )
     return o2, o3, o4

@@ -61,8 +61,15 @@ class PointStatistics:
         Confidence of reported intervals (default: the targets' confidence).
     """
 
-    def __init__(self, columns, rate_hz: float | None, targets: Targets | None = None,
-                 confidence: float | None = None, base: int = DEFAULT_BASE_BLOCK, ref=None):
+    def __init__(
+        self,
+        columns,
+        rate_hz: float | None,
+        targets: Targets | None = None,
+        confidence: float | None = None,
+        base: int = DEFAULT_BASE_BLOCK,
+        ref=None,
+    ):
         self.columns = tuple(columns)
         m = len(self.columns)
         self.rate_hz = None if rate_hz is None else float(rate_hz)
@@ -94,7 +101,9 @@ class PointStatistics:
         """Add a block (n, m) of velocity samples in time order; returns self."""
         block = np.asarray(block)
         if block.ndim != 2 or block.shape[1] != len(self.columns):
-            raise ValueError(f"expected a block of shape (n, {len(self.columns)}), got {block.shape}")
+            raise ValueError(
+                f"expected a block of shape (n, {len(self.columns)}), got {block.shape}"
+            )
         if block.dtype not in (np.float32, np.float64):
             block = block.astype(np.float64)
         if block.shape[0] == 0:
@@ -119,8 +128,9 @@ class PointStatistics:
         """
         if other.columns != self.columns:
             raise ValueError("cannot merge points with different columns")
-        new = PointStatistics(self.columns, self.rate_hz, self.targets, self.confidence,
-                              base=self.blocking.base)
+        new = PointStatistics(
+            self.columns, self.rate_hz, self.targets, self.confidence, base=self.blocking.base
+        )
         new.moments = self.moments.merge(other.moments)
         new.blocking = self.blocking.merge(other.blocking)
         new._duration_s = self._duration_s + other._duration_s
@@ -133,12 +143,14 @@ class PointStatistics:
         tab = self.table
         m = len(self.columns)
         names = tab.names + tuple(
-            f"{prefix}_{c}" for prefix in ("Tint", "Neff", "L") for c in self.columns)
+            f"{prefix}_{c}" for prefix in ("Tint", "Neff", "L") for c in self.columns
+        )
         S = len(names)
         nan = np.full(S, np.nan)
         if self.n < 2 or self.blocking.ref is None:
-            ev = _Evaluation(names, nan, nan.copy(), np.zeros(S, dtype=np.int64), nan.copy(),
-                             nan.copy(), {})
+            ev = _Evaluation(
+                names, nan, nan.copy(), np.zeros(S, dtype=np.int64), nan.copy(), nan.copy(), {}
+            )
             self._cache = ev
             return ev
         ref = self.blocking.ref
@@ -166,8 +178,9 @@ class PointStatistics:
         with np.errstate(invalid="ignore", divide="ignore"):
             rel_speed = np.sqrt(np.sum((values[:m] * se[:m]) ** 2)) / speed**2
         values = np.concatenate([values, tint, neff, length])
-        se = np.concatenate([se, rel_t * tint, rel_t * neff,
-                             np.sqrt(rel_t**2 + rel_speed**2) * length])
+        se = np.concatenate(
+            [se, rel_t * tint, rel_t * neff, np.sqrt(rel_t**2 + rel_speed**2) * length]
+        )
         blocks = np.concatenate([blocks, blocks[:m], blocks[:m], blocks[:m]])
         rel = np.concatenate([rel, rel[:m], rel[:m], rel[:m]])
         p = 0.5 * (1.0 + self.confidence)
@@ -184,7 +197,7 @@ class PointStatistics:
         return ev
 
     def _value_map(self, ev: _Evaluation) -> dict[str, float]:
-        return {n: float(v) for n, v in zip(ev.names, ev.values)}
+        return {n: float(v) for n, v in zip(ev.names, ev.values, strict=True)}
 
     def _passes(self, ev: _Evaluation) -> dict[str, bool]:
         vals = self._value_map(ev)
@@ -194,8 +207,13 @@ class PointStatistics:
             if target is None:
                 continue
             stationary = not (components_of(name) & set(ev.suspect))
-            out[name] = passes(float(ev.half_width[i]), target, int(ev.blocks[i]),
-                               float(ev.se_rel_err[i]), stationary)
+            out[name] = passes(
+                float(ev.half_width[i]),
+                target,
+                int(ev.blocks[i]),
+                float(ev.se_rel_err[i]),
+                stationary,
+            )
         return out
 
     def snapshot(self) -> PointSnapshot:
@@ -229,11 +247,22 @@ class PointStatistics:
                     state = "converging"
                 if not converged:
                     all_conv = False
-            estimates.append(Estimate(
-                name=name, value=v, stderr=se, ci_low=v - hw, ci_high=v + hw, half_width=hw,
-                target=None if target is None else float(target), converged=converged,
-                eta_s=eta, state=state, blocks=blocks, reason=reason,
-            ))
+            estimates.append(
+                Estimate(
+                    name=name,
+                    value=v,
+                    stderr=se,
+                    ci_low=v - hw,
+                    ci_high=v + hw,
+                    half_width=hw,
+                    target=None if target is None else float(target),
+                    converged=converged,
+                    eta_s=eta,
+                    state=state,
+                    blocks=blocks,
+                    reason=reason,
+                )
+            )
         converged = any_target and all_conv
         return PointSnapshot(
             columns=self.columns,

@@ -7,9 +7,9 @@ attribute; nothing in here is ever mutated after construction.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
-from typing import Mapping
 
 __all__ = ["Estimate", "PointSnapshot", "STATES"]
 
@@ -107,7 +107,7 @@ class PointSnapshot:
         return [e.to_json() for e in self.estimates]
 
     def summary_fields(self) -> dict:
-        """The statistics part of a DESIGN §4 point line (the pipeline adds stream, point, health)."""
+        """The statistics part of a DESIGN §4 point line (the pipeline adds stream, point...)."""
         return {
             "samples": int(self.samples),
             "duration_s": float(self.duration_s),

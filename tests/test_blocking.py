@@ -2,8 +2,8 @@
 
 import numpy as np
 import pytest
-
 from processes import ar1, ar1_mean_variance
+
 from stats.blocking import BlockingAccumulator, choose_level
 
 
@@ -69,6 +69,7 @@ def test_streaming_equals_batch_blocking():
 
 def expected_blocking_ratio(rho, N, m):
     """E[V_k] / Var(mean) for an exponential ACF (REFERENCES §2)."""
+
     def f(mm):
         return (1 + rho) / (1 - rho) - 2 * rho * (1 - rho**mm) / (mm * (1 - rho) ** 2)
 
@@ -114,8 +115,18 @@ def test_monte_carlo_blocking_curve_and_lugsail():
 def test_jonsson_chi_square_quantiles():
     # Jonsson (2018), Phys. Rev. E 98:043304: 0.99 quantiles of chi^2 for df = 1..10
     # (REFERENCES §2 list); the M-test compares M_j with the chi^2(d - j) quantile.
-    want = [6.634897, 9.210340, 11.344867, 13.276704, 15.086272, 16.811894, 18.475307,
-            20.090235, 21.665994, 23.209251]
+    want = [
+        6.634897,
+        9.210340,
+        11.344867,
+        13.276704,
+        15.086272,
+        16.811894,
+        18.475307,
+        20.090235,
+        21.665994,
+        23.209251,
+    ]
     from stats.blocking import _chi2_99
 
     for df, q in enumerate(want, start=1):

@@ -1,4 +1,4 @@
-"""Are the 95 % intervals honest? Coverage over many seeded replicates of processes with known truth.
+"""Are the 95 % intervals honest? Coverage over seeded replicates of processes with known truth.
 
 Processes: 3-component Gaussian AR(1) (exact sampled Ornstein-Uhlenbeck, REFERENCES §10) mixed by
 the Cholesky factor of a prescribed Reynolds-stress tensor (Lund, Wu & Squires 1998,
@@ -9,8 +9,8 @@ truth in 0.92-0.98 of the replicates (binomial sd at 400 replicates: 0.011).
 
 import numpy as np
 import pytest
-
 from processes import MEAN, STRESS, ar1, skewed, turbulence
+
 from stats import PointStatistics, Targets
 
 pytestmark = pytest.mark.slow
@@ -37,8 +37,18 @@ def coverage(make, truth, columns, reps=REPS):
 
 def test_gaussian_stress_tensor_coverage():
     k = 0.5 * np.trace(STRESS)
-    truth = {"U": MEAN[0], "V": MEAN[1], "uu": STRESS[0, 0], "uv": STRESS[0, 1],
-             "vw": STRESS[1, 2], "k": k, "uuv": 0.0, "vvv": 0.0, "skew_u": 0.0, "flat_u": 3.0}
+    truth = {
+        "U": MEAN[0],
+        "V": MEAN[1],
+        "uu": STRESS[0, 0],
+        "uv": STRESS[0, 1],
+        "vw": STRESS[1, 2],
+        "k": k,
+        "uuv": 0.0,
+        "vvv": 0.0,
+        "skew_u": 0.0,
+        "flat_u": 3.0,
+    }
     cov = coverage(lambda rng: turbulence(rng, N, RHO).astype(np.float32), truth, ("u", "v", "w"))
     for name, c in cov.items():
         assert 0.92 <= c <= 0.98, (name, c, cov)
@@ -49,8 +59,15 @@ def test_skewed_process_coverage():
     var = 1 + 2 * a**2
     skew = (6 * a + 8 * a**3) / (1 + 2 * a**2) ** 1.5
     assert skew == pytest.approx(0.590206, abs=1e-6)  # REFERENCES §10 check value
-    truth = {"U": 2.0, "uu": var, "uv": 0.0, "k": 0.75 * 2 * var, "uuu": skew * var**1.5,
-             "uuv": 0.0, "skew_u": skew}
+    truth = {
+        "U": 2.0,
+        "uu": var,
+        "uv": 0.0,
+        "k": 0.75 * 2 * var,
+        "uuu": skew * var**1.5,
+        "uuv": 0.0,
+        "skew_u": skew,
+    }
 
     def make(rng):
         z = ar1(rng, N, 2, RHO)

@@ -30,7 +30,7 @@ def test_values_from_monomials_match_numpy():
     ref = np.array([9.0, 1.0, -1.0])  # deliberately off the mean
     raw = MomentAccumulator(3).update(x).raw_about(ref)
     tab = StatisticTable(("u", "v", "w"), layout(3))
-    values = dict(zip(tab.names, tab.evaluate(raw, ref)))
+    values = dict(zip(tab.names, tab.evaluate(raw, ref), strict=True))
     d = x - x.mean(axis=0)
     assert values["U"] == pytest.approx(x[:, 0].mean(), rel=1e-13)
     assert values["uw"] == pytest.approx((d[:, 0] * d[:, 2]).mean(), rel=1e-9)

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-
 from processes import ar1, turbulence
+
 from stats import PointStatistics, Targets, statistic_names
 
 
@@ -35,8 +35,8 @@ def test_too_few_samples_give_nan_and_not_converged():
 
 
 def test_two_component_k_is_flagged():
-    # k from two components, 3/4 (uu + vv), assuming ww = (uu + vv)/2 (common practice; REFERENCES §8
-    # check: uu = 1, vv = 0.5 gives 1.125).
+    # k from two components, 3/4 (uu + vv), assuming ww = (uu + vv)/2 (common practice;
+    # REFERENCES §8 check: uu = 1, vv = 0.5 gives 1.125).
     x = np.array([[1.0, 0.0], [-1.0, np.sqrt(0.5)], [1.0, -np.sqrt(0.5)], [-1.0, 0.0]])
     x = np.tile(x, (256, 1))
     snap = PointStatistics(("u", "v"), rate_hz=100.0).update(x).snapshot()
@@ -57,7 +57,8 @@ def test_worked_example_error_of_mean_and_time_scale():
         tint.append(snap.estimate("Tint_u").value)
         # Taylor: L_u = |U| Tint_u (common practice; REFERENCES §7 L_u = U T_int)
         assert snap.estimate("L_u").value == pytest.approx(
-            abs(snap.estimate("U").value) * tint[-1], rel=1e-12)
+            abs(snap.estimate("U").value) * tint[-1], rel=1e-12
+        )
         neff.append(snap.estimate("Neff_u").value / 4)
     assert np.mean(se) == pytest.approx(0.0447176, rel=0.06)
     assert np.mean(tint) == pytest.approx(0.010, rel=0.08)
@@ -72,12 +73,18 @@ def test_values_match_numpy_reference():
     assert snap.estimate("U").value == pytest.approx(x[:, 0].mean(), rel=1e-13)
     assert snap.estimate("uv").value == pytest.approx((d[:, 0] * d[:, 1]).mean(), rel=1e-10)
     assert snap.estimate("k").value == pytest.approx(0.5 * (d**2).mean(axis=0).sum(), rel=1e-10)
-    assert snap.estimate("uvw").value == pytest.approx((d[:, 0] * d[:, 1] * d[:, 2]).mean(), rel=1e-8)
-    assert snap.estimate("vvww").value == pytest.approx((d[:, 1] ** 2 * d[:, 2] ** 2).mean(), rel=1e-9)
+    assert snap.estimate("uvw").value == pytest.approx(
+        (d[:, 0] * d[:, 1] * d[:, 2]).mean(), rel=1e-8
+    )
+    assert snap.estimate("vvww").value == pytest.approx(
+        (d[:, 1] ** 2 * d[:, 2] ** 2).mean(), rel=1e-9
+    )
     from scipy import stats as sps
 
     assert snap.estimate("skew_w").value == pytest.approx(sps.skew(x[:, 2]), rel=1e-8)
-    assert snap.estimate("flat_v").value == pytest.approx(sps.kurtosis(x[:, 1], fisher=False), rel=1e-9)
+    assert snap.estimate("flat_v").value == pytest.approx(
+        sps.kurtosis(x[:, 1], fisher=False), rel=1e-9
+    )
     assert snap.duration_s == pytest.approx(25.0)
 
 
@@ -89,11 +96,11 @@ def test_any_block_split_gives_the_same_snapshot(cuts):
     whole = PointStatistics(("u", "v", "w"), rate_hz=5000.0).update(x).snapshot()
     ps = PointStatistics(("u", "v", "w"), rate_hz=5000.0)
     edges = [0] + sorted(set(cuts)) + [x.shape[0]]
-    for a, b in zip(edges[:-1], edges[1:]):
+    for a, b in zip(edges[:-1], edges[1:], strict=True):
         ps.update(x[a:b])
     split = ps.snapshot()
     # stated tolerance: values to 1e-9 relative, standard errors to 1e-7 (summation order only)
-    for e, f in zip(whole.estimates, split.estimates):
+    for e, f in zip(whole.estimates, split.estimates, strict=True):
         assert e.name == f.name
         np.testing.assert_allclose(f.value, e.value, rtol=1e-9, atol=1e-12)
         np.testing.assert_allclose(f.stderr, e.stderr, rtol=1e-7, atol=1e-14)
@@ -109,7 +116,7 @@ def test_merge_equals_single_pass_values():
     whole = PointStatistics(("u", "v", "w"), 1000.0, ref=ref).update(x).snapshot()
     merged = a.merge(b).snapshot()
     assert a.n == 17_000 and b.n == 23_000
-    for e, f in zip(whole.estimates, merged.estimates):
+    for e, f in zip(whole.estimates, merged.estimates, strict=True):
         if e.name.startswith(("Tint_", "Neff_", "L_")):  # derived from the (merged) errors
             np.testing.assert_allclose(f.value, e.value, rtol=0.4)
             continue

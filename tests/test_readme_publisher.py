@@ -38,9 +38,21 @@ def test_readme_publisher_feeds_watch(tmp_path):
     assert f":{port}" in code
     summary = tmp_path / "summary.jsonl"
     watch = subprocess.Popen(
-        [sys.executable, "-m", "monitor", "watch", "--connect", f"tcp://127.0.0.1:{port}",
-         "--no-dashboard", "--summary", str(summary)],
-        cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+        [
+            sys.executable,
+            "-m",
+            "monitor",
+            "watch",
+            "--connect",
+            f"tcp://127.0.0.1:{port}",
+            "--no-dashboard",
+            "--summary",
+            str(summary),
+        ],
+        cwd=ROOT,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
     )
     lines: queue.Queue = queue.Queue()
     reader = threading.Thread(target=lambda: [lines.put(ln) for ln in watch.stderr], daemon=True)
@@ -49,8 +61,9 @@ def test_readme_publisher_feeds_watch(tmp_path):
         # the monitor must be subscribed before a PUB publisher starts (README says so too):
         # wait for its first status or transport line (bounded)
         lines.get(timeout=60)
-        pub = subprocess.run([sys.executable, "-c", code], cwd=tmp_path, timeout=60,
-                             capture_output=True, text=True)
+        pub = subprocess.run(
+            [sys.executable, "-c", code], cwd=tmp_path, timeout=60, capture_output=True, text=True
+        )
         assert pub.returncode == 0, pub.stderr
         assert watch.wait(timeout=60) == 0
     finally:
