@@ -92,17 +92,22 @@ def _start_server(get_snapshot):
     return holder, th
 
 
+def _open_page(driver, url: str) -> None:
+    """Load the page and wait (bounded) until its websocket document is there."""
+    driver.get(url)
+    for _ in range(300):
+        if driver.execute_script("return window.Bokeh !== undefined && "
+                                 "Bokeh.documents.length > 0"):
+            return
+        time.sleep(0.1)
+
+
 def bench_browser(seconds: float) -> None:
     src = StampedRun()
     holder, th = _start_server(src.snapshot)
     driver, profile = _browser()
     try:
-        driver.get(holder["s"].url)
-        for _ in range(300):
-            if driver.execute_script("return window.Bokeh !== undefined && "
-                                     "Bokeh.documents.length > 0"):
-                break
-            time.sleep(0.1)
+        _open_page(driver, holder["s"].url)
         time.sleep(2.0)
         proc = psutil.Process()
         cpu0, wall0 = sum(proc.cpu_times()[:2]), time.monotonic()
@@ -185,12 +190,7 @@ def bench_live(seconds: float, max_messages: int) -> None:
     driver, profile = _browser()
     stop = threading.Event()
     try:
-        driver.get(holder["s"].url)
-        for _ in range(300):
-            if driver.execute_script("return window.Bokeh !== undefined && "
-                                     "Bokeh.documents.length > 0"):
-                break
-            time.sleep(0.1)
+        _open_page(driver, holder["s"].url)
         # a: paced 1 M samples/s, lag = feeder's data clock - newest trace time in the page
         n_paced = int(seconds * 1e6 / 16384) + 1
         t_start = time.time()
