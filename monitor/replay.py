@@ -28,6 +28,7 @@ from monitor.watch import (
     SETTINGS_FILE,
     StatusPrinter,
     install_stop_signals,
+    serve_dashboard_while,
 )
 
 __all__ = ["add_arguments", "run", "parse_speed", "replay_into", "EPILOG"]
@@ -197,36 +198,13 @@ def run(args: argparse.Namespace) -> int:
         status.done()
         return EXIT_OK
 
-    from monitor.dashboard.server import PortInUseError, serve
-
     def work():
         replay_into(pipeline, directory, args.speed, stop)
         pipeline.close()
 
-    thread = threading.Thread(target=work, name="eddyvigil-replay", daemon=True)
-
-    def on_ready(server):
-        if not args.quiet:
-            print(f"eddyvigil: dashboard at {server.url}", file=sys.stderr, flush=True)
-
-    try:
-        serve(
-            lambda: pipeline.snapshot,
-            host=args.host,
-            port=args.port,
-            on_start=thread.start,
-            on_stop=stop.set,
-            title="eddyvigil replay",
-            on_ready=on_ready,
-        )
-    except PortInUseError as exc:
-        return _fail(EXIT_ADDRESS_IN_USE, str(exc))
-    finally:
-        stop.set()
-        if thread.is_alive():
-            thread.join(timeout=10.0)
+    code = serve_dashboard_while(args, pipeline, work, stop.set, "eddyvigil replay")
     pipeline.close()  # idempotent: a replay stopped early still writes its run line
-    return EXIT_OK
+    return code
 
 
 def _republish(args, directory: Path) -> int:

@@ -319,7 +319,7 @@ def run(args: argparse.Namespace) -> int:
             install_stop_signals(sub.stop)
             acquire()
         else:
-            code = _serve_with_dashboard(args, pipeline, sub, acquire)
+            code = serve_dashboard_while(args, pipeline, acquire, sub.stop, "eddyvigil watch")
             if code:
                 return code
         status.done()
@@ -332,11 +332,13 @@ def run(args: argparse.Namespace) -> int:
             close()
 
 
-def _serve_with_dashboard(args, pipeline, sub, acquire) -> int:
-    """Serve the dashboard on the main thread, acquisition in a thread started by the server."""
+def serve_dashboard_while(args, pipeline, work, stop, title: str) -> int:
+    """Serve the dashboard on this (main) thread; ``work`` runs in a thread that the server
+    starts once it is up (never in per-page code); ``stop()`` when the server goes down.
+    Returns an exit code (address in use is mapped here, for watch and replay alike)."""
     from monitor.dashboard.server import PortInUseError, serve
 
-    thread = threading.Thread(target=acquire, name="eddyvigil-acquisition", daemon=True)
+    thread = threading.Thread(target=work, name="eddyvigil-acquisition", daemon=True)
 
     def on_ready(server):
         if not args.quiet:
@@ -348,14 +350,14 @@ def _serve_with_dashboard(args, pipeline, sub, acquire) -> int:
             host=args.host,
             port=args.port,
             on_start=thread.start,
-            on_stop=sub.stop,
-            title="eddyvigil watch",
+            on_stop=stop,
+            title=title,
             on_ready=on_ready,
         )
     except PortInUseError as exc:
         return _fail(EXIT_ADDRESS_IN_USE, str(exc))
     finally:
-        sub.stop()
+        stop()
         if thread.is_alive():
             thread.join(timeout=10.0)
     return 0
