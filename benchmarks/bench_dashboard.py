@@ -179,6 +179,10 @@ def _browser():
 def bench_live(seconds: float, max_messages: int) -> None:
     from monitor.pipeline import Pipeline
 
+    # warm-up: kernels loaded, one-time tables built, before anything is timed
+    warm = Pipeline()
+    _feed(warm, 40, 1e6, paced=False, stop=threading.Event())
+    warm.close()
     # b (off): the same feed with no dashboard at all
     pipe = Pipeline()
     off = _feed(pipe, max_messages, 1e6, paced=False, stop=threading.Event())
