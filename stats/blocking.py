@@ -21,7 +21,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import stats as sps
 
-from stats.kernels import block_sums, blocking_push
+from stats.kernels import block_sums, blocking_push, kernel_view
 from stats.monomials import layout
 
 __all__ = ["BlockingAccumulator", "LevelChoice", "choose_level", "MIN_BLOCKS_PER_LEVEL"]
@@ -155,7 +155,7 @@ class BlockingAccumulator:
         stream, not on the blocks it arrives in, so any split of the stream gives the same
         blocking state.
         """
-        block = np.asarray(block)
+        block = kernel_view(block)
         n = block.shape[0]
         lay = self.layout
         mean = np.empty(self.m)

@@ -18,9 +18,28 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["central_sums", "block_sums", "blocking_push"]
+__all__ = ["central_sums", "block_sums", "blocking_push", "kernel_view"]
 
 _CHUNK = 128
+
+
+def kernel_view(block: np.ndarray) -> np.ndarray:
+    """The block as the one array type the kernels are compiled for: C-contiguous, aligned,
+    read-only (no copy when it already is contiguous and aligned).
+
+    numba compiles a separate specialisation per array layout, alignment and writability,
+    and with re-associated sums two specialisations may round differently in the last bit.
+    One type per dtype makes results independent of where a block came from (a decoded
+    read-only wire buffer, a script's writable array, a replayed file); guarded by
+    ``tests/test_pipeline.py::test_socket_path_and_in_process_api_give_identical_summaries``.
+    """
+    block = np.ascontiguousarray(block)
+    if not block.flags.aligned:
+        block = block.copy()
+    if block.flags.writeable:
+        block = block.view()
+        block.flags.writeable = False
+    return block
 _FAST = {"nnan", "ninf", "nsz", "arcp", "contract", "reassoc"}
 
 

@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from stats.kernels import central_sums
+from stats.kernels import central_sums, kernel_view
 from stats.monomials import Layout, layout, merge_sums, shift_sums
 
 __all__ = ["MomentAccumulator", "Moments"]
@@ -88,7 +88,7 @@ class MomentAccumulator:
         s2 = np.empty_like(self.s2)
         s3 = np.empty_like(self.s3)
         s4 = np.empty_like(self.s4)
-        central_sums(block, lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l, mean, s2, s3, s4)
+        central_sums(kernel_view(block), lay.c2, lay.c3p, lay.c3k, lay.c4p, lay.c4l, mean, s2, s3, s4)
         self._combine(block.shape[0], mean, s2, s3, s4)
         return self
 

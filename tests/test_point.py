@@ -160,3 +160,20 @@ def test_converges_with_targets_and_reports_eta():
     assert 1.1 * u.half_width <= u.target
     assert snap.estimate("vv").state == "untargeted" and snap.estimate("vv").target is None
     assert snap.slowest() is None
+
+
+def test_where_a_block_came_from_never_changes_a_digit():
+    # A decoded wire buffer is read-only, a script's array is writable, a column slice is not
+    # C-ordered: numba would compile one specialisation each, and re-associated sums could then
+    # differ in the last bit. Live and replayed runs must agree bit for bit (DESIGN §1).
+    rng = np.random.default_rng(5)
+    x = (8 + rng.normal(size=(40_000, 3))).astype(np.float32)
+    read_only = x.copy()
+    read_only.flags.writeable = False
+    from_wire = np.frombuffer(x.tobytes(), dtype="<f4").reshape(-1, 3)
+    variants = [x, read_only, np.asfortranarray(x), from_wire]
+    snaps = [PointStatistics(("u", "v", "w"), 1000.0).update(v).snapshot() for v in variants]
+    for other in snaps[1:]:
+        for e, f in zip(snaps[0].estimates, other.estimates, strict=True):
+            assert e.value == f.value, e.name
+            assert e.stderr == f.stderr or (math.isnan(e.stderr) and math.isnan(f.stderr)), e.name
