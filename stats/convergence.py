@@ -54,11 +54,13 @@ def passes(
 
 
 def eta_seconds(
-    half_width: float, target: float | None, blocks: int, duration_s: float
+    half_width: float, target: float | None, blocks: int, duration_s: float, streak: int = 0
 ) -> float | None:
     """Predicted acquisition time still needed, from Var ~ 1/T and the block-count floor.
 
-    None while it cannot be predicted (no target, unknown error, too few blocks).
+    ``streak``: consecutive checkpoints already passed; a statistic that meets its target now
+    still waits for the rest of its streak (each checkpoint 10 % further on). None while it
+    cannot be predicted (no target, unknown error, too few blocks).
     """
     if target is None or not (math.isfinite(target) and target > 0):
         return None
@@ -66,9 +68,12 @@ def eta_seconds(
         return None
     need = duration_s * (STOP_MARGIN * half_width / target) ** 2
     need = max(need, duration_s * MIN_BLOCKS / blocks)
-    # three consecutive geometric checkpoints follow the first pass
-    need *= CHECKPOINT_GROWTH ** (STREAK - 1)
-    return max(0.0, need - duration_s)
+    if need <= duration_s:
+        # met now: the remaining checkpoints of the streak decide
+        remaining = max(STREAK - streak, 1)
+        return duration_s * (CHECKPOINT_GROWTH**remaining - 1.0)
+    # first pass at `need`, then the rest of the streak at geometric checkpoints
+    return need * CHECKPOINT_GROWTH ** (STREAK - 1) - duration_s
 
 
 @dataclass

@@ -236,7 +236,8 @@ class PointStatistics:
             else:
                 any_target = True
                 converged = self.checkpoints.is_converged(name) and not bad
-                eta = 0.0 if converged else eta_seconds(hw, target, blocks, T)
+                streak = self.checkpoints.streak.get(name, 0)
+                eta = 0.0 if converged else eta_seconds(hw, target, blocks, T, streak)
                 if bad:
                     state, reason = "suspect", "; ".join(f"{c}: {ev.suspect[c]}" for c in bad)
                 elif converged:
