@@ -230,7 +230,10 @@ def test_monitor_restart_mid_run(procs, tmp_path):
     )
     assert procs.wait(m2, timeout=90) == 0, procs.output(m2)[1][-3000:]
     first = read_lines(rec1 / "summary.jsonl")
-    assert first[-1]["kind"] == "run" and first[0]["complete"] is False
+    # the point the first monitor was in when stopped is incomplete; any before it are whole
+    # (how far it got depends on the machine's load)
+    assert first[-1]["kind"] == "run" and first[-2]["complete"] is False
+    assert all(p["complete"] for p in first[:-2])
     lines = read_lines(tmp_path / "s2.jsonl")
     points, run = lines[:-1], lines[-1]
     assert run["lost"] == 0  # joining mid-session is not a loss

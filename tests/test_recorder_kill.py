@@ -44,6 +44,7 @@ while time.monotonic() < deadline:
     frames = sock.recv_multipart(copy=False)
     rec.write(frames, time.time())
     print("wrote", rec.records, rec.records_flushed, flush=True)
+    time.sleep(0.002)  # a receiver slower than the sender, so the kill lands mid-stream
 """
 
 
