@@ -19,9 +19,9 @@ def _est(name, value, hw, target, state, eta=None):
 
 
 def _view(estimates, *, converged=False, name="probe-a", point=None, history=None, trace=None,
-          finished=(), **health):
+          finished=(), suspect=None, **health):
     stats = PointSnapshot(("u", "v"), 40_000, 2.0, 0.95, tuple(estimates), converged,
-                          1.5 if converged else None, "two-component")
+                          1.5 if converged else None, "two-component", suspect or {})
     kw = dict(rate_hz=20_000.0, ingest_rate_hz=19_800.0, messages=40, lost_messages=0, gaps=0,
               restarts=0, rejected={})
     kw.update(health)
@@ -51,6 +51,11 @@ def test_verdict_keeps_acquiring_until_every_target_is_met():
 def test_verdict_flags_suspect_and_warming_up_and_no_data():
     suspect = [_est("U", 8.2, 0.05, 0.08, "suspect")]
     assert views.verdict(_view(suspect)).headline == "CHECK SIGNAL"
+    # the guard fires now and then on stationary data while it is re-tested at every update:
+    # while the error bars are not there anyway, the banner keeps acquiring and names the flag
+    early = [_est("U", 8.2, 0.05, 0.08, "suspect"), _est("uv", -0.5, 0.03, 0.02, "converging")]
+    v = views.verdict(_view(early, suspect={"u": "trend"}))
+    assert v.headline == "KEEP ACQUIRING" and "flagged not stationary so far: u" in v.detail
     warm = [_est("U", 8.2, 0.5, 0.08, "warming-up")]
     assert views.verdict(_view(warm)).headline == "WARMING UP"
     assert "WAITING FOR DATA" in views.verdict_html(RunSnapshot(0, 0.0))

@@ -16,6 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from monitor.state import RunSnapshot, StreamView
+from stats.convergence import STOP_MARGIN
 
 __all__ = [
     "OKABE_ITO", "STATE_COLOURS", "MEAN_NAMES", "STRESS_NAMES", "statistic_colour", "pick_stream",
@@ -129,8 +130,11 @@ class Verdict:
 def verdict(view: StreamView) -> Verdict:
     """The point's overall verdict: move on, keep acquiring, or look at the signal.
 
-    ``MOVE ON`` only when every target of the current point is met; a suspect statistic
-    (stationarity guard) says ``CHECK SIGNAL`` whatever the rest says.
+    ``MOVE ON`` only when every target of the current point is met. A suspect statistic
+    (stationarity guard) says ``CHECK SIGNAL`` once the error bars are otherwise good enough,
+    i.e. when the guard is what stands between the user and moving on; before that the guard,
+    re-tested at every update, fires now and then on stationary data (a few per cent of
+    looks), so the banner says ``KEEP ACQUIRING`` and names what was flagged so far.
     """
     point = _point_label(view)
     snap = view.stats
@@ -139,10 +143,13 @@ def verdict(view: StreamView) -> Verdict:
     if snap is None or snap.samples == 0:
         return Verdict("WAITING FOR DATA", point, GREY, "#FFFFFF")
     suspect = [e for e in snap.estimates if e.state == "suspect"]
+    flagged = ""
     if suspect or snap.suspect:
         names = ", ".join(sorted({e.name for e in suspect} | set(snap.suspect)))[:80]
-        return Verdict("CHECK SIGNAL", f"{point}: not stationary ({names})",
-                       STATE_COLOURS["suspect"], "#FFFFFF")
+        if _precise_enough(snap):
+            return Verdict("CHECK SIGNAL", f"{point}: not stationary ({names})",
+                           STATE_COLOURS["suspect"], "#FFFFFF")
+        flagged = f"; flagged not stationary so far: {html.escape(', '.join(sorted(snap.suspect)))}"
     if snap.converged:
         at = format_duration(snap.converged_at_s)
         age = format_duration(view.converged_wall_age_s)
@@ -152,16 +159,28 @@ def verdict(view: StreamView) -> Verdict:
     if not targeted:
         return Verdict("NO TARGETS", f"{point}: nothing to converge", STATE_COLOURS["untargeted"],
                        "#000000")
-    if all(e.state == "warming-up" for e in targeted):
-        return Verdict("WARMING UP", f"{point}: too few blocks for an honest error bar yet",
-                       GREY, "#FFFFFF")
+    if all(e.state in ("warming-up", "suspect") for e in targeted) and not all(
+        e.state == "suspect" for e in targeted
+    ):
+        return Verdict("WARMING UP", f"{point}: too few blocks for an honest error bar yet"
+                       + flagged, GREY, "#FFFFFF")
     slow = snap.slowest()
     eta = "unknown" if slow is None or slow.eta_s is None else f"≈ {format_duration(slow.eta_s)}"
     met = sum(1 for e in targeted if e.converged)
     name = html.escape(slow.name) if slow is not None else "–"
     return Verdict("KEEP ACQUIRING",
-                   f"{point}: {met}/{len(targeted)} targets met; slowest {name}, {eta} more",
-                   STATE_COLOURS["converging"], "#000000")
+                   f"{point}: {met}/{len(targeted)} targets met; slowest {name}, {eta} more"
+                   + flagged, STATE_COLOURS["converging"], "#000000")
+
+
+def _precise_enough(snap) -> bool:
+    """Every targeted half-width (with the stopping margin) within its target."""
+    for e in snap.targeted():
+        if not (math.isfinite(e.half_width) and e.target is not None and math.isfinite(e.target)):
+            return False
+        if STOP_MARGIN * e.half_width > e.target:
+            return False
+    return True
 
 
 def _point_label(view: StreamView) -> str:
