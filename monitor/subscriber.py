@@ -177,6 +177,7 @@ class Subscriber:
         self.messages = 0
         self.disconnects = 0
         self._last_event: tuple | None = None
+        self._ever_connected = False
 
     def stop(self) -> None:
         """Ask :meth:`run` to return (thread-safe, also from a signal handler)."""
@@ -240,7 +241,11 @@ class Subscriber:
                 if isinstance(addr, bytes):
                     addr = addr.decode("utf-8", "replace")
                 # a connect retry to a publisher that is not up yet closes every ~100 ms:
-                # say it once, not once per retry
+                # not worth a word before the first connection, and once per run of retries after
+                if kind == zmq.EVENT_CONNECTED:
+                    self._ever_connected = True
+                if kind == zmq.EVENT_CLOSED and not self._ever_connected:
+                    continue
                 if (kind, addr) == self._last_event:
                     continue
                 self._last_event = (kind, addr)
