@@ -70,8 +70,6 @@ def test_mean_speed_uses_only_the_components_present():
         ("Tint_u", 0.003),
         ("Neff_v", 1200.0),
         ("L_u", 0.05),
-        ("eps", 12.5),
-        ("eta", 1.2e-4),
     ],
 )
 def test_scales_by_family(name, scale):
@@ -214,3 +212,10 @@ def test_from_dict_refuses_non_mappings_and_bad_direct_construction():
         Targets(confidence=1.5)
     with pytest.raises(TargetsError, match="must be a Target named"):
         Targets(targets={"U": Target("V", relative=0.1)})
+
+
+@pytest.mark.parametrize("name", ["eps", "eta"])
+def test_targets_on_statistics_not_estimated_are_refused(name):
+    # a target that nothing computes could never be met; it must not be silently ignored
+    with pytest.raises(TargetsError, match="does not estimate it yet"):
+        Targets.from_dict({"targets": {name: {"relative": 0.1}}})
