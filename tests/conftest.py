@@ -137,6 +137,10 @@ class Processes:
     def eddyvigil(self, *args: str, name: str = "eddyvigil") -> subprocess.Popen:
         return self.start([sys.executable, "-m", "monitor", *args], name=name)
 
+    def watch_pull(self, endpoint: str, *args: str, name: str = "watch") -> subprocess.Popen:
+        """``eddyvigil watch`` with a PULL socket bound at ``endpoint`` (back-pressure, no loss)."""
+        return self.eddyvigil("watch", "--bind", endpoint, "--socket", "pull", *args, name=name)
+
     def player(
         self, messages_file: Path, endpoint: str, kind: str, mode: str, name="player", **opts
     ) -> subprocess.Popen:

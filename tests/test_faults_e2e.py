@@ -57,12 +57,8 @@ def test_malformed_corpus_interleaved_is_counted_and_leaves_statistics_untouched
     messages.append(w.end())
     write_messages(tmp_path / "msgs.bin", messages)
     ep = tcp_endpoint()
-    watch = procs.eddyvigil(
-        "watch",
-        "--bind",
+    watch = procs.watch_pull(
         ep,
-        "--socket",
-        "pull",
         "--max-message-mb",
         "1",
         "--summary",
@@ -165,12 +161,8 @@ def test_publisher_restart_mid_run(procs, tmp_path):
     write_messages(tmp_path / "m1.bin", m1)
     write_messages(tmp_path / "m2.bin", m2)
     ep = tcp_endpoint()
-    watch = procs.eddyvigil(
-        "watch",
-        "--bind",
+    watch = procs.watch_pull(
         ep,
-        "--socket",
-        "pull",
         "--summary",
         str(tmp_path / "s.jsonl"),
         "--no-dashboard",

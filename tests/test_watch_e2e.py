@@ -193,12 +193,8 @@ def test_sigkill_of_a_recording_watch_then_replay_recovers_what_was_flushed(proc
     write_messages(tmp_path / "msgs.bin", messages)
     ep = tcp_endpoint()
     rec = tmp_path / "rec"
-    watch = procs.eddyvigil(
-        "watch",
-        "--bind",
+    watch = procs.watch_pull(
         ep,
-        "--socket",
-        "pull",
         "--record",
         str(rec),
         "--no-dashboard",
@@ -243,12 +239,8 @@ def test_sigterm_finishes_points_incomplete_and_exits_zero(procs, tmp_path):
     write_messages(tmp_path / "msgs.bin", messages)
     ep = tcp_endpoint()
     rec = tmp_path / "rec"
-    watch = procs.eddyvigil(
-        "watch",
-        "--bind",
+    watch = procs.watch_pull(
         ep,
-        "--socket",
-        "pull",
         "--summary",
         str(tmp_path / "s.jsonl"),
         "--record",
@@ -274,12 +266,8 @@ def test_dashboard_mode_serves_the_page_and_stops_cleanly_on_sigint(procs, tmp_p
 
     port = free_port()
     ep = tcp_endpoint()
-    watch = procs.eddyvigil(
-        "watch",
-        "--bind",
+    watch = procs.watch_pull(
         ep,
-        "--socket",
-        "pull",
         "--port",
         str(port),
         "--summary",
