@@ -69,11 +69,16 @@ def ctx():
     c.term()
 
 
-def test_pub_publisher_sends_the_whole_traverse(ctx, tmp_path):
+
+def _bound_sub(ctx, topic: bytes):
+    """A SUB socket bound on a free loopback port (the publisher under test connects)."""
     sub = ctx.socket(zmq.SUB)
     sub.setsockopt(zmq.LINGER, 0)
-    sub.setsockopt(zmq.SUBSCRIBE, b"probe-a")
-    port = sub.bind_to_random_port("tcp://127.0.0.1")
+    sub.setsockopt(zmq.SUBSCRIBE, topic)
+    return sub, sub.bind_to_random_port("tcp://127.0.0.1")
+
+def test_pub_publisher_sends_the_whole_traverse(ctx, tmp_path):
+    sub, port = _bound_sub(ctx, b"probe-a")
     truth_file = tmp_path / "truth.json"
     proc = _spawn(
         "--connect",
@@ -176,10 +181,7 @@ def test_push_publisher_faults_are_seen_as_recorded(ctx, tmp_path):
 
 
 def test_follow_control_moves_on_when_converged(ctx, tmp_path):
-    sub = ctx.socket(zmq.SUB)
-    sub.setsockopt(zmq.LINGER, 0)
-    sub.setsockopt(zmq.SUBSCRIBE, b"")
-    port = sub.bind_to_random_port("tcp://127.0.0.1")
+    sub, port = _bound_sub(ctx, b"")
     control = ctx.socket(zmq.PUB)
     control.setsockopt(zmq.LINGER, 0)
     cport = control.bind_to_random_port("tcp://127.0.0.1")
@@ -285,10 +287,7 @@ def test_cli_refuses_bad_arguments(args, words):
 
 
 def test_sigterm_mid_point_still_sends_end(ctx, tmp_path):
-    sub = ctx.socket(zmq.SUB)
-    sub.setsockopt(zmq.LINGER, 0)
-    sub.setsockopt(zmq.SUBSCRIBE, b"")
-    port = sub.bind_to_random_port("tcp://127.0.0.1")
+    sub, port = _bound_sub(ctx, b"")
     truth_file = tmp_path / "truth.json"
     proc = _spawn(
         "--connect",
