@@ -171,17 +171,12 @@ class BlockingAccumulator:
         h = min(head_len, n)
         nb = (n - h) // base
         rest = n - h - nb * base
-        R = np.empty((self.D, nb + 2))
+        R = np.empty((nb + 2, self.D))
         block_sums(
             block,
             self.ref,
             base,
             head_len,
-            lay.c2,
-            lay.c3p,
-            lay.c3k,
-            lay.c4p,
-            lay.c4l,
             lay.r_target,
             lay.r_src,
             lay.r_comp,
@@ -191,18 +186,15 @@ class BlockingAccumulator:
             s4,
             R,
         )
-        head, tail = R[:, 0], R[:, nb + 1]
-        y = R[:, 1 : nb + 1] / base
-        columns = []
+        head, tail = R[0], R[nb + 1]
+        y = R[1 : nb + 1] / base
         if h:
             self.carry_sums += head
             self.carry_n += h
             if self.carry_n == base:
-                columns.append(self.carry_sums / base)
+                y = np.concatenate([(self.carry_sums / base)[None, :], y])
                 self.carry_n, self.carry_sums = 0, np.zeros(self.D)
-        if columns:
-            y = np.concatenate([np.stack(columns, axis=1), y], axis=1)
-        if y.shape[1]:
+        if y.shape[0]:
             blocking_push(
                 y,
                 self.count,
@@ -215,16 +207,17 @@ class BlockingAccumulator:
                 self.pending,
                 self.has_pending,
             )
-            self._add_segments(y[: self.m])
+            self._add_segments(y[:, : self.m])
         if rest:
             self.carry_n, self.carry_sums = rest, tail.copy()
         return mean, s2, s3, s4
 
     def _add_segments(self, means: np.ndarray) -> None:
-        i, nb = 0, means.shape[1]
+        """Add base-block component means ``means`` (nb, m) to the segment store."""
+        i, nb = 0, means.shape[0]
         while i < nb:
             take = min(self.seg_len - self.seg_fill, nb - i)
-            self.seg_cur += means[:, i : i + take].sum(axis=1)
+            self.seg_cur += means[i : i + take].sum(axis=0)
             self.seg_fill += take
             i += take
             if self.seg_fill == self.seg_len:
@@ -289,7 +282,7 @@ class BlockingAccumulator:
         sums = self.carry_sums + other.carry_sums
         new.carry_n, new.carry_sums = 0, np.zeros(self.D)
         if total >= self.base:
-            y = (sums / total)[:, None]
+            y = (sums / total)[None, :]
             blocking_push(
                 y,
                 new.count,
@@ -302,7 +295,7 @@ class BlockingAccumulator:
                 new.pending,
                 new.has_pending,
             )
-            new._add_segments(y[: self.m])
+            new._add_segments(y[:, : self.m])
         elif total:
             new.carry_n, new.carry_sums = total, sums
         return new
