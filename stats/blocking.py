@@ -149,11 +149,10 @@ class BlockingAccumulator:
     def ingest(self, block: np.ndarray):
         """Add a block and return its mean and central sums (for a moment accumulator).
 
-        One sweep over the samples serves both: :func:`stats.kernels.block_sums` (two-pass:
-        block mean, then products) gives the block's central co-moment sums and, shifted to
-        ``ref``, the monomial means of every base block. Base blocks are aligned on the
-        stream, not on the blocks it arrives in, so any split of the stream gives the same
-        blocking state.
+        One sweep over the samples serves both: :func:`stats.kernels.block_sums` (products of
+        ``x - ref``) gives the monomial sums of every base block and, re-centred exactly, the
+        block's central co-moment sums. Base blocks are aligned on the stream, not on the
+        blocks it arrives in, so any split of the stream gives the same blocking state.
         """
         block = kernel_view(block)
         n = block.shape[0]

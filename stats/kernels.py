@@ -48,7 +48,7 @@ def kernel_view(block: np.ndarray) -> np.ndarray:
 _FAST = {"nnan", "ninf", "nsz", "arcp", "contract", "reassoc"}
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def central_sums(x, mean, s2, s3, s4):
     """Mean and central co-moment *sums* of a block ``x`` (n, m), in two passes.
 
@@ -66,7 +66,7 @@ def central_sums(x, mean, s2, s3, s4):
     _split_degrees(C.sum(axis=0), m, s2, s3, s4)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def _split_degrees(T, m, s2, s3, s4):
     """Copy the degree 2, 3 and 4 parts of monomial vector ``T`` into ``s2``, ``s3``, ``s4``."""
     o = m
@@ -80,7 +80,7 @@ def _split_degrees(T, m, s2, s3, s4):
         s4[q] = T[o + q]
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def _block_mean(x, mean):
     """Pass 1: the mean of each column, summed as deviations from the first row (a 1e8
     offset would otherwise cost about six digits); NaN for an empty block."""
@@ -100,7 +100,7 @@ def _block_mean(x, mean):
         mean[i] = x0[i] + acc[i] / n
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def monomial_sums(x, c, starts, lens, out):
     """Sums of every monomial of degree 1-4 of ``x - c`` over chunks of rows.
 
@@ -121,7 +121,7 @@ def monomial_sums(x, c, starts, lens, out):
         _sums1(x, c, starts, lens, out)
 
 
-@numba.njit(cache=True, fastmath=_FAST)
+@numba.njit(cache=True, nogil=True, fastmath=_FAST)
 def _sums1(x, c, starts, lens, out):
     c0 = c[0]
     for j in range(starts.shape[0]):
@@ -136,7 +136,7 @@ def _sums1(x, c, starts, lens, out):
         out[j, 0], out[j, 1], out[j, 2], out[j, 3] = a0, a1, a2, a3
 
 
-@numba.njit(cache=True, fastmath=_FAST)
+@numba.njit(cache=True, nogil=True, fastmath=_FAST)
 def _sums2(x, c, starts, lens, out):
     L = _longest(lens)
     U, V = np.empty(L), np.empty(L)
@@ -170,7 +170,7 @@ def _sums2(x, c, starts, lens, out):
         out[j, 9], out[j, 10], out[j, 11], out[j, 12], out[j, 13] = a9, a10, a11, a12, a13
 
 
-@numba.njit(cache=True, fastmath=_FAST)
+@numba.njit(cache=True, nogil=True, fastmath=_FAST)
 def _sums3(x, c, starts, lens, out):
     L = _longest(lens)
     U, V, W = np.empty(L), np.empty(L), np.empty(L)
@@ -232,7 +232,7 @@ def _sums3(x, c, starts, lens, out):
         out[j, 31], out[j, 32], out[j, 33] = a31, a32, a33
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def _longest(lens):
     L = 1
     for j in range(lens.shape[0]):
@@ -240,7 +240,7 @@ def _longest(lens):
     return L
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4, R):
     """Both reductions of a block in one sweep: moments *and* base-block monomial sums.
 
@@ -286,7 +286,7 @@ def block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4
     _split_degrees(C, m, s2, s3, s4)
 
 
-@numba.njit(cache=True)
+@numba.njit(cache=True, nogil=True)
 def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending):
     """Push block-mean vectors ``y`` (n, D), one row per block, into the dyadic blocking levels.
 
