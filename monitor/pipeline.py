@@ -556,21 +556,31 @@ class Pipeline:
         return st
 
     def _trace(self, st, velocity, columns, rate_hz, times, t0) -> None:
+        """Keep a thinned copy of the latest samples (at most TRACE_ROWS rows) for display.
+
+        The buffer holds twice TRACE_ROWS rows and is compacted only when full, so a message
+        costs a strided copy of at most TRACE_ROWS_PER_MESSAGE rows.
+        """
         n, m = velocity.shape
         if st.trace_columns != columns:
-            st.trace = np.zeros((TRACE_ROWS, m + 1))
+            st.trace = np.zeros((2 * TRACE_ROWS, m + 1))
             st.trace_columns, st.trace_fill = columns, 0
         stride = max(1, -(-n // TRACE_ROWS_PER_MESSAGE))
-        rows = np.arange(0, n, stride)
-        k = len(rows)
-        t = np.asarray(times, dtype=np.float64)[rows] if times is not None else t0 + rows / rate_hz
-        new = np.empty((k, m + 1))
-        new[:, 0] = t
-        new[:, 1:] = velocity[rows]
-        keep = min(st.trace_fill, TRACE_ROWS - k)
-        st.trace[:keep] = st.trace[st.trace_fill - keep : st.trace_fill]
-        st.trace[keep : keep + k] = new
-        st.trace_fill = keep + k
+        thinned = velocity[::stride]
+        k = thinned.shape[0]
+        if st.trace_fill + k > st.trace.shape[0]:
+            keep = TRACE_ROWS - k
+            st.trace[:keep] = st.trace[st.trace_fill - keep : st.trace_fill]
+            st.trace_fill = keep
+        rows = st.trace[st.trace_fill : st.trace_fill + k]
+        if times is not None:
+            rows[:, 0] = times[::stride]
+        else:
+            rows[:, 0] = np.arange(0, n, stride)
+            rows[:, 0] /= rate_hz
+            rows[:, 0] += t0
+        rows[:, 1:] = thinned
+        st.trace_fill += k
 
     def _maybe_publish(self, force: bool = False) -> None:
         if force or self._clock() - self._last_publish >= self._interval:
@@ -596,9 +606,11 @@ class Pipeline:
                 self._take_stats_snapshot(st, run)
             trace = {}
             if st.trace_fill:
-                trace["t"] = st.trace[: st.trace_fill, 0]
+                # a copy: the buffer is overwritten by the next messages, a snapshot is not
+                window = st.trace[max(0, st.trace_fill - TRACE_ROWS) : st.trace_fill].copy()
+                trace["t"] = window[:, 0]
                 for j, c in enumerate(st.trace_columns):
-                    trace[c] = st.trace[: st.trace_fill, j + 1]
+                    trace[c] = window[:, j + 1]
             history = {k: np.asarray(v) for k, v in run.history.items()} if run else {}
             views[name] = StreamView(
                 stream=name,

@@ -289,3 +289,34 @@ def test_converged_callback_once_per_point_with_acquisition_time():
         assert 0 < at_s <= 40 * 2048 / 10000.0
     a, b, _ = lines_of(buf)
     assert a["converged"] is True and a["converged_at_s"] == pytest.approx(calls[0][2])
+
+
+def test_trace_is_the_thinned_latest_samples_and_a_held_snapshot_keeps_its_own():
+    """The display trace: every stride-th sample of each message (stride = ceil(n / 256)),
+    at most TRACE_ROWS rows, the newest last, times from t0 + index / rate; a snapshot
+    already published keeps its values while later messages arrive."""
+    from monitor.pipeline import TRACE_ROWS_PER_MESSAGE
+
+    clock = FakeClock()
+    p = Pipeline(summary=io.StringIO(), clock=clock, snapshot_interval_s=0.0)
+    w = StreamWriter(rate_hz=1000.0)
+    p.handle_frames(w.point("P"))
+    rng = np.random.default_rng(5)
+    sent = [rng.standard_normal((1000, 3)).astype(np.float32) for _ in range(30)]
+    held = None
+    for i, b in enumerate(sent):
+        p.handle_frames(w.samples(b))
+        if i == 10:
+            held = p.snapshot.streams["probe-a"].trace
+            held_copy = {k: v.copy() for k, v in held.items()}
+    stride = -(-1000 // TRACE_ROWS_PER_MESSAGE)
+    expect_u = np.concatenate([b[::stride, 0] for b in sent])[-TRACE_ROWS:]
+    expect_t = np.concatenate(
+        [(i * 1000 + np.arange(0, 1000, stride)) / 1000.0 for i in range(len(sent))]
+    )[-TRACE_ROWS:]
+    trace = p.snapshot.streams["probe-a"].trace
+    assert np.array_equal(trace["u"], expect_u.astype(np.float64))
+    assert np.allclose(trace["t"], expect_t, rtol=0, atol=1e-9)
+    for k, v in held_copy.items():
+        assert np.array_equal(held[k], v), k
+    p.close()
