@@ -18,9 +18,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import lru_cache
 
+import numba
 import numpy as np
 from scipy import stats as sps
 
+from stats.delta import influence_sums
 from stats.kernels import block_sums, blocking_push, kernel_view
 from stats.monomials import layout
 
@@ -48,49 +50,89 @@ class LevelChoice:
     relative_error: np.ndarray  # relative standard error of sqrt(variance)
 
 
+@lru_cache(maxsize=64)
+def _chi2_99_table(K: int) -> np.ndarray:
+    """The chi-squared 0.99 quantiles with K - j degrees of freedom, j = 0 .. K-1 (read-only)."""
+    q = np.array([_chi2_99(K - j) for j in range(K)])
+    q.setflags(write=False)
+    return q
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _jonsson_lugsail(c0, gamma, n, q, base, var, level, blocks, block_samples, rel):
+    """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level).
+
+    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2).
+    """
+    S = c0.shape[0]
+    K = q.shape[0]
+    r2 = np.empty(K)
+    for s in range(S):
+        for jj in range(K):
+            r = n[jj] * (gamma[s, jj] / c0[s, jj]) ** 2
+            r2[jj] = r if np.isfinite(r) else np.inf
+        # M_j = sum_{k >= j} r2_k, summed from the top level down
+        first_ok = -1
+        acc = 0.0
+        for jj in range(K - 1, -1, -1):
+            acc += r2[jj]
+            if acc < q[jj]:
+                first_ok = jj
+        j = min(max(first_ok, 1), K - 1)  # never level 0 alone
+        nj, nm = n[j], n[j - 1]
+        if first_ok < 0 or not (nj >= 2 and nm >= 2):
+            var[s], level[s], blocks[s], block_samples[s], rel[s] = np.nan, -1, 0, 0, np.nan
+            continue
+        vj = c0[s, j] / (nj - 1)
+        vm = c0[s, j - 1] / (nm - 1)
+        # lugsail 2 V_j - V_{j-1}; never below V_j; rounding can leave c0 a hair below zero
+        # (NaN propagates, as np.maximum does)
+        v = 2.0 * vj - vm
+        if vj > v or np.isnan(vj):
+            v = vj
+        if v < 0.0:
+            v = 0.0
+        var[s] = v
+        level[s] = j
+        blocks[s] = np.int64(nj)
+        block_samples[s] = base * 2**j
+        # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n)
+        # = 5/n for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
+        # the standard error's relative error is half of its square root.
+        rel[s] = 0.5 * np.sqrt(5.0 / max(nj - 1, 1.0))
+
+
 def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) -> LevelChoice:
     """Jonsson's choice with the lugsail correction, for each row of ``c0``/``gamma`` (S, L).
 
     ``n`` (L,) is the number of blocks per level. Level 0 is never used on its own: the lugsail
-    combination needs the level below, and it costs only a factor 2 in block count.
+    combination needs the level below, and it costs only a factor 2 in block count. Level j is
+    the first whose M_j = sum_{k >= j} n_k (gamma_k / c0_k)^2 is below the chi2(K - j) 0.99
+    quantile, over the K levels with at least MIN_BLOCKS_PER_LEVEL blocks.
     """
     S, L = c0.shape
     usable = np.flatnonzero(n >= MIN_BLOCKS_PER_LEVEL)
     var = np.full(S, np.nan)
     level = np.full(S, -1, dtype=np.int64)
     blocks = np.zeros(S, dtype=np.int64)
+    block_samples = np.zeros(S, dtype=np.int64)
     rel = np.full(S, np.nan)
     if usable.size < 2:
-        return LevelChoice(var, level, blocks, np.zeros(S, dtype=np.int64), rel)
+        return LevelChoice(var, level, blocks, block_samples, rel)
     K = int(usable[-1]) + 1
-    with np.errstate(invalid="ignore", divide="ignore"):
-        r2 = n[None, :K] * (gamma[:, :K] / c0[:, :K]) ** 2
-    r2 = np.where(np.isfinite(r2), r2, np.inf)
-    # M_j = sum_{k >= j} n_k (gamma_k / c0_k)^2, compared with the chi2(K - j) 0.99 quantile
-    M = np.cumsum(r2[:, ::-1], axis=1)[:, ::-1]
-    q = np.array([_chi2_99(K - jj) for jj in range(K)])
-    ok = M < q[None, :]
-    found = ok.any(axis=1) & (K >= 2)
-    j = np.maximum(np.argmax(ok, axis=1), 1)  # first level passing; never level 0 alone
-    j = np.minimum(j, K - 1)
-    rows = np.arange(S)
-    nj, nm = n[j], n[j - 1]
-    found &= (nj >= 2) & (nm >= 2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        vj = c0[rows, j] / (nj - 1)
-        vm = c0[rows, j - 1] / (nm - 1)
-    # lugsail 2 V_j - V_{j-1}; never below V_j; rounding can leave c0 a hair below zero
-    v = np.maximum(np.maximum(vj, 2.0 * vj - vm), 0.0)
-    var = np.where(found, v, np.nan)
-    level = np.where(found, j, -1).astype(np.int64)
-    blocks = np.where(found, nj, 0).astype(np.int64)
-    # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n) = 5/n
-    # for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
-    # the standard error's relative error is half of its square root.
-    rel = np.where(found, 0.5 * np.sqrt(5.0 / np.maximum(nj - 1, 1)), np.nan)
-    return LevelChoice(
-        var, level, blocks, np.where(level >= 0, base * 2 ** np.maximum(level, 0), 0), rel
+    _jonsson_lugsail(
+        np.ascontiguousarray(c0, dtype=np.float64),
+        np.ascontiguousarray(gamma, dtype=np.float64),
+        np.ascontiguousarray(n, dtype=np.float64),
+        _chi2_99_table(K),
+        int(base),
+        var,
+        level,
+        blocks,
+        block_samples,
+        rel,
     )
+    return LevelChoice(var, level, blocks, block_samples, rel)
 
 
 class BlockingAccumulator:
@@ -334,15 +376,24 @@ class BlockingAccumulator:
         if L == 0:
             return choose_level(np.zeros((S, 0)), np.zeros((S, 0)), n, self.base)
         mu = self.S[0] / self.count[0]  # global means of the monomials (all base blocks)
-        Q = self.Q[:L]
-        P = self.P[:L]
-        g = grad
-        zq = (np.matmul(g[None], Q) * g[None]).sum(axis=-1).T  # g^T Q_k g for every (s, k)
-        zp = (np.matmul(g[None], P) * g[None]).sum(axis=-1).T
-        zs = g @ self.S[:L].T
-        zf = g @ self.first[:L].T
-        zl = g @ self.last[:L].T
-        zmu = g @ mu
+        zq, zp, zs, zf, zl = (np.empty((S, L)) for _ in range(5))
+        zmu = np.empty(S)
+        # g^T Q_k g, g^T P_k g, g.S_k, g.first_k, g.last_k, g.mu for every (s, k)
+        influence_sums(
+            np.ascontiguousarray(grad, dtype=np.float64),
+            self.S[:L],
+            self.Q[:L],
+            self.P[:L],
+            self.first[:L],
+            self.last[:L],
+            mu,
+            zq,
+            zp,
+            zs,
+            zf,
+            zl,
+            zmu,
+        )
         mu_ = zmu[:, None]
         # variance about the *global* mean, (S2 - 2 mu S1 + n mu^2) / n (REFERENCES §2 pitfall)
         c0 = (zq - 2 * mu_ * zs + n * mu_**2) / n

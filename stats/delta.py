@@ -13,12 +13,13 @@ from __future__ import annotations
 
 from itertools import combinations
 
+import numba
 import numpy as np
 
 from stats.monomials import Layout
 from stats.names import moment_name
 
-__all__ = ["StatisticTable", "K_METHODS"]
+__all__ = ["StatisticTable", "K_METHODS", "central_terms_and_jacobian", "influence_sums"]
 
 #: How k is formed from the components present (DESIGN §3; README states the 2-component one).
 K_METHODS = {
@@ -63,13 +64,22 @@ class StatisticTable:
                     monos.append(lay.monomial_index(tuple(sorted(c[i] for i in sub))) if s else D)
                     comps.append(comp + [m] * (4 - len(comp)))
                     owner.append(ci)
-        self._mono = np.array(monos)
-        self._comp = np.array(comps)
+        self._mono = np.array(monos, dtype=np.int64)
+        self._comp = np.array(comps, dtype=np.int64)
         summing = np.zeros((len(monos), len(self.combo_list)))
         summing[np.arange(len(monos)), owner] = 1.0
         self._summing = summing
-        self._owner = np.array(owner)
-        self._combo_pos = {c: i for i, c in enumerate(self.combo_list)}
+        self._owner = np.array(owner, dtype=np.int64)
+        pos = {c: i for i, c in enumerate(self.combo_list)}
+        self._combo_pos = pos
+        # positions in combo_list of what values_and_gradient picks, in report order
+        self._stress_pos = np.array([pos[c] for c in stress], dtype=np.int64)
+        self._normal_pos = np.array([pos[(i, i)] for i in range(m)], dtype=np.int64)
+        self._cube_pos = np.array([pos[(i, i, i)] for i in range(m)], dtype=np.int64)
+        self._quart_pos = np.array([pos[(i, i, i, i)] for i in range(m)], dtype=np.int64)
+        self._third_pos = np.array([pos[c] for c in lay.combos[3]], dtype=np.int64)
+        self._fourth_pos = np.array([pos[c] for c in lay.combos[4]], dtype=np.int64)
+        self._kfac = {3: 0.5, 2: 0.75, 1: 1.5}[m]
 
     def central_all(self, raw: np.ndarray) -> np.ndarray:
         """All central co-moments (..., n2 + n3 + n4) from monomial means ``raw`` (..., D)."""
@@ -102,50 +112,54 @@ class StatisticTable:
         parts = cols + stress + [k] + third + fourth + skew + flat
         return np.stack(parts, axis=-1)
 
-    def central_jacobian(self, raw: np.ndarray) -> np.ndarray:
-        """d(central co-moments)/d(monomial means), (n2 + n3 + n4, D), real arithmetic."""
-        m = self.m
-        D = raw.shape[0]
-        negd_ext = np.append(-raw[:m], 1.0)
-        raw_ext = np.append(raw, 1.0)
-        factors = negd_ext[self._comp]  # (T, 4)
-        coef = np.prod(factors, axis=1)
-        owner = self._owner
-        J = np.zeros((len(self.combo_list), D + 1))
-        np.add.at(J, (owner, self._mono), coef)
-        # each -delta_i factor: d/d raw_i of (-delta_i) is -1; product of the other factors
-        for p in range(4):
-            others = np.prod(np.delete(factors, p, axis=1), axis=1)
-            comp = self._comp[:, p]
-            real = comp < m
-            np.add.at(J, (owner[real], comp[real]), -raw_ext[self._mono[real]] * others[real])
-        return J[:, :D]
-
     def values_and_gradient(
         self, raw: np.ndarray, ref: np.ndarray
     ) -> tuple[np.ndarray, np.ndarray]:
-        """Values (S,) and gradient (S, D) with respect to the monomial means."""
-        raw = np.asarray(raw, dtype=np.float64)
-        m, lay, pos = self.m, self.layout, self._combo_pos
-        D = raw.shape[0]
+        """Values (S,) and gradient (S, D) with respect to the monomial means.
+
+        The central co-moments and their Jacobian come from one pass over the expansion table
+        (:func:`central_terms_and_jacobian`); the rest is the chain rule for k, skewness and
+        flatness.
+        """
+        raw = np.ascontiguousarray(raw, dtype=np.float64)
+        m, D = self.m, raw.shape[0]
+        terms = np.empty(self._mono.shape[0])
+        J = np.empty((len(self.combo_list), D))
+        central_terms_and_jacobian(raw, m, self._mono, self._comp, self._owner, terms, J)
+        cen = terms @ self._summing  # as central_all sums them
+        c2, c3, c4 = cen[self._normal_pos], cen[self._cube_pos], cen[self._quart_pos]
+        J2 = J[self._normal_pos]
+        kfac = self._kfac
         with np.errstate(invalid="ignore", divide="ignore"):
-            values = self.evaluate(raw, ref)
-            cen = self.central_all(raw)
-            J = self.central_jacobian(raw)
-            rows = [np.eye(D)[i] for i in range(m)]
-            rows += [J[pos[c]] for c in self.stress_combos]
-            normal = [J[pos[(i, i)]] for i in range(m)]
-            kfac = {3: 0.5, 2: 0.75, 1: 1.5}[m]
-            rows.append(kfac * np.sum(normal, axis=0))
-            rows += [J[pos[c]] for c in lay.combos[3]]
-            rows += [J[pos[c]] for c in lay.combos[4]]
-            for i in range(m):
-                c2, c3 = cen[pos[(i, i)]], cen[pos[(i, i, i)]]
-                rows.append(J[pos[(i, i, i)]] / c2**1.5 - 1.5 * c3 / c2**2.5 * normal[i])
-            for i in range(m):
-                c2, c4 = cen[pos[(i, i)]], cen[pos[(i, i, i, i)]]
-                rows.append(J[pos[(i, i, i, i)]] / c2**2 - 2.0 * c4 / c2**3 * normal[i])
-        return values, np.array(rows)
+            # the same expressions as evaluate(), one component per element
+            k = kfac * sum(c2.tolist())
+            skew = c3 / c2**1.5
+            flat = c4 / c2**2
+            values = np.concatenate(
+                [
+                    ref[:m] + raw[:m],
+                    cen[self._stress_pos],
+                    [k],
+                    cen[self._third_pos],
+                    cen[self._fourth_pos],
+                    skew,
+                    flat,
+                ]
+            )
+            g_skew = J[self._cube_pos] / (c2**1.5)[:, None] - (1.5 * c3 / c2**2.5)[:, None] * J2
+            g_flat = J[self._quart_pos] / (c2**2)[:, None] - (2.0 * c4 / c2**3)[:, None] * J2
+            grad = np.concatenate(
+                [
+                    np.eye(m, D),
+                    J[self._stress_pos],
+                    kfac * J2.sum(axis=0)[None, :],
+                    J[self._third_pos],
+                    J[self._fourth_pos],
+                    g_skew,
+                    g_flat,
+                ]
+            )
+        return values, grad
 
     def values_and_gradient_complex_step(self, raw, ref):
         """Reference gradient by complex-step differentiation of :meth:`evaluate` (for tests)."""
@@ -156,3 +170,102 @@ class StatisticTable:
         with np.errstate(invalid="ignore", divide="ignore"):
             out = self.evaluate(probe, ref.astype(np.complex128))
         return out[D].real, (out[:D].imag / _STEP).T
+
+
+@numba.njit(cache=True)
+def central_terms_and_jacobian(raw, m, mono, comp, owner, terms, J):
+    """Terms of the central co-moments (T,) and their Jacobian ``J`` (C, D) from monomial means.
+
+    ``raw`` (D,) are the monomial means of ``x - ref``; ``delta = raw[:m]``. Term ``t`` of the
+    expansion table (see :class:`StatisticTable`) is ``raw[mono[t]] * prod(-delta[comp[t]])``
+    and belongs to co-moment ``owner[t]``; index D of ``raw`` and index m of ``-delta`` stand
+    for 1. The Jacobian collects d/d raw[mono] (the product) and d/d delta_i (-1 times the
+    product of the other factors), in that order.
+    """
+    D = raw.shape[0]
+    T = mono.shape[0]
+    J[:, :] = 0.0
+    f = np.empty(4)
+    for t in range(T):
+        for p in range(4):
+            c = comp[t, p]
+            f[p] = -raw[c] if c < m else 1.0
+        coef = f[0] * f[1] * f[2] * f[3]
+        mo = mono[t]
+        if mo < D:
+            terms[t] = raw[mo] * coef
+            J[owner[t], mo] += coef
+        else:
+            terms[t] = coef
+    for p in range(4):
+        for t in range(T):
+            c = comp[t, p]
+            if c >= m:
+                continue
+            others = 1.0
+            first = True
+            for q in range(4):
+                if q == p:
+                    continue
+                cq = comp[t, q]
+                fq = -raw[cq] if cq < m else 1.0
+                if first:
+                    others = fq
+                    first = False
+                else:
+                    others = others * fq
+            mo = mono[t]
+            r = raw[mo] if mo < D else 1.0
+            J[owner[t], c] += -r * others
+
+
+@numba.njit(cache=True)
+def influence_sums(grad, S, Q, P, first, last, mu, zq, zp, zs, zf, zl, zmu):
+    """Blocking sums of the influence series ``grad[s] @ y`` of every statistic, per level.
+
+    From the level sums of the monomial block means ``y`` (``S`` (L, D), outer-product sums
+    ``Q`` and symmetrised lag-one sums ``P`` (L, D, D), ``first``/``last`` (L, D)) and their
+    global means ``mu`` (D,): ``zq[s, k] = g Q_k g``, ``zp[s, k] = g P_k g``, ``zs``, ``zf``,
+    ``zl`` (S, L) the projections of ``S``, ``first``, ``last``, and ``zmu`` (S,). A gradient
+    touches only the monomials of its statistic's components and order, so only its nonzero
+    entries enter (exact zeros add nothing; a NaN entry is kept).
+    """
+    n_stat, D = grad.shape
+    L = Q.shape[0]
+    idx = np.empty(D, dtype=np.int64)
+    for s in range(n_stat):
+        nz = 0
+        for a in range(D):
+            if grad[s, a] != 0.0:
+                idx[nz] = a
+                nz += 1
+        acc = 0.0
+        for i in range(nz):
+            acc += grad[s, idx[i]] * mu[idx[i]]
+        zmu[s] = acc
+        for k in range(L):
+            aq = 0.0
+            ap = 0.0
+            a_s = 0.0
+            a_f = 0.0
+            a_l = 0.0
+            for i in range(nz):
+                a = idx[i]
+                ga = grad[s, a]
+                rq = 0.0
+                rp = 0.0
+                for j in range(nz):
+                    b = idx[j]
+                    gb = grad[s, b]
+                    rq += Q[k, a, b] * gb
+                    rp += P[k, a, b] * gb
+                aq += ga * rq
+                ap += ga * rp
+                a_s += ga * S[k, a]
+                a_f += ga * first[k, a]
+                a_l += ga * last[k, a]
+            zq[s, k] = aq
+            zp[s, k] = ap
+            zs[s, k] = a_s
+            zf[s, k] = a_f
+            zl[s, k] = a_l

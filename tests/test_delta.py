@@ -3,7 +3,8 @@
 import numpy as np
 import pytest
 
-from stats.delta import StatisticTable
+from stats.blocking import BlockingAccumulator
+from stats.delta import StatisticTable, central_terms_and_jacobian, influence_sums
 from stats.moments import MomentAccumulator
 from stats.monomials import layout
 
@@ -36,3 +37,55 @@ def test_values_from_monomials_match_numpy():
     assert values["uw"] == pytest.approx((d[:, 0] * d[:, 2]).mean(), rel=1e-9)
     assert values["vvw"] == pytest.approx((d[:, 1] ** 2 * d[:, 2]).mean(), rel=1e-8)
     assert values["uuvv"] == pytest.approx((d[:, 0] ** 2 * d[:, 1] ** 2).mean(), rel=1e-9)
+
+
+def _numpy_central_jacobian(tab, raw):
+    """The numpy version the kernel replaced: d(central co-moments)/d(monomial means)."""
+    m, D = tab.m, raw.shape[0]
+    negd_ext = np.append(-raw[:m], 1.0)
+    raw_ext = np.append(raw, 1.0)
+    factors = negd_ext[tab._comp]
+    J = np.zeros((len(tab.combo_list), D + 1))
+    np.add.at(J, (tab._owner, tab._mono), np.prod(factors, axis=1))
+    for p in range(4):
+        others = np.prod(np.delete(factors, p, axis=1), axis=1)
+        comp = tab._comp[:, p]
+        real = comp < m
+        np.add.at(J, (tab._owner[real], comp[real]), -raw_ext[tab._mono[real]] * others[real])
+    return J[:, :D]
+
+
+@pytest.mark.parametrize("m", [1, 2, 3])
+def test_central_terms_and_jacobian_kernel_matches_numpy(m):
+    rng = np.random.default_rng(10 + m)
+    x = rng.gamma(2.0, size=(5000, m)) + np.array([3.0, 1.0, 0.0])[:m]
+    ref = x[:64].mean(axis=0)
+    raw = MomentAccumulator(m).update(x).raw_about(ref)
+    tab = StatisticTable(("u", "v", "w")[:m], layout(m))
+    terms = np.empty(tab._mono.shape[0])
+    J = np.empty((len(tab.combo_list), raw.size))
+    central_terms_and_jacobian(raw, m, tab._mono, tab._comp, tab._owner, terms, J)
+    np.testing.assert_array_equal(terms @ tab._summing, tab.central_all(raw))
+    np.testing.assert_allclose(J, _numpy_central_jacobian(tab, raw), rtol=1e-14, atol=0.0)
+
+
+@pytest.mark.parametrize("m", [1, 3])
+def test_influence_sums_match_dense_numpy(m):
+    # The kernel skips exact zeros of the gradient; the dense products are the reference.
+    rng = np.random.default_rng(20 + m)
+    x = rng.normal(size=(200_000, m)) + np.array([5.0, 1.0, -2.0])[:m]
+    b = BlockingAccumulator(m, base=64)
+    b.update(x)
+    ref = b.ref
+    raw = MomentAccumulator(m).update(x).raw_about(ref)
+    _, g = StatisticTable(("u", "v", "w")[:m], layout(m)).values_and_gradient(raw, ref)
+    g[1, :] = rng.normal(size=g.shape[1])  # one dense row too
+    L = int(np.count_nonzero(b.count))
+    mu = b.S[0] / b.count[0]
+    out = [np.empty((g.shape[0], L)) for _ in range(5)] + [np.empty(g.shape[0])]
+    influence_sums(g, b.S[:L], b.Q[:L], b.P[:L], b.first[:L], b.last[:L], mu, *out)
+    zq = (np.matmul(g[None], b.Q[:L]) * g[None]).sum(axis=-1).T
+    zp = (np.matmul(g[None], b.P[:L]) * g[None]).sum(axis=-1).T
+    want = [zq, zp, g @ b.S[:L].T, g @ b.first[:L].T, g @ b.last[:L].T, g @ mu]
+    for got, ref_ in zip(out, want, strict=True):
+        np.testing.assert_allclose(got, ref_, rtol=1e-12, atol=1e-300)
