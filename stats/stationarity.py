@@ -58,6 +58,7 @@ from functools import lru_cache
 from itertools import accumulate
 from types import MappingProxyType
 
+import numba
 import numpy as np
 
 __all__ = [
@@ -68,6 +69,7 @@ __all__ = [
     "trend_t",
     "StationarityVerdict",
     "assess",
+    "assess_columns",
     "MIN_SEGMENTS",
     "EXACT_LIMIT",
     "DEFAULT_ALPHA",
@@ -92,14 +94,25 @@ def reverse_arrangements(x: np.ndarray) -> int:
     26
     """
     a = np.asarray(x, dtype=np.float64).ravel()
-    n = a.size
-    if n < 2:
+    if a.size < 2:
         return 0
-    if n <= 2048:
-        # Pairwise comparison of the upper triangle: n <= 63 in use, one vectorised pass.
-        gt = a[:, None] > a[None, :]
-        return int(np.count_nonzero(np.triu(gt, k=1)))
-    return int(sum(np.count_nonzero(a[i] > a[i + 1 :]) for i in range(n - 1)))
+    out = np.empty(1, dtype=np.int64)
+    _inversions(np.ascontiguousarray(a.reshape(-1, 1)), out)
+    return int(out[0])
+
+
+@numba.njit(cache=True)
+def _inversions(x, out):
+    """``out[c] = #{i < j : x[i, c] > x[j, c]}`` for every column ``c`` of ``x`` (n, k)."""
+    n, k = x.shape
+    for c in range(k):
+        a = 0
+        for i in range(n - 1):
+            xi = x[i, c]
+            for j in range(i + 1, n):
+                if xi > x[j, c]:
+                    a += 1
+        out[c] = a
 
 
 @lru_cache(maxsize=256)
@@ -162,10 +175,61 @@ def reverse_arrangement_acceptance(n: int, alpha: float) -> tuple[int, int]:
     return lo, top - lo - 1 if lo >= 0 else top
 
 
-def _halves(m: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    n = m.size
+@numba.njit(cache=True)
+def _trend_and_halves(x, t, slope, first, second):
+    """Per column ``c`` of ``x`` (n, k): the regression ``t`` and ``slope`` of the values against
+    their centred index (NaN when n < 3 or the fit is perfect), and the means ``first`` and
+    ``second`` of the first and last ``n // 2`` values (NaN when n < 2)."""
+    n, k = x.shape
     h = n // 2
-    return m[:h], m[n - h :]
+    sxx = 0.0
+    for r in range(n):
+        i = r - 0.5 * (n - 1)
+        sxx += i * i
+    for c in range(k):
+        s = 0.0
+        for r in range(n):
+            s += x[r, c]
+        mean = s / n if n > 0 else np.nan
+        sxy = 0.0
+        for r in range(n):
+            sxy += (r - 0.5 * (n - 1)) * (x[r, c] - mean)
+        b = sxy / sxx if n >= 3 else np.nan
+        ss = 0.0
+        for r in range(n):
+            e = (x[r, c] - mean) - b * (r - 0.5 * (n - 1))
+            ss += e * e
+        slope[c] = b
+        t[c] = np.nan
+        if n >= 3:
+            s2 = ss / (n - 2)
+            if s2 > 0.0:
+                t[c] = b / math.sqrt(s2 / sxx)
+        f = 0.0
+        g = 0.0
+        for r in range(h):
+            f += x[r, c]
+            g += x[n - h + r, c]
+        first[c] = f / h if h > 0 else np.nan
+        second[c] = g / h if h > 0 else np.nan
+
+
+def _column_tests(x: np.ndarray):
+    """(t, slope, first-half mean, second-half mean, reverse arrangements) per column of x."""
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    k = x.shape[1]
+    t, slope, first, second = (np.empty(k) for _ in range(4))
+    _trend_and_halves(x, t, slope, first, second)
+    inv = np.empty(k, dtype=np.int64)
+    _inversions(x, inv)
+    return t, slope, first, second, inv
+
+
+def _half_z(n: int, first: float, second: float, se: float) -> float:
+    """Halves of N1 = N2 = n // 2 values each, their means' difference over its SE."""
+    h = n // 2
+    sd = se * math.sqrt(n / h + n / h)
+    return float((second - first) / sd)
 
 
 def half_difference_z(segment_means: np.ndarray, stderr_of_mean: float) -> float:
@@ -184,10 +248,8 @@ def half_difference_z(segment_means: np.ndarray, stderr_of_mean: float) -> float
     se = float(stderr_of_mean)
     if m.size < 2 or not (math.isfinite(se) and se > 0.0):
         return math.nan
-    first, second = _halves(m)
-    n = m.size
-    sd = se * math.sqrt(n / first.size + n / second.size)
-    return float((second.mean() - first.mean()) / sd)
+    _, _, first, second, _ = _column_tests(m.reshape(-1, 1))
+    return _half_z(m.size, first[0], second[0], se)
 
 
 def trend_t(segment_means: np.ndarray) -> float:
@@ -202,18 +264,10 @@ def trend_t(segment_means: np.ndarray) -> float:
     3.40168
     """
     m = np.asarray(segment_means, dtype=np.float64).ravel()
-    n = m.size
-    if n < 3:
+    if m.size < 3:
         return math.nan
-    i = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
-    sxx = float(i @ i)
-    mc = m - m.mean()
-    slope = float(i @ mc) / sxx
-    resid = mc - slope * i
-    s2 = float(resid @ resid) / (n - 2)
-    if not s2 > 0.0:
-        return math.nan
-    return slope / math.sqrt(s2 / sxx)
+    t, _, _, _, _ = _column_tests(m.reshape(-1, 1))
+    return float(t[0])
 
 
 @lru_cache(maxsize=256)
@@ -278,64 +332,81 @@ def assess(
         m = np.asarray(segment_means, dtype=np.float64).ravel()
     except (TypeError, ValueError):
         return _no_verdict(0, "segment means are not numbers")
-    n = int(m.size)
+    return assess_columns(m.reshape(-1, 1), (stderr_of_mean,), alpha=alpha)[0]
+
+
+def assess_columns(
+    segment_means: np.ndarray, stderrs_of_mean, *, alpha: float = DEFAULT_ALPHA
+) -> tuple[StationarityVerdict, ...]:
+    """:func:`assess` of every column of ``segment_means`` (N, k), column ``c`` with the
+    standard error ``stderrs_of_mean[c]``; the test statistics of all columns in one pass."""
+    x = np.asarray(segment_means, dtype=np.float64)
+    n, k = x.shape
     if n < MIN_SEGMENTS:
-        return _no_verdict(n, f"{n} segments, {MIN_SEGMENTS} needed")
-    if not np.all(np.isfinite(m)):
-        return _no_verdict(n, "non-finite segment means")
+        return (_no_verdict(n, f"{n} segments, {MIN_SEGMENTS} needed"),) * k
+    finite = np.isfinite(x).all(axis=0).tolist()
     if not (isinstance(alpha, (int, float)) and 0.0 < alpha < 1.0):
-        return _no_verdict(n, f"alpha must be in (0, 1), got {alpha!r}")
-    try:
-        se = float(stderr_of_mean)
-    except (TypeError, ValueError):
-        se = math.nan
-    se_ok = math.isfinite(se) and se > 0.0
-
-    failed = []
-    reasons = []
-    # Least-squares trend, the main test (highest power against a linear drift).
-    t = trend_t(m)
-    t_crit = _t_critical(n - 2, float(alpha))
-    drift_se = math.nan
-    if math.isfinite(t):
-        i = np.arange(n, dtype=np.float64) - 0.5 * (n - 1)
-        slope = float(i @ (m - m.mean())) / float(i @ i)
-        if se_ok:
-            drift_se = slope * n / se
-        if abs(t) > t_crit:
-            failed.append("trend")
+        why = f"alpha must be in (0, 1), got {alpha!r}"
+        return tuple(_no_verdict(n, why if ok else "non-finite segment means") for ok in finite)
+    alpha = float(alpha)
+    ts, slopes, firsts, seconds, invs = _column_tests(x)
+    t_crit = _t_critical(n - 2, alpha)
+    lo, hi = reverse_arrangement_acceptance(n, alpha / 4.0)
+    z_crit = _z_critical(alpha / 4.0)
+    out = []
+    for c in range(k):
+        if not finite[c]:
+            out.append(_no_verdict(n, "non-finite segment means"))
+            continue
+        try:
+            se = float(stderrs_of_mean[c])
+        except (TypeError, ValueError):
+            se = math.nan
+        se_ok = math.isfinite(se) and se > 0.0
+        failed = []
+        reasons = []
+        # Least-squares trend, the main test (highest power against a linear drift).
+        t = float(ts[c])
+        drift_se = math.nan
+        if math.isfinite(t):
             if se_ok:
-                reasons.append(
-                    f"trend: mean drifts by {drift_se:+.1f} standard errors over the record "
-                    f"(slope t = {t:.1f}, limit {t_crit:.1f})"
-                )
-            else:
-                reasons.append(f"trend: slope t = {t:.1f} over {n} segments (limit {t_crit:.1f})")
-    # Reverse arrangements: distribution-free, catches monotone drifts of any shape.
-    a = reverse_arrangements(m)
-    lo, hi = reverse_arrangement_acceptance(n, float(alpha) / 4.0)
-    if not lo < a <= hi:
-        failed.append("reverse_arrangements")
-        reasons.append(f"trend: {a} reverse arrangements outside ({lo}, {hi}]")
-    # First half against second half with the blocking SE: catches steps.
-    z = half_difference_z(m, se) if se_ok else math.nan
-    z_crit = _z_critical(float(alpha) / 4.0)
-    if math.isfinite(z) and abs(z) > z_crit:
-        failed.append("halves")
-        reasons.append(f"halves differ by {abs(z):.1f} standard errors (limit {z_crit:.1f})")
+                drift_se = float(slopes[c]) * n / se
+            if abs(t) > t_crit:
+                failed.append("trend")
+                if se_ok:
+                    reasons.append(
+                        f"trend: mean drifts by {drift_se:+.1f} standard errors over the record "
+                        f"(slope t = {t:.1f}, limit {t_crit:.1f})"
+                    )
+                else:
+                    reasons.append(
+                        f"trend: slope t = {t:.1f} over {n} segments (limit {t_crit:.1f})"
+                    )
+        # Reverse arrangements: distribution-free, catches monotone drifts of any shape.
+        a = int(invs[c])
+        if not lo < a <= hi:
+            failed.append("reverse_arrangements")
+            reasons.append(f"trend: {a} reverse arrangements outside ({lo}, {hi}]")
+        # First half against second half with the blocking SE: catches steps.
+        z = _half_z(n, firsts[c], seconds[c], se) if se_ok else math.nan
+        if math.isfinite(z) and abs(z) > z_crit:
+            failed.append("halves")
+            reasons.append(f"halves differ by {abs(z):.1f} standard errors (limit {z_crit:.1f})")
 
-    details = {
-        "segments": n,
-        "alpha": float(alpha),
-        "trend_t": t,
-        "trend_t_limit": t_crit,
-        "drift_se": drift_se,
-        "reverse_arrangements": a,
-        "acceptance": (lo, hi),
-        "half_z": z,
-        "half_z_limit": z_crit,
-        "failed": tuple(failed),
-    }
-    if failed:
-        return StationarityVerdict(False, "; ".join(reasons), details)
-    return StationarityVerdict(True, None, details)
+        details = {
+            "segments": n,
+            "alpha": alpha,
+            "trend_t": t,
+            "trend_t_limit": t_crit,
+            "drift_se": drift_se,
+            "reverse_arrangements": a,
+            "acceptance": (lo, hi),
+            "half_z": z,
+            "half_z_limit": z_crit,
+            "failed": tuple(failed),
+        }
+        if failed:
+            out.append(StationarityVerdict(False, "; ".join(reasons), details))
+        else:
+            out.append(StationarityVerdict(True, None, details))
+    return tuple(out)
