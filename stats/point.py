@@ -20,7 +20,7 @@ from stats.delta import K_METHODS, StatisticTable
 from stats.moments import MomentAccumulator
 from stats.names import components_of
 from stats.snapshot import Estimate, PointSnapshot
-from stats.stationarity import assess
+from stats.stationarity import assess_columns
 from stats.targets import Targets
 
 __all__ = ["PointStatistics", "DEFAULT_BASE_BLOCK"]
@@ -43,6 +43,7 @@ class _Evaluation:
     se_rel_err: np.ndarray
     half_width: np.ndarray
     suspect: dict
+    targets: list  # resolved target of each name: float (NaN: not yet known), None: untargeted
 
 
 class PointStatistics:
@@ -78,6 +79,12 @@ class PointStatistics:
         self.moments = MomentAccumulator(m)
         self.blocking = BlockingAccumulator(m, base=base, ref=ref)
         self.table = StatisticTable(self.columns, self.moments.layout)
+        self.names = self.table.names + tuple(
+            f"{prefix}_{c}" for prefix in ("Tint", "Neff", "L") for c in self.columns
+        )
+        # per-name lookups done once: target resolution, components a name depends on
+        self._plan = self.targets.plan(self.names)
+        self._components = tuple(frozenset(components_of(name)) for name in self.names)
         self.checkpoints = Checkpoints()
         self._duration_s = 0.0
         self._cache: _Evaluation | None = None
@@ -142,14 +149,19 @@ class PointStatistics:
             return self._cache
         tab = self.table
         m = len(self.columns)
-        names = tab.names + tuple(
-            f"{prefix}_{c}" for prefix in ("Tint", "Neff", "L") for c in self.columns
-        )
+        names = self.names
         S = len(names)
         nan = np.full(S, np.nan)
         if self.n < 2 or self.blocking.ref is None:
             ev = _Evaluation(
-                names, nan, nan.copy(), np.zeros(S, dtype=np.int64), nan.copy(), nan.copy(), {}
+                names,
+                nan,
+                nan.copy(),
+                np.zeros(S, dtype=np.int64),
+                nan.copy(),
+                nan.copy(),
+                {},
+                self._plan.resolve(nan.tolist()),
             )
             self._cache = ev
             return ev
@@ -184,51 +196,48 @@ class PointStatistics:
         blocks = np.concatenate([blocks, blocks[:m], blocks[:m], blocks[:m]])
         rel = np.concatenate([rel, rel[:m], rel[:m], rel[:m]])
         p = 0.5 * (1.0 + self.confidence)
-        tq = np.array([_t_quantile(p, int(b) - 1) if b >= 2 else np.nan for b in blocks])
-        hw = tq * se
+        blocks = blocks.astype(np.int64)
+        bl = blocks.tolist()
+        quantile = {b: _t_quantile(p, b - 1) if b >= 2 else np.nan for b in set(bl)}
+        hw = np.array([quantile[b] for b in bl]) * se
         suspect = {}
-        seg = self.blocking.segment_means()
-        for i, c in enumerate(self.columns):
-            verdict = assess(seg[:, i] if seg.shape[0] else seg.reshape(0), float(se[i]))
+        verdicts = assess_columns(self.blocking.segment_means(), se[:m].tolist())
+        for c, verdict in zip(self.columns, verdicts, strict=True):
             if not verdict.stationary:
                 suspect[c] = verdict.reason or "not stationary"
-        ev = _Evaluation(names, values, se, blocks.astype(np.int64), rel, hw, suspect)
+        targets = self._plan.resolve(values.tolist())
+        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets)
         self._cache = ev
         return ev
 
-    def _value_map(self, ev: _Evaluation) -> dict[str, float]:
-        return {n: float(v) for n, v in zip(ev.names, ev.values, strict=True)}
+    def _stationary(self, i: int, suspect: dict) -> bool:
+        """True when no component statistic ``i`` depends on is flagged in ``suspect``."""
+        return not (suspect and self._components[i] & suspect.keys())
 
     def _passes(self, ev: _Evaluation) -> dict[str, bool]:
-        vals = self._value_map(ev)
-        out = {}
-        for i, name in enumerate(ev.names):
-            target = self.targets.resolve(name, vals)
-            if target is None:
-                continue
-            stationary = not (components_of(name) & set(ev.suspect))
-            out[name] = passes(
-                float(ev.half_width[i]),
-                target,
-                int(ev.blocks[i]),
-                float(ev.se_rel_err[i]),
-                stationary,
+        hw, blocks, rel = ev.half_width.tolist(), ev.blocks.tolist(), ev.se_rel_err.tolist()
+        return {
+            ev.names[i]: passes(
+                hw[i], ev.targets[i], blocks[i], rel[i], self._stationary(i, ev.suspect)
             )
-        return out
+            for i in self._plan.targeted
+        }
 
     def snapshot(self) -> PointSnapshot:
         """An immutable view of every statistic now."""
         ev = self._evaluate()
-        vals = self._value_map(ev)
         T = self.duration_s
         estimates = []
         all_conv = True
         any_target = False
+        values, stderr = ev.values.tolist(), ev.stderr.tolist()
+        half_width, block_counts = ev.half_width.tolist(), ev.blocks.tolist()
+        se_rel_err = ev.se_rel_err.tolist()
         for i, name in enumerate(ev.names):
-            v, se, hw = float(ev.values[i]), float(ev.stderr[i]), float(ev.half_width[i])
-            blocks = int(ev.blocks[i])
-            target = self.targets.resolve(name, vals)
-            bad = sorted(components_of(name) & set(ev.suspect))
+            v, se, hw = values[i], stderr[i], half_width[i]
+            blocks = block_counts[i]
+            target = ev.targets[i]
+            bad = sorted(self._components[i] & ev.suspect.keys()) if ev.suspect else []
             reason = None
             if target is None:
                 converged, eta = None, None
@@ -242,7 +251,7 @@ class PointStatistics:
                     state, reason = "suspect", "; ".join(f"{c}: {ev.suspect[c]}" for c in bad)
                 elif converged:
                     state = "converged"
-                elif blocks < 64 or not math.isfinite(hw) or ev.se_rel_err[i] > 0.15:
+                elif blocks < 64 or not math.isfinite(hw) or se_rel_err[i] > 0.15:
                     state, reason = "warming-up", f"{blocks} blocks at the chosen level, 64 needed"
                 else:
                     state = "converging"

@@ -54,7 +54,14 @@ from types import MappingProxyType
 
 from stats.names import VELOCITY_LETTERS, family, is_known_name
 
-__all__ = ["TargetsError", "Target", "Targets", "DEFAULT_CONFIDENCE", "DEFAULT_TARGETS"]
+__all__ = [
+    "TargetsError",
+    "Target",
+    "Targets",
+    "TargetPlan",
+    "DEFAULT_CONFIDENCE",
+    "DEFAULT_TARGETS",
+]
 
 #: Confidence level of the intervals when the file does not say.
 DEFAULT_CONFIDENCE = 0.95
@@ -325,6 +332,10 @@ class Targets:
             return math.nan
         return t.relative * s
 
+    def plan(self, names) -> TargetPlan:
+        """:meth:`resolve` for a fixed list of ``names``, worked out once (see TargetPlan)."""
+        return TargetPlan(self, tuple(names))
+
     def describe(self) -> str:
         """Human-readable table of the targets, for ``--help`` and the README."""
         lines = [
@@ -337,3 +348,67 @@ class Targets:
             lines.append(f"  {name:<{width}}  {t.describe()}")
         lines.append("Other statistics are reported without a target.")
         return "\n".join(lines)
+
+
+#: how a relative target's scale is found, by family (see Targets.scale)
+_SCALE_KIND = {
+    "mean": "speed",
+    "skewness": "one",
+    "flatness": "one",
+    "second": "k",
+    "third": "k^1.5",
+    "fourth": "k^2",
+    **{fam: "self" for fam in _SELF_SCALED},
+}
+
+
+class TargetPlan:
+    """:meth:`Targets.resolve` of every name of a fixed list at once, from an array of values.
+
+    A point's statistic names never change, so which names are targeted, how, and where the
+    scales (|U|, k) sit in the value array is worked out once; :meth:`resolve` then computes
+    each shared scale once instead of once per name. Same arithmetic as ``Targets.resolve``
+    with ``values = dict(zip(names, values))``.
+    """
+
+    def __init__(self, targets: Targets, names: tuple[str, ...]):
+        self.names = names
+        pos = {n: i for i, n in enumerate(names)}
+        #: indices of the targeted names, in name order
+        self.targeted = tuple(i for i, n in enumerate(names) if n in targets.targets)
+        # per targeted name: (index, absolute or None, relative or None, scale kind)
+        self._rows = []
+        for i in self.targeted:
+            t = targets.targets[names[i]]
+            kind = _SCALE_KIND.get(family(names[i]), "none")
+            self._rows.append((i, t.absolute, t.relative, kind))
+        self._mean_pos = [pos[c.upper()] for c in VELOCITY_LETTERS if c.upper() in pos]
+        self._k_pos = pos.get("k")
+
+    def resolve(self, values) -> list[float | None]:
+        """Allowed half-width of every name (None untargeted, NaN not yet known); ``values``
+        are the current values in name order (a sequence of floats)."""
+        out: list[float | None] = [None] * len(self.names)
+        scales = {"one": 1.0, "none": math.nan}
+        for i, absolute, relative, kind in self._rows:
+            if absolute is not None:
+                out[i] = absolute
+                continue
+            if kind == "self":
+                s = abs(float(values[i]))
+            else:
+                if kind not in scales:
+                    scales.update(self._shared_scales(values))
+                s = scales[kind]
+            out[i] = relative * s if math.isfinite(s) and s > 0.0 else math.nan
+        return out
+
+    def _shared_scales(self, values) -> dict[str, float]:
+        if self._mean_pos:
+            speed = math.sqrt(math.fsum(float(values[j]) ** 2 for j in self._mean_pos))
+        else:
+            speed = math.nan
+        k = math.nan if self._k_pos is None else float(values[self._k_pos])
+        if not k >= 0.0:  # NaN or negative: not a usable energy yet
+            return {"speed": speed, "k": math.nan, "k^1.5": math.nan, "k^2": math.nan}
+        return {"speed": speed, "k": k, "k^1.5": k**1.5, "k^2": k * k}

@@ -9,6 +9,8 @@ from hypothesis import strategies as st
 from processes import ar1, turbulence
 
 from stats import PointStatistics, Targets, statistic_names
+from stats.blocking import _chi2_99, choose_level
+from stats.stationarity import assess, assess_columns, reverse_arrangements
 
 
 def test_snapshot_lists_every_statistic_in_design_order():
@@ -177,3 +179,113 @@ def test_where_a_block_came_from_never_changes_a_digit():
         for e, f in zip(snaps[0].estimates, other.estimates, strict=True):
             assert e.value == f.value, e.name
             assert e.stderr == f.stderr or (math.isnan(e.stderr) and math.isnan(f.stderr)), e.name
+
+
+# ------------------------------------------------------------ evaluation kernels and plans
+
+
+def _numpy_choose_level(c0, gamma, n, base):
+    """The numpy version of stats.blocking.choose_level that its kernel replaced."""
+    S, _ = c0.shape
+    K = int(np.flatnonzero(n >= 4)[-1]) + 1
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r2 = n[None, :K] * (gamma[:, :K] / c0[:, :K]) ** 2
+    r2 = np.where(np.isfinite(r2), r2, np.inf)
+    M = np.cumsum(r2[:, ::-1], axis=1)[:, ::-1]
+    ok = M < np.array([_chi2_99(K - jj) for jj in range(K)])[None, :]
+    found = ok.any(axis=1) & (K >= 2)
+    j = np.minimum(np.maximum(np.argmax(ok, axis=1), 1), K - 1)
+    nj, nm = n[j], n[j - 1]
+    found &= (nj >= 2) & (nm >= 2)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        vj = c0[np.arange(S), j] / (nj - 1)
+        vm = c0[np.arange(S), j - 1] / (nm - 1)
+    v = np.maximum(np.maximum(vj, 2.0 * vj - vm), 0.0)
+    level = np.where(found, j, -1).astype(np.int64)
+    return (
+        np.where(found, v, np.nan),
+        level,
+        np.where(found, nj, 0).astype(np.int64),
+        np.where(level >= 0, base * 2 ** np.maximum(level, 0), 0),
+        np.where(found, 0.5 * np.sqrt(5.0 / np.maximum(nj - 1, 1)), np.nan),
+    )
+
+
+def test_level_choice_kernel_matches_numpy():
+    rng = np.random.default_rng(4)
+    n = np.array([2.0**k for k in range(16, 0, -1)])
+    for _ in range(20):
+        c0 = rng.gamma(2.0, size=(40, n.size)) * np.linspace(1.0, 30.0, n.size)
+        gamma = c0 * rng.uniform(-0.3, 0.9, size=c0.shape) / np.linspace(1.0, 9.0, n.size)
+        c0[0, 3], c0[1, :] = 0.0, np.nan  # a zero and a NaN row
+        c0[2, 5] = -1e-30  # rounding below zero
+        got = choose_level(c0, gamma, n, 64)
+        want = _numpy_choose_level(c0, gamma, n, 64)
+        for g, w in zip(
+            (got.variance, got.level, got.blocks, got.block_samples, got.relative_error),
+            want,
+            strict=True,
+        ):
+            np.testing.assert_array_equal(g, w)
+
+
+def test_stationarity_columns_match_the_numpy_formulas():
+    rng = np.random.default_rng(6)
+    for n in (20, 33, 63):
+        x = rng.standard_normal((n, 3)) + np.outer(np.arange(n), [0.0, 0.02, 0.1])
+        se = [0.2, 0.1, math.nan]
+        verdicts = assess_columns(x, se)
+        for c in range(3):
+            m = x[:, c]
+            i = np.arange(n) - 0.5 * (n - 1)
+            slope = float(i @ (m - m.mean())) / float(i @ i)
+            resid = m - m.mean() - slope * i
+            t = slope / math.sqrt(float(resid @ resid) / (n - 2) / float(i @ i))
+            gt = m[:, None] > m[None, :]
+            d = verdicts[c].details
+            assert d["trend_t"] == pytest.approx(t, rel=1e-12)
+            assert d["reverse_arrangements"] == int(np.count_nonzero(np.triu(gt, k=1)))
+            assert reverse_arrangements(m) == d["reverse_arrangements"]
+            if c < 2:
+                h = n // 2
+                z = (m[n - h :].mean() - m[:h].mean()) / (se[c] * math.sqrt(2.0 * n / h))
+                assert d["half_z"] == pytest.approx(z, rel=1e-12)
+                assert d["drift_se"] == pytest.approx(slope * n / se[c], rel=1e-12)
+            assert verdicts[c] == assess(m, se[c])
+
+
+@pytest.mark.parametrize("m", [1, 2, 3])
+def test_target_plan_resolves_as_targets_resolve(m):
+    cols = ("u", "v", "w")[:m]
+    custom = Targets.from_dict(
+        {
+            "targets": {
+                "U": {"absolute": 0.01},
+                "W": {"relative": 0.02},
+                "uv": {"absolute": 0.02},
+                "uuu": {"relative": 0.15},
+                "uuuu": {"relative": 0.2},
+                "skew_u": {"relative": 0.1},
+                "Tint_u": {"relative": 0.2},
+                "Neff_u": {"relative": 0.3},
+                "L_u": {"relative": 0.25},
+                "k": {"relative": 0.05},
+            }
+        }
+    )
+    names = PointStatistics(cols, 1000.0).names
+    rng = np.random.default_rng(m)
+    for targets in (Targets.defaults(), custom, Targets(targets={})):
+        plan = targets.plan(names)
+        for trial in range(30):
+            v = rng.normal(size=len(names))
+            if trial % 3 == 0:
+                v[rng.integers(0, len(names), 5)] = np.nan
+            if trial % 5 == 0:
+                v[names.index("k")] = -abs(v[names.index("k")])
+            values = dict(zip(names, v.tolist(), strict=True))
+            want = [targets.resolve(name, values) for name in names]
+            got = plan.resolve(v.tolist())
+            assert [g is None for g in got] == [w is None for w in want]
+            for g, w in zip(got, want, strict=True):
+                assert g is None or g == w or (math.isnan(g) and math.isnan(w))
