@@ -3,17 +3,21 @@
 Prints samples/s and ratios for, on the same 3-component float32 blocks of 16384 rows:
 
 1. ``PointStatistics.update``: moments to order 4 + blocking errors for every statistic
-   (including the geometric checkpoints of the stopping rule);
-2. its two parts alone (``MomentAccumulator``, ``BlockingAccumulator``);
-3. a numpy baseline doing the same moments per block (two-pass central products, then the
-   same pairwise combine in numpy);
+   (including the geometric checkpoints of the stopping rule, and a final snapshot);
+2. its parts alone (``MomentAccumulator``: the moments; ``BlockingAccumulator``: the one
+   sweep that also feeds the error estimates), and the update without checkpoints;
+3. two numpy baselines doing the same moments per block, then the same pairwise combine:
+   "per combo" (a product per co-moment, as first written) and "BLAS" (degree-2 products
+   once, degree 3 and 4 sums as matrix products: the fastest numpy we know);
 4. recomputing the moments from the whole history with numpy at every block (what a
    notebook does), on a shorter run because it grows as N^2;
 
 plus the cold and warm start cost of the kernels (first update in a fresh process, without
 and with numba's on-disk cache) and the accumulator memory after short and long runs.
+Every figure is the best of ``--repeat`` runs (this machine's timing varies by +-20 % from run
+to run); BLAS is limited to one thread, so all of it is one core.
 
-    python benchmarks/bench_stats.py [--blocks 400]
+    python benchmarks/bench_stats.py [--blocks 400] [--repeat 3]
 """
 
 from __future__ import annotations
@@ -25,7 +29,9 @@ import sys
 import tempfile
 import time
 
-import numpy as np
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")  # one core, before numpy loads BLAS
+
+import numpy as np  # noqa: E402
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), ".."))
 
@@ -45,11 +51,26 @@ def numpy_block_moments(x, lay):
     return mean, out
 
 
-def run_numpy(blocks):
+def numpy_blas_moments(x, lay):
+    """The same sums with the degree-2 products formed once and degree 3 and 4 as matrix
+    products (P2^T d and P2^T P2 hold every combo, some twice)."""
+    mean = x.mean(axis=0, dtype=np.float64)
+    d = x.astype(np.float64) - mean
+    P2 = np.empty((x.shape[0], len(lay.combos[2])))
+    for q, (a, b) in enumerate(lay.combos[2]):
+        np.multiply(d[:, a], d[:, b], out=P2[:, q])
+    S3 = P2.T @ d
+    S4 = P2.T @ P2
+    s3 = np.array([S3[lay.index[c[:2]], c[2]] for c in lay.combos[3]])
+    s4 = np.array([S4[lay.index[c[:2]], lay.index[c[2:]]] for c in lay.combos[4]])
+    return mean, [P2.sum(axis=0), s3, s4]
+
+
+def run_numpy(blocks, moments=numpy_block_moments):
     lay = layout(3)
     acc = MomentAccumulator(3)
     for b in blocks:
-        mean, (s2, s3, s4) = numpy_block_moments(b, lay)
+        mean, (s2, s3, s4) = moments(b, lay)
         acc._combine(b.shape[0], mean, s2, s3, s4)  # same combine, numpy moments
     return acc
 
@@ -62,10 +83,13 @@ def run_history(blocks):
         numpy_block_moments(np.concatenate(hist), lay)
 
 
-def timed(fn, *args):
-    t = time.perf_counter()
-    fn(*args)
-    return time.perf_counter() - t
+def timed(fn, *args, repeat=1):
+    best = float("inf")
+    for _ in range(repeat):
+        t = time.perf_counter()
+        fn(*args)
+        best = min(best, time.perf_counter() - t)
+    return best
 
 
 def start_cost(cache_dir):
@@ -94,7 +118,9 @@ def main():
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--blocks", type=int, default=400, help="blocks of 16384 rows (default 400)")
     ap.add_argument("--history-blocks", type=int, default=60)
+    ap.add_argument("--repeat", type=int, default=3, help="best of this many runs (default 3)")
     args = ap.parse_args()
+    r = args.repeat
     rng = np.random.default_rng(0)
     base = (10.0 + rng.normal(size=(ROWS * 8, 3))).astype(np.float32)
     blocks = [base[(i % 8) * ROWS : (i % 8 + 1) * ROWS] for i in range(args.blocks)]
@@ -111,6 +137,12 @@ def main():
         ps.snapshot()
         return ps
 
+    def no_checkpoints():
+        ps = PointStatistics(("u", "v", "w"), 20000.0)
+        ps.checkpoints.due = lambda n: False  # the stopping rule's evaluations left out
+        for b in blocks:
+            ps.update(b)
+
     def moments_only():
         acc = MomentAccumulator(3)
         for b in blocks:
@@ -121,28 +153,34 @@ def main():
         for b in blocks:
             acc.update(b)
 
-    t_ours = timed(ours)
-    t_mom = timed(moments_only)
-    t_blk = timed(blocking_only)
-    t_np = timed(run_numpy, blocks)
+    t_ours = timed(ours, repeat=r)
+    t_nochk = timed(no_checkpoints, repeat=r)
+    t_mom = timed(moments_only, repeat=r)
+    t_blk = timed(blocking_only, repeat=r)
+    t_np = timed(run_numpy, blocks, repeat=r)
+    t_blas = timed(run_numpy, blocks, numpy_blas_moments, repeat=r)
     hb = blocks[: args.history_blocks]
     t_hist = timed(run_history, hb)
     rate = n / t_ours
+
+    def line(label, seconds):
+        print(f"{label:<58}{n / seconds / 1e6:8.1f} M samples/s")
+
     print(f"samples: {n:,} in blocks of {ROWS} rows x 3 components, float32; one core")
-    print(
-        "PointStatistics.update (moments + blocking errors + checkpoints): "
-        f"{rate / 1e6:8.1f} M samples/s"
-    )
-    print(f"  MomentAccumulator alone:                   {n / t_mom / 1e6:8.1f} M samples/s")
-    print(f"  BlockingAccumulator alone:                 {n / t_blk / 1e6:8.1f} M samples/s")
-    print(f"numpy per-block moments (same combine):      {n / t_np / 1e6:8.1f} M samples/s")
+    line("PointStatistics.update (moments + errors + checkpoints):", t_ours)
+    line("  the same without the checkpoint evaluations:", t_nochk)
+    line("  MomentAccumulator alone (moments only):", t_mom)
+    line("  BlockingAccumulator alone (the one sweep + levels):", t_blk)
+    line("numpy per-block moments, per combo (same combine):", t_np)
+    line("numpy per-block moments, BLAS (same combine):", t_blas)
     hist_rate = len(hb) * ROWS / t_hist
     print(f"numpy recompute from history ({len(hb)} blocks):   {hist_rate / 1e6:8.1f} M samples/s")
-    print(
-        f"ratio ours / numpy per-block moments: {t_np / t_ours:6.1f} x "
-        f"(ours also computes all blocking errors)"
-    )
-    print(f"ratio ours / recompute-from-history ({len(hb)} blocks only): {rate / hist_rate:6.1f} x")
+    print("ratios (the numpy baselines compute the moments only):")
+    print(f"  update / numpy per combo:       {t_np / t_ours:6.1f} x")
+    print(f"  update / numpy BLAS:            {t_blas / t_ours:6.1f} x")
+    print(f"  moments alone / numpy per combo: {t_np / t_mom:6.1f} x  (like for like)")
+    print(f"  moments alone / numpy BLAS:      {t_blas / t_mom:6.1f} x  (like for like)")
+    print(f"  update / recompute-from-history ({len(hb)} blocks only): {rate / hist_rate:6.1f} x")
     with tempfile.TemporaryDirectory() as cache:
         cold = start_cost(cache)
         warm = start_cost(cache)
