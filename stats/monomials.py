@@ -2,9 +2,9 @@
 
 A *combo* is a sorted index tuple such as ``(0, 1, 1)`` (the co-moment ``uvv``). Monomials of
 degree 1-4 are laid out degree by degree, degree one first so that monomial ``i`` is component
-``i``. The tables here let the kernels build each product from a lower-order one, and let
-``shift_sums`` move central sums from one centre to another (the merge formula of Pébay 2008,
-in its multivariate form: expand the product of shifted deviations over subsets).
+``i`` (the kernels in ``kernels.py`` write their sums in this order). The tables here let
+``shift_sums`` and ``block_sums`` move sums from one centre to another (the merge formula of
+Pébay 2008, in its multivariate form: expand the product of shifted deviations over subsets).
 """
 
 from __future__ import annotations
@@ -24,14 +24,6 @@ class Layout:
     m: int
     combos: tuple[tuple[tuple[int, ...], ...], ...]  # combos[p] for p = 0..4 (0: (), 1: (i,))
     index: dict  # combo tuple -> index within its order
-    # kernel tables (see kernels.central_sums / block_sums)
-    c2: np.ndarray
-    c3p: np.ndarray
-    c3k: np.ndarray
-    c4p: np.ndarray
-    c4l: np.ndarray
-    mono_parent: np.ndarray
-    mono_last: np.ndarray
     mono_offset: tuple[int, ...]  # start of each degree (1..4) in the monomial vector
     # shift tables: one row per (target combo, subset of its positions with size != 1)
     t_order: np.ndarray  # order p of the target
@@ -60,19 +52,10 @@ def layout(m: int) -> Layout:
     for p in range(5):
         for q, c in enumerate(combos[p]):
             index[c] = q
-    c2 = np.array(combos[2], dtype=np.int64).reshape(-1, 2)
-    c3p = np.array([index[c[:2]] for c in combos[3]], dtype=np.int64)
-    c3k = np.array([c[2] for c in combos[3]], dtype=np.int64)
-    c4p = np.array([index[c[:3]] for c in combos[4]], dtype=np.int64)
-    c4l = np.array([c[3] for c in combos[4]], dtype=np.int64)
     offs = []
-    parent, last = [], []
     off = 0
     for p in (1, 2, 3, 4):
         offs.append(off)
-        for c in combos[p]:
-            parent.append(-1 if p == 1 else offs[p - 2] + index[c[:-1]])
-            last.append(c[-1])
         off += len(combos[p])
     rows = []
     for p in (2, 3, 4):
@@ -97,13 +80,6 @@ def layout(m: int) -> Layout:
         m=m,
         combos=combos,
         index=index,
-        c2=c2,
-        c3p=c3p,
-        c3k=c3k,
-        c4p=c4p,
-        c4l=c4l,
-        mono_parent=np.array(parent, dtype=np.int64),
-        mono_last=np.array(last, dtype=np.int64),
         mono_offset=tuple(offs),
         t_order=np.array([r[0] for r in rows], dtype=np.int64),
         t_target=np.array([r[1] for r in rows], dtype=np.int64),

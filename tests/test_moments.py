@@ -168,3 +168,25 @@ def test_merge_laws(seed, na, nb, nc):
     assert ident.n == acc[0].n
     if na:
         assert np.array_equal(ident.s4, acc[0].s4)
+
+
+@pytest.mark.parametrize("m", [1, 2, 3])
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_monomial_kernels_follow_the_layout_order(m, dtype):
+    """The hand-written per-component-count kernels against numpy products of each combo of
+    the layout, over chunks of uneven length (0, 1, 63, 64, 200 rows)."""
+    from stats.kernels import kernel_view, monomial_sums
+
+    lay = layout(m)
+    rng = np.random.default_rng(m)
+    x = (rng.standard_normal((400, m)) * 2.0 + 5.0).astype(dtype)
+    c = np.array([5.1, 4.9, 5.0][:m])
+    lens = np.array([0, 1, 63, 64, 200, 72])
+    starts = np.concatenate([[0], np.cumsum(lens)[:-1]])
+    out = np.empty((lens.size, lay.n_monomials))
+    monomial_sums(kernel_view(x), c, starts, lens, out)
+    d = x.astype(np.float64) - c
+    combos = [cb for p in (1, 2, 3, 4) for cb in lay.combos[p]]
+    for j, (s0, n) in enumerate(zip(starts, lens, strict=True)):
+        expect = [np.prod(d[s0 : s0 + n][:, list(cb)], axis=1).sum() for cb in combos]
+        np.testing.assert_allclose(out[j], expect, rtol=1e-12, atol=1e-12)
