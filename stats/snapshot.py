@@ -10,6 +10,7 @@ import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from types import MappingProxyType
+from typing import NamedTuple
 
 __all__ = ["Estimate", "PointSnapshot", "STATES"]
 
@@ -28,13 +29,14 @@ def _finite_or_none(x: float | None) -> float | None:
     return x if math.isfinite(x) else None
 
 
-@dataclass(frozen=True, slots=True)
-class Estimate:
-    """One statistic at one moment of one point.
+class Estimate(NamedTuple):
+    """One statistic at one moment of one point (immutable).
 
     ``target`` is the allowed half-width of the interval in the statistic's units (already
     resolved from a relative target), ``half_width`` the current one, ``eta_s`` the predicted
     acquisition time still needed (0 once converged, None when it cannot be predicted).
+    A named tuple rather than a frozen dataclass: a snapshot builds ~50 of them a few times a
+    second, and a tuple is built several times faster.
     """
 
     name: str
