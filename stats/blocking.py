@@ -22,7 +22,7 @@ import numba
 import numpy as np
 from scipy import stats as sps
 
-from stats.delta import influence_sums
+from stats.delta import influence_autocovariances
 from stats.kernels import block_sums, blocking_push, kernel_view
 from stats.monomials import layout
 
@@ -376,26 +376,18 @@ class BlockingAccumulator:
         if L == 0:
             return choose_level(np.zeros((S, 0)), np.zeros((S, 0)), n, self.base)
         mu = self.S[0] / self.count[0]  # global means of the monomials (all base blocks)
-        zq, zp, zs, zf, zl = (np.empty((S, L)) for _ in range(5))
-        zmu = np.empty(S)
-        # g^T Q_k g, g^T P_k g, g.S_k, g.first_k, g.last_k, g.mu for every (s, k)
-        influence_sums(
+        c0 = np.empty((S, L))
+        gamma = np.empty((S, L))
+        influence_autocovariances(
             np.ascontiguousarray(grad, dtype=np.float64),
+            n,
             self.S[:L],
             self.Q[:L],
             self.P[:L],
             self.first[:L],
             self.last[:L],
             mu,
-            zq,
-            zp,
-            zs,
-            zf,
-            zl,
-            zmu,
+            c0,
+            gamma,
         )
-        mu_ = zmu[:, None]
-        # variance about the *global* mean, (S2 - 2 mu S1 + n mu^2) / n (REFERENCES §2 pitfall)
-        c0 = (zq - 2 * mu_ * zs + n * mu_**2) / n
-        gamma = (zp - mu_ * (2 * zs - zf - zl) + (n - 1) * mu_**2) / n
         return choose_level(c0, gamma, n, self.base)

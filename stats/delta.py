@@ -19,7 +19,7 @@ import numpy as np
 from stats.monomials import Layout
 from stats.names import moment_name
 
-__all__ = ["StatisticTable", "K_METHODS", "central_terms_and_jacobian", "influence_sums"]
+__all__ = ["StatisticTable", "K_METHODS", "central_terms_and_jacobian", "influence_autocovariances"]
 
 #: How k is formed from the components present (DESIGN §3; README states the 2-component one).
 K_METHODS = {
@@ -219,16 +219,22 @@ def central_terms_and_jacobian(raw, m, mono, comp, owner, terms, J):
             J[owner[t], c] += -r * others
 
 
-@numba.njit(cache=True)
-def influence_sums(grad, S, Q, P, first, last, mu, zq, zp, zs, zf, zl, zmu):
-    """Blocking sums of the influence series ``grad[s] @ y`` of every statistic, per level.
+@numba.njit(cache=True, error_model="numpy")
+def influence_autocovariances(grad, n, S, Q, P, first, last, mu, c0, gamma):
+    """Lag-0 and lag-1 autocovariances of every statistic's influence series, per level.
 
-    From the level sums of the monomial block means ``y`` (``S`` (L, D), outer-product sums
-    ``Q`` and symmetrised lag-one sums ``P`` (L, D, D), ``first``/``last`` (L, D)) and their
-    global means ``mu`` (D,): ``zq[s, k] = g Q_k g``, ``zp[s, k] = g P_k g``, ``zs``, ``zf``,
-    ``zl`` (S, L) the projections of ``S``, ``first``, ``last``, and ``zmu`` (S,). A gradient
+    The influence series of statistic ``s`` is ``grad[s] @ y`` over the monomial block means
+    ``y``; a blocking level ``k`` keeps ``n[k]`` of them as sums: ``S`` (L, D), outer-product
+    sums ``Q`` and symmetrised lag-one sums ``P`` (L, D, D), ``first``/``last`` (L, D). With
+    ``g = grad[s]``, ``zq = g Q_k g``, ``zp = g P_k g``, ``zs``, ``zf``, ``zl`` the projections
+    of ``S``, ``first``, ``last``, and ``zmu = g @ mu`` the global mean (all base blocks):
+
+        c0[s, k]    = (zq - 2 zmu zs + n zmu^2) / n
+        gamma[s, k] = (zp - zmu (2 zs - zf - zl) + (n - 1) zmu^2) / n
+
+    i.e. about the *global* mean, not each level's own (REFERENCES §2 pitfall). A gradient
     touches only the monomials of its statistic's components and order, so only its nonzero
-    entries enter (exact zeros add nothing; a NaN entry is kept).
+    entries enter the products (exact zeros add nothing; a NaN entry is kept).
     """
     n_stat, D = grad.shape
     L = Q.shape[0]
@@ -239,16 +245,15 @@ def influence_sums(grad, S, Q, P, first, last, mu, zq, zp, zs, zf, zl, zmu):
             if grad[s, a] != 0.0:
                 idx[nz] = a
                 nz += 1
-        acc = 0.0
+        zmu = 0.0
         for i in range(nz):
-            acc += grad[s, idx[i]] * mu[idx[i]]
-        zmu[s] = acc
+            zmu += grad[s, idx[i]] * mu[idx[i]]
         for k in range(L):
-            aq = 0.0
-            ap = 0.0
-            a_s = 0.0
-            a_f = 0.0
-            a_l = 0.0
+            zq = 0.0
+            zp = 0.0
+            zs = 0.0
+            zf = 0.0
+            zl = 0.0
             for i in range(nz):
                 a = idx[i]
                 ga = grad[s, a]
@@ -259,13 +264,11 @@ def influence_sums(grad, S, Q, P, first, last, mu, zq, zp, zs, zf, zl, zmu):
                     gb = grad[s, b]
                     rq += Q[k, a, b] * gb
                     rp += P[k, a, b] * gb
-                aq += ga * rq
-                ap += ga * rp
-                a_s += ga * S[k, a]
-                a_f += ga * first[k, a]
-                a_l += ga * last[k, a]
-            zq[s, k] = aq
-            zp[s, k] = ap
-            zs[s, k] = a_s
-            zf[s, k] = a_f
-            zl[s, k] = a_l
+                zq += ga * rq
+                zp += ga * rp
+                zs += ga * S[k, a]
+                zf += ga * first[k, a]
+                zl += ga * last[k, a]
+            nk = n[k]
+            c0[s, k] = (zq - 2.0 * zmu * zs + nk * zmu**2) / nk
+            gamma[s, k] = (zp - zmu * (2.0 * zs - zf - zl) + (nk - 1.0) * zmu**2) / nk

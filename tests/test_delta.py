@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from stats.blocking import BlockingAccumulator
-from stats.delta import StatisticTable, central_terms_and_jacobian, influence_sums
+from stats.delta import StatisticTable, central_terms_and_jacobian, influence_autocovariances
 from stats.moments import MomentAccumulator
 from stats.monomials import layout
 
@@ -70,8 +70,8 @@ def test_central_terms_and_jacobian_kernel_matches_numpy(m):
 
 
 @pytest.mark.parametrize("m", [1, 3])
-def test_influence_sums_match_dense_numpy(m):
-    # The kernel skips exact zeros of the gradient; the dense products are the reference.
+def test_influence_autocovariances_match_dense_numpy(m):
+    # The kernel skips exact zeros of the gradient; dense products are the reference.
     rng = np.random.default_rng(20 + m)
     x = rng.normal(size=(200_000, m)) + np.array([5.0, 1.0, -2.0])[:m]
     b = BlockingAccumulator(m, base=64)
@@ -81,11 +81,19 @@ def test_influence_sums_match_dense_numpy(m):
     _, g = StatisticTable(("u", "v", "w")[:m], layout(m)).values_and_gradient(raw, ref)
     g[1, :] = rng.normal(size=g.shape[1])  # one dense row too
     L = int(np.count_nonzero(b.count))
+    n = b.count[:L].astype(np.float64)
     mu = b.S[0] / b.count[0]
-    out = [np.empty((g.shape[0], L)) for _ in range(5)] + [np.empty(g.shape[0])]
-    influence_sums(g, b.S[:L], b.Q[:L], b.P[:L], b.first[:L], b.last[:L], mu, *out)
+    c0, gamma = np.empty((g.shape[0], L)), np.empty((g.shape[0], L))
+    influence_autocovariances(
+        g, n, b.S[:L], b.Q[:L], b.P[:L], b.first[:L], b.last[:L], mu, c0, gamma
+    )
     zq = (np.matmul(g[None], b.Q[:L]) * g[None]).sum(axis=-1).T
     zp = (np.matmul(g[None], b.P[:L]) * g[None]).sum(axis=-1).T
-    want = [zq, zp, g @ b.S[:L].T, g @ b.first[:L].T, g @ b.last[:L].T, g @ mu]
-    for got, ref_ in zip(out, want, strict=True):
-        np.testing.assert_allclose(got, ref_, rtol=1e-12, atol=1e-300)
+    zs, zf, zl = g @ b.S[:L].T, g @ b.first[:L].T, g @ b.last[:L].T
+    zmu = (g @ mu)[:, None]
+    want_c0 = (zq - 2 * zmu * zs + n * zmu**2) / n
+    want_gamma = (zp - zmu * (2 * zs - zf - zl) + (n - 1) * zmu**2) / n
+    # c0 and gamma are small differences of large sums: compare on the scale of those sums
+    scale = zq / n
+    np.testing.assert_allclose(c0 / scale, want_c0 / scale, rtol=0.0, atol=1e-12)
+    np.testing.assert_allclose(gamma / scale, want_gamma / scale, rtol=0.0, atol=1e-12)
