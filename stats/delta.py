@@ -19,7 +19,13 @@ import numpy as np
 from stats.monomials import Layout
 from stats.names import moment_name
 
-__all__ = ["StatisticTable", "K_METHODS", "central_terms_and_jacobian", "influence_autocovariances"]
+__all__ = [
+    "StatisticTable",
+    "K_METHODS",
+    "central_terms_and_jacobian",
+    "chain_rule",
+    "influence_autocovariances",
+]
 
 #: How k is formed from the components present (DESIGN §3; README states the 2-component one).
 K_METHODS = {
@@ -118,47 +124,33 @@ class StatisticTable:
         """Values (S,) and gradient (S, D) with respect to the monomial means.
 
         The central co-moments and their Jacobian come from one pass over the expansion table
-        (:func:`central_terms_and_jacobian`); the rest is the chain rule for k, skewness and
-        flatness.
+        (:func:`central_terms_and_jacobian`), then :func:`chain_rule` gives every statistic.
         """
         raw = np.ascontiguousarray(raw, dtype=np.float64)
+        ref = np.ascontiguousarray(ref, dtype=np.float64)
         m, D = self.m, raw.shape[0]
         terms = np.empty(self._mono.shape[0])
         J = np.empty((len(self.combo_list), D))
         central_terms_and_jacobian(raw, m, self._mono, self._comp, self._owner, terms, J)
         cen = terms @ self._summing  # as central_all sums them
-        c2, c3, c4 = cen[self._normal_pos], cen[self._cube_pos], cen[self._quart_pos]
-        J2 = J[self._normal_pos]
-        kfac = self._kfac
-        with np.errstate(invalid="ignore", divide="ignore"):
-            # the same expressions as evaluate(), one component per element
-            k = kfac * sum(c2.tolist())
-            skew = c3 / c2**1.5
-            flat = c4 / c2**2
-            values = np.concatenate(
-                [
-                    ref[:m] + raw[:m],
-                    cen[self._stress_pos],
-                    [k],
-                    cen[self._third_pos],
-                    cen[self._fourth_pos],
-                    skew,
-                    flat,
-                ]
-            )
-            g_skew = J[self._cube_pos] / (c2**1.5)[:, None] - (1.5 * c3 / c2**2.5)[:, None] * J2
-            g_flat = J[self._quart_pos] / (c2**2)[:, None] - (2.0 * c4 / c2**3)[:, None] * J2
-            grad = np.concatenate(
-                [
-                    np.eye(m, D),
-                    J[self._stress_pos],
-                    kfac * J2.sum(axis=0)[None, :],
-                    J[self._third_pos],
-                    J[self._fourth_pos],
-                    g_skew,
-                    g_flat,
-                ]
-            )
+        S = len(self.names)
+        values = np.empty(S)
+        grad = np.empty((S, D))
+        chain_rule(
+            raw,
+            ref,
+            cen,
+            J,
+            self._kfac,
+            self._stress_pos,
+            self._third_pos,
+            self._fourth_pos,
+            self._normal_pos,
+            self._cube_pos,
+            self._quart_pos,
+            values,
+            grad,
+        )
         return values, grad
 
     def values_and_gradient_complex_step(self, raw, ref):
@@ -217,6 +209,57 @@ def central_terms_and_jacobian(raw, m, mono, comp, owner, terms, J):
             mo = mono[t]
             r = raw[mo] if mo < D else 1.0
             J[owner[t], c] += -r * others
+
+
+@numba.njit(cache=True, error_model="numpy")
+def chain_rule(raw, ref, cen, J, kfac, stress, third, fourth, c2, c3, c4, values, grad):
+    """Every statistic (values (S,), gradient (S, D)) from the central co-moments ``cen`` and
+    their Jacobian ``J``, in report order: means, stresses, k, third and fourth moments,
+    skewness, flatness. ``stress``, ``third``, ``fourth`` are positions in ``cen`` in report
+    order, ``c2``/``c3``/``c4`` those of uu, uuu, uuuu of each component; ``kfac`` is k's
+    factor for the number of components. Same expressions as :meth:`StatisticTable.evaluate`.
+    """
+    m = c2.shape[0]
+    D = J.shape[1]
+    grad[:, :] = 0.0
+    r = 0
+    for i in range(m):  # means: ref + first-order monomial mean
+        values[r] = ref[i] + raw[i]
+        grad[r, i] = 1.0
+        r += 1
+    for q in stress:
+        values[r] = cen[q]
+        grad[r, :] = J[q, :]
+        r += 1
+    k = 0.0
+    for i in range(m):
+        k += cen[c2[i]]
+    values[r] = kfac * k
+    for d in range(D):
+        acc = J[c2[0], d]
+        for i in range(1, m):
+            acc += J[c2[i], d]
+        grad[r, d] = kfac * acc
+    r += 1
+    for pos in (third, fourth):
+        for q in pos:
+            values[r] = cen[q]
+            grad[r, :] = J[q, :]
+            r += 1
+    for i in range(m):  # skewness uuu / uu^1.5
+        s2, s3 = cen[c2[i]], cen[c3[i]]
+        values[r] = s3 / s2**1.5
+        a, b = s2**1.5, 1.5 * s3 / s2**2.5
+        for d in range(D):
+            grad[r, d] = J[c3[i], d] / a - b * J[c2[i], d]
+        r += 1
+    for i in range(m):  # flatness uuuu / uu^2
+        s2, s4 = cen[c2[i]], cen[c4[i]]
+        values[r] = s4 / s2**2
+        a, b = s2**2, 2.0 * s4 / s2**3.0
+        for d in range(D):
+            grad[r, d] = J[c4[i], d] / a - b * J[c2[i], d]
+        r += 1
 
 
 @numba.njit(cache=True, error_model="numpy")

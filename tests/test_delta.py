@@ -97,3 +97,30 @@ def test_influence_autocovariances_match_dense_numpy(m):
     scale = zq / n
     np.testing.assert_allclose(c0 / scale, want_c0 / scale, rtol=0.0, atol=1e-12)
     np.testing.assert_allclose(gamma / scale, want_gamma / scale, rtol=0.0, atol=1e-12)
+
+
+@pytest.mark.parametrize("m", [1, 2, 3])
+def test_chain_rule_kernel_matches_numpy(m):
+    # values: the numpy evaluate(); gradient: the chain rule written with numpy rows
+    rng = np.random.default_rng(30 + m)
+    x = rng.gamma(3.0, size=(6000, m)) + np.array([2.0, -1.0, 0.5])[:m]
+    ref = x[:64].mean(axis=0)
+    raw = MomentAccumulator(m).update(x).raw_about(ref)
+    tab = StatisticTable(("u", "v", "w")[:m], layout(m))
+    values, grad = tab.values_and_gradient(raw, ref)
+    np.testing.assert_allclose(values, tab.evaluate(raw, ref), rtol=1e-15, atol=0.0)
+    cen, J = tab.central_all(raw), _numpy_central_jacobian(tab, raw)
+    pos = tab._combo_pos
+    lay = layout(m)
+    normal = [J[pos[(i, i)]] for i in range(m)]
+    rows = [np.eye(raw.size)[i] for i in range(m)]
+    rows += [J[pos[c]] for c in tab.stress_combos]
+    rows.append({3: 0.5, 2: 0.75, 1: 1.5}[m] * np.sum(normal, axis=0))
+    rows += [J[pos[c]] for c in lay.combos[3]] + [J[pos[c]] for c in lay.combos[4]]
+    for i in range(m):
+        c2, c3 = cen[pos[(i, i)]], cen[pos[(i, i, i)]]
+        rows.append(J[pos[(i, i, i)]] / c2**1.5 - 1.5 * c3 / c2**2.5 * normal[i])
+    for i in range(m):
+        c2, c4 = cen[pos[(i, i)]], cen[pos[(i, i, i, i)]]
+        rows.append(J[pos[(i, i, i, i)]] / c2**2 - 2.0 * c4 / c2**3 * normal[i])
+    np.testing.assert_allclose(grad, np.array(rows), rtol=1e-13, atol=1e-15)
