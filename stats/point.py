@@ -11,6 +11,7 @@ import math
 from dataclasses import dataclass
 from functools import lru_cache
 
+import numba
 import numpy as np
 from scipy import stats as sps
 
@@ -32,6 +33,41 @@ DEFAULT_BASE_BLOCK = 64
 @lru_cache(maxsize=4096)
 def _t_quantile(p: float, df: int) -> float:
     return float(sps.t.ppf(p, df))
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _integral_scales(duration_s, var, rel, m, values, se):
+    """Append Tint, Neff and L of each component to ``values`` and fill ``se`` (S,).
+
+    ``values`` holds the moment statistics followed by 3 m free places; ``var`` and ``rel``
+    are the variances and relative standard errors of the moment statistics. From the error
+    of the mean: Var(mean) = 2 sigma^2 Tint / T, N_eff = sigma^2 / Var(mean) (REFERENCES §1);
+    the integral length by Taylor's hypothesis, convected at the local mean speed |U|. The
+    relative error of a variance estimate is twice that of its square root; the mean speed's
+    own relative error adds in quadrature for the length.
+    """
+    k = var.shape[0]
+    for i in range(k):
+        se[i] = np.sqrt(var[i])
+    speed2 = 0.0
+    spread2 = 0.0
+    for i in range(m):
+        speed2 += values[i] ** 2
+        spread2 += (values[i] * se[i]) ** 2
+    speed = np.sqrt(speed2)
+    rel_speed = np.sqrt(spread2) / speed**2
+    for i in range(m):
+        sig2 = values[m + i]
+        tint = duration_s * var[i] / (2.0 * sig2)
+        neff = sig2 / var[i]
+        length = speed * tint
+        rel_t = 2 * rel[i]
+        values[k + i] = tint
+        values[k + m + i] = neff
+        values[k + 2 * m + i] = length
+        se[k + i] = rel_t * tint
+        se[k + m + i] = rel_t * neff
+        se[k + 2 * m + i] = np.sqrt(rel_t**2 + rel_speed**2) * length
 
 
 @dataclass(frozen=True)
@@ -85,6 +121,8 @@ class PointStatistics:
         # per-name lookups done once: target resolution, components a name depends on
         self._plan = self.targets.plan(self.names)
         self._components = tuple(frozenset(components_of(name)) for name in self.names)
+        # Tint_c, Neff_c, L_c take their block count and relative error from the mean C
+        self._source = np.r_[np.arange(len(self.table.names)), np.tile(np.arange(m), 3)]
         self.checkpoints = Checkpoints()
         self._duration_s = 0.0
         self._cache: _Evaluation | None = None
@@ -169,34 +207,13 @@ class PointStatistics:
         raw = self.moments.raw_about(ref)
         values, grad = tab.values_and_gradient(raw, ref)
         choice = self.blocking.analyse(grad)
-        var = choice.variance
-        se = np.sqrt(var)
-        blocks = choice.blocks
-        rel = choice.relative_error
-        # integral time scale and effective sample count from the error of the mean:
-        # Var(mean) = 2 sigma^2 Tint / T, N_eff = sigma^2 / Var(mean) (REFERENCES §1)
-        T = self.duration_s
-        sig2 = values[m : 2 * m]
-        var_mean = var[:m]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            tint = T * var_mean / (2.0 * sig2)
-            neff = sig2 / var_mean
-        # integral length by Taylor's hypothesis, convected at the local mean speed |U|
-        speed = np.sqrt(np.sum(values[:m] ** 2))
-        length = speed * tint
-        # relative error of a variance estimate is twice that of its square root; the mean
-        # speed's own relative error adds in quadrature for the length
-        rel_t = 2 * rel[:m]
-        with np.errstate(invalid="ignore", divide="ignore"):
-            rel_speed = np.sqrt(np.sum((values[:m] * se[:m]) ** 2)) / speed**2
-        values = np.concatenate([values, tint, neff, length])
-        se = np.concatenate(
-            [se, rel_t * tint, rel_t * neff, np.sqrt(rel_t**2 + rel_speed**2) * length]
-        )
-        blocks = np.concatenate([blocks, blocks[:m], blocks[:m], blocks[:m]])
-        rel = np.concatenate([rel, rel[:m], rel[:m], rel[:m]])
+        # append integral time scales, effective sample counts and integral lengths
+        values = np.concatenate([values, np.empty(3 * m)])
+        se = np.empty(S)
+        _integral_scales(self.duration_s, choice.variance, choice.relative_error, m, values, se)
+        blocks = choice.blocks[self._source]
+        rel = choice.relative_error[self._source]
         p = 0.5 * (1.0 + self.confidence)
-        blocks = blocks.astype(np.int64)
         bl = blocks.tolist()
         quantile = {b: _t_quantile(p, b - 1) if b >= 2 else np.nan for b in set(bl)}
         hw = np.array([quantile[b] for b in bl]) * se

@@ -10,6 +10,7 @@ from processes import ar1, turbulence
 
 from stats import PointStatistics, Targets, statistic_names
 from stats.blocking import _chi2_99, choose_level
+from stats.point import _integral_scales
 from stats.stationarity import assess, assess_columns, reverse_arrangements
 
 
@@ -289,3 +290,36 @@ def test_target_plan_resolves_as_targets_resolve(m):
             assert [g is None for g in got] == [w is None for w in want]
             for g, w in zip(got, want, strict=True):
                 assert g is None or g == w or (math.isnan(g) and math.isnan(w))
+
+
+@pytest.mark.parametrize("m", [1, 2, 3])
+def test_integral_scales_kernel_matches_numpy(m):
+    rng = np.random.default_rng(40 + m)
+    k = 10
+    for trial in range(10):
+        values = rng.normal(size=k) * 3.0
+        values[m : 2 * m] = rng.gamma(2.0, size=m)  # the normal stresses
+        var = rng.gamma(1.0, size=k) * 1e-4
+        rel = rng.uniform(0.01, 0.3, size=k)
+        if trial == 0:
+            values[:m] = 0.0  # zero mean speed
+        if trial == 1:
+            var[0] = np.nan
+        T = 12.5
+        out_v = np.concatenate([values, np.empty(3 * m)])
+        out_se = np.empty(k + 3 * m)
+        _integral_scales(T, var, rel, m, out_v, out_se)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            se = np.sqrt(var)
+            sig2, var_mean = values[m : 2 * m], var[:m]
+            tint = T * var_mean / (2.0 * sig2)
+            neff = sig2 / var_mean
+            speed = np.sqrt(np.sum(values[:m] ** 2))
+            length = speed * tint
+            rel_t = 2 * rel[:m]
+            rel_speed = np.sqrt(np.sum((values[:m] * se[:m]) ** 2)) / speed**2
+            want_se = np.concatenate(
+                [se, rel_t * tint, rel_t * neff, np.sqrt(rel_t**2 + rel_speed**2) * length]
+            )
+        np.testing.assert_array_equal(out_v, np.concatenate([values, tint, neff, length]))
+        np.testing.assert_allclose(out_se, want_se, rtol=1e-15, atol=0.0)
