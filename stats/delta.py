@@ -282,15 +282,17 @@ def influence_autocovariances(grad, n, S, Q, P, first, last, mu, c0, gamma):
     n_stat, D = grad.shape
     L = Q.shape[0]
     idx = np.empty(D, dtype=np.int64)
+    g = np.empty(D)
     for s in range(n_stat):
         nz = 0
         for a in range(D):
             if grad[s, a] != 0.0:
                 idx[nz] = a
+                g[nz] = grad[s, a]
                 nz += 1
         zmu = 0.0
         for i in range(nz):
-            zmu += grad[s, idx[i]] * mu[idx[i]]
+            zmu += g[i] * mu[idx[i]]
         for k in range(L):
             zq = 0.0
             zp = 0.0
@@ -299,14 +301,13 @@ def influence_autocovariances(grad, n, S, Q, P, first, last, mu, c0, gamma):
             zl = 0.0
             for i in range(nz):
                 a = idx[i]
-                ga = grad[s, a]
+                ga = g[i]
                 rq = 0.0
                 rp = 0.0
                 for j in range(nz):
                     b = idx[j]
-                    gb = grad[s, b]
-                    rq += Q[k, a, b] * gb
-                    rp += P[k, a, b] * gb
+                    rq += Q[k, a, b] * g[j]
+                    rp += P[k, a, b] * g[j]
                 zq += ga * rq
                 zp += ga * rp
                 zs += ga * S[k, a]
