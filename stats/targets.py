@@ -85,6 +85,30 @@ DEFAULT_TARGETS: Mapping[str, float] = MappingProxyType(
 # Families whose relative scale is the magnitude of the statistic itself.
 _SELF_SCALED = ("time_scale", "effective_samples", "length_scale", "dissipation")
 
+#: How a relative target's scale is found, by family: "self" is the statistic's own magnitude,
+#: the others are keys of _scales().
+_SCALE_KIND = {
+    "mean": "speed",
+    "skewness": "one",
+    "flatness": "one",
+    "second": "k",
+    "third": "k^1.5",
+    "fourth": "k^2",
+    **{fam: "self" for fam in _SELF_SCALED},
+}
+
+
+def _scales(means, k) -> dict[str, float]:
+    """Every shared scale from the mean components present and k (NaN where not yet known)."""
+    speed = math.sqrt(math.fsum(float(m) ** 2 for m in means)) if means else math.nan
+    k = float(k)
+    if not k >= 0.0:  # NaN or negative: not a usable energy yet
+        k15 = k2 = k = math.nan
+    else:
+        k15, k2 = k**1.5, k * k
+    return {"speed": speed, "k": k, "k^1.5": k15, "k^2": k2, "one": 1.0, "none": math.nan}
+
+
 # What a relative target is relative to, for describe() and error messages.
 _SCALE_TEXT = {
     "mean": "of the local mean speed |U|",
@@ -299,22 +323,11 @@ class Targets:
 
         NaN when the scale is not yet known (a needed value is missing or not finite).
         """
-        fam = family(name)
-        if fam == "mean":
-            means = [values[c.upper()] for c in VELOCITY_LETTERS if c.upper() in values]
-            if not means:
-                return math.nan
-            return math.sqrt(math.fsum(float(m) ** 2 for m in means))
-        if fam in ("skewness", "flatness"):
-            return 1.0
-        if fam in ("second", "third", "fourth"):
-            k = float(values.get("k", math.nan))
-            if not k >= 0.0:  # NaN or negative: not a usable energy yet
-                return math.nan
-            return {"second": k, "third": k**1.5, "fourth": k * k}[fam]
-        if fam in _SELF_SCALED:
+        kind = _SCALE_KIND.get(family(name), "none")
+        if kind == "self":
             return abs(float(values.get(name, math.nan)))
-        return math.nan
+        means = [values[c.upper()] for c in VELOCITY_LETTERS if c.upper() in values]
+        return _scales(means, values.get("k", math.nan))[kind]
 
     def resolve(self, name: str, values: Mapping[str, float]) -> float | None:
         """Absolute half-width allowed for ``name`` now; None if untargeted, NaN if not yet known.
@@ -350,18 +363,6 @@ class Targets:
         return "\n".join(lines)
 
 
-#: how a relative target's scale is found, by family (see Targets.scale)
-_SCALE_KIND = {
-    "mean": "speed",
-    "skewness": "one",
-    "flatness": "one",
-    "second": "k",
-    "third": "k^1.5",
-    "fourth": "k^2",
-    **{fam: "self" for fam in _SELF_SCALED},
-}
-
-
 class TargetPlan:
     """:meth:`Targets.resolve` of every name of a fixed list at once, from an array of values.
 
@@ -389,7 +390,7 @@ class TargetPlan:
         """Allowed half-width of every name (None untargeted, NaN not yet known); ``values``
         are the current values in name order (a sequence of floats)."""
         out: list[float | None] = [None] * len(self.names)
-        scales = {"one": 1.0, "none": math.nan}
+        scales = None
         for i, absolute, relative, kind in self._rows:
             if absolute is not None:
                 out[i] = absolute
@@ -397,18 +398,9 @@ class TargetPlan:
             if kind == "self":
                 s = abs(float(values[i]))
             else:
-                if kind not in scales:
-                    scales.update(self._shared_scales(values))
+                if scales is None:
+                    k = math.nan if self._k_pos is None else values[self._k_pos]
+                    scales = _scales([values[j] for j in self._mean_pos], k)
                 s = scales[kind]
             out[i] = relative * s if math.isfinite(s) and s > 0.0 else math.nan
         return out
-
-    def _shared_scales(self, values) -> dict[str, float]:
-        if self._mean_pos:
-            speed = math.sqrt(math.fsum(float(values[j]) ** 2 for j in self._mean_pos))
-        else:
-            speed = math.nan
-        k = math.nan if self._k_pos is None else float(values[self._k_pos])
-        if not k >= 0.0:  # NaN or negative: not a usable energy yet
-            return {"speed": speed, "k": math.nan, "k^1.5": math.nan, "k^2": math.nan}
-        return {"speed": speed, "k": k, "k^1.5": k**1.5, "k^2": k * k}
