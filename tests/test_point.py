@@ -10,7 +10,7 @@ from processes import ar1, turbulence
 
 from stats import PointStatistics, Targets, statistic_names
 from stats.blocking import _chi2_99, choose_level
-from stats.point import _integral_scales
+from stats.point import _integral_scales, _t_quantiles
 from stats.stationarity import assess, assess_columns, reverse_arrangements
 
 
@@ -323,3 +323,12 @@ def test_integral_scales_kernel_matches_numpy(m):
             )
         np.testing.assert_array_equal(out_v, np.concatenate([values, tint, neff, length]))
         np.testing.assert_allclose(out_se, want_se, rtol=1e-15, atol=0.0)
+
+
+def test_t_quantiles_are_scipy_t_ppf():
+    from scipy import stats as sps
+
+    blocks = np.r_[0, 1, 2, 3, 64, 65, 1000, np.unique(np.geomspace(2, 1e7, 300).astype(int))]
+    for p in (0.95, 0.975, 0.995):
+        want = [sps.t.ppf(p, b - 1) if b >= 2 else np.nan for b in blocks]
+        np.testing.assert_array_equal(_t_quantiles(p, blocks), want)
