@@ -23,7 +23,7 @@ import numpy as np
 from scipy import stats as sps
 
 from stats.delta import influence_autocovariances
-from stats.kernels import block_sums, blocking_push, kernel_view
+from stats.kernels import block_sums, blocking_push, kernel_view, segment_push
 from stats.monomials import layout
 
 __all__ = ["BlockingAccumulator", "LevelChoice", "choose_level", "MIN_BLOCKS_PER_LEVEL"]
@@ -255,24 +255,9 @@ class BlockingAccumulator:
 
     def _add_segments(self, means: np.ndarray) -> None:
         """Add base-block component means ``means`` (nb, m) to the segment store."""
-        i, nb = 0, means.shape[0]
-        while i < nb:
-            take = min(self.seg_len - self.seg_fill, nb - i)
-            self.seg_cur += means[i : i + take].sum(axis=0)
-            self.seg_fill += take
-            i += take
-            if self.seg_fill == self.seg_len:
-                self.seg_sums[self.seg_full] = self.seg_cur
-                self.seg_full += 1
-                self.seg_cur = np.zeros(self.m)
-                self.seg_fill = 0
-                if self.seg_full == SEGMENTS:
-                    self.seg_sums[: SEGMENTS // 2] = self.seg_sums[0::2] + self.seg_sums[1::2]
-                    self.seg_sums[SEGMENTS // 2 :] = 0.0
-                    self.seg_full = SEGMENTS // 2
-                    self.seg_len *= 2
-                    # the partial segment now counts against the doubled length
-                    # (it was started at the old length, so keep filling it)
+        self.seg_full, self.seg_len, self.seg_fill = segment_push(
+            means, self.seg_sums, self.seg_cur, self.seg_full, self.seg_len, self.seg_fill
+        )
 
     def segment_means(self) -> np.ndarray:
         """(n_segments, m) means of x over the complete, equal-length segments."""

@@ -364,3 +364,46 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
             has_pending[k] = True
         cur = nxt
     return used
+
+
+@numba.njit(cache=True, nogil=True)
+def segment_push(means, seg_sums, seg_cur, full, length, fill):
+    """Add base-block component means ``means`` (nb, m) to the segment store.
+
+    ``seg_sums`` (S, m) holds ``full`` complete segments of ``length`` base blocks each;
+    ``seg_cur`` the sums of the segment being filled (``fill`` base blocks so far). When all
+    S slots are full, neighbours are paired and the length doubles; the partial segment keeps
+    filling against the doubled length. Returns the new ``(full, length, fill)``.
+    """
+    nb, m = means.shape
+    S = seg_sums.shape[0]
+    acc = np.empty(m)
+    i = 0
+    while i < nb:
+        take = min(length - fill, nb - i)
+        for c in range(m):
+            acc[c] = 0.0
+        for t in range(i, i + take):
+            for c in range(m):
+                acc[c] += means[t, c]
+        for c in range(m):
+            seg_cur[c] += acc[c]
+        fill += take
+        i += take
+        if fill == length:
+            for c in range(m):
+                seg_sums[full, c] = seg_cur[c]
+                seg_cur[c] = 0.0
+            full += 1
+            fill = 0
+            if full == S:
+                half = S // 2
+                for j in range(half):
+                    for c in range(m):
+                        seg_sums[j, c] = seg_sums[2 * j, c] + seg_sums[2 * j + 1, c]
+                for j in range(half, S):
+                    for c in range(m):
+                        seg_sums[j, c] = 0.0
+                full = half
+                length *= 2
+    return full, length, fill
