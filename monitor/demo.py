@@ -34,7 +34,7 @@ examples:
 #: Seconds allowed for each child to stop after being asked before it is killed.
 STOP_GRACE_S = 10.0
 #: Seconds the dashboard gets to come up.
-STARTUP_S = 60.0
+STARTUP_S = 120.0  # the first start after installing compiles the kernels (~20 s)
 
 
 def free_port(host: str = "127.0.0.1") -> int:
@@ -182,7 +182,7 @@ def run(args: argparse.Namespace) -> int:
                    "--host", host, "--summary", summary, "--quiet"]
     simulate = exe + ["simulate", "--bind", data, "--socket", "pub", "--speed", args.speed,
                       "--seed", str(args.seed), "--follow-control", control,
-                      "--wait-peer", "30", "--quiet"]
+                      "--wait-peer", "120", "--quiet"]
     if args.scenario:
         simulate += ["--scenario", args.scenario]
 
@@ -199,6 +199,8 @@ def run(args: argparse.Namespace) -> int:
         # Own sessions: a Ctrl-C at the terminal reaches the demo only, which then stops the
         # children in order (the monitor first, so it writes its summaries).
         env = dict(os.environ, BOKEH_RESOURCES="server")
+        print("eddyvigil demo: starting the monitor and the simulated facility (the first start "
+              "after installing compiles the statistics kernels: about 20 s)", flush=True)
         children.append(subprocess.Popen(watch, start_new_session=True, env=env))
         children.append(subprocess.Popen(simulate, start_new_session=True, env=env))
         listener.start()

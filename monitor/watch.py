@@ -197,6 +197,32 @@ class StatusPrinter:
             self._stream.flush()
 
 
+def prepare_kernels(quiet: bool = False, notice_after_s: float = 1.0) -> float:
+    """Load the statistics kernels before any socket opens (see ``stats/warmup.py``).
+
+    On the first start after installing they compile for about 20 s; a notice says so when
+    it takes longer than ``notice_after_s``. Returns the seconds taken.
+    """
+    from stats.warmup import prepare_kernels as prepare
+
+    notice = threading.Timer(
+        notice_after_s,
+        lambda: print(
+            "eddyvigil: compiling the statistics kernels (first start after installing, "
+            "about 20 s; later starts take 1-2 s); no socket is open yet",
+            file=sys.stderr,
+            flush=True,
+        ),
+    )
+    notice.daemon = True
+    if not quiet:
+        notice.start()
+    try:
+        return prepare()
+    finally:
+        notice.cancel()
+
+
 def write_settings(directory: Path, targets, max_message_bytes: int) -> None:
     """What a replay needs to reproduce this run's summaries."""
     (directory / SETTINGS_FILE).write_text(
@@ -244,6 +270,7 @@ def run(args: argparse.Namespace) -> int:
             f"{args.record} already holds a recording; choose a new directory or add --append",
         )
 
+    prepare_kernels(quiet=args.quiet)
     closers = []
     try:
         try:
