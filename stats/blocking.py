@@ -23,7 +23,7 @@ import numpy as np
 from scipy import stats as sps
 
 from stats.delta import influence_autocovariances
-from stats.kernels import block_sums, blocking_push, kernel_view, segment_push
+from stats.kernels import blocking_push, ingest_block, kernel_view, segment_push
 from stats.monomials import layout
 
 __all__ = ["BlockingAccumulator", "LevelChoice", "choose_level", "MIN_BLOCKS_PER_LEVEL"]
@@ -207,17 +207,12 @@ class BlockingAccumulator:
             return None
         if self.ref is None:
             self.ref = block.mean(axis=0, dtype=np.float64)
-        base = self.base
-        head_len = base - self.carry_n if self.carry_n else 0
-        h = min(head_len, n)
-        nb = (n - h) // base
-        rest = n - h - nb * base
-        R = np.empty((nb + 2, self.D))
-        block_sums(
+        self.carry_n, self.seg_full, self.seg_len, self.seg_fill = ingest_block(
             block,
             self.ref,
-            base,
-            head_len,
+            self.base,
+            self.carry_n,
+            self.carry_sums,
             lay.r_target,
             lay.r_src,
             lay.r_comp,
@@ -225,32 +220,21 @@ class BlockingAccumulator:
             s2,
             s3,
             s4,
-            R,
+            self.count,
+            self.S,
+            self.Q,
+            self.P,
+            self.first,
+            self.last,
+            self.has_last,
+            self.pending,
+            self.has_pending,
+            self.seg_sums,
+            self.seg_cur,
+            self.seg_full,
+            self.seg_len,
+            self.seg_fill,
         )
-        head, tail = R[0], R[nb + 1]
-        y = R[1 : nb + 1] / base
-        if h:
-            self.carry_sums += head
-            self.carry_n += h
-            if self.carry_n == base:
-                y = np.concatenate([(self.carry_sums / base)[None, :], y])
-                self.carry_n, self.carry_sums = 0, np.zeros(self.D)
-        if y.shape[0]:
-            blocking_push(
-                y,
-                self.count,
-                self.S,
-                self.Q,
-                self.P,
-                self.first,
-                self.last,
-                self.has_last,
-                self.pending,
-                self.has_pending,
-            )
-            self._add_segments(y[:, : self.m])
-        if rest:
-            self.carry_n, self.carry_sums = rest, tail.copy()
         return mean, s2, s3, s4
 
     def _add_segments(self, means: np.ndarray) -> None:

@@ -407,3 +407,75 @@ def segment_push(means, seg_sums, seg_cur, full, length, fill):
                 full = half
                 length *= 2
     return full, length, fill
+
+
+@numba.njit(cache=True, nogil=True)
+def ingest_block(
+    x,
+    ref,
+    base,
+    carry_n,
+    carry_sums,
+    r_target,
+    r_src,
+    r_comp,
+    mean,
+    s2,
+    s3,
+    s4,
+    count,
+    S,
+    Q,
+    P,
+    first,
+    last,
+    has_last,
+    pending,
+    has_pending,
+    seg_sums,
+    seg_cur,
+    seg_full,
+    seg_len,
+    seg_fill,
+):
+    """One block into a blocking state, in one call: :func:`block_sums`, the base block left
+    unfinished by earlier blocks (``carry_n`` rows, sums ``carry_sums``, updated in place),
+    :func:`blocking_push` and :func:`segment_push` (the Python glue between them cost about a
+    tenth of the block's time). Returns ``(carry_n, seg_full, seg_len, seg_fill)``.
+    """
+    n, m = x.shape
+    D = carry_sums.shape[0]
+    head_len = base - carry_n if carry_n else 0
+    h = min(head_len, n)
+    nb = (n - h) // base
+    rest = n - h - nb * base
+    R = np.empty((nb + 2, D))
+    block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4, R)
+    completes = False
+    if h:
+        for q in range(D):
+            carry_sums[q] += R[0, q]
+        carry_n += h
+        completes = carry_n == base
+    rows = nb + (1 if completes else 0)
+    y = np.empty((rows, D))
+    j = 0
+    if completes:
+        for q in range(D):
+            y[0, q] = carry_sums[q] / base
+            carry_sums[q] = 0.0
+        carry_n = 0
+        j = 1
+    for b in range(nb):
+        for q in range(D):
+            y[j + b, q] = R[1 + b, q] / base
+    if rest:
+        carry_n = rest
+        for q in range(D):
+            carry_sums[q] = R[nb + 1, q]
+    if rows:
+        blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending)
+        seg_full, seg_len, seg_fill = segment_push(
+            y[:, :m], seg_sums, seg_cur, seg_full, seg_len, seg_fill
+        )
+    return carry_n, seg_full, seg_len, seg_fill

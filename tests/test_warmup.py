@@ -8,12 +8,12 @@ import pytest
 
 
 def test_prepare_kernels_compiles_both_dtypes():
-    from stats.kernels import block_sums
+    from stats.kernels import ingest_block
     from stats.warmup import prepare_kernels
 
     seconds = prepare_kernels()
     assert seconds > 0
-    dtypes = {np.dtype(str(sig[0].dtype)) for sig in block_sums.signatures}
+    dtypes = {np.dtype(str(sig[0].dtype)) for sig in ingest_block.signatures}
     assert {np.dtype("float32"), np.dtype("float64")} <= dtypes
 
 
