@@ -14,8 +14,10 @@ Prints samples/s and ratios for, on the same 3-component float32 blocks of 16384
 
 plus the cold and warm start cost of the kernels (first update in a fresh process, without
 and with numba's on-disk cache) and the accumulator memory after short and long runs.
-Every figure is the best of ``--repeat`` runs (this machine's timing varies by +-20 % from run
-to run); BLAS is limited to one thread, so all of it is one core.
+Every contender runs once per round, back to back, for ``--repeat`` rounds: rates are the best
+round, ratios the median of the per-round ratios (this machine's speed drifts by +-20 % from
+minute to minute, so only ratios taken within a round are fair). BLAS is limited to one
+thread, so all of it is one core.
 
     python benchmarks/bench_stats.py [--blocks 400] [--repeat 3]
 """
@@ -153,12 +155,25 @@ def main():
         for b in blocks:
             acc.update(b)
 
-    t_ours = timed(ours, repeat=r)
-    t_nochk = timed(no_checkpoints, repeat=r)
-    t_mom = timed(moments_only, repeat=r)
-    t_blk = timed(blocking_only, repeat=r)
-    t_np = timed(run_numpy, blocks, repeat=r)
-    t_blas = timed(run_numpy, blocks, numpy_blas_moments, repeat=r)
+    # rounds: every contender once per round, back to back, so that the machine's drift in
+    # speed (+-20 % between minutes here) touches all of them alike; ratios are per round
+    contenders = {
+        "ours": (ours,),
+        "nochk": (no_checkpoints,),
+        "mom": (moments_only,),
+        "blk": (blocking_only,),
+        "np": (run_numpy, blocks),
+        "blas": (run_numpy, blocks, numpy_blas_moments),
+    }
+    rounds = [{k: timed(*fn) for k, fn in contenders.items()} for _ in range(r)]
+    best = {k: min(rd[k] for rd in rounds) for k in contenders}
+    t_ours, t_nochk, t_mom, t_blk = best["ours"], best["nochk"], best["mom"], best["blk"]
+    t_np, t_blas = best["np"], best["blas"]
+
+    def ratio(slow, fast):
+        each = sorted(rd[slow] / rd[fast] for rd in rounds)
+        return f"{float(np.median(each)):6.1f} x  (rounds {each[0]:.1f}-{each[-1]:.1f})"
+
     hb = blocks[: args.history_blocks]
     t_hist = timed(run_history, hb)
     rate = n / t_ours
@@ -175,11 +190,11 @@ def main():
     line("numpy per-block moments, BLAS (same combine):", t_blas)
     hist_rate = len(hb) * ROWS / t_hist
     print(f"numpy recompute from history ({len(hb)} blocks):   {hist_rate / 1e6:8.1f} M samples/s")
-    print("ratios (the numpy baselines compute the moments only):")
-    print(f"  update / numpy per combo:       {t_np / t_ours:6.1f} x")
-    print(f"  update / numpy BLAS:            {t_blas / t_ours:6.1f} x")
-    print(f"  moments alone / numpy per combo: {t_np / t_mom:6.1f} x  (like for like)")
-    print(f"  moments alone / numpy BLAS:      {t_blas / t_mom:6.1f} x  (like for like)")
+    print("ratios, median over the rounds (the numpy baselines compute the moments only):")
+    print(f"  update / numpy per combo:         {ratio('np', 'ours')}")
+    print(f"  update / numpy BLAS:              {ratio('blas', 'ours')}")
+    print(f"  moments alone / numpy per combo:  {ratio('np', 'mom')}  like for like")
+    print(f"  moments alone / numpy BLAS:       {ratio('blas', 'mom')}  like for like")
     print(f"  update / recompute-from-history ({len(hb)} blocks only): {rate / hist_rate:6.1f} x")
     with tempfile.TemporaryDirectory() as cache:
         cold = start_cost(cache)
