@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import argparse
 import io
+import os
 import subprocess
 import sys
 import tempfile
@@ -91,8 +92,18 @@ def free_endpoint() -> str:
         return f"tcp://127.0.0.1:{s.getsockname()[1]}"
 
 
-def bare_receiver(messages: int) -> float:
-    """Samples/s of a PULL that only counts (first samples message to end)."""
+def cpu_seconds(pids) -> list[float]:
+    """User + system CPU seconds so far of each process (all its threads, ZeroMQ's too)."""
+    out = []
+    for pid in pids:
+        t = psutil.Process(pid).cpu_times()
+        out.append(t.user + t.system)
+    return out
+
+
+def bare_receiver(messages: int) -> tuple[float, list[float]]:
+    """Samples/s of a PULL that only counts (first samples message to end), and the CPU
+    seconds per message of [publisher, receiver] over the same span."""
     ep = free_endpoint()
     ctx = zmq.Context()
     sock = ctx.socket(zmq.PULL)
@@ -108,15 +119,18 @@ def bare_receiver(messages: int) -> float:
             if len(frames) == 3:
                 if t_first is None:
                     t_first = time.perf_counter()
+                    cpu0 = cpu_seconds([pub.pid, os.getpid()])
                 samples += len(frames[2]) // 12
             elif b'"end"' in frames[1].bytes:
                 break
         elapsed = time.perf_counter() - t_first
+        cpu1 = cpu_seconds([pub.pid, os.getpid()])
+        cpu = [(b - a) / messages for a, b in zip(cpu0, cpu1, strict=True)]
     finally:
         sock.close(linger=0)
         ctx.term()
         pub.wait(timeout=60)
-    return samples / elapsed
+    return samples / elapsed, cpu
 
 
 def full_path(
@@ -126,7 +140,8 @@ def full_path(
     rss: list | None = None,
     rcvhwm: int | None = None,
 ):
-    """Samples/s of Subscriber -> Pipeline (all statistics) -> Recorder; returns (rate, samples)."""
+    """Samples/s of Subscriber -> Pipeline (all statistics) -> Recorder; returns (rate, samples,
+    CPU seconds per message of [publisher, monitor])."""
     from monitor.pipeline import Pipeline
     from monitor.recorder import Recorder
     from monitor.subscriber import Subscriber
@@ -136,15 +151,17 @@ def full_path(
     sub = Subscriber(ep, bind=True, socket="pull", **kw)
     recorder = Recorder(rec_dir) if rec_dir is not None else None
     pipeline = Pipeline(summary=io.StringIO(), recorder=recorder)
-    state = {"t_first": None, "t_last": None}
+    state = {"t_first": None, "t_last": None, "cpu": None}
     proc = psutil.Process()
 
     def on_frames(frames, received_at):
         if state["t_first"] is None and len(frames) == 3:
             state["t_first"] = time.perf_counter()
+            state["cpu0"] = cpu_seconds([pub.pid, os.getpid()])
         pipeline.handle_frames(frames, received_at)
         if pipeline.all_ended:
             state["t_last"] = time.perf_counter()
+            state["cpu"] = cpu_seconds([pub.pid, os.getpid()])
             sub.stop()
 
     def on_tick():
@@ -168,7 +185,9 @@ def full_path(
     pipeline.close()
     if recorder is not None:
         recorder.close()
-    return samples / (state["t_last"] - state["t_first"]), samples
+    n_msg = max(1, samples // ROWS)
+    cpu = [(b - a) / n_msg for a, b in zip(state["cpu0"], state["cpu"], strict=True)]
+    return samples / (state["t_last"] - state["t_first"]), samples, cpu
 
 
 def replay_rate(rec_dir: Path) -> tuple[float, int]:
@@ -198,14 +217,15 @@ def main() -> None:
 
     # warm up: load the numba-compiled kernels once so that no figure includes compilation
     full_path(5, None)
-    rounds = []
+    rounds, cpus = [], []
     with tempfile.TemporaryDirectory() as tmp:
         for i in range(args.repeat):
-            bare = bare_receiver(args.messages)
-            plain, n_plain = full_path(args.messages, None)
+            bare, cpu_bare = bare_receiver(args.messages)
+            plain, n_plain, cpu_plain = full_path(args.messages, None)
             rec = Path(tmp) / f"rec{i}"
-            recorded, n_rec = full_path(args.messages, rec)
+            recorded, n_rec, cpu_rec = full_path(args.messages, rec)
             rounds.append((bare, plain, recorded))
+            cpus.append((cpu_bare, cpu_plain, cpu_rec))
         size = sum(f.stat().st_size for f in rec.glob("frames-*"))
         replay, n_replay = max(replay_rate(rec) for _ in range(args.repeat))
     print(
@@ -222,6 +242,11 @@ def main() -> None:
     med_plain = float(np.median([p / b for b, p, _ in rounds]))
     med_rec = float(np.median([r / b for b, _, r in rounds]))
     print(f"  median ratio to the bare receiver: watch {med_plain:.2f}, --record {med_rec:.2f}")
+    print("  CPU per message, publisher process + receiving process (all threads), median:")
+    for k, label in enumerate(("bare receiver", "watch path", "watch --record")):
+        pub_us = 1e6 * float(np.median([c[k][0] for c in cpus]))
+        rcv_us = 1e6 * float(np.median([c[k][1] for c in cpus]))
+        print(f"    {label:<15} publisher {pub_us:6.0f} us   receiver {rcv_us:6.0f} us")
     print(f"  recording size: {size / 2**20:.1f} MiB")
     print(
         f"replay at max speed through a fresh pipeline: {replay / 1e6:.2f} Msamples/s "
@@ -229,7 +254,7 @@ def main() -> None:
     )
     rss: list[int] = []
     # a small receive queue, so that the figure shows the pipeline's memory, not ZeroMQ's queue
-    rate, n_long = full_path(0, None, seconds=args.long_seconds, rss=rss, rcvhwm=64)
+    rate, n_long, _ = full_path(0, None, seconds=args.long_seconds, rss=rss, rcvhwm=64)
     if rss:
         print(
             f"long max-speed stream, {args.long_seconds:g} s, {n_long / 1e6:.0f} Msamples at "
