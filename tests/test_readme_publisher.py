@@ -59,8 +59,10 @@ def test_readme_publisher_feeds_watch(tmp_path):
     reader.start()
     try:
         # the monitor must be subscribed before a PUB publisher starts (README says so too):
-        # wait for its first status or transport line (bounded)
-        lines.get(timeout=60)
+        # wait for its first status or transport line (bounded). On a fresh clone the kernels
+        # compile first (~20 s) and a notice says so; no socket is open until they are done.
+        while "compiling the statistics kernels" in lines.get(timeout=120):
+            pass
         pub = subprocess.run(
             [sys.executable, "-c", code], cwd=tmp_path, timeout=60, capture_output=True, text=True
         )
