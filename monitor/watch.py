@@ -197,7 +197,7 @@ class StatusPrinter:
             self._stream.flush()
 
 
-def prepare_kernels(quiet: bool = False, notice_after_s: float = 1.0) -> float:
+def prepare_kernels(quiet: bool = False, notice_after_s: float = 3.0) -> float:
     """Load the statistics kernels before any socket opens (see ``stats/warmup.py``).
 
     On the first start after installing they compile for about 20 s; a notice says so when
@@ -208,8 +208,8 @@ def prepare_kernels(quiet: bool = False, notice_after_s: float = 1.0) -> float:
     notice = threading.Timer(
         notice_after_s,
         lambda: print(
-            "eddyvigil: compiling the statistics kernels (first start after installing, "
-            "about 20 s; later starts take 1-2 s); no socket is open yet",
+            "eddyvigil: preparing the statistics kernels (the first start after installing "
+            "compiles them: about 20 s; later starts take 1-2 s); no socket is open yet",
             file=sys.stderr,
             flush=True,
         ),

@@ -61,7 +61,7 @@ def test_readme_publisher_feeds_watch(tmp_path):
         # the monitor must be subscribed before a PUB publisher starts (README says so too):
         # wait for its first status or transport line (bounded). On a fresh clone the kernels
         # compile first (~20 s) and a notice says so; no socket is open until they are done.
-        while "compiling the statistics kernels" in lines.get(timeout=120):
+        while "preparing the statistics kernels" in lines.get(timeout=120):
             pass
         pub = subprocess.run(
             [sys.executable, "-c", code], cwd=tmp_path, timeout=60, capture_output=True, text=True

@@ -50,4 +50,4 @@ def test_slow_preparation_is_announced_unless_quiet(monkeypatch, capsys, quiet):
     monkeypatch.setattr(stats.warmup, "prepare_kernels", lambda: time.sleep(0.3) or 0.3)
     prepare_kernels(quiet=quiet, notice_after_s=0.05)
     err = capsys.readouterr().err
-    assert ("compiling the statistics kernels" in err) is (not quiet)
+    assert ("preparing the statistics kernels" in err) is (not quiet)
