@@ -51,7 +51,7 @@ def test_demo_serves_converges_and_stops_cleanly():
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
         env=dict(os.environ, PYTHONUNBUFFERED="1"))
     try:
-        lines = _read_lines_until(proc, "dashboard at", timeout_s=90)
+        lines = _read_lines_until(proc, "dashboard at", timeout_s=150)  # > demo STARTUP_S
         url = f"http://127.0.0.1:{port}/"
         assert url in lines[-1]
         with urllib.request.urlopen(url, timeout=30) as r:
