@@ -1,7 +1,8 @@
 """Numba kernels of the statistics core.
 
-Plain loops over float64 arrays that fill ``out`` arrays; no state, no validation: shapes and
-dtypes are the business of the Python classes that call them (``moments.py``, ``blocking.py``).
+Plain loops over float64 arrays that fill ``out`` arrays or update the state arrays they are
+handed; they keep nothing themselves and validate nothing: shapes and dtypes are the business
+of the Python classes that call them (``moments.py``, ``blocking.py``). All release the GIL.
 
 Two numerical choices are made here:
 
@@ -21,7 +22,15 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["central_sums", "block_sums", "blocking_push", "kernel_view", "monomial_sums"]
+__all__ = [
+    "block_sums",
+    "blocking_push",
+    "central_sums",
+    "ingest_block",
+    "kernel_view",
+    "monomial_sums",
+    "segment_push",
+]
 
 _CHUNK = 128
 
