@@ -29,9 +29,12 @@ import threading
 import time
 from pathlib import Path
 
-import numpy as np
-import psutil
-import zmq
+# one BLAS thread, as the eddyvigil command sets (monitor/cli.py), before numpy loads BLAS
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+
+import numpy as np  # noqa: E402
+import psutil  # noqa: E402
+import zmq  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 

@@ -1,10 +1,10 @@
-"""Everything with I/O around the statistics core: sockets, pipeline, summaries, commands."""
+"""Everything with I/O around the statistics core: sockets, pipeline, summaries, commands.
 
-from monitor.control import ControlPublisher
-from monitor.pipeline import Pipeline
-from monitor.state import RunSnapshot, StreamView
-from monitor.subscriber import Subscriber, SubscriberError
-from monitor.summary import SummaryWriter
+Public names are loaded on first use (PEP 562), as in ``stats``: importing ``monitor.cli``
+loads neither numpy nor its BLAS, so the command can settle the BLAS thread count first.
+"""
+
+from importlib import import_module
 
 __all__ = [
     "ControlPublisher",
@@ -15,3 +15,25 @@ __all__ = [
     "SubscriberError",
     "SummaryWriter",
 ]
+
+_WHERE = {
+    "ControlPublisher": "monitor.control",
+    "Pipeline": "monitor.pipeline",
+    "RunSnapshot": "monitor.state",
+    "StreamView": "monitor.state",
+    "Subscriber": "monitor.subscriber",
+    "SubscriberError": "monitor.subscriber",
+    "SummaryWriter": "monitor.summary",
+}
+
+
+def __getattr__(name):
+    if name in _WHERE:
+        value = getattr(import_module(_WHERE[name]), name)
+        globals()[name] = value
+        return value
+    raise AttributeError(f"module 'monitor' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(__all__)
