@@ -296,6 +296,22 @@ def block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4
 
 
 @numba.njit(cache=True, nogil=True)
+def _gram(rows, out):
+    """``out`` (D, D) = sum over rows of r r^T: BLAS for 8 rows or more, loops below that
+    (the upper blocking levels see a row or two per call; BLAS call overhead dominates)."""
+    n, D = rows.shape
+    if n >= 8:
+        out[:, :] = np.dot(rows.T, rows)
+        return
+    out[:, :] = 0.0
+    for t in range(n):
+        for a in range(D):
+            va = rows[t, a]
+            for b in range(D):
+                out[a, b] += va * rows[t, b]
+
+
+@numba.njit(cache=True, nogil=True)
 def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending):
     """Push block-mean vectors ``y`` (n, D), one row per block, into the dyadic blocking levels.
 
@@ -303,13 +319,21 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
     ``S[k]`` (D,), the sum of outer products ``Q[k]`` (D, D), the symmetrised lag-one product
     sum ``P[k]`` (sum of (y_i y_{i+1}^T + y_{i+1} y_i^T) / 2), the first and last vectors, and
     a pending vector waiting for its pair. Pairs of level-``k`` values are averaged into level
-    ``k + 1`` (Flyvbjerg & Petersen 1989). Rows are vectors so that the lagged slices are
-    contiguous and the products go straight to BLAS (``np.dot``) without copies.
-    Returns the number of levels in use.
+    ``k + 1`` (Flyvbjerg & Petersen 1989). Returns the number of levels in use.
+
+    The lag products cost no product of their own over the pairs that form the next level:
+    for neighbours a, b, sym(a b^T) = ((a + b)(a + b)^T - a a^T - b b^T) / 2, and a + b is
+    twice a next-level row for every other neighbour pair, whose outer products are the next
+    level's ``Q`` increment anyway. Only the other half of the pairs needs a Gram matrix: three
+    row-products per level-0 row in all levels together instead of four.
     """
     D = y.shape[1]
     nlev = count.shape[0]
     cur = y
+    g_cur = np.empty((D, D))
+    g_next = np.empty((D, D))
+    g_other = np.empty((D, D))
+    _gram(cur, g_cur)
     used = 0
     for k in range(nlev):
         n = cur.shape[0]
@@ -319,59 +343,69 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
         for t in range(n):
             for a in range(D):
                 S[k, a] += cur[t, a]
-        if n >= 8:
-            Q[k] += np.dot(cur.T, cur)
-            lag = np.dot(cur[: n - 1].T, cur[1:])
-            for a in range(D):
-                for b in range(D):
-                    P[k, a, b] += 0.5 * (lag[a, b] + lag[b, a])
-        else:
-            # upper levels see a row or two per call: plain loops beat BLAS call overhead
-            for t in range(n):
-                for a in range(D):
-                    va = cur[t, a]
-                    for b in range(D):
-                        Q[k, a, b] += va * cur[t, b]
-            for t in range(n - 1):
-                for a in range(D):
-                    va = cur[t, a]
-                    wa = cur[t + 1, a]
-                    for b in range(D):
-                        P[k, a, b] += 0.5 * (va * cur[t + 1, b] + wa * cur[t, b])
-        if has_last[k]:
-            # the previous call's last vector and this call's first are neighbours too
-            for a in range(D):
-                va = last[k, a]
-                wa = cur[0, a]
-                for b in range(D):
-                    P[k, a, b] += 0.5 * (va * cur[0, b] + wa * last[k, b])
-        if count[k] == 0:
-            first[k] = cur[0]
-        last[k] = cur[n - 1]
-        has_last[k] = True
-        count[k] += n
-        # pair averages for the next level
-        npend = 1 if has_pending[k] else 0
-        total = n + npend
+        # neighbour pairs of this call (with the previous call's last row in front): those
+        # averaged into level k + 1 (nxt) and the others (their sums in ``other``)
+        paired = has_pending[k]
+        total = n + (1 if paired else 0)
         nxt = np.empty((total // 2, D))
+        other = np.empty((n // 2 + 1, D))
         j = 0
-        t = 0
-        if has_pending[k]:
+        o = 0
+        if paired:
             for a in range(D):
                 nxt[0, a] = 0.5 * (pending[k, a] + cur[0, a])
             j = 1
             t = 1
             has_pending[k] = False
+        else:
+            t = 0
+            if has_last[k]:
+                for a in range(D):
+                    other[0, a] = last[k, a] + cur[0, a]
+                o = 1
         while t + 1 < n:
             for a in range(D):
                 nxt[j, a] = 0.5 * (cur[t, a] + cur[t + 1, a])
             j += 1
+            if t + 2 < n:
+                for a in range(D):
+                    other[o, a] = cur[t + 1, a] + cur[t + 2, a]
+                o += 1
             t += 2
+        if paired and n >= 2:
+            # (cur_0, cur_1) is not a pair of the next level
+            for a in range(D):
+                other[o, a] = cur[0, a] + cur[1, a]
+            o += 1
         if t < n:
             for a in range(D):
                 pending[k, a] = cur[t, a]
             has_pending[k] = True
+        _gram(nxt, g_next)
+        _gram(other[:o], g_other)
+        # sum over pairs of (a a^T + b b^T): every row of the chain twice, its ends once;
+        # the chain starts at the previous call's last row when there is one
+        sign = 1.0 if has_last[k] else -1.0
+        head = last[k] if has_last[k] else cur[0]
+        tail = cur[n - 1]
+        Qk = Q[k]
+        Pk = P[k]
+        for a in range(D):
+            ha = 0.5 * sign * head[a]
+            ta = 0.5 * tail[a]
+            for b in range(D):
+                g = g_cur[a, b]
+                Qk[a, b] += g
+                Pk[a, b] += (
+                    2.0 * g_next[a, b] + 0.5 * g_other[a, b] - g - ha * head[b] + ta * tail[b]
+                )
+        if count[k] == 0:
+            first[k] = cur[0]
+        last[k] = cur[n - 1]
+        has_last[k] = True
+        count[k] += n
         cur = nxt
+        g_cur, g_next = g_next, g_cur
     return used
 
 
