@@ -14,11 +14,13 @@ File layout (all integers little-endian)::
                   u16 R, R bytes reason (UTF-8; R = 0 for an accepted message)
                   u32 frame count F, then F times: u64 length, the frame's bytes exactly as received
 
-The CRC (``zlib.crc32``) covers the length field too, so a damaged length is caught like damaged
-data. The reader never raises on damage: a record that fails its checks is skipped by scanning
-forward to the next record that passes them, and each such event is reported as a
-:class:`RecordingProblem` (in a list the caller passes and through :mod:`logging`); damage that
-runs to the end of the last file is a torn tail, what a crash during a write leaves behind.
+The CRC covers the length field too, so a damaged length is caught like damaged data. It is the
+standard CRC-32 of ``zlib.crc32``, computed by zlib-ng's ``crc32``: the same values, 3.6 against
+52 us for a 196 KB message on the reference machine. The reader never raises on damage: a record
+that fails its checks is skipped by scanning forward to the next record that passes them, and
+each such event is reported as a :class:`RecordingProblem` (in a list the caller passes and
+through :mod:`logging`); damage that runs to the end of the last file is a torn tail, what a
+crash during a write leaves behind.
 
 The recorder queues records in memory (frames by reference, no copy) and a writer thread
 computes the CRCs and writes large chunks with ``os.writev``: when ``chunk_bytes`` are queued,
@@ -38,12 +40,13 @@ import re
 import struct
 import threading
 import time
-import zlib
 from collections import Counter
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
+
+from zlib_ng.zlib_ng import crc32
 
 __all__ = [
     "FORMAT_VERSION",
@@ -359,11 +362,11 @@ class Recorder:
                 continue
             _, fixed, views, body_len = item
             length = _LEN.pack(body_len)
-            crc = zlib.crc32(fixed, zlib.crc32(length))
+            crc = crc32(fixed, crc32(length))
             parts = [fixed]
             for v in views:
                 flen = _LEN.pack(v.nbytes)
-                crc = zlib.crc32(v, zlib.crc32(flen, crc))  # releases the GIL on large frames
+                crc = crc32(v, crc32(flen, crc))
                 parts.append(flen)
                 parts.append(v)
             buffers.append(_RECORD_HEAD.pack(RECORD_MARK, body_len, crc))
@@ -455,7 +458,7 @@ def _parse_record(buf: memoryview, pos: int) -> tuple[Record, int] | None:
     if mark != RECORD_MARK or body_len > end - start or body_len < _BODY_FIXED.size + 4:
         return None
     with buf[start : start + body_len] as body:  # released at once: the mmap can then close
-        if zlib.crc32(body, zlib.crc32(_LEN.pack(body_len))) != crc:
+        if crc32(body, crc32(_LEN.pack(body_len))) != crc:
             return None
         received_at, rlen = _BODY_FIXED.unpack_from(body, 0)
         p = _BODY_FIXED.size
