@@ -134,6 +134,11 @@ class PointStatistics:
         self._components = tuple(frozenset(components_of(name)) for name in self.names)
         # Tint_c, Neff_c, L_c take their block count and relative error from the mean C
         self._source = np.r_[np.arange(len(self.table.names)), np.tile(np.arange(m), 3)]
+        # the moment rows a checkpoint needs: the targeted statistics (Tint, Neff, L through
+        # their mean) and the means, whose errors the stationarity guard uses
+        needed = self._source[list(self._plan.targeted)].tolist() + list(range(m))
+        self._checkpoint_rows = np.zeros(len(self.table.names), dtype=bool)
+        self._checkpoint_rows[needed] = True
         self.checkpoints = Checkpoints()
         self._duration_s = 0.0
         self._cache: _Evaluation | None = None
@@ -172,7 +177,7 @@ class PointStatistics:
         self.moments.add_block_sums(block.shape[0], *self.blocking.ingest(block))
         self._cache = None
         if self.checkpoints.due(self.n):
-            ev = self._evaluate()
+            ev = self._evaluate(self._checkpoint_rows)
             self.checkpoints.record(self.n, self._passes(ev), self.duration_s)
         return self
 
@@ -193,7 +198,11 @@ class PointStatistics:
         return new
 
     # ------------------------------------------------------------- evaluation
-    def _evaluate(self) -> _Evaluation:
+    def _evaluate(self, rows: np.ndarray | None = None) -> _Evaluation:
+        """Every statistic, or with ``rows`` (a mask over the moment statistics) only the errors
+        of those rows: the others come back NaN and the result is not kept. A checkpoint needs
+        the targeted rows alone, and the fourth moments' dense gradients were most of the
+        blocking analysis."""
         if self._cache is not None:
             return self._cache
         tab = self.table
@@ -217,6 +226,8 @@ class PointStatistics:
         ref = self.blocking.ref
         raw = self.moments.raw_about(ref)
         values, grad = tab.values_and_gradient(raw, ref)
+        if rows is not None:
+            grad = np.where(rows[:, None], grad, 0.0)  # a zero row costs one pass over levels
         choice = self.blocking.analyse(grad)
         # append integral time scales, effective sample counts and integral lengths
         values = np.concatenate([values, np.empty(3 * m)])
@@ -232,7 +243,8 @@ class PointStatistics:
                 suspect[c] = verdict.reason or "not stationary"
         targets = self._plan.resolve(values.tolist())
         ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets)
-        self._cache = ev
+        if rows is None:
+            self._cache = ev
         return ev
 
     def _stationary(self, i: int, suspect: dict) -> bool:

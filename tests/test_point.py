@@ -165,6 +165,38 @@ def test_converges_with_targets_and_reports_eta():
     assert snap.slowest() is None
 
 
+@pytest.mark.parametrize(
+    "targets",
+    [
+        None,  # the defaults: means, stresses, k
+        {"targets": {"uuv": {"relative": 0.2}, "Tint_w": {"relative": 0.3}}},
+        {"targets": {"flat_v": {"relative": 0.1}, "uvww": {"absolute": 0.5}}},
+    ],
+)
+def test_checkpoint_evaluation_is_the_full_one_on_the_rows_it_uses(targets):
+    # A checkpoint analyses only the targeted statistics (and the means, for the stationarity
+    # guard); on those rows it must be the full evaluation digit for digit, and the verdict
+    # the same. The other rows come back NaN, which shows their work was skipped.
+    t = Targets.defaults() if targets is None else Targets.from_dict(targets)
+    ps = PointStatistics(("u", "v", "w"), rate_hz=2000.0, targets=t)
+    x = turbulence(np.random.default_rng(4), 300_000, np.exp(-1 / 20))
+    for k in range(0, x.shape[0], 30_000):
+        ps.update(x[k : k + 30_000])
+        part = ps._evaluate(ps._checkpoint_rows)
+        ps._cache = None
+        full = ps._evaluate()
+        ps._cache = None
+        used = sorted({*ps._plan.targeted, 0, 1, 2})
+        for field in ("values", "stderr", "half_width", "blocks", "se_rel_err"):
+            a, b = getattr(part, field)[used], getattr(full, field)[used]
+            np.testing.assert_array_equal(a, b, err_msg=field)
+        assert part.suspect == full.suspect
+        assert ps._passes(part) == ps._passes(full)
+    skipped = [i for i in range(len(ps.table.names)) if not ps._checkpoint_rows[i]]
+    assert skipped and np.isnan(part.stderr[skipped]).all()
+    assert np.isfinite(full.stderr[skipped]).all()
+
+
 def test_where_a_block_came_from_never_changes_a_digit():
     # A decoded wire buffer is read-only, a script's array is writable, a column slice is not
     # C-ordered: numba would compile one specialisation each, and re-associated sums could then
