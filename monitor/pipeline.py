@@ -435,28 +435,32 @@ class Pipeline:
         st.rate_hz = rate_hz
         self._trace(st, velocity, columns, rate_hz, times, t0)
         # Convergence is decided at the statistics' own checkpoints (inside update, from the
-        # data alone), and right after one the evaluation is cached, so a snapshot is cheap
-        # then; between checkpoints the verdict cannot change and the costly evaluation waits
-        # for the next publication (pace of the clock) or the end of the point.
-        if mark is None or _checkpoint_mark(run.stats) != mark or run.snapshot is None:
+        # data alone). At a checkpoint the targeted statistics come from the checkpoint's own
+        # evaluation (a history row, and the converged signal at once); every other statistic
+        # waits for the next publication (pace of the clock) or the end of the point, and so
+        # does everything between checkpoints, where the verdict cannot change.
+        if mark is None or run.snapshot is None:
             self._take_stats_snapshot(st, run)
+        elif _checkpoint_mark(run.stats) != mark:
+            self._on_checkpoint(st, run)
         else:
             run.stale = True
         return None
 
-    def _take_stats_snapshot(self, st: _StreamState, run: _PointRun) -> None:
+    def _on_checkpoint(self, st: _StreamState, run: _PointRun) -> None:
+        snap = run.stats.targeted_snapshot()
+        self._add_history(run, snap)
+        if snap.converged and not run.converged_signalled:
+            self._take_stats_snapshot(st, run, history=False)  # the summary line needs all
+        else:
+            run.stale = True
+
+    def _take_stats_snapshot(self, st: _StreamState, run: _PointRun, history=True) -> None:
         run.stale = False
         snap = run.stats.snapshot()
         run.snapshot = snap
-        h = run.history
-        h["duration_s"].append(float(snap.duration_s))
-        for e in snap.targeted():
-            h.setdefault(e.name, []).append(float(e.value))
-            h.setdefault(e.name + "_hw", []).append(float(e.half_width))
-            h.setdefault(e.name + "_target", []).append(float(e.target))
-        if len(h["duration_s"]) >= HISTORY_ROWS:
-            for key in h:
-                h[key] = h[key][::2]
+        if history:
+            self._add_history(run, snap)
         if snap.converged and not run.converged_signalled:
             run.converged_signalled = True
             run.converged_clock = self._clock()
@@ -468,6 +472,19 @@ class Pipeline:
                     )
                 except Exception:
                     self._internal_error()
+
+    @staticmethod
+    def _add_history(run: _PointRun, snap) -> None:
+        """One row of the targeted statistics' values, half-widths and targets (dashboard)."""
+        h = run.history
+        h["duration_s"].append(float(snap.duration_s))
+        for e in snap.targeted():
+            h.setdefault(e.name, []).append(float(e.value))
+            h.setdefault(e.name + "_hw", []).append(float(e.half_width))
+            h.setdefault(e.name + "_target", []).append(float(e.target))
+        if len(h["duration_s"]) >= HISTORY_ROWS:
+            for key in h:
+                h[key] = h[key][::2]
 
     def _finish_point(self, st: _StreamState, complete: bool) -> None:
         run = st.point

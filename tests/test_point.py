@@ -197,6 +197,37 @@ def test_checkpoint_evaluation_is_the_full_one_on_the_rows_it_uses(targets):
     assert np.isfinite(full.stderr[skipped]).all()
 
 
+def test_targeted_snapshot_is_the_snapshot_restricted_to_targets():
+    # What the pipeline reads at a checkpoint (history row, converged signal) must be the
+    # full snapshot's targeted part, field for field, whether or not a checkpoint was passed.
+    targets = Targets.from_dict({"targets": {"U": {"relative": 0.01}, "uw": {"absolute": 0.02}}})
+    ps = PointStatistics(("u", "v", "w"), rate_hz=2000.0, targets=targets)
+    x = turbulence(np.random.default_rng(6), 400_000, np.exp(-1 / 10))
+    seen_converged = False
+    for k in range(0, x.shape[0], 7_000):
+        ps.update(x[k : k + 7_000])
+        part = ps.targeted_snapshot()
+        ps._cache = None  # no reuse: the full snapshot evaluates afresh
+        full = ps.snapshot()
+        want = full.targeted()
+        assert [e.name for e in part.estimates] == [e.name for e in want] == ["U", "uw"]
+        for a, b in zip(part.estimates, want, strict=True):
+            for field, va in a._asdict().items():
+                vb = getattr(b, field)
+                if isinstance(va, float) and math.isnan(va):
+                    assert isinstance(vb, float) and math.isnan(vb), field
+                else:
+                    assert va == vb, field
+        assert (part.converged, part.converged_at_s) == (full.converged, full.converged_at_s)
+        assert (part.samples, part.duration_s, part.suspect) == (
+            full.samples,
+            full.duration_s,
+            full.suspect,
+        )
+        seen_converged |= full.converged
+    assert seen_converged
+
+
 def test_where_a_block_came_from_never_changes_a_digit():
     # A decoded wire buffer is read-only, a script's array is writable, a column slice is not
     # C-ordered: numba would compile one specialisation each, and re-associated sums could then
