@@ -246,20 +246,15 @@ def chain_rule(raw, ref, cen, J, kfac, stress, third, fourth, c2, c3, c4, values
             values[r] = cen[q]
             grad[r, :] = J[q, :]
             r += 1
-    for i in range(m):  # skewness uuu / uu^1.5
-        s2, s3 = cen[c2[i]], cen[c3[i]]
-        values[r] = s3 / s2**1.5
-        a, b = s2**1.5, 1.5 * s3 / s2**2.5
-        for d in range(D):
-            grad[r, d] = J[c3[i], d] / a - b * J[c2[i], d]
-        r += 1
-    for i in range(m):  # flatness uuuu / uu^2
-        s2, s4 = cen[c2[i]], cen[c4[i]]
-        values[r] = s4 / s2**2
-        a, b = s2**2, 2.0 * s4 / s2**3.0
-        for d in range(D):
-            grad[r, d] = J[c4[i], d] / a - b * J[c2[i], d]
-        r += 1
+    # skewness uuu / uu^1.5, then flatness uuuu / uu^2: s_k / s2^p and its gradient
+    for ck, p in ((c3, 1.5), (c4, 2.0)):
+        for i in range(m):
+            s2, sk = cen[c2[i]], cen[ck[i]]
+            a, b = s2**p, p * sk / s2 ** (p + 1.0)
+            values[r] = sk / a
+            for d in range(D):
+                grad[r, d] = J[ck[i], d] / a - b * J[c2[i], d]
+            r += 1
 
 
 @numba.njit(cache=True, error_model="numpy")
