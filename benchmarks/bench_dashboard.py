@@ -34,10 +34,10 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 from bokeh.document import Document  # noqa: E402
 
-from monitor.dashboard.app import build_document  # noqa: E402
-from monitor.dashboard.preview import PreviewRun  # noqa: E402
-from monitor.dashboard.server import DashboardServer  # noqa: E402
-from monitor.state import RunSnapshot, StreamView  # noqa: E402
+from eddyvigil.monitor.dashboard.app import build_document  # noqa: E402
+from eddyvigil.monitor.dashboard.preview import PreviewRun  # noqa: E402
+from eddyvigil.monitor.dashboard.server import DashboardServer  # noqa: E402
+from eddyvigil.monitor.state import RunSnapshot, StreamView  # noqa: E402
 
 
 class StampedRun:
@@ -132,7 +132,7 @@ def bench_browser(seconds: float) -> None:
 
 
 def _frames(n_messages: int, rate_hz: float, rows: int = 16384):
-    from monitor import wire
+    from eddyvigil.monitor import wire
 
     rng = np.random.default_rng(3)
     block = (np.array([8.0, 0.3, 0.0]) + rng.standard_normal((rows, 3))).astype("<f4")
@@ -177,7 +177,7 @@ def _browser():
 
 
 def bench_live(seconds: float, max_messages: int) -> None:
-    from monitor.pipeline import Pipeline
+    from eddyvigil.monitor.pipeline import Pipeline
 
     # warm-up: kernels loaded, one-time tables built, before anything is timed
     warm = Pipeline()

@@ -38,7 +38,7 @@ import zmq  # noqa: E402
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
-from monitor import wire  # noqa: E402
+from eddyvigil.monitor import wire  # noqa: E402
 
 ROWS = 16384
 
@@ -145,9 +145,9 @@ def full_path(
 ):
     """Samples/s of Subscriber -> Pipeline (all statistics) -> Recorder; returns (rate, samples,
     CPU seconds per message of [publisher, monitor])."""
-    from monitor.pipeline import Pipeline
-    from monitor.recorder import Recorder
-    from monitor.subscriber import Subscriber
+    from eddyvigil.monitor.pipeline import Pipeline
+    from eddyvigil.monitor.recorder import Recorder
+    from eddyvigil.monitor.subscriber import Subscriber
 
     ep = free_endpoint()
     kw = {} if rcvhwm is None else {"rcvhwm": rcvhwm}
@@ -194,8 +194,8 @@ def full_path(
 
 
 def replay_rate(rec_dir: Path) -> tuple[float, int]:
-    from monitor.pipeline import Pipeline
-    from monitor.replay import replay_into
+    from eddyvigil.monitor.pipeline import Pipeline
+    from eddyvigil.monitor.replay import replay_into
 
     pipeline = Pipeline(summary=io.StringIO())
     t = time.perf_counter()

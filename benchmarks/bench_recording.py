@@ -25,8 +25,8 @@ from pathlib import Path
 
 import numpy as np
 
-from monitor import wire
-from monitor.recorder import Recorder, read_recording, recording_files
+from eddyvigil.monitor import wire
+from eddyvigil.monitor.recorder import Recorder, read_recording, recording_files
 
 ROWS, COLS = 16384, 3
 

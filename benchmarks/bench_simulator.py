@@ -20,8 +20,8 @@ import zmq
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from monitor import wire  # noqa: E402
-from simulator.signals import OUGenerator, VonKarmanGenerator  # noqa: E402
+from eddyvigil.monitor import wire  # noqa: E402
+from eddyvigil.simulator.signals import OUGenerator, VonKarmanGenerator  # noqa: E402
 
 R = np.array([[1.0, -0.3, 0.0], [-0.3, 0.5, 0.05], [0.0, 0.05, 0.4]])
 
@@ -49,7 +49,7 @@ def _publisher(port: int, *args: str) -> subprocess.Popen:
         [
             sys.executable,
             "-m",
-            "simulator.cli",
+            "eddyvigil.simulator.cli",
             "--quiet",
             "--connect",
             f"tcp://127.0.0.1:{port}",

@@ -37,9 +37,9 @@ import numpy as np  # noqa: E402
 
 sys.path.insert(0, os.path.join(os.path.dirname(__file__), ".."))
 
-from stats import BlockingAccumulator, MomentAccumulator, PointStatistics  # noqa: E402
-from stats.monomials import layout  # noqa: E402
-from stats.point import DEFAULT_BASE_BLOCK  # noqa: E402
+from eddyvigil.stats import BlockingAccumulator, MomentAccumulator, PointStatistics  # noqa: E402
+from eddyvigil.stats.monomials import layout  # noqa: E402
+from eddyvigil.stats.point import DEFAULT_BASE_BLOCK  # noqa: E402
 
 ROWS = 16384
 
@@ -96,7 +96,7 @@ def timed(fn, *args, repeat=1):
 
 def start_cost(cache_dir):
     code = (
-        "import time, numpy as np; t=time.perf_counter(); from stats import PointStatistics;"
+        "import time, numpy as np; t=time.perf_counter(); from eddyvigil.stats import PointStatistics;"
         "p=PointStatistics(('u','v','w'),20000.0); p.update(np.zeros((20000,3),np.float32)+"
         "np.random.default_rng(0).normal(size=(20000,3)).astype(np.float32)); p.snapshot();"
         "print(time.perf_counter()-t)"

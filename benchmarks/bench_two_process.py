@@ -71,7 +71,7 @@ def receiver(endpoint: str, shm_name: str, to_stats, from_stats) -> None:
 
 def two_process(messages: int) -> float:
     """Samples/s of the split design (first samples message to ``end``)."""
-    from monitor.pipeline import Pipeline
+    from eddyvigil.monitor.pipeline import Pipeline
 
     shm = shared_memory.SharedMemory(create=True, size=SLOT_BYTES * SLOTS)
     ring = shm.buf

@@ -1,6 +1,6 @@
 """Everything with I/O around the statistics core: sockets, pipeline, summaries, commands.
 
-Public names are loaded on first use (PEP 562), as in ``stats``: importing ``monitor.cli``
+Public names are loaded on first use (PEP 562), as in ``stats``: importing ``eddyvigil.monitor.cli``
 loads neither numpy nor its BLAS, so the command can settle the BLAS thread count first.
 """
 
@@ -17,13 +17,13 @@ __all__ = [
 ]
 
 _WHERE = {
-    "ControlPublisher": "monitor.control",
-    "Pipeline": "monitor.pipeline",
-    "RunSnapshot": "monitor.state",
-    "StreamView": "monitor.state",
-    "Subscriber": "monitor.subscriber",
-    "SubscriberError": "monitor.subscriber",
-    "SummaryWriter": "monitor.summary",
+    "ControlPublisher": "eddyvigil.monitor.control",
+    "Pipeline": "eddyvigil.monitor.pipeline",
+    "RunSnapshot": "eddyvigil.monitor.state",
+    "StreamView": "eddyvigil.monitor.state",
+    "Subscriber": "eddyvigil.monitor.subscriber",
+    "SubscriberError": "eddyvigil.monitor.subscriber",
+    "SummaryWriter": "eddyvigil.monitor.summary",
 }
 
 
@@ -32,7 +32,7 @@ def __getattr__(name):
         value = getattr(import_module(_WHERE[name]), name)
         globals()[name] = value
         return value
-    raise AttributeError(f"module 'monitor' has no attribute {name!r}")
+    raise AttributeError(f"module 'eddyvigil.monitor' has no attribute {name!r}")
 
 
 def __dir__():

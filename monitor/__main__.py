@@ -1,5 +1,5 @@
 import sys
 
-from monitor.cli import main
+from eddyvigil.monitor.cli import main
 
 sys.exit(main())

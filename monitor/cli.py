@@ -16,11 +16,11 @@ __all__ = ["main", "build_parser"]
 
 #: command -> (module, one-line help)
 COMMANDS = {
-    "demo": ("monitor.demo", "simulator + monitor + dashboard on the built-in scenario, in one go"),
-    "simulate": ("simulator.cli", "publish synthetic turbulence with known truth"),
-    "watch": ("monitor.watch", "monitor a live stream"),
-    "replay": ("monitor.replay", "feed a recording through the same path as live data"),
-    "export": ("monitor.export", "write recorded samples and summaries to open formats"),
+    "demo": ("eddyvigil.monitor.demo", "simulator + monitor + dashboard on the built-in scenario, in one go"),
+    "simulate": ("eddyvigil.simulator.cli", "publish synthetic turbulence with known truth"),
+    "watch": ("eddyvigil.monitor.watch", "monitor a live stream"),
+    "replay": ("eddyvigil.monitor.replay", "feed a recording through the same path as live data"),
+    "export": ("eddyvigil.monitor.export", "write recorded samples and summaries to open formats"),
 }
 
 

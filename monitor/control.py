@@ -15,8 +15,8 @@ from collections.abc import Mapping
 
 import zmq
 
-from monitor.subscriber import open_socket
-from monitor.summary import dumps_line
+from eddyvigil.monitor.subscriber import open_socket
+from eddyvigil.monitor.summary import dumps_line
 
 __all__ = ["ControlPublisher", "converged_message"]
 
@@ -36,7 +36,7 @@ def converged_message(stream: str, point: Mapping, at_s: float, summary: Mapping
 class ControlPublisher:
     """A bound PUB socket sending ``converged`` signals (LINGER 0).
 
-    Raises ``monitor.subscriber.SubscriberError`` (or its ``AddressInUseError``) when the
+    Raises ``eddyvigil.monitor.subscriber.SubscriberError`` (or its ``AddressInUseError``) when the
     endpoint cannot be bound.
     """
 

@@ -163,7 +163,7 @@ def _port_taken(host: str, port: int) -> bool:
 
 
 def run(args: argparse.Namespace) -> int:
-    from monitor.watch import EXIT_ADDRESS_IN_USE
+    from eddyvigil.monitor.watch import EXIT_ADDRESS_IN_USE
 
     host = "127.0.0.1"
     port = args.port if args.port else free_port(host)
@@ -177,7 +177,7 @@ def run(args: argparse.Namespace) -> int:
     workdir = tempfile.mkdtemp(prefix="eddyvigil-demo-")
     summary = args.summary or str(Path(workdir) / "summary.jsonl")
 
-    exe = [sys.executable, "-m", "monitor"]
+    exe = [sys.executable, "-m", "eddyvigil.monitor"]
     watch = exe + ["watch", "--connect", data, "--control", control, "--port", str(port),
                    "--host", host, "--summary", summary, "--quiet"]
     simulate = exe + ["simulate", "--bind", data, "--socket", "pub", "--speed", args.speed,

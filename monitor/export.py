@@ -28,8 +28,8 @@ from pathlib import Path
 
 import numpy as np
 
-from monitor import wire
-from monitor.recorder import read_recording, recording_files
+from eddyvigil.monitor import wire
+from eddyvigil.monitor.recorder import read_recording, recording_files
 
 __all__ = ["add_arguments", "run", "PointData", "collect", "write_npz", "write_h5", "write_csv"]
 

@@ -44,9 +44,9 @@ from collections.abc import Callable, Mapping, Sequence
 
 import numpy as np
 
-from monitor import wire
-from monitor.state import RunSnapshot, StreamView
-from monitor.summary import SummaryWriter
+from eddyvigil.monitor import wire
+from eddyvigil.monitor.state import RunSnapshot, StreamView
+from eddyvigil.monitor.summary import SummaryWriter
 
 __all__ = ["Pipeline", "PIPELINE_REJECTION_REASONS", "TRACE_ROWS", "HISTORY_ROWS"]
 
@@ -154,7 +154,7 @@ class Pipeline:
     clock : callable
         Monotonic clock in seconds (injected for tests).
     max_message_bytes : int
-        Application size limit passed to :func:`monitor.wire.decode`.
+        Application size limit passed to :func:`eddyvigil.monitor.wire.decode`.
     """
 
     def __init__(
@@ -168,7 +168,7 @@ class Pipeline:
         clock: Callable[[], float] = time.monotonic,
         max_message_bytes: int = wire.DEFAULT_MAX_MESSAGE_BYTES,
     ):
-        import stats  # the numba-compiled core is loaded only when a pipeline is built
+        from eddyvigil import stats  # the numba-compiled core is loaded only when a pipeline is built
 
         self._stats = stats
         self.targets = targets if targets is not None else stats.Targets.defaults()

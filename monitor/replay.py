@@ -1,7 +1,7 @@
 """Feed a recording through the same path as live data (or re-publish it on a socket).
 
 ``eddyvigil replay DIR`` reads the frames ``watch --record DIR`` stored and passes each one to
-:meth:`monitor.pipeline.Pipeline.handle_frames`, exactly as the live monitor did, with the
+:meth:`eddyvigil.monitor.pipeline.Pipeline.handle_frames`, exactly as the live monitor did, with the
 targets and size limit the live monitor used (from ``DIR/monitor-settings.json``, unless
 ``--targets`` / ``--max-message-mb`` say otherwise). The summaries of a live run and of its
 replay are therefore identical line for line. Points still open when the recording ends are
@@ -18,7 +18,7 @@ import threading
 import time
 from pathlib import Path
 
-from monitor.watch import (
+from eddyvigil.monitor.watch import (
     EXIT_ADDRESS_IN_USE,
     EXIT_ENDPOINT,
     EXIT_NO_RECORDING,
@@ -121,7 +121,7 @@ def _fail(code: int, message: str) -> int:
 
 
 def _records(directory: Path, speed: float | None):
-    from monitor.recorder import paced, read_recording
+    from eddyvigil.monitor.recorder import paced, read_recording
 
     records = read_recording(directory)
     return records if speed is None else paced(records, speed)
@@ -152,7 +152,7 @@ def load_settings(directory: Path) -> dict:
 
 
 def run(args: argparse.Namespace) -> int:
-    from stats.targets import Targets, TargetsError
+    from eddyvigil.stats.targets import Targets, TargetsError
 
     directory = Path(args.dir)
     if not directory.is_dir():
@@ -172,11 +172,11 @@ def run(args: argparse.Namespace) -> int:
             return _fail(EXIT_USAGE, "--max-message-mb must be positive")
         max_bytes = int(args.max_message_mb * 2**20)
     else:
-        from monitor.wire import DEFAULT_MAX_MESSAGE_BYTES
+        from eddyvigil.monitor.wire import DEFAULT_MAX_MESSAGE_BYTES
 
         max_bytes = int(settings.get("max_message_bytes", DEFAULT_MAX_MESSAGE_BYTES))
 
-    from monitor.recorder import holds_recording
+    from eddyvigil.monitor.recorder import holds_recording
 
     if not holds_recording(directory):
         return _fail(EXIT_NO_RECORDING, f"{directory} holds no recording (made by watch --record)")
@@ -184,7 +184,7 @@ def run(args: argparse.Namespace) -> int:
     if args.publish:
         return _republish(args, directory)
 
-    from monitor.pipeline import Pipeline
+    from eddyvigil.monitor.pipeline import Pipeline
 
     summary = args.summary if args.summary else sys.stdout
     pipeline = Pipeline(targets, summary=summary, max_message_bytes=max_bytes)
@@ -210,7 +210,7 @@ def run(args: argparse.Namespace) -> int:
 def _republish(args, directory: Path) -> int:
     import zmq
 
-    from monitor.subscriber import AddressInUseError, SubscriberError, open_socket
+    from eddyvigil.monitor.subscriber import AddressInUseError, SubscriberError, open_socket
 
     ctx = zmq.Context()
     kind = zmq.PUB if args.publish_socket == "pub" else zmq.PUSH

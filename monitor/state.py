@@ -13,7 +13,7 @@ from types import MappingProxyType
 
 import numpy as np
 
-from stats.snapshot import PointSnapshot
+from eddyvigil.stats.snapshot import PointSnapshot
 
 __all__ = ["StreamView", "RunSnapshot"]
 

@@ -3,7 +3,7 @@
 :class:`Subscriber` opens the socket with LINGER 0, receives multipart messages without
 copying (``copy=False``: the samples frame reaches numpy as a view on ZeroMQ's buffer, no
 per-sample Python work) and hands each frame list to a callback, normally
-:meth:`monitor.pipeline.Pipeline.handle_frames`. A ZeroMQ socket monitor reports transport
+:meth:`eddyvigil.monitor.pipeline.Pipeline.handle_frames`. A ZeroMQ socket monitor reports transport
 events (peer connected, disconnected, handshake failed) to a second callback, so a peer that
 ZeroMQ drops never goes unnoticed.
 
@@ -14,7 +14,7 @@ garbage collection) before a PUB starts dropping; with PUSH/PULL a full queue ju
 publisher down. Smaller messages cost proportionally less memory.
 
 Size limit. The application limit (``--max-message-mb``) is enforced by
-:func:`monitor.wire.decode`, which rejects and counts an oversized message. ZeroMQ's own
+:func:`eddyvigil.monitor.wire.decode`, which rejects and counts an oversized message. ZeroMQ's own
 ``MAXMSGSIZE``, which disconnects a peer without telling anyone, is only set as a far higher
 memory ceiling (:data:`MAXMSGSIZE_FACTOR` times the limit), and a disconnect it causes shows up
 as a transport event.

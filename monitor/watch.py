@@ -1,7 +1,7 @@
 """Monitor a live stream: statistics per point, summaries, convergence signals, dashboard.
 
 ``eddyvigil watch`` connects (or binds) a SUB or PULL socket to a publisher of wire protocol v1,
-feeds every message through :class:`monitor.pipeline.Pipeline`, writes one summary line per
+feeds every message through :class:`eddyvigil.monitor.pipeline.Pipeline`, writes one summary line per
 finished point (to ``--summary FILE``, to ``DIR/summary.jsonl`` with ``--record DIR``, or to
 standard output when neither is given), optionally records every frame and publishes
 ``converged`` signals on ``--control``. With the dashboard (default) it serves it on
@@ -20,7 +20,7 @@ import threading
 import time
 from pathlib import Path
 
-from monitor.subscriber import DEFAULT_RCVHWM
+from eddyvigil.monitor.subscriber import DEFAULT_RCVHWM
 
 __all__ = [
     "add_arguments",
@@ -53,7 +53,7 @@ SETTINGS_FILE = "monitor-settings.json"
 
 
 def _default_targets_text() -> str:
-    from stats.targets import Targets
+    from eddyvigil.stats.targets import Targets
 
     return Targets.defaults().describe()
 
@@ -127,8 +127,8 @@ def _fail(code: int, message: str) -> int:
 
 
 def load_targets(path: str | None):
-    """Targets from a file (or defaults); raises ``stats.targets.TargetsError``."""
-    from stats.targets import Targets
+    """Targets from a file (or defaults); raises ``eddyvigil.stats.targets.TargetsError``."""
+    from eddyvigil.stats.targets import Targets
 
     return Targets.defaults() if path is None else Targets.from_toml(path)
 
@@ -203,7 +203,7 @@ def prepare_kernels(quiet: bool = False, notice_after_s: float = 3.0) -> float:
     On the first start after installing they compile for about 20 s; a notice says so when
     it takes longer than ``notice_after_s``. Returns the seconds taken.
     """
-    from stats.warmup import prepare_kernels as prepare
+    from eddyvigil.stats.warmup import prepare_kernels as prepare
 
     notice = threading.Timer(
         notice_after_s,
@@ -245,8 +245,8 @@ def install_stop_signals(stop) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from monitor.subscriber import AddressInUseError, Subscriber, SubscriberError, check_endpoint
-    from stats.targets import TargetsError
+    from eddyvigil.monitor.subscriber import AddressInUseError, Subscriber, SubscriberError, check_endpoint
+    from eddyvigil.stats.targets import TargetsError
 
     try:
         targets = load_targets(args.targets)
@@ -262,7 +262,7 @@ def run(args: argparse.Namespace) -> int:
             check_endpoint(args.control)
     except SubscriberError as exc:
         return _fail(EXIT_ENDPOINT, str(exc))
-    from monitor.recorder import holds_recording
+    from eddyvigil.monitor.recorder import holds_recording
 
     if args.record and not args.append and holds_recording(args.record):
         return _fail(
@@ -289,7 +289,7 @@ def run(args: argparse.Namespace) -> int:
         closers.append(sub.close)
         control = None
         if args.control:
-            from monitor.control import ControlPublisher
+            from eddyvigil.monitor.control import ControlPublisher
 
             try:
                 control = ControlPublisher(args.control)
@@ -301,7 +301,7 @@ def run(args: argparse.Namespace) -> int:
         recorder = None
         sinks = [args.summary] if args.summary else []
         if args.record:
-            from monitor.recorder import Recorder, RecordingExistsError
+            from eddyvigil.monitor.recorder import Recorder, RecordingExistsError
 
             try:
                 recorder = Recorder(args.record, append=args.append)
@@ -313,8 +313,8 @@ def run(args: argparse.Namespace) -> int:
         if not sinks:
             sinks = [sys.stdout]
 
-        from monitor.pipeline import Pipeline
-        from monitor.summary import SummaryWriter
+        from eddyvigil.monitor.pipeline import Pipeline
+        from eddyvigil.monitor.summary import SummaryWriter
 
         writer = SummaryWriter(sinks, append=args.append)
         pipeline = Pipeline(
@@ -363,7 +363,7 @@ def serve_dashboard_while(args, pipeline, work, stop, title: str) -> int:
     """Serve the dashboard on this (main) thread; ``work`` runs in a thread that the server
     starts once it is up (never in per-page code); ``stop()`` when the server goes down.
     Returns an exit code (address in use is mapped here, for watch and replay alike)."""
-    from monitor.dashboard.server import PortInUseError, serve
+    from eddyvigil.monitor.dashboard.server import PortInUseError, serve
 
     thread = threading.Thread(target=work, name="eddyvigil-acquisition", daemon=True)
 

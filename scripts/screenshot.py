@@ -20,7 +20,7 @@ import tempfile
 import time
 from pathlib import Path
 
-from monitor.demo import free_port
+from eddyvigil.monitor.demo import free_port
 
 
 def main() -> int:
@@ -35,7 +35,7 @@ def main() -> int:
     from selenium.webdriver.chrome.service import Service
 
     port = free_port()
-    demo = subprocess.Popen([sys.executable, "-m", "monitor", "demo", "--no-browser", "--port",
+    demo = subprocess.Popen([sys.executable, "-m", "eddyvigil.monitor", "demo", "--no-browser", "--port",
                              str(port), "--speed", args.speed, "--seed", "5"],
                             stdout=subprocess.PIPE, text=True,
                             env=dict(os.environ, PYTHONUNBUFFERED="1"))

@@ -1,6 +1,6 @@
 """Synthetic facility with known truth: signals, faults, scenarios and a paced publisher.
 
-Public names are imported lazily (PEP 562) so that ``import simulator.cli`` (done by
+Public names are imported lazily (PEP 562) so that ``import eddyvigil.simulator.cli`` (done by
 ``eddyvigil --help``) does not pay for numba and scipy.
 """
 
@@ -38,8 +38,8 @@ __all__ = list(_HOME)
 
 def __getattr__(name: str):
     if name in _HOME:
-        return getattr(importlib.import_module(f"simulator.{_HOME[name]}"), name)
-    raise AttributeError(f"module 'simulator' has no attribute {name!r}")
+        return getattr(importlib.import_module(f"eddyvigil.simulator.{_HOME[name]}"), name)
+    raise AttributeError(f"module 'eddyvigil.simulator' has no attribute {name!r}")
 
 
 def __dir__():

@@ -139,8 +139,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def run(args: argparse.Namespace) -> int:
     import zmq
 
-    from simulator.publisher import Publisher, PublisherOptions
-    from simulator.scenario import ScenarioError, load_scenario
+    from eddyvigil.simulator.publisher import Publisher, PublisherOptions
+    from eddyvigil.simulator.scenario import ScenarioError, load_scenario
 
     try:
         scenario = load_scenario(args.scenario).with_rate(args.rate)
@@ -174,7 +174,7 @@ def run(args: argparse.Namespace) -> int:
 
 
 def main(argv: list[str] | None = None) -> int:
-    """``python -m simulator.cli ...``: the same command without the ``eddyvigil`` wrapper."""
+    """``python -m eddyvigil.simulator.cli ...``: the same command without the ``eddyvigil`` wrapper."""
     parser = argparse.ArgumentParser(
         prog="eddyvigil simulate",
         description=__doc__.splitlines()[0],

@@ -8,7 +8,7 @@ Two families:
   applied by absolute row index, so they land on the same rows whatever the block sizes.
 - :class:`MessageFaults` act on messages: loss (a ``seq`` is skipped), publisher restart (new
   session id, ``seq`` from 0) and bursts of malformed messages, each built by corrupting the
-  output of :mod:`monitor.wire` (never by framing of our own).
+  output of :mod:`eddyvigil.monitor.wire` (never by framing of our own).
 
 A TOML ``[faults]`` table configures them (all keys optional)::
 
@@ -29,7 +29,7 @@ import math
 
 import numpy as np
 
-from monitor import wire
+from eddyvigil.monitor import wire
 
 __all__ = [
     "SampleFaults",
@@ -232,7 +232,7 @@ class SampleFaults:
 def malformed_frames(kind: str, stream, session, seq, data, columns, *, rate_hz, t0) -> list:
     """One malformed samples message of ``kind`` (see :data:`MALFORMED_KINDS`), as frames.
 
-    Built from a valid :func:`monitor.wire.encode_samples` output, then corrupted.
+    Built from a valid :func:`eddyvigil.monitor.wire.encode_samples` output, then corrupted.
     """
     data = np.ascontiguousarray(np.asarray(data, dtype="<f8"))
     if kind == "non_finite":

@@ -1,6 +1,6 @@
 """Numba kernels of the simulator: plain loops over float64 arrays, no validation.
 
-The wrappers in :mod:`simulator.signals` check shapes and parameters. Kernels draw their
+The wrappers in :mod:`eddyvigil.simulator.signals` check shapes and parameters. Kernels draw their
 normal deviates from a ``numpy.random.Generator`` passed in; numba advances the very same
 bit generator and uses numpy's algorithm, so a kernel and ``rng.standard_normal`` give the
 same stream (guarded by ``tests/test_simulator_signals.py::test_block_size_independence``).

@@ -29,9 +29,9 @@ import numpy as np
 import zmq
 import zmq.utils.monitor
 
-from monitor import wire
-from simulator.faults import MALFORMED_KINDS, MessageFaults, SampleFaults, malformed_frames
-from simulator.scenario import RandomSampler, Scenario, point_truth, write_truth
+from eddyvigil.monitor import wire
+from eddyvigil.simulator.faults import MALFORMED_KINDS, MessageFaults, SampleFaults, malformed_frames
+from eddyvigil.simulator.scenario import RandomSampler, Scenario, point_truth, write_truth
 
 __all__ = ["PublisherOptions", "Publisher", "wait_for_peer"]
 

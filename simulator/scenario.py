@@ -13,7 +13,7 @@ Top-level ``[scenario]`` keys: ``name``, ``description``, ``facility``, ``stream
 ``--follow-control``), ``spectrum`` (``"ou"`` or ``"vonkarman"``), ``columns``
 (``["u", "v", "w"]``), ``dtype`` (``"<f8"`` or ``"<f4"``), ``nu`` (m^2/s), ``c1`` (Kolmogorov
 constant of the 1-D spectrum, 0.49), ``sampling`` (``"uniform"`` or ``"random"`` with
-``data_rate_hz`` and ``probe_diameter_m``). ``[faults]`` as in :mod:`simulator.faults`.
+``data_rate_hz`` and ``probe_diameter_m``). ``[faults]`` as in :mod:`eddyvigil.simulator.faults`.
 
 Plane wake profiles, with ``xi = y / half_width`` and ``G = exp(-xi^2 / (2 spread^2))``::
 
@@ -44,8 +44,8 @@ from pathlib import Path
 
 import numpy as np
 
-from simulator.faults import validate_faults
-from simulator.signals import (
+from eddyvigil.simulator.faults import validate_faults
+from eddyvigil.simulator.signals import (
     OUGenerator,
     RandomSampler,
     Shedding,
@@ -76,7 +76,7 @@ class ScenarioError(ValueError):
 
 def builtin_scenarios() -> list[str]:
     """Names of the scenarios shipped in ``simulator/scenarios``."""
-    root = importlib.resources.files("simulator") / "scenarios"
+    root = importlib.resources.files("eddyvigil.simulator") / "scenarios"
     return sorted(p.name[:-5] for p in root.iterdir() if p.name.endswith(".toml"))
 
 
@@ -442,7 +442,7 @@ def load_scenario(name_or_path: str | None = None) -> Scenario:
             raise ScenarioError(
                 f"no built-in scenario {name_or_path!r}; built in: {', '.join(builtin_scenarios())}"
             )
-        res = importlib.resources.files("simulator") / "scenarios" / f"{name_or_path}.toml"
+        res = importlib.resources.files("eddyvigil.simulator") / "scenarios" / f"{name_or_path}.toml"
         text = res.read_text(encoding="utf-8")
         source = f"builtin:{name_or_path}"
     try:

@@ -25,7 +25,7 @@ import numpy as np
 from scipy import signal as sps
 from scipy.special import gamma
 
-from simulator.kernels import ou_mixed, skew_mix
+from eddyvigil.simulator.kernels import ou_mixed, skew_mix
 
 __all__ = [
     "VON_KARMAN_A",

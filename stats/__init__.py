@@ -1,7 +1,7 @@
 """eddyvigil's statistics core: pure computation, no I/O beyond reading a targets file.
 
 Public names are loaded on first use (PEP 562), so importing a light module such as
-``stats.snapshot`` does not compile numba kernels or import scipy.
+``eddyvigil.stats.snapshot`` does not compile numba kernels or import scipy.
 """
 
 from importlib import import_module
@@ -23,19 +23,19 @@ __all__ = [
 ]
 
 _WHERE = {
-    "BlockingAccumulator": "stats.blocking",
-    "Estimate": "stats.snapshot",
-    "MomentAccumulator": "stats.moments",
-    "Moments": "stats.moments",
-    "PointSnapshot": "stats.snapshot",
-    "PointStatistics": "stats.point",
-    "STATES": "stats.snapshot",
-    "StationarityVerdict": "stats.stationarity",
-    "Target": "stats.targets",
-    "Targets": "stats.targets",
-    "TargetsError": "stats.targets",
-    "assess": "stats.stationarity",
-    "statistic_names": "stats.names",
+    "BlockingAccumulator": "eddyvigil.stats.blocking",
+    "Estimate": "eddyvigil.stats.snapshot",
+    "MomentAccumulator": "eddyvigil.stats.moments",
+    "Moments": "eddyvigil.stats.moments",
+    "PointSnapshot": "eddyvigil.stats.snapshot",
+    "PointStatistics": "eddyvigil.stats.point",
+    "STATES": "eddyvigil.stats.snapshot",
+    "StationarityVerdict": "eddyvigil.stats.stationarity",
+    "Target": "eddyvigil.stats.targets",
+    "Targets": "eddyvigil.stats.targets",
+    "TargetsError": "eddyvigil.stats.targets",
+    "assess": "eddyvigil.stats.stationarity",
+    "statistic_names": "eddyvigil.stats.names",
 }
 
 
@@ -44,7 +44,7 @@ def __getattr__(name):
         value = getattr(import_module(_WHERE[name]), name)
         globals()[name] = value
         return value
-    raise AttributeError(f"module 'stats' has no attribute {name!r}")
+    raise AttributeError(f"module 'eddyvigil.stats' has no attribute {name!r}")
 
 
 def __dir__():

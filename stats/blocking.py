@@ -22,9 +22,9 @@ import numba
 import numpy as np
 from scipy import stats as sps
 
-from stats.delta import influence_autocovariances
-from stats.kernels import blocking_push, ingest_block, kernel_view, segment_push
-from stats.monomials import layout
+from eddyvigil.stats.delta import influence_autocovariances
+from eddyvigil.stats.kernels import blocking_push, ingest_block, kernel_view, segment_push
+from eddyvigil.stats.monomials import layout
 
 __all__ = ["BlockingAccumulator", "LevelChoice", "choose_level", "MIN_BLOCKS_PER_LEVEL"]
 
@@ -191,7 +191,7 @@ class BlockingAccumulator:
     def ingest(self, block: np.ndarray):
         """Add a block and return its mean and central sums (for a moment accumulator).
 
-        One sweep over the samples serves both: :func:`stats.kernels.block_sums` (products of
+        One sweep over the samples serves both: :func:`eddyvigil.stats.kernels.block_sums` (products of
         ``x - ref``) gives the monomial sums of every base block and, re-centred exactly, the
         block's central co-moment sums. Base blocks are aligned on the stream, not on the
         blocks it arrives in, so any split of the stream gives the same blocking state.

@@ -16,8 +16,8 @@ from itertools import combinations
 import numba
 import numpy as np
 
-from stats.monomials import Layout
-from stats.names import moment_name
+from eddyvigil.stats.monomials import Layout
+from eddyvigil.stats.names import moment_name
 
 __all__ = [
     "StatisticTable",

@@ -12,8 +12,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from stats.kernels import central_sums, kernel_view
-from stats.monomials import Layout, layout, merge_sums, shift_sums
+from eddyvigil.stats.kernels import central_sums, kernel_view
+from eddyvigil.stats.monomials import Layout, layout, merge_sums, shift_sums
 
 __all__ = ["MomentAccumulator", "Moments"]
 

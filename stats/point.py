@@ -15,14 +15,14 @@ import numba
 import numpy as np
 from scipy import special
 
-from stats.blocking import BlockingAccumulator
-from stats.convergence import Checkpoints, eta_seconds, passes
-from stats.delta import K_METHODS, StatisticTable
-from stats.moments import MomentAccumulator
-from stats.names import components_of
-from stats.snapshot import Estimate, PointSnapshot
-from stats.stationarity import assess_columns
-from stats.targets import Targets
+from eddyvigil.stats.blocking import BlockingAccumulator
+from eddyvigil.stats.convergence import Checkpoints, eta_seconds, passes
+from eddyvigil.stats.delta import K_METHODS, StatisticTable
+from eddyvigil.stats.moments import MomentAccumulator
+from eddyvigil.stats.names import components_of
+from eddyvigil.stats.snapshot import Estimate, PointSnapshot
+from eddyvigil.stats.stationarity import assess_columns
+from eddyvigil.stats.targets import Targets
 
 __all__ = ["PointStatistics", "DEFAULT_BASE_BLOCK"]
 

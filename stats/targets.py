@@ -52,7 +52,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
 
-from stats.names import VELOCITY_LETTERS, family, is_known_name
+from eddyvigil.stats.names import VELOCITY_LETTERS, family, is_known_name
 
 __all__ = [
     "TargetsError",
@@ -224,7 +224,7 @@ NOT_ESTIMATED = ("eps", "eta")
 
 
 def _known_names() -> list[str]:
-    from stats.names import statistic_names
+    from eddyvigil.stats.names import statistic_names
 
     cols = VELOCITY_LETTERS
     return statistic_names(cols) + ["eps", "eta"] + [f"L_{c}" for c in cols]

@@ -21,7 +21,7 @@ def prepare_kernels() -> float:
     Covers float32 and float64 input (the two wire dtypes compile separately), 1-3
     components, uniform and random sampling, checkpoints and snapshots.
     """
-    from stats.point import PointStatistics
+    from eddyvigil.stats.point import PointStatistics
 
     start = time.perf_counter()
     rng = np.random.default_rng(0)

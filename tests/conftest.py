@@ -135,7 +135,7 @@ class Processes:
         return p
 
     def eddyvigil(self, *args: str, name: str = "eddyvigil") -> subprocess.Popen:
-        return self.start([sys.executable, "-m", "monitor", *args], name=name)
+        return self.start([sys.executable, "-m", "eddyvigil.monitor", *args], name=name)
 
     def watch_pull(self, endpoint: str, *args: str, name: str = "watch") -> subprocess.Popen:
         """``eddyvigil watch`` with a PULL socket bound at ``endpoint`` (back-pressure, no loss)."""
@@ -220,12 +220,12 @@ class StreamWriter:
         return self.seq - 1
 
     def point(self, pid: str, **coords) -> list[bytes]:
-        from monitor import wire
+        from eddyvigil.monitor import wire
 
         return wire.encode_point(self.stream, self.session, self._next(), {"id": pid, **coords})
 
     def samples(self, block, columns=("u", "v", "w")) -> list:
-        from monitor import wire
+        from eddyvigil.monitor import wire
 
         frames = wire.encode_samples(
             self.stream,
@@ -240,7 +240,7 @@ class StreamWriter:
         return [bytes(memoryview(f).cast("B")) if not isinstance(f, bytes) else f for f in frames]
 
     def end(self) -> list[bytes]:
-        from monitor import wire
+        from eddyvigil.monitor import wire
 
         return wire.encode_end(self.stream, self.session, self._next())
 

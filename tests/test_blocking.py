@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from processes import ar1, ar1_mean_variance
 
-from stats.blocking import BlockingAccumulator, choose_level
+from eddyvigil.stats.blocking import BlockingAccumulator, choose_level
 
 
 def unit(D, i):
@@ -160,7 +160,7 @@ def test_jonsson_chi_square_quantiles():
         21.665994,
         23.209251,
     ]
-    from stats.blocking import _chi2_99
+    from eddyvigil.stats.blocking import _chi2_99
 
     for df, q in enumerate(want, start=1):
         assert _chi2_99(df) == pytest.approx(q, abs=1e-6)

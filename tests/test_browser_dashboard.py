@@ -1,7 +1,7 @@
 """The dashboard in a real headless Chromium, over a real websocket, fully offline.
 
 The server runs in a thread on a free port with a synthetic run that changes over time
-(:class:`monitor.dashboard.preview.PreviewRun`). The browser setup follows the project's
+(:class:`eddyvigil.monitor.dashboard.preview.PreviewRun`). The browser setup follows the project's
 BROWSER.md (explicit chromedriver, SE_OFFLINE, fresh profile).
 """
 
@@ -18,8 +18,8 @@ from pathlib import Path
 
 import pytest
 
-from monitor.dashboard.preview import PreviewRun
-from monitor.dashboard.server import DashboardServer
+from eddyvigil.monitor.dashboard.preview import PreviewRun
+from eddyvigil.monitor.dashboard.server import DashboardServer
 
 CHROMIUM = "/usr/bin/chromium"
 CHROMEDRIVER = "/usr/bin/chromedriver"

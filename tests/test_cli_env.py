@@ -2,7 +2,7 @@
 
 Common practice for small dense products: OpenBLAS's idle worker threads spin, and the
 blocking matrices (34 x 34) gain nothing from a second thread. The setting only works if it
-is made before numpy loads its BLAS, so importing ``monitor.cli`` must not load numpy.
+is made before numpy loads its BLAS, so importing ``eddyvigil.monitor.cli`` must not load numpy.
 """
 
 from __future__ import annotations
@@ -13,10 +13,10 @@ import sys
 
 PROBE = """
 import os, sys
-import monitor.cli
+from eddyvigil.monitor import cli
 print("numpy-before-main", "numpy" in sys.modules)
 try:
-    monitor.cli.main(["export", "--help"])
+    cli.main(["export", "--help"])
 except SystemExit:
     pass
 print("numpy-after-main", "numpy" in sys.modules)

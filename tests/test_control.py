@@ -8,8 +8,8 @@ import pytest
 import zmq
 from conftest import tcp_endpoint, wait_for
 
-from monitor.control import ControlPublisher, converged_message
-from monitor.subscriber import AddressInUseError, SubscriberError
+from eddyvigil.monitor.control import ControlPublisher, converged_message
+from eddyvigil.monitor.subscriber import AddressInUseError, SubscriberError
 
 
 def test_converged_signal_has_the_documented_frames_and_fields():

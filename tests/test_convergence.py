@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 from processes import ar1
 
-from stats import PointStatistics, Targets
-from stats.convergence import (
+from eddyvigil.stats import PointStatistics, Targets
+from eddyvigil.stats.convergence import (
     CHECKPOINT_GROWTH,
     MIN_BLOCKS,
     STOP_MARGIN,

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from processes import MEAN, STRESS, ar1, skewed, turbulence
 
-from stats import PointStatistics, Targets
+from eddyvigil.stats import PointStatistics, Targets
 
 pytestmark = pytest.mark.slow
 

@@ -9,9 +9,9 @@ import urllib.request
 import pytest
 from bokeh.document import Document
 
-from monitor.dashboard.app import build_document
-from monitor.dashboard.preview import PreviewRun
-from monitor.dashboard.server import PortInUseError, serve, websocket_origins
+from eddyvigil.monitor.dashboard.app import build_document
+from eddyvigil.monitor.dashboard.preview import PreviewRun
+from eddyvigil.monitor.dashboard.server import PortInUseError, serve, websocket_origins
 
 
 def _serve_in_thread(**kw):

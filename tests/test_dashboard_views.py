@@ -7,9 +7,9 @@ import math
 import numpy as np
 import pytest
 
-from monitor.dashboard import views
-from monitor.state import RunSnapshot, StreamView
-from stats.snapshot import Estimate, PointSnapshot
+from eddyvigil.monitor.dashboard import views
+from eddyvigil.monitor.state import RunSnapshot, StreamView
+from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 
 
 def _est(name, value, hw, target, state, eta=None):

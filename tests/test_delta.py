@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from stats.blocking import BlockingAccumulator
-from stats.delta import StatisticTable, central_terms_and_jacobian, influence_autocovariances
-from stats.moments import MomentAccumulator
-from stats.monomials import layout
+from eddyvigil.stats.blocking import BlockingAccumulator
+from eddyvigil.stats.delta import StatisticTable, central_terms_and_jacobian, influence_autocovariances
+from eddyvigil.stats.moments import MomentAccumulator
+from eddyvigil.stats.monomials import layout
 
 
 @pytest.mark.parametrize("m", [1, 2, 3])

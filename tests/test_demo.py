@@ -14,8 +14,8 @@ import urllib.request
 import psutil
 import pytest
 
-from monitor.demo import free_port
-from monitor.watch import EXIT_ADDRESS_IN_USE
+from eddyvigil.monitor.demo import free_port
+from eddyvigil.monitor.watch import EXIT_ADDRESS_IN_USE
 
 
 def _read_lines_until(proc, want: str, timeout_s: float) -> list[str]:
@@ -46,7 +46,7 @@ def _read_lines_until(proc, want: str, timeout_s: float) -> list[str]:
 def test_demo_serves_converges_and_stops_cleanly():
     port = free_port()
     proc = subprocess.Popen(
-        [sys.executable, "-m", "monitor", "demo", "--no-browser", "--port", str(port),
+        [sys.executable, "-m", "eddyvigil.monitor", "demo", "--no-browser", "--port", str(port),
          "--speed", "4", "--seed", "3"],
         stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
         env=dict(os.environ, PYTHONUNBUFFERED="1"))
@@ -83,7 +83,7 @@ def test_demo_reports_a_dashboard_port_in_use():
         taken.listen(1)
         port = taken.getsockname()[1]
         proc = subprocess.run(
-            [sys.executable, "-m", "monitor", "demo", "--no-browser", "--port", str(port)],
+            [sys.executable, "-m", "eddyvigil.monitor", "demo", "--no-browser", "--port", str(port)],
             capture_output=True, text=True, timeout=120)
     assert proc.returncode == EXIT_ADDRESS_IN_USE, proc.stderr
     assert "already in use" in proc.stderr and "--port" in proc.stderr

@@ -10,8 +10,8 @@ import h5py
 import numpy as np
 import pytest
 
-from monitor import export, wire
-from monitor.recorder import Recorder
+from eddyvigil.monitor import export, wire
+from eddyvigil.monitor.recorder import Recorder
 
 P1 = {"id": "P01", "x": 0.1, "y": 0.0, "z": 0.0, "nu": 1.5e-5}
 P2 = {"id": "P02", "x": 0.1, "y": 0.004, "z": 0.0, "note": "shear layer"}

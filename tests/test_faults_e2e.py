@@ -15,9 +15,9 @@ import numpy as np
 import pytest
 from conftest import MALFORMED_REASONS, StreamWriter, tcp_endpoint, wait_for, write_messages
 
-from monitor.pipeline import Pipeline
-from monitor.recorder import read_recording
-from monitor.summary import missing_fields
+from eddyvigil.monitor.pipeline import Pipeline
+from eddyvigil.monitor.recorder import read_recording
+from eddyvigil.monitor.summary import missing_fields
 
 
 def read_lines(path) -> list[dict]:

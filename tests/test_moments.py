@@ -6,8 +6,8 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import stats as sps
 
-from stats.moments import MomentAccumulator
-from stats.monomials import layout
+from eddyvigil.stats.moments import MomentAccumulator
+from eddyvigil.stats.monomials import layout
 
 
 def two_pass(x):
@@ -175,7 +175,7 @@ def test_merge_laws(seed, na, nb, nc):
 def test_monomial_kernels_follow_the_layout_order(m, dtype):
     """The hand-written per-component-count kernels against numpy products of each combo of
     the layout, over chunks of uneven length (0, 1, 63, 64, 200 rows)."""
-    from stats.kernels import kernel_view, monomial_sums
+    from eddyvigil.stats.kernels import kernel_view, monomial_sums
 
     lay = layout(m)
     rng = np.random.default_rng(m)

@@ -13,9 +13,9 @@ import numpy as np
 import pytest
 from conftest import MALFORMED_REASONS, StreamWriter
 
-from monitor.pipeline import TRACE_ROWS, Pipeline
-from monitor.summary import POINT_FIELDS, RUN_FIELDS, missing_fields
-from stats.targets import Targets
+from eddyvigil.monitor.pipeline import TRACE_ROWS, Pipeline
+from eddyvigil.monitor.summary import POINT_FIELDS, RUN_FIELDS, missing_fields
+from eddyvigil.stats.targets import Targets
 
 
 class FakeClock:
@@ -242,9 +242,9 @@ def test_random_sampling_duration_from_time_column_and_steps_back_rejected():
 
 
 def test_snapshot_is_rebound_frozen_and_bounded(monkeypatch):
-    import monitor.pipeline
+    import eddyvigil.monitor.pipeline as pipeline_module
 
-    monkeypatch.setattr(monitor.pipeline, "HISTORY_ROWS", 32)
+    monkeypatch.setattr(pipeline_module, "HISTORY_ROWS", 32)
     clock = FakeClock()
     p = Pipeline(summary=io.StringIO(), clock=clock, snapshot_interval_s=0.25)
     w = StreamWriter(rate_hz=20000.0)
@@ -295,7 +295,7 @@ def test_trace_is_the_thinned_latest_samples_and_a_held_snapshot_keeps_its_own()
     """The display trace: every stride-th sample of each message (stride = ceil(n / 256)),
     at most TRACE_ROWS rows, the newest last, times from t0 + index / rate; a snapshot
     already published keeps its values while later messages arrive."""
-    from monitor.pipeline import TRACE_ROWS_PER_MESSAGE
+    from eddyvigil.monitor.pipeline import TRACE_ROWS_PER_MESSAGE
 
     clock = FakeClock()
     p = Pipeline(summary=io.StringIO(), clock=clock, snapshot_interval_s=0.0)

@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 from conftest import StreamWriter, tcp_endpoint, write_messages
 
-from monitor import wire
-from monitor.subscriber import Subscriber, SubscriberError, check_endpoint
+from eddyvigil.monitor import wire
+from eddyvigil.monitor.subscriber import Subscriber, SubscriberError, check_endpoint
 
 
 def test_receives_every_message_without_copy_and_reports_peer_drops(procs, tmp_path):

@@ -8,10 +8,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from processes import ar1, turbulence
 
-from stats import PointStatistics, Targets, statistic_names
-from stats.blocking import _chi2_99, choose_level
-from stats.point import _integral_scales, _t_quantiles
-from stats.stationarity import assess, assess_columns, reverse_arrangements
+from eddyvigil.stats import PointStatistics, Targets, statistic_names
+from eddyvigil.stats.blocking import _chi2_99, choose_level
+from eddyvigil.stats.point import _integral_scales, _t_quantiles
+from eddyvigil.stats.stationarity import assess, assess_columns, reverse_arrangements
 
 
 def test_snapshot_lists_every_statistic_in_design_order():

@@ -1,6 +1,6 @@
-"""A real publisher process (``python -m simulator.cli``) talking to a plain pyzmq receiver.
+"""A real publisher process (``python -m eddyvigil.simulator.cli``) talking to a plain pyzmq receiver.
 
-Every message is decoded with :func:`monitor.wire.decode`; every loop is bounded in count and
+Every message is decoded with :func:`eddyvigil.monitor.wire.decode`; every loop is bounded in count and
 time; every socket is closed with linger 0 and the child process is always reaped.
 """
 
@@ -17,15 +17,15 @@ import numpy as np
 import pytest
 import zmq
 
-from monitor import wire
-from simulator.scenario import load_scenario
+from eddyvigil.monitor import wire
+from eddyvigil.simulator.scenario import load_scenario
 
 ROOT = Path(__file__).resolve().parents[1]
 
 
 def _spawn(*args):
     return subprocess.Popen(
-        [sys.executable, "-m", "simulator.cli", "--quiet", *args],
+        [sys.executable, "-m", "eddyvigil.simulator.cli", "--quiet", *args],
         cwd=ROOT,
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,

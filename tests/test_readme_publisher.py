@@ -41,7 +41,7 @@ def test_readme_publisher_feeds_watch(tmp_path):
         [
             sys.executable,
             "-m",
-            "monitor",
+            "eddyvigil.monitor",
             "watch",
             "--connect",
             f"tcp://127.0.0.1:{port}",

@@ -16,8 +16,8 @@ import numpy as np
 import pytest
 import zmq
 
-from monitor import wire
-from monitor.recorder import (
+from eddyvigil.monitor import wire
+from eddyvigil.monitor.recorder import (
     FILE_MAGIC,
     RECORD_MARK,
     Recorder,
@@ -307,7 +307,7 @@ class _FakeClock:
 
 
 def _records(times):
-    from monitor.recorder import Record
+    from eddyvigil.monitor.recorder import Record
 
     return [Record(t, [b"x"], None) for t in times]
 

@@ -1,7 +1,7 @@
 """A recording process killed with SIGKILL mid-stream: what was flushed is read back intact.
 
 A real child process receives on a real ZeroMQ PULL socket and records with
-:class:`monitor.recorder.Recorder`; after every write it reports on stdout how many records it
+:class:`eddyvigil.monitor.recorder.Recorder`; after every write it reports on stdout how many records it
 has handed to the operating system. The test kills it with SIGKILL while messages are still
 arriving, then reads the recording: every record up to the last reported flush must come back
 byte for byte, in order, and nothing that was never sent. A kill cannot be timed to land inside a
@@ -22,12 +22,12 @@ import numpy as np
 import pytest
 import zmq
 
-from monitor import wire
-from monitor.recorder import read_recording, recording_files
+from eddyvigil.monitor import wire
+from eddyvigil.monitor.recorder import read_recording, recording_files
 
 CHILD = r"""
 import sys, time, zmq
-from monitor.recorder import Recorder
+from eddyvigil.monitor.recorder import Recorder
 endpoint, directory = sys.argv[1], sys.argv[2]
 ctx = zmq.Context()
 sock = ctx.socket(zmq.PULL)

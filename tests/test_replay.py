@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from conftest import StreamWriter, tcp_endpoint
 
-from monitor.recorder import Recorder
-from monitor.replay import parse_speed
-from monitor.watch import EXIT_NO_RECORDING
+from eddyvigil.monitor.recorder import Recorder
+from eddyvigil.monitor.replay import parse_speed
+from eddyvigil.monitor.watch import EXIT_NO_RECORDING
 
 
 def test_parse_speed():

@@ -37,7 +37,7 @@ def _run_pair(tmp_path, scenario, *sim_args, watch_args=(), timeout_s=150.0):
         [
             sys.executable,
             "-m",
-            "monitor",
+            "eddyvigil.monitor",
             "watch",
             "--bind",
             data,
@@ -57,7 +57,7 @@ def _run_pair(tmp_path, scenario, *sim_args, watch_args=(), timeout_s=150.0):
         [
             sys.executable,
             "-m",
-            "simulator.cli",
+            "eddyvigil.simulator.cli",
             "--quiet",
             "--connect",
             data,

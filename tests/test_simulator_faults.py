@@ -6,15 +6,15 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from monitor import wire
-from simulator.faults import (
+from eddyvigil.monitor import wire
+from eddyvigil.simulator.faults import (
     MALFORMED_KINDS,
     MessageFaults,
     SampleFaults,
     malformed_frames,
     validate_faults,
 )
-from simulator.signals import OUGenerator
+from eddyvigil.simulator.signals import OUGenerator
 
 STRESS = np.diag([0.04, 0.02, 0.02])
 N = 40_000

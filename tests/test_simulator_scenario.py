@@ -7,14 +7,14 @@ import math
 import numpy as np
 import pytest
 
-from simulator.scenario import (
+from eddyvigil.simulator.scenario import (
     ScenarioError,
     builtin_scenarios,
     load_scenario,
     moment_names,
     point_truth,
 )
-from simulator.signals import generate
+from eddyvigil.simulator.signals import generate
 
 
 def test_builtin_scenarios_load_and_have_truth():
@@ -69,7 +69,7 @@ def test_wake_profiles_symmetry_and_budget():
         assert 0.002 < st["Tint_u"] < 0.005  # "a few ms" at 4 kHz
     # transport: independent numerical derivative (numpy.gradient on a fine grid of the flux
     # 0.5(uuv + vvv + wwv) built from truth records at neighbouring positions)
-    from simulator.scenario import PlaneWake
+    from eddyvigil.simulator.scenario import PlaneWake
 
     wake = PlaneWake(**p)
     ys = np.linspace(-0.12, 0.12, 2401)

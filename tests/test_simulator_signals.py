@@ -13,7 +13,7 @@ import pytest
 from scipy import integrate
 from scipy import signal as sps
 
-from simulator.signals import (
+from eddyvigil.simulator.signals import (
     VON_KARMAN_A,
     OUGenerator,
     RandomSampler,

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from scipy import stats as sps
 
-from stats.stationarity import (
+from eddyvigil.stats.stationarity import (
     DEFAULT_ALPHA,
     MIN_SEGMENTS,
     StationarityVerdict,

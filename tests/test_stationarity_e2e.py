@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 from scipy.signal import lfilter
 
-from stats.point import PointStatistics
+from eddyvigil.stats.point import PointStatistics
 
 RATE_HZ = 1000.0
 T_INT_SAMPLES = 5.0  # integral time scale of the AR(1), in samples (5 ms at 1 kHz)

@@ -10,8 +10,8 @@ import math
 
 import pytest
 
-from stats.names import statistic_names
-from stats.targets import DEFAULT_TARGETS, Target, Targets, TargetsError
+from eddyvigil.stats.names import statistic_names
+from eddyvigil.stats.targets import DEFAULT_TARGETS, Target, Targets, TargetsError
 
 DESIGN_EXAMPLE = """\
 confidence = 0.95

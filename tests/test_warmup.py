@@ -8,8 +8,8 @@ import pytest
 
 
 def test_prepare_kernels_compiles_both_dtypes():
-    from stats.kernels import ingest_block
-    from stats.warmup import prepare_kernels
+    from eddyvigil.stats.kernels import ingest_block
+    from eddyvigil.stats.warmup import prepare_kernels
 
     seconds = prepare_kernels()
     assert seconds > 0
@@ -18,9 +18,9 @@ def test_prepare_kernels_compiles_both_dtypes():
 
 
 def test_watch_prepares_kernels_before_opening_its_socket(monkeypatch):
-    import monitor.subscriber
-    import stats.warmup
-    from monitor import cli
+    import eddyvigil.monitor.subscriber as subscriber_module
+    import eddyvigil.stats.warmup as warmup_module
+    from eddyvigil.monitor import cli
 
     order = []
 
@@ -31,10 +31,10 @@ def test_watch_prepares_kernels_before_opening_its_socket(monkeypatch):
     class NoSocket:
         def __init__(self, *a, **k):
             order.append("socket")
-            raise monitor.subscriber.SubscriberError("no socket in this test")
+            raise subscriber_module.SubscriberError("no socket in this test")
 
-    monkeypatch.setattr(stats.warmup, "prepare_kernels", fake_prepare)
-    monkeypatch.setattr(monitor.subscriber, "Subscriber", NoSocket)
+    monkeypatch.setattr(warmup_module, "prepare_kernels", fake_prepare)
+    monkeypatch.setattr(subscriber_module, "Subscriber", NoSocket)
     code = cli.main(["watch", "--connect", "tcp://127.0.0.1:9", "--no-dashboard", "--quiet"])
     assert order == ["prepare", "socket"]
     assert code != 0
@@ -44,10 +44,10 @@ def test_watch_prepares_kernels_before_opening_its_socket(monkeypatch):
 def test_slow_preparation_is_announced_unless_quiet(monkeypatch, capsys, quiet):
     import time
 
-    import stats.warmup
-    from monitor.watch import prepare_kernels
+    import eddyvigil.stats.warmup as warmup_module
+    from eddyvigil.monitor.watch import prepare_kernels
 
-    monkeypatch.setattr(stats.warmup, "prepare_kernels", lambda: time.sleep(0.3) or 0.3)
+    monkeypatch.setattr(warmup_module, "prepare_kernels", lambda: time.sleep(0.3) or 0.3)
     prepare_kernels(quiet=quiet, notice_after_s=0.05)
     err = capsys.readouterr().err
     assert ("preparing the statistics kernels" in err) is (not quiet)

@@ -16,9 +16,9 @@ import pytest
 import zmq
 from conftest import StreamWriter, tcp_endpoint, wait_for, write_messages
 
-from monitor.recorder import Recorder, read_recording
-from monitor.summary import missing_fields
-from monitor.watch import (
+from eddyvigil.monitor.recorder import Recorder, read_recording
+from eddyvigil.monitor.summary import missing_fields
+from eddyvigil.monitor.watch import (
     EXIT_ADDRESS_IN_USE,
     EXIT_ENDPOINT,
     EXIT_RECORDING_EXISTS,
@@ -262,7 +262,7 @@ def test_dashboard_mode_serves_the_page_and_stops_cleanly_on_sigint(procs, tmp_p
 
     from conftest import free_port
 
-    from monitor.watch import EXIT_ADDRESS_IN_USE as IN_USE
+    from eddyvigil.monitor.watch import EXIT_ADDRESS_IN_USE as IN_USE
 
     port = free_port()
     ep = tcp_endpoint()

@@ -6,8 +6,8 @@ import io
 
 import numpy as np
 
-from monitor.pipeline import Pipeline
-from monitor.watch import StatusPrinter, status_line
+from eddyvigil.monitor.pipeline import Pipeline
+from eddyvigil.monitor.watch import StatusPrinter, status_line
 
 
 def test_status_names_stream_point_counts_and_the_slowest_statistic():

@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 import zmq
 
-from monitor import wire
+from eddyvigil.monitor import wire
 
 
 def _header(frames) -> dict:

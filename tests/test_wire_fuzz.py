@@ -16,7 +16,7 @@ import zmq
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from monitor import wire
+from eddyvigil.monitor import wire
 
 PER_REASON = 160  # x 13 reasons = 2080 malformed messages
 

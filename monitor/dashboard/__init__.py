@@ -1,5 +1,5 @@
 """The live dashboard: the only package in eddyvigil that imports Bokeh."""
 
-from monitor.dashboard.server import DashboardServer, PortInUseError, serve
+from eddyvigil.monitor.dashboard.server import DashboardServer, PortInUseError, serve
 
 __all__ = ["serve", "DashboardServer", "PortInUseError"]

@@ -1,7 +1,7 @@
 """One browser tab of the dashboard: figures, data sources and ONE periodic callback.
 
 Runs once per session; it only *reads* ``get_snapshot()`` (never starts acquisition) and turns
-the snapshot into columns with the pure functions of :mod:`monitor.dashboard.views`. Models
+the snapshot into columns with the pure functions of :mod:`eddyvigil.monitor.dashboard.views`. Models
 that tests look at carry a ``name=`` (``verdict``, ``status_source``, ``trace_source``, ...).
 """
 
@@ -25,8 +25,8 @@ from bokeh.models import (
 )
 from bokeh.plotting import figure
 
-from monitor.dashboard import views
-from monitor.state import RunSnapshot
+from eddyvigil.monitor.dashboard import views
+from eddyvigil.monitor.state import RunSnapshot
 
 __all__ = ["build_document", "TICK_MS", "TRACE_ROLLOVER", "HISTORY_ROLLOVER"]
 

@@ -1,9 +1,9 @@
 """A synthetic run for looking at the dashboard without a facility, simulator or pipeline.
 
-:class:`PreviewRun` makes a plausible :class:`monitor.state.RunSnapshot` for any acquisition
+:class:`PreviewRun` makes a plausible :class:`eddyvigil.monitor.state.RunSnapshot` for any acquisition
 time: a traverse through an invented plane mixing layer (tanh mean profile, Gaussian-shaped
 stresses), error bars shrinking as 1/√T, points finishing one after another. It is what the
-browser test and ``python -m monitor.dashboard.preview`` show; it computes no statistic.
+browser test and ``python -m eddyvigil.monitor.dashboard.preview`` show; it computes no statistic.
 """
 
 from __future__ import annotations
@@ -13,8 +13,8 @@ import time
 
 import numpy as np
 
-from monitor.state import RunSnapshot, StreamView
-from stats.snapshot import Estimate, PointSnapshot
+from eddyvigil.monitor.state import RunSnapshot, StreamView
+from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 
 __all__ = ["PreviewRun"]
 
@@ -125,7 +125,7 @@ class PreviewRun:
 
 def main() -> None:
     """Serve the preview run on 127.0.0.1:5006 until Ctrl-C."""
-    from monitor.dashboard.server import serve
+    from eddyvigil.monitor.dashboard.server import serve
 
     run = PreviewRun()
     start = time.monotonic()

@@ -6,7 +6,7 @@ callers that manage threads themselves (tests, the benchmark).
 
 Acquisition never lives in page code: ``on_start()`` runs once per server from Bokeh's
 ``on_server_loaded`` hook and ``on_stop()`` from ``on_server_unloaded``; every browser tab only
-*reads* ``get_snapshot()`` in one periodic callback (see :mod:`monitor.dashboard.app`).
+*reads* ``get_snapshot()`` in one periodic callback (see :mod:`eddyvigil.monitor.dashboard.app`).
 
 Bokeh's JavaScript is always served by this server itself (an offline facility has no CDN),
 whatever ``BOKEH_RESOURCES`` says, and websocket origins are limited to the host:port forms
@@ -34,8 +34,8 @@ from bokeh.server.views.static_handler import StaticHandler
 from tornado.httpserver import HTTPServer
 from tornado.ioloop import IOLoop
 
-from monitor.dashboard.app import build_document
-from monitor.state import RunSnapshot
+from eddyvigil.monitor.dashboard.app import build_document
+from eddyvigil.monitor.state import RunSnapshot
 
 __all__ = ["serve", "DashboardServer", "PortInUseError", "websocket_origins"]
 
@@ -131,7 +131,7 @@ class DashboardServer:
     Parameters
     ----------
     get_snapshot
-        Returns the latest :class:`monitor.state.RunSnapshot`; called by every open page about
+        Returns the latest :class:`eddyvigil.monitor.state.RunSnapshot`; called by every open page about
         four times a second, from the server's thread. It must be cheap and never block.
     host, port
         Where to listen. ``port=0`` picks a free port (read it back from :attr:`port`).
@@ -248,7 +248,7 @@ def serve(get_snapshot: Callable[[], RunSnapshot], *, host: str = "127.0.0.1", p
     Parameters
     ----------
     get_snapshot
-        Returns the latest :class:`monitor.state.RunSnapshot` (a cheap attribute read).
+        Returns the latest :class:`eddyvigil.monitor.state.RunSnapshot` (a cheap attribute read).
     host, port
         Where to listen; ``port=0`` picks a free one (see ``on_ready``).
     on_start, on_stop

@@ -1,4 +1,4 @@
-"""Pure functions from a :class:`monitor.state.RunSnapshot` to what the page shows.
+"""Pure functions from a :class:`eddyvigil.monitor.state.RunSnapshot` to what the page shows.
 
 No Bokeh here: everything returns plain dicts of lists/arrays or HTML strings, so it is tested
 without a server. Text that came over the wire (stream names, point ids, notes) is always
@@ -15,8 +15,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from monitor.state import RunSnapshot, StreamView
-from stats.convergence import STOP_MARGIN
+from eddyvigil.monitor.state import RunSnapshot, StreamView
+from eddyvigil.stats.convergence import STOP_MARGIN
 
 __all__ = [
     "OKABE_ITO", "STATE_COLOURS", "MEAN_NAMES", "STRESS_NAMES", "statistic_colour", "pick_stream",
