@@ -23,9 +23,12 @@ import threading
 import time
 from pathlib import Path
 
+from eddyvigil.monitor.exitcodes import ExitCode, epilog, fail
+from eddyvigil.monitor.transport import parse_speed, tcp_port_taken
+
 __all__ = ["add_arguments", "run", "free_port", "EPILOG"]
 
-EPILOG = """\
+EPILOG = epilog("demo") + """
 examples:
   eddyvigil demo                       # open the dashboard in the default browser
   eddyvigil demo --no-browser --port 5010 --speed 4
@@ -35,6 +38,8 @@ examples:
 STOP_GRACE_S = 10.0
 #: Seconds the dashboard gets to come up.
 STARTUP_S = 120.0  # the first start after installing compiles the kernels (~20 s)
+#: Seconds of start-up after which the demo says why it takes long.
+SLOW_START_S = 6.0
 
 
 def free_port(host: str = "127.0.0.1") -> int:
@@ -45,20 +50,24 @@ def free_port(host: str = "127.0.0.1") -> int:
 
 
 def _speed(text: str) -> str:
-    if text == "max":
-        return text
+    """``--speed``, checked as everywhere (transport.parse_speed), passed on as text."""
+    parse_speed(text)
+    return text.strip().lower()
+
+
+def _port(text: str) -> int:
     try:
-        v = float(text)
+        value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"not a number or 'max': {text!r}") from None
-    if not v > 0:
-        raise argparse.ArgumentTypeError("must be > 0")
-    return text
+        raise argparse.ArgumentTypeError(f"port must be a whole number, not {text!r}") from None
+    if not 0 <= value <= 65535:
+        raise argparse.ArgumentTypeError(f"port {value} is outside 1-65535 (0: a free one)")
+    return value
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-browser", action="store_true", help="do not open a web browser")
-    p.add_argument("--port", type=int, default=5006,
+    p.add_argument("--port", type=_port, default=5006,
                    help="dashboard port on 127.0.0.1 (default 5006; 0 picks a free one)")
     p.add_argument("--scenario", default=None, metavar="NAME",
                    help="simulator scenario (default: the simulator's built-in traverse)")
@@ -67,6 +76,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, default=0, help="random seed of the simulator (default 0)")
     p.add_argument("--summary", metavar="FILE",
                    help="summary JSON lines here (default: summary.jsonl in a temporary folder)")
+    p.add_argument("--summary-mode", choices=("new", "append", "overwrite"), default="new",
+                   help="if --summary FILE exists: new (default) refuses, append, overwrite")
 
 
 def _wait_for_dashboard(host: str, port: int, children: list[subprocess.Popen],
@@ -75,8 +86,14 @@ def _wait_for_dashboard(host: str, port: int, children: list[subprocess.Popen],
 
     A TCP connect, not a page request: every page request makes a Bokeh session.
     """
-    deadline = time.monotonic() + STARTUP_S
+    start = time.monotonic()
+    deadline = start + STARTUP_S
+    said = False
     for _ in range(int(STARTUP_S / 0.2) + 1):
+        if not said and time.monotonic() - start > SLOW_START_S:
+            said = True  # only a real compile takes this long (loading the cache: 1-2 s)
+            print("eddyvigil demo: still starting: the first start after installing compiles "
+                  "the statistics kernels (about 20 s)", flush=True)
         if stop.is_set() or any(c.poll() is not None for c in children):
             return False
         try:
@@ -96,12 +113,11 @@ def _listen_control(endpoint: str, stop: threading.Event) -> None:
 
     import zmq
 
-    ctx = zmq.Context.instance()
-    sub = ctx.socket(zmq.SUB)
-    sub.setsockopt(zmq.LINGER, 0)
-    sub.setsockopt(zmq.SUBSCRIBE, b"")
+    from eddyvigil.monitor.transport import open_socket
+
+    sub = open_socket(zmq.Context.instance(), "sub", endpoint, bind=False,
+                      options={zmq.SUBSCRIBE: b""})
     try:
-        sub.connect(endpoint)
         while not stop.is_set():
             if not sub.poll(200):
                 continue
@@ -153,24 +169,26 @@ def _stop_children(children: list[subprocess.Popen]) -> None:
             c.wait(5.0)
 
 
-def _port_taken(host: str, port: int) -> bool:
-    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
-        try:
-            s.bind((host, port))
-        except OSError:
-            return True
-    return False
-
-
 def run(args: argparse.Namespace) -> int:
-    from eddyvigil.monitor.watch import EXIT_ADDRESS_IN_USE
+    from eddyvigil.monitor.outputs import OutputRefused, check_summary_file
+    from eddyvigil.simulator.scenario import ScenarioError, load_scenario
 
     host = "127.0.0.1"
     port = args.port if args.port else free_port(host)
-    if _port_taken(host, port):
-        print(f"eddyvigil demo: could not start: dashboard port {port} on {host} is already in "
-              f"use; choose another with --port", file=sys.stderr)
-        return EXIT_ADDRESS_IN_USE
+    why = tcp_port_taken(host, port)
+    if why is not None:
+        return fail("demo", ExitCode.ADDRESS_IN_USE,
+                    f"could not start: dashboard {why}; choose another with --port")
+    if args.summary:
+        try:
+            check_summary_file(args.summary, args.summary_mode)
+        except OutputRefused as exc:
+            return fail("demo", exc.code, str(exc))
+    if args.scenario:
+        try:
+            load_scenario(args.scenario)
+        except ScenarioError as exc:
+            return fail("demo", ExitCode.INPUT_FILE, str(exc))
     data = f"tcp://{host}:{free_port(host)}"
     control = f"tcp://{host}:{free_port(host)}"
     url = f"http://{host}:{port}/"
@@ -179,7 +197,8 @@ def run(args: argparse.Namespace) -> int:
 
     exe = [sys.executable, "-m", "eddyvigil.monitor"]
     watch = exe + ["watch", "--connect", data, "--control", control, "--port", str(port),
-                   "--host", host, "--summary", summary, "--quiet"]
+                   "--host", host, "--summary", summary, "--summary-mode", args.summary_mode,
+                   "--quiet"]
     simulate = exe + ["simulate", "--bind", data, "--socket", "pub", "--speed", args.speed,
                       "--seed", str(args.seed), "--follow-control", control,
                       "--wait-peer", "120", "--quiet"]
@@ -199,8 +218,7 @@ def run(args: argparse.Namespace) -> int:
         # Own sessions: a Ctrl-C at the terminal reaches the demo only, which then stops the
         # children in order (the monitor first, so it writes its summaries).
         env = dict(os.environ, BOKEH_RESOURCES="server")
-        print("eddyvigil demo: starting the monitor and the simulated facility (the first start "
-              "after installing compiles the statistics kernels: about 20 s)", flush=True)
+        print("eddyvigil demo: starting the monitor and the simulated facility", flush=True)
         children.append(subprocess.Popen(watch, start_new_session=True, env=env))
         children.append(subprocess.Popen(simulate, start_new_session=True, env=env))
         listener.start()

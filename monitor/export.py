@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 
 from eddyvigil.monitor import wire
+from eddyvigil.monitor.exitcodes import ExitCode, epilog, fail
 from eddyvigil.monitor.recorder import read_recording, recording_files
 
 __all__ = ["add_arguments", "run", "PointData", "collect", "write_npz", "write_h5", "write_csv"]
@@ -37,7 +38,7 @@ SUMMARY_NAME = "summary.jsonl"
 NO_POINT = "none"
 FORMATS = ("npz", "h5", "csv")
 
-EPILOG = """\
+EPILOG = epilog("export") + """
 output defaults: DIR.npz, DIR.h5 or the folder DIR-csv, beside the recording.
 examples:
   eddyvigil export runs/tunnel-a --to npz
@@ -241,32 +242,49 @@ def _default_out(directory: Path, fmt: str) -> Path:
 
 def run(args: argparse.Namespace) -> int:
     directory = Path(args.directory)
+    if not directory.is_dir():
+        return fail("export", ExitCode.NO_RECORDING, f"{directory}: no such folder")
     if not recording_files(directory):
-        print(f"eddyvigil export: {directory} holds no recording", file=sys.stderr)
-        return 1
+        return fail("export", ExitCode.NO_RECORDING,
+                    f"{directory} holds no recording (made by watch --record)")
+    if not args.max_message_mb > 0:
+        return fail("export", ExitCode.USAGE, "--max-message-mb must be positive")
     h5py = None
     if args.to == "h5":
         try:
             import h5py
         except ImportError:
-            print(
-                "eddyvigil export: --to h5 needs h5py (pip install 'eddyvigil[h5]'); "
+            return fail(
+                "export",
+                ExitCode.USAGE,
+                "--to h5 needs h5py (pip install 'eddyvigil[h5]'); "
                 "--to npz or --to csv work without it",
-                file=sys.stderr,
             )
-            return 2
     out = Path(args.out) if args.out else _default_out(directory, args.to)
+    folder = out.absolute() if args.to == "csv" else out.absolute().parent
+    base = folder
+    while not base.exists() and base != base.parent:
+        base = base.parent
+    if args.to != "csv" and not folder.is_dir():
+        return fail("export", ExitCode.CANNOT_WRITE,
+                    f"--out {out}: the folder {folder} does not exist; create it first")
+    if not base.is_dir() or (args.to != "csv" and out.is_dir()):
+        return fail("export", ExitCode.CANNOT_WRITE,
+                    f"--out {out}: {'a folder is in the way' if out.is_dir() else f'{base} is a file'}")
     col = collect(directory, int(args.max_message_mb * 2**20))
     for p in col.problems:
         print(
             f"eddyvigil export: {p.file} at byte {p.offset}: {p.kind}, {p.detail}", file=sys.stderr
         )
-    if args.to == "npz":
-        write_npz(col, out)
-    elif args.to == "h5":
-        write_h5(col, out, h5py)
-    else:
-        write_csv(col, out)
+    try:
+        if args.to == "npz":
+            write_npz(col, out)
+        elif args.to == "h5":
+            write_h5(col, out, h5py)
+        else:
+            write_csv(col, out)
+    except OSError as exc:
+        return fail("export", ExitCode.CANNOT_WRITE, f"cannot write {out}: {exc.strerror or exc}")
     samples = sum(p.rows for p in col.points)
     streams = len({p.stream for p in col.points})
     print(
@@ -275,4 +293,4 @@ def run(args: argparse.Namespace) -> int:
         f" {col.undecodable} undecodable, {len(col.problems)} damage report(s),"
         f" {len(col.summary_lines)} summary line(s))"
     )
-    return 0
+    return ExitCode.OK

@@ -560,20 +560,16 @@ def paced(
 
     ``speed=None`` yields as fast as the consumer takes them. Steps back in ``received_at``
     (a wall clock set back) count as no time. ``clock``/``sleep`` may be replaced (tests).
+    The pacing itself is :class:`eddyvigil.monitor.transport.Pacer`, as for the simulator.
     """
-    if speed is not None and not speed > 0:
-        raise ValueError("speed must be positive, or None for as fast as possible")
-    start_wall = None
+    from eddyvigil.monitor.transport import Pacer
+
+    pacer = Pacer(speed, clock=clock, sleep=sleep)
     recorded = 0.0  # recorded seconds since the first record, clock steps back ignored
     last_at = None
     for rec in records:
-        if speed is not None:
-            if start_wall is None:
-                start_wall = clock()
-            else:
-                recorded += max(0.0, rec.received_at - last_at)
-                wait = start_wall + recorded / speed - clock()
-                if wait > 0:
-                    sleep(wait)
-            last_at = rec.received_at
+        if last_at is not None:
+            recorded += max(0.0, rec.received_at - last_at)
+        last_at = rec.received_at
+        pacer.wait(recorded)
         yield rec

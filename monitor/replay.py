@@ -18,52 +18,27 @@ import threading
 import time
 from pathlib import Path
 
+from eddyvigil.monitor.exitcodes import ExitCode, epilog, fail
+from eddyvigil.monitor.transport import parse_speed, port_number
 from eddyvigil.monitor.watch import (
-    EXIT_ADDRESS_IN_USE,
-    EXIT_ENDPOINT,
-    EXIT_NO_RECORDING,
-    EXIT_OK,
-    EXIT_TARGETS,
-    EXIT_USAGE,
     SETTINGS_FILE,
     StatusPrinter,
+    add_summary_mode,
     install_stop_signals,
     serve_dashboard_while,
+    terminal_summary_sink,
 )
 
 __all__ = ["add_arguments", "run", "parse_speed", "replay_into", "EPILOG"]
 
-EPILOG = """\
-exit codes:
-  0  the recording was replayed to its end (or Ctrl-C / SIGTERM)
-  1  unexpected error
-  2  bad command line (e.g. --speed 0)
-  3  bad --publish endpoint
-  4  targets file unreadable or malformed
-  6  --publish address or dashboard --port already in use
-  7  DIR holds no recording
-
+EPILOG = (
+    epilog("replay")
+    + """
 --speed 1 replays in real time (as received), N N times faster, max as fast as possible.
+Without --summary the summary JSON lines go to standard output when it is a file or a pipe;
+on a terminal one short line per point is shown instead.
 """
-
-
-def parse_speed(text: str) -> float | None:
-    """``"max"`` -> None (no pacing); a positive number -> that factor.
-
-    >>> parse_speed("max"), parse_speed("4")
-    (None, 4.0)
-    """
-    if text.strip().lower() == "max":
-        return None
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(
-            f"speed must be a positive number or 'max', not {text!r}"
-        ) from None
-    if not value > 0 or value == float("inf"):
-        raise argparse.ArgumentTypeError(f"speed must be a positive number or 'max', not {text!r}")
-    return value
+)
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -80,6 +55,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="FILE",
         help="write the summary JSON lines to FILE (default: standard output)",
     )
+    add_summary_mode(p)
     p.add_argument(
         "--targets",
         metavar="FILE",
@@ -93,7 +69,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     )
     p.add_argument("--no-dashboard", action="store_true", help="no dashboard; exit at the end")
     p.add_argument("--host", default="127.0.0.1", help="dashboard address (default 127.0.0.1)")
-    p.add_argument("--port", type=int, default=5006, help="dashboard port (default 5006)")
+    p.add_argument("--port", type=port_number, default=5006, help="dashboard port (default 5006)")
     p.add_argument(
         "--publish",
         metavar="ENDPOINT",
@@ -116,15 +92,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
 
 
 def _fail(code: int, message: str) -> int:
-    print(f"eddyvigil replay: {message}", file=sys.stderr)
-    return code
+    return fail("replay", code, message)
 
 
 def _records(directory: Path, speed: float | None):
     from eddyvigil.monitor.recorder import paced, read_recording
 
-    records = read_recording(directory)
-    return records if speed is None else paced(records, speed)
+    return paced(read_recording(directory), speed)
 
 
 def replay_into(pipeline, directory, speed: float | None = None, stop=None) -> int:
@@ -152,11 +126,21 @@ def load_settings(directory: Path) -> dict:
 
 
 def run(args: argparse.Namespace) -> int:
+    from eddyvigil.monitor.outputs import (
+        OutputRefused,
+        check_summary_file,
+        open_summary_file,
+        summary_mode,
+    )
+    from eddyvigil.monitor.recorder import holds_recording
+    from eddyvigil.monitor.transport import EndpointError, check_endpoint, tcp_port_taken
     from eddyvigil.stats.targets import Targets, TargetsError
 
     directory = Path(args.dir)
     if not directory.is_dir():
-        return _fail(EXIT_NO_RECORDING, f"{directory}: no such directory")
+        return _fail(ExitCode.NO_RECORDING, f"{directory}: no such folder")
+    if not holds_recording(directory):
+        return _fail(ExitCode.NO_RECORDING, f"{directory} holds no recording (made by watch --record)")
     settings = load_settings(directory)
     try:
         if args.targets:
@@ -166,68 +150,89 @@ def run(args: argparse.Namespace) -> int:
         else:
             targets = Targets.defaults()
     except TargetsError as exc:
-        return _fail(EXIT_TARGETS, str(exc))
+        return _fail(ExitCode.INPUT_FILE, str(exc))
     if args.max_message_mb is not None:
         if not args.max_message_mb > 0:
-            return _fail(EXIT_USAGE, "--max-message-mb must be positive")
+            return _fail(ExitCode.USAGE, "--max-message-mb must be positive")
         max_bytes = int(args.max_message_mb * 2**20)
     else:
         from eddyvigil.monitor.wire import DEFAULT_MAX_MESSAGE_BYTES
 
         max_bytes = int(settings.get("max_message_bytes", DEFAULT_MAX_MESSAGE_BYTES))
 
-    from eddyvigil.monitor.recorder import holds_recording
-
-    if not holds_recording(directory):
-        return _fail(EXIT_NO_RECORDING, f"{directory} holds no recording (made by watch --record)")
-
     if args.publish:
+        try:
+            check_endpoint(args.publish, bind=True)
+        except EndpointError as exc:
+            return _fail(ExitCode.ENDPOINT, str(exc))
         return _republish(args, directory)
+
+    mode = summary_mode(args.summary_mode, False)
+    try:
+        if args.summary:
+            check_summary_file(args.summary, mode)
+    except OutputRefused as exc:
+        return _fail(exc.code, str(exc))
+    if not args.no_dashboard:
+        why = tcp_port_taken(args.host, args.port)
+        if why is not None:
+            code = ExitCode.ADDRESS_IN_USE if "in use" in why else ExitCode.ENDPOINT
+            return _fail(code, f"dashboard: {why}; choose another with --port / --host")
 
     from eddyvigil.monitor.pipeline import Pipeline
 
-    summary = args.summary if args.summary else sys.stdout
-    pipeline = Pipeline(targets, summary=summary, max_message_bytes=max_bytes)
-    stop = threading.Event()
-    status = StatusPrinter(quiet=args.quiet)
-    if args.no_dashboard:
-        install_stop_signals(stop.set)
-        replay_into(pipeline, directory, args.speed, stop)
-        pipeline.close()
-        status.tick(pipeline.snapshot)
-        status.done()
-        return EXIT_OK
+    try:
+        summary = open_summary_file(args.summary, mode) if args.summary else None
+    except OutputRefused as exc:
+        return _fail(exc.code, str(exc))
+    try:
+        sink = summary if summary is not None else terminal_summary_sink("replay", args.quiet)
+        pipeline = Pipeline(targets, summary=sink, max_message_bytes=max_bytes)
+        stop = threading.Event()
+        status = StatusPrinter(quiet=args.quiet)
+        if args.no_dashboard:
+            install_stop_signals(stop.set)
+            replay_into(pipeline, directory, args.speed, stop)
+            pipeline.close()
+            status.tick(pipeline.snapshot)
+            status.done()
+            return ExitCode.OK
 
-    def work():
-        replay_into(pipeline, directory, args.speed, stop)
-        pipeline.close()
+        def work():
+            replay_into(pipeline, directory, args.speed, stop)
+            pipeline.close()
 
-    code = serve_dashboard_while(args, pipeline, work, stop.set, "eddyvigil replay")
-    pipeline.close()  # idempotent: a replay stopped early still writes its run line
-    return code
+        code = serve_dashboard_while(args, pipeline, work, stop.set, "eddyvigil replay")
+        if code:
+            return code  # the replay never started: no summary lines at all
+        pipeline.close()  # idempotent: a replay stopped early still writes its run line
+        return ExitCode.OK
+    finally:
+        if summary is not None:
+            summary.close()
 
 
 def _republish(args, directory: Path) -> int:
     import zmq
 
-    from eddyvigil.monitor.subscriber import AddressInUseError, SubscriberError, open_socket
+    from eddyvigil.monitor.transport import AddressInUseError, EndpointError, open_publisher
 
     ctx = zmq.Context()
     kind = zmq.PUB if args.publish_socket == "pub" else zmq.PUSH
-    try:
-        sock = open_socket(ctx, kind, args.publish, bind=True)
-    except AddressInUseError as exc:
-        ctx.term()
-        return _fail(EXIT_ADDRESS_IN_USE, str(exc))
-    except SubscriberError as exc:
-        ctx.term()
-        return _fail(EXIT_ENDPOINT, str(exc))
     stop = threading.Event()
     install_stop_signals(stop.set)
+    try:
+        # PUB: let subscribers connect and subscribe for --publish-wait seconds
+        sock, _ = open_publisher(ctx, args.publish_socket, args.publish, bind=True,
+                                 settle_s=max(0.0, args.publish_wait), stop=stop.is_set)
+    except AddressInUseError as exc:
+        ctx.term()
+        return _fail(ExitCode.ADDRESS_IN_USE, str(exc))
+    except EndpointError as exc:
+        ctx.term()
+        return _fail(ExitCode.ENDPOINT, str(exc))
     sent = 0
     try:
-        if kind == zmq.PUB:
-            stop.wait(max(0.0, args.publish_wait))  # let subscribers connect and subscribe
         for record in _records(directory, args.speed):
             if stop.is_set():
                 break
@@ -247,4 +252,4 @@ def _republish(args, directory: Path) -> int:
         ctx.term()
     if not args.quiet:
         print(f"eddyvigil replay: re-sent {sent} messages", file=sys.stderr)
-    return EXIT_OK
+    return ExitCode.OK

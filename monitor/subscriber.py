@@ -29,6 +29,8 @@ from collections.abc import Callable, Iterable
 import zmq
 from zmq.utils.monitor import recv_monitor_message
 
+from eddyvigil.monitor.transport import AddressInUseError, EndpointError, check_endpoint, open_socket
+
 __all__ = [
     "Subscriber",
     "SubscriberError",
@@ -36,6 +38,7 @@ __all__ = [
     "DEFAULT_RCVHWM",
     "MAXMSGSIZE_FACTOR",
     "check_endpoint",
+    "open_socket",
 ]
 
 DEFAULT_RCVHWM = 4096
@@ -60,55 +63,8 @@ for _name, _text in (
         _EVENT_TEXT[getattr(zmq, _name)] = _text
 
 
-class SubscriberError(Exception):
-    """The endpoint cannot be used (malformed, unknown transport, unreachable interface)."""
-
-
-class AddressInUseError(SubscriberError):
-    """``--bind`` to an address some other program already holds."""
-
-
-def check_endpoint(endpoint: str) -> str:
-    """A quick, friendly check of a ZeroMQ endpoint's form; returns it or raises.
-
-    >>> check_endpoint("tcp://127.0.0.1:5555")
-    'tcp://127.0.0.1:5555'
-    >>> check_endpoint("127.0.0.1:5555")
-    Traceback (most recent call last):
-    ...
-    monitor.subscriber.SubscriberError: endpoint '127.0.0.1:5555' has no transport; write it \
-like tcp://127.0.0.1:5555 or ipc:///tmp/probe.sock
-    """
-    transport, sep, rest = endpoint.partition("://")
-    if not sep:
-        raise SubscriberError(
-            f"endpoint {endpoint!r} has no transport; write it like tcp://127.0.0.1:5555 "
-            "or ipc:///tmp/probe.sock"
-        )
-    if transport not in ("tcp", "ipc", "inproc", "pgm", "epgm", "ws", "wss", "vmci"):
-        raise SubscriberError(f"endpoint {endpoint!r}: unknown transport {transport!r}")
-    if not rest:
-        raise SubscriberError(f"endpoint {endpoint!r} has no address")
-    return endpoint
-
-
-def open_socket(ctx: zmq.Context, socket_type: int, endpoint: str, *, bind: bool) -> zmq.Socket:
-    """Create a LINGER-0 socket and bind or connect it, translating ZeroMQ's errors."""
-    check_endpoint(endpoint)
-    sock = ctx.socket(socket_type)
-    sock.setsockopt(zmq.LINGER, 0)
-    try:
-        if bind:
-            sock.bind(endpoint)
-        else:
-            sock.connect(endpoint)
-    except zmq.ZMQError as exc:
-        sock.close(linger=0)
-        if exc.errno == zmq.EADDRINUSE:
-            raise AddressInUseError(f"{endpoint}: address already in use") from None
-        verb = "bind" if bind else "connect"
-        raise SubscriberError(f"cannot {verb} {endpoint}: {exc.strerror}") from None
-    return sock
+#: Kept under their old names: the errors of :mod:`eddyvigil.monitor.transport`.
+SubscriberError = EndpointError
 
 
 class Subscriber:
@@ -178,6 +134,8 @@ class Subscriber:
         self.disconnects = 0
         self._last_event: tuple | None = None
         self._ever_connected = False
+        #: a peer connected (or was accepted) at least once: someone is at the other end
+        self.peer_seen = False
 
     def stop(self) -> None:
         """Ask :meth:`run` to return (thread-safe, also from a signal handler)."""
@@ -233,6 +191,8 @@ class Subscriber:
             except zmq.Again:
                 return
             kind = evt.get("event")
+            if kind in (zmq.EVENT_CONNECTED, zmq.EVENT_ACCEPTED):
+                self.peer_seen = True
             if kind == zmq.EVENT_DISCONNECTED:
                 self.disconnects += 1
             text = _EVENT_TEXT.get(kind)

@@ -3,11 +3,14 @@
 ``eddyvigil watch`` connects (or binds) a SUB or PULL socket to a publisher of wire protocol v1,
 feeds every message through :class:`eddyvigil.monitor.pipeline.Pipeline`, writes one summary line per
 finished point (to ``--summary FILE``, to ``DIR/summary.jsonl`` with ``--record DIR``, or to
-standard output when neither is given), optionally records every frame and publishes
+standard output when neither is given: JSON lines into a file or pipe, one short sentence per
+point on a terminal), optionally records every frame and publishes
 ``converged`` signals on ``--control``. With the dashboard (default) it serves it on
 ``--host:--port`` until Ctrl-C; with ``--no-dashboard`` it ends by itself once every stream it
 has seen has sent ``end``. A one-line status goes to standard error about once a second
-(every 10 s when standard error is not a terminal; never with ``--quiet``).
+(every 10 s when standard error is not a terminal; never with ``--quiet``) once data flows;
+before that, one notice after ``--no-publisher-after`` seconds (15) if nothing arrived.
+Exit codes: :mod:`eddyvigil.monitor.exitcodes`.
 """
 
 from __future__ import annotations
@@ -20,7 +23,9 @@ import threading
 import time
 from pathlib import Path
 
+from eddyvigil.monitor.exitcodes import ExitCode, epilog, fail
 from eddyvigil.monitor.subscriber import DEFAULT_RCVHWM
+from eddyvigil.monitor.transport import port_number
 
 __all__ = [
     "add_arguments",
@@ -36,17 +41,24 @@ __all__ = [
     "EXIT_RECORDING_EXISTS",
     "EXIT_ADDRESS_IN_USE",
     "EXIT_NO_RECORDING",
+    "EXIT_CANNOT_WRITE",
+    "NO_PUBLISHER_S",
     "SETTINGS_FILE",
 ]
 
-EXIT_OK = 0
-EXIT_ERROR = 1
-EXIT_USAGE = 2  # argparse
-EXIT_ENDPOINT = 3
-EXIT_TARGETS = 4
-EXIT_RECORDING_EXISTS = 5
-EXIT_ADDRESS_IN_USE = 6
-EXIT_NO_RECORDING = 7
+# The one table lives in monitor/exitcodes.py; these names stay for existing importers.
+EXIT_OK = ExitCode.OK
+EXIT_ERROR = ExitCode.ERROR
+EXIT_USAGE = ExitCode.USAGE
+EXIT_ENDPOINT = ExitCode.ENDPOINT
+EXIT_TARGETS = ExitCode.INPUT_FILE
+EXIT_RECORDING_EXISTS = ExitCode.OUTPUT_EXISTS
+EXIT_ADDRESS_IN_USE = ExitCode.ADDRESS_IN_USE
+EXIT_NO_RECORDING = ExitCode.NO_RECORDING
+EXIT_CANNOT_WRITE = ExitCode.CANNOT_WRITE
+
+#: Seconds without any message before watch says, once, that nobody is publishing.
+NO_PUBLISHER_S = 15.0
 
 #: Written into a recording directory: what replay needs to reproduce the live summaries.
 SETTINGS_FILE = "monitor-settings.json"
@@ -58,19 +70,16 @@ def _default_targets_text() -> str:
     return Targets.defaults().describe()
 
 
-EPILOG = f"""\
-exit codes:
-  0  finished normally (all streams ended, or Ctrl-C / SIGTERM)
-  1  unexpected error
-  2  bad command line
-  3  bad endpoint (malformed, unknown transport, cannot connect or bind)
-  4  targets file unreadable or malformed (the message says where)
-  5  --record DIR already holds a recording (use --append to add to it)
-  6  address already in use (--bind, --control or the dashboard --port)
+EPILOG = (
+    epilog("watch")
+    + f"""
+without --summary or --record the summary JSON lines go to standard output when it is a
+file or a pipe; on a terminal one short line per point is shown instead.
 
 default targets (without --targets FILE):
 {_default_targets_text()}
 """
+)
 
 
 def add_arguments(p: argparse.ArgumentParser) -> None:
@@ -97,6 +106,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--append", action="store_true", help="add to an existing recording and summary file"
     )
     p.add_argument("--summary", metavar="FILE", help="write the summary JSON lines to FILE")
+    add_summary_mode(p)
     p.add_argument("--targets", metavar="FILE", help="targets file (TOML); defaults below")
     p.add_argument("--control", metavar="ENDPOINT", help="bind a PUB here for 'converged' signals")
     p.add_argument(
@@ -105,7 +115,14 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="no dashboard; exit once every stream seen has sent 'end'",
     )
     p.add_argument("--host", default="127.0.0.1", help="dashboard address (default 127.0.0.1)")
-    p.add_argument("--port", type=int, default=5006, help="dashboard port (default 5006)")
+    p.add_argument("--port", type=port_number, default=5006, help="dashboard port (default 5006)")
+    p.add_argument(
+        "--no-publisher-after",
+        type=float,
+        default=NO_PUBLISHER_S,
+        metavar="S",
+        help=f"say once that nobody publishes after S s without a message (default {NO_PUBLISHER_S:g})",
+    )
     p.add_argument(
         "--max-message-mb",
         type=float,
@@ -121,9 +138,41 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--quiet", action="store_true", help="no status line")
 
 
+def add_summary_mode(p: argparse.ArgumentParser) -> None:
+    """``--summary-mode`` (watch and replay)."""
+    p.add_argument(
+        "--summary-mode",
+        choices=("new", "append", "overwrite"),
+        default=None,
+        help="if --summary FILE exists: new (default) refuses, append adds, overwrite replaces"
+        " (--append implies append)",
+    )
+
+
 def _fail(code: int, message: str) -> int:
-    print(f"eddyvigil watch: {message}", file=sys.stderr)
-    return code
+    return fail("watch", code, message)
+
+
+def no_publisher_notice(endpoint: str, bind: bool, socket: str, peer_seen: bool, seconds: float) -> str:
+    """The one plain notice when nothing has arrived for ``seconds``."""
+    if peer_seen:
+        return (
+            f"a peer is connected at {endpoint} but nothing arrived in {seconds:g} s. Check: "
+            "is it sending yet? do the socket types pair (PUB with --socket sub, PUSH with "
+            "--socket pull)? does --stream name a stream it publishes?"
+        )
+    side = (
+        "watch binds here, so the publisher must connect to this address"
+        if bind
+        else "watch connects here, so the publisher must bind this address"
+    )
+    pair = "PUB" if socket == "sub" else "PUSH"
+    return (
+        f"nobody is publishing at {endpoint}: nothing arrived and no peer connected in "
+        f"{seconds:g} s. Check: is the publisher started? {side}; it must use a {pair} "
+        f"socket (--socket {socket}); are the host and port right, and is no firewall between "
+        "the machines? (watch keeps listening)"
+    )
 
 
 def load_targets(path: str | None):
@@ -197,19 +246,20 @@ class StatusPrinter:
             self._stream.flush()
 
 
-def prepare_kernels(quiet: bool = False, notice_after_s: float = 3.0) -> float:
+def prepare_kernels(quiet: bool = False, notice_after_s: float = 5.0) -> float:
     """Load the statistics kernels before any socket opens (see ``stats/warmup.py``).
 
-    On the first start after installing they compile for about 20 s; a notice says so when
-    it takes longer than ``notice_after_s``. Returns the seconds taken.
+    On the first start after installing they compile for about 20 s; loading them later
+    takes well under 2 s. A notice is shown only when it takes longer than
+    ``notice_after_s``, i.e. when they are really being compiled. Returns the seconds taken.
     """
     from eddyvigil.stats.warmup import prepare_kernels as prepare
 
     notice = threading.Timer(
         notice_after_s,
         lambda: print(
-            "eddyvigil: preparing the statistics kernels (the first start after installing "
-            "compiles them: about 20 s; later starts take 1-2 s); no socket is open yet",
+            "eddyvigil: compiling the statistics kernels (once after installing: about 20 s "
+            "more); no socket is open yet",
             file=sys.stderr,
             flush=True,
         ),
@@ -245,30 +295,46 @@ def install_stop_signals(stop) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from eddyvigil.monitor.subscriber import AddressInUseError, Subscriber, SubscriberError, check_endpoint
+    from eddyvigil.monitor.outputs import (
+        OutputRefused,
+        check_record_dir,
+        check_summary_file,
+        open_summary_file,
+        summary_mode,
+    )
+    from eddyvigil.monitor.subscriber import AddressInUseError, Subscriber, SubscriberError
+    from eddyvigil.monitor.transport import check_endpoint, tcp_port_taken
     from eddyvigil.stats.targets import TargetsError
 
     try:
         targets = load_targets(args.targets)
     except TargetsError as exc:
-        return _fail(EXIT_TARGETS, str(exc))
+        return _fail(ExitCode.INPUT_FILE, str(exc))
     if not args.max_message_mb > 0:
-        return _fail(EXIT_USAGE, "--max-message-mb must be positive")
+        return _fail(ExitCode.USAGE, "--max-message-mb must be positive")
+    if not args.no_publisher_after > 0:
+        return _fail(ExitCode.USAGE, "--no-publisher-after must be positive")
     max_bytes = int(args.max_message_mb * 2**20)
     endpoint = args.connect or args.bind
     try:
-        check_endpoint(endpoint)
+        check_endpoint(endpoint, bind=args.bind is not None)
         if args.control:
-            check_endpoint(args.control)
+            check_endpoint(args.control, bind=True)
     except SubscriberError as exc:
-        return _fail(EXIT_ENDPOINT, str(exc))
-    from eddyvigil.monitor.recorder import holds_recording
-
-    if args.record and not args.append and holds_recording(args.record):
-        return _fail(
-            EXIT_RECORDING_EXISTS,
-            f"{args.record} already holds a recording; choose a new directory or add --append",
-        )
+        return _fail(ExitCode.ENDPOINT, str(exc))
+    mode = summary_mode(args.summary_mode, args.append)
+    try:
+        if args.summary:
+            check_summary_file(args.summary, mode)
+        if args.record:
+            check_record_dir(args.record, args.append)
+    except OutputRefused as exc:
+        return _fail(exc.code, str(exc))
+    if not args.no_dashboard:
+        why = tcp_port_taken(args.host, args.port)
+        if why is not None:
+            code = ExitCode.ADDRESS_IN_USE if "in use" in why else ExitCode.ENDPOINT
+            return _fail(code, f"dashboard: {why}; choose another with --port / --host")
 
     prepare_kernels(quiet=args.quiet)
     closers = []
@@ -283,9 +349,9 @@ def run(args: argparse.Namespace) -> int:
                 rcvhwm=args.rcvhwm,
             )
         except AddressInUseError as exc:
-            return _fail(EXIT_ADDRESS_IN_USE, str(exc))
+            return _fail(ExitCode.ADDRESS_IN_USE, str(exc))
         except SubscriberError as exc:
-            return _fail(EXIT_ENDPOINT, str(exc))
+            return _fail(ExitCode.ENDPOINT, str(exc))
         closers.append(sub.close)
         control = None
         if args.control:
@@ -294,29 +360,42 @@ def run(args: argparse.Namespace) -> int:
             try:
                 control = ControlPublisher(args.control)
             except AddressInUseError as exc:
-                return _fail(EXIT_ADDRESS_IN_USE, f"--control {exc}")
+                return _fail(ExitCode.ADDRESS_IN_USE, f"--control {exc}")
             except SubscriberError as exc:
-                return _fail(EXIT_ENDPOINT, f"--control {exc}")
+                return _fail(ExitCode.ENDPOINT, f"--control {exc}")
             closers.append(control.close)
         recorder = None
-        sinks = [args.summary] if args.summary else []
-        if args.record:
-            from eddyvigil.monitor.recorder import Recorder, RecordingExistsError
+        sinks = []
+        try:
+            if args.summary:
+                summary_file = open_summary_file(args.summary, mode)
+                closers.append(summary_file.close)
+                sinks.append(summary_file)
+            if args.record:
+                from eddyvigil.monitor.recorder import Recorder, RecordingExistsError
 
-            try:
-                recorder = Recorder(args.record, append=args.append)
-            except RecordingExistsError as exc:
-                return _fail(EXIT_RECORDING_EXISTS, f"{exc}; add --append to add to it")
-            closers.append(recorder.close)
-            write_settings(Path(args.record), targets, max_bytes)
-            sinks.append(Path(args.record) / "summary.jsonl")
+                try:
+                    recorder = Recorder(args.record, append=args.append)
+                except RecordingExistsError as exc:
+                    return _fail(ExitCode.OUTPUT_EXISTS, f"{exc}; add --append to add to it")
+                except OSError as exc:
+                    return _fail(ExitCode.CANNOT_WRITE, f"--record {args.record}: {exc.strerror}")
+                closers.append(recorder.close)
+                write_settings(Path(args.record), targets, max_bytes)
+                record_summary = open_summary_file(
+                    Path(args.record) / "summary.jsonl", "append" if args.append else "overwrite"
+                )
+                closers.append(record_summary.close)
+                sinks.append(record_summary)
+        except OutputRefused as exc:
+            return _fail(exc.code, str(exc))
         if not sinks:
-            sinks = [sys.stdout]
+            sinks = [terminal_summary_sink("watch", args.quiet)]
 
         from eddyvigil.monitor.pipeline import Pipeline
         from eddyvigil.monitor.summary import SummaryWriter
 
-        writer = SummaryWriter(sinks, append=args.append)
+        writer = SummaryWriter(sinks)
         pipeline = Pipeline(
             targets,
             summary=writer,
@@ -325,6 +404,16 @@ def run(args: argparse.Namespace) -> int:
             max_message_bytes=max_bytes,
         )
         status = StatusPrinter(quiet=args.quiet)
+        started = time.monotonic()
+        silence = {"said": False}
+        if not args.quiet:
+            verb = "bound at" if args.bind else "connecting to"
+            print(
+                f"eddyvigil watch: {args.socket.upper()} socket {verb} {endpoint}; waiting for "
+                "the first message",
+                file=sys.stderr,
+                flush=True,
+            )
 
         def on_frames(frames, received_at):
             pipeline.handle_frames(frames, received_at)
@@ -337,6 +426,18 @@ def run(args: argparse.Namespace) -> int:
 
         def on_tick():
             pipeline.publish()
+            if sub.messages == 0:
+                # before any message: no "waiting" status every 10 s, but one plain notice
+                if not silence["said"] and time.monotonic() - started >= args.no_publisher_after:
+                    silence["said"] = True
+                    text = no_publisher_notice(
+                        endpoint, args.bind is not None, args.socket, sub.peer_seen,
+                        args.no_publisher_after,
+                    )
+                    pipeline.transport_event(text)
+                    if not args.quiet:
+                        print(f"eddyvigil watch: {text}", file=sys.stderr, flush=True)
+                return
             status.tick(pipeline.snapshot)
 
         def acquire():
@@ -353,16 +454,36 @@ def run(args: argparse.Namespace) -> int:
         pipeline.close()
         if recorder is not None:
             recorder.flush()
-        return EXIT_OK
+        return ExitCode.OK
     finally:
         for close in reversed(closers):
             close()
 
 
+def terminal_summary_sink(command: str, quiet: bool):
+    """Standard output as the summary sink: JSON lines into a file or pipe; on a terminal one
+    short line per point (and a note that nothing is kept)."""
+    if not sys.stdout.isatty():
+        return sys.stdout
+    from eddyvigil.monitor.outputs import TerminalSummary
+
+    if not quiet:
+        print(
+            f"eddyvigil {command}: no --summary FILE"
+            + (" or --record DIR" if command == "watch" else "")
+            + ": the summary is not kept; one line per finished point follows here",
+            file=sys.stderr,
+            flush=True,
+        )
+    return TerminalSummary(sys.stdout)
+
+
 def serve_dashboard_while(args, pipeline, work, stop, title: str) -> int:
     """Serve the dashboard on this (main) thread; ``work`` runs in a thread that the server
     starts once it is up (never in per-page code); ``stop()`` when the server goes down.
-    Returns an exit code (address in use is mapped here, for watch and replay alike)."""
+    Returns an exit code (address in use is mapped here, for watch and replay alike; the
+    message names the command: ``title`` is ``"eddyvigil COMMAND"``). A nonzero code means
+    ``work`` never ran."""
     from eddyvigil.monitor.dashboard.server import PortInUseError, serve
 
     thread = threading.Thread(target=work, name="eddyvigil-acquisition", daemon=True)
@@ -382,7 +503,7 @@ def serve_dashboard_while(args, pipeline, work, stop, title: str) -> int:
             on_ready=on_ready,
         )
     except PortInUseError as exc:
-        return _fail(EXIT_ADDRESS_IN_USE, str(exc))
+        return fail(title.split()[-1], ExitCode.ADDRESS_IN_USE, str(exc))
     finally:
         stop()
         if thread.is_alive():

@@ -10,9 +10,12 @@ import argparse
 import math
 import sys
 
+from eddyvigil.monitor.exitcodes import ExitCode, epilog, fail
+from eddyvigil.monitor.transport import parse_speed as _parse_speed
+
 __all__ = ["add_arguments", "run", "main", "parse_speed", "EPILOG"]
 
-EPILOG = """\
+EPILOG = epilog("simulate") + """
 speed: 1 = real time (the sample clock is honoured against a monotonic clock), N = N times
 real time, max = as fast as the socket takes the messages.
 
@@ -34,18 +37,10 @@ glitches (lost, malformed messages and a restart). --scenario also takes a path 
 
 
 def parse_speed(text: str) -> float:
-    """``"1"``, ``"N"`` (> 0) or ``"max"`` -> a speed factor (``inf`` for max)."""
-    if text.strip().lower() == "max":
-        return math.inf
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(
-            f"speed must be a number > 0 or 'max', not {text!r}"
-        ) from None
-    if not (v > 0 and math.isfinite(v)):
-        raise argparse.ArgumentTypeError("speed must be > 0")
-    return v
+    """``"1"``, ``"N"`` (> 0) or ``"max"`` -> a speed factor (``inf`` for max); the one
+    ``--speed`` of :func:`eddyvigil.monitor.transport.parse_speed`."""
+    speed = _parse_speed(text)
+    return math.inf if speed is None else speed
 
 
 def _positive_int(text: str) -> int:
@@ -137,18 +132,33 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    import zmq
-
+    from eddyvigil.monitor.transport import AddressInUseError, EndpointError, check_endpoint
     from eddyvigil.simulator.publisher import Publisher, PublisherOptions
     from eddyvigil.simulator.scenario import ScenarioError, load_scenario
+
+    def _fail(code, message):
+        return fail("simulate", code, message)
 
     try:
         scenario = load_scenario(args.scenario).with_rate(args.rate)
     except ScenarioError as e:
-        print(f"eddyvigil simulate: {e}", file=sys.stderr)
-        return 2
+        return _fail(ExitCode.INPUT_FILE, str(e))
+    endpoint = args.bind or args.connect
+    try:
+        check_endpoint(endpoint, bind=args.bind is not None)
+        if args.follow_control:
+            check_endpoint(args.follow_control)
+    except EndpointError as e:
+        return _fail(ExitCode.ENDPOINT, str(e))
+    if args.truth:
+        from eddyvigil.monitor.outputs import OutputRefused, check_summary_file
+
+        try:  # the same checks as a summary file, but an existing truth file is replaced
+            check_summary_file(args.truth, "overwrite")
+        except OutputRefused as e:
+            return _fail(e.code, str(e).replace("--summary", "--truth"))
     opts = PublisherOptions(
-        endpoint=args.bind or args.connect,
+        endpoint=endpoint,
         bind=args.bind is not None,
         socket_type=args.socket,
         speed=args.speed,
@@ -162,15 +172,18 @@ def run(args: argparse.Namespace) -> int:
         quiet=args.quiet,
     )
     try:
-        return Publisher(scenario, opts).run()
+        code = Publisher(scenario, opts).run()
     except KeyboardInterrupt:  # Ctrl-C before the publisher's own handler was installed
-        return 130
-    except zmq.ZMQError as e:
-        print(f"eddyvigil simulate: cannot use {opts.endpoint}: {e}", file=sys.stderr)
-        return 2
+        return ExitCode.STOPPED
+    except AddressInUseError as e:
+        return _fail(ExitCode.ADDRESS_IN_USE, str(e))
+    except EndpointError as e:
+        return _fail(ExitCode.ENDPOINT, str(e))
+    except OSError as e:
+        return _fail(ExitCode.CANNOT_WRITE, f"cannot write --truth {args.truth}: {e.strerror or e}")
     except ValueError as e:
-        print(f"eddyvigil simulate: {e}", file=sys.stderr)
-        return 2
+        return _fail(ExitCode.USAGE, str(e))
+    return ExitCode.STOPPED if code == ExitCode.STOPPED else code
 
 
 def main(argv: list[str] | None = None) -> int:

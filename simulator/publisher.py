@@ -27,9 +27,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import zmq
-import zmq.utils.monitor
 
 from eddyvigil.monitor import wire
+from eddyvigil.monitor.transport import Pacer, open_publisher, open_socket, wait_for_peer
 from eddyvigil.simulator.faults import MALFORMED_KINDS, MessageFaults, SampleFaults, malformed_frames
 from eddyvigil.simulator.scenario import RandomSampler, Scenario, point_truth, write_truth
 
@@ -53,21 +53,6 @@ class PublisherOptions:
     wait_peer_s: float = 5.0
     sndhwm: int = 1000
     quiet: bool = False
-
-
-def wait_for_peer(monitor_socket: zmq.Socket, timeout_s: float, stop=lambda: False) -> bool:
-    """Wait for a peer on a socket monitor made *before* the bind/connect; False on timeout.
-
-    ``monitor_socket`` comes from ``sock.get_monitor_socket(EVENT_ACCEPTED | EVENT_CONNECTED)``
-    (attached first, so an immediate connection is not missed); ``stop()`` ends the wait early.
-    """
-    deadline = time.monotonic() + timeout_s
-    while not stop() and (left := deadline - time.monotonic()) > 0:
-        if monitor_socket.poll(int(min(left, 0.2) * 1000) + 1):
-            ev = zmq.utils.monitor.recv_monitor_message(monitor_socket)
-            if ev["event"] in (zmq.EVENT_ACCEPTED, zmq.EVENT_CONNECTED):
-                return True
-    return False
 
 
 class Publisher:
@@ -121,15 +106,9 @@ class Publisher:
         return s
 
     def _pace(self, stream_time_s: float) -> None:
-        if math.isinf(self.opt.speed):
-            return
-        if self._clock0 is None:  # the first samples message is on time by definition: set-up
-            # costs before it (numba cache load, kernel design) do not count against the clock
-            self._clock0 = time.monotonic() - stream_time_s / self.opt.speed
-            return
-        due = self._clock0 + stream_time_s / self.opt.speed
-        while not self._stop and (wait := due - time.monotonic()) > 0:
-            time.sleep(min(wait, 0.25))
+        # the first samples message is on time by definition: set-up costs before it (numba
+        # cache load, kernel design) do not count against the clock
+        self._pacer.wait(stream_time_s, stop=lambda: self._stop)
 
     def _converged_signal(self, point_id: str) -> bool:
         if self._control is None:
@@ -148,34 +127,22 @@ class Publisher:
 
     # ---- run --------------------------------------------------------------------------
     def _open(self) -> None:
-        kind = {"pub": zmq.PUB, "push": zmq.PUSH}[self.opt.socket_type]
-        self.sock = self.ctx.socket(kind)
-        self.sock.setsockopt(zmq.LINGER, 2000)  # let the last frames (end) leave on close
-        self.sock.setsockopt(zmq.SNDHWM, self.opt.sndhwm)
-        self.sock.setsockopt(zmq.SNDTIMEO, 200)  # PUB never blocks; PUSH retries, see _send
-        mon = None
-        if self.opt.socket_type == "pub" and self.opt.wait_peer_s > 0:
-            mon = self.sock.get_monitor_socket(zmq.EVENT_ACCEPTED | zmq.EVENT_CONNECTED)
-        try:
-            if self.opt.bind:
-                self.sock.bind(self.opt.endpoint)
-            else:
-                self.sock.connect(self.opt.endpoint)
-            if mon is not None and not wait_for_peer(mon, self.opt.wait_peer_s, lambda: self._stop):
-                self._log(f"simulate: no peer within {self.opt.wait_peer_s:g} s; publishing anyway")
-        finally:
-            if mon is not None:
-                self.sock.disable_monitor()
-                mon.close(linger=0)
+        self.sock, peer = open_publisher(
+            self.ctx,
+            self.opt.socket_type,
+            self.opt.endpoint,
+            bind=self.opt.bind,
+            wait_peer_s=self.opt.wait_peer_s,
+            settle_s=self.opt.settle_s,
+            stop=lambda: self._stop,
+            linger_ms=2000,  # let the last frames (end) leave on close
+            options={zmq.SNDHWM: self.opt.sndhwm, zmq.SNDTIMEO: 200},  # PUSH retries: _send
+        )
+        if not peer:
+            self._log(f"simulate: no peer within {self.opt.wait_peer_s:g} s; publishing anyway")
         if self.opt.follow_control:
-            self._control = self.ctx.socket(zmq.SUB)
-            self._control.setsockopt(zmq.LINGER, 0)
-            self._control.setsockopt(zmq.SUBSCRIBE, self.scenario.stream.encode())
-            self._control.connect(self.opt.follow_control)
-        if self.opt.socket_type == "pub":
-            end = time.monotonic() + self.opt.settle_s  # let the subscription arrive
-            while not self._stop and (left := end - time.monotonic()) > 0:
-                time.sleep(min(left, 0.1))
+            self._control = open_socket(self.ctx, "sub", self.opt.follow_control, bind=False,
+                                        options={zmq.SUBSCRIBE: self.scenario.stream.encode()})
 
     def _close(self) -> None:
         if self._control is not None:
@@ -194,8 +161,8 @@ class Publisher:
         except ValueError:  # not the main thread: no signal handling
             old = {}
         try:
+            self._pacer = Pacer(None if math.isinf(self.opt.speed) else self.opt.speed)
             self._open()
-            self._clock0 = None
             self._run_points()
             self._send(wire.encode_end(self.scenario.stream, self.session, self._next_seq()))
             self._write_truth(final=True)

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 
 from eddyvigil.monitor import export, wire
+from eddyvigil.monitor.exitcodes import ExitCode
 from eddyvigil.monitor.recorder import Recorder
 
 P1 = {"id": "P01", "x": 0.1, "y": 0.0, "z": 0.0, "nu": 1.5e-5}
@@ -155,7 +156,7 @@ def test_default_output_beside_the_recording(recording):
 
 
 def test_not_a_recording_is_refused(tmp_path, capsys):
-    assert _run([str(tmp_path), "--to", "npz"]) == 1
+    assert _run([str(tmp_path), "--to", "npz"]) == ExitCode.NO_RECORDING  # same code as replay
     assert "holds no recording" in capsys.readouterr().err
 
 

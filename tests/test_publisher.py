@@ -18,6 +18,7 @@ import pytest
 import zmq
 
 from eddyvigil.monitor import wire
+from eddyvigil.monitor.exitcodes import ExitCode
 from eddyvigil.simulator.scenario import load_scenario
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -270,20 +271,22 @@ def test_random_sampling_over_the_wire(ctx):
 
 
 @pytest.mark.parametrize(
-    "args, words",
+    "args, words, expected",
     [
-        (["--scenario", "tornado"], "no built-in scenario"),
-        (["--speed", "fast"], "speed"),
-        (["--bind", "nonsense://x"], "cannot use"),
+        (["--scenario", "tornado"], "no built-in scenario", ExitCode.INPUT_FILE),
+        (["--speed", "fast"], "speed", ExitCode.USAGE),
+        (["--bind", "nonsense://x"], "unknown transport", ExitCode.ENDPOINT),
+        (["--bind", "tcp://127.0.0.1:70000"], "outside 1-65535", ExitCode.ENDPOINT),
     ],
 )
-def test_cli_refuses_bad_arguments(args, words):
+def test_cli_refuses_bad_arguments(args, words, expected):
+    """Codes of the one table (monitor/exitcodes.py), the same as watch's for the same fault."""
     if args[0] != "--bind":
         args = ["--connect", "tcp://127.0.0.1:1", *args]
     proc = _spawn(*args)
     code, err = _reap(proc, timeout=30)
-    assert code == 2
-    assert words in err
+    assert code == expected
+    assert words in err and "Traceback" not in err
 
 
 def test_sigterm_mid_point_still_sends_end(ctx, tmp_path):

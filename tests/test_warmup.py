@@ -50,4 +50,14 @@ def test_slow_preparation_is_announced_unless_quiet(monkeypatch, capsys, quiet):
     monkeypatch.setattr(warmup_module, "prepare_kernels", lambda: time.sleep(0.3) or 0.3)
     prepare_kernels(quiet=quiet, notice_after_s=0.05)
     err = capsys.readouterr().err
-    assert ("preparing the statistics kernels" in err) is (not quiet)
+    assert ("compiling the statistics kernels" in err) is (not quiet)
+
+
+def test_a_quick_preparation_says_nothing(monkeypatch, capsys):
+    """Loading compiled kernels from the cache is quick: no notice on an ordinary start."""
+    import eddyvigil.stats.warmup as warmup_module
+    from eddyvigil.monitor.watch import prepare_kernels
+
+    monkeypatch.setattr(warmup_module, "prepare_kernels", lambda: 0.0)
+    prepare_kernels(quiet=False)
+    assert capsys.readouterr().err == ""

@@ -50,7 +50,7 @@ def test_bad_endpoint_and_bad_targets_give_documented_codes(procs, tmp_path):
         "watch", "--connect", "tcp://nohost.invalid:x", "--no-dashboard", name="ep2"
     )
     assert procs.wait(p) == EXIT_ENDPOINT
-    assert "cannot connect" in procs.output(p)[1]
+    assert "not a number 1-65535" in procs.output(p)[1]
     bad = tmp_path / "targets.toml"
     bad.write_text("[targets]\nUx = { relative = 0.01 }\n")
     p = procs.eddyvigil(
