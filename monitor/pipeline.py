@@ -20,8 +20,11 @@ Choices made where DESIGN leaves room (also stated in README's summary section):
   A loss found when no point is current is charged to the next point of the stream.
 - A ``seq`` at or below the last one seen in the same session is rejected as
   ``duplicate_seq``; samples whose velocity columns or sampling rate differ from the current
-  point's are rejected as ``layout_changed``; a ``t`` column that steps back across messages
-  is rejected as ``time_backwards``. These reasons come from the pipeline, not the wire.
+  point's are rejected as ``layout_changed``; samples whose ``units`` differ from those of the
+  point's first accepted samples are rejected as ``units_changed`` (never converted, never
+  mixed in; the point line records its ``units``); a ``t`` column that steps back across
+  messages is rejected as ``time_backwards``. These reasons come from the pipeline, not the
+  wire.
 - A new session (publisher restart) finishes the current point ``complete: false``, counts a
   restart and starts fresh sequence expectations.
 - Point ``messages`` counts accepted messages while the point was current (its ``point``
@@ -54,6 +57,7 @@ __all__ = ["Pipeline", "PIPELINE_REJECTION_REASONS", "TRACE_ROWS", "HISTORY_ROWS
 PIPELINE_REJECTION_REASONS = (
     "duplicate_seq",
     "layout_changed",
+    "units_changed",
     "time_backwards",
     "too_many_streams",
     "internal_error",
@@ -87,6 +91,7 @@ class _PointRun:
         self.stats = None  # stats.PointStatistics, created at the first samples
         self.columns: tuple[str, ...] | None = None
         self.rate_hz: float | None = None
+        self.units: str | None = None  # of the first accepted samples
         self.messages = 0
         self.gaps = 0
         self.lost = 0
@@ -298,7 +303,9 @@ class Pipeline:
         if msg.point is not None and (st.point is None or msg.point.get("id") != st.point.point_id):
             self._on_point(st, msg.point)
         times = msg.times
-        return self._feed_block(st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0)
+        return self._feed_block(
+            st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0, msg.units
+        )
 
     # ------------------------------------------------------------------ in-process API
 
@@ -318,10 +325,12 @@ class Pipeline:
         columns: Sequence[str] = ("u", "v", "w"),
         rate_hz: float | None = None,
         times: np.ndarray | None = None,
+        units: str = "m/s",
     ) -> str | None:
         """Feed an ``(n, len(columns))`` block of velocity samples; returns a rejection reason.
 
-        ``rate_hz`` for uniform sampling, or ``times`` (s, one per row) for random sampling.
+        ``rate_hz`` for uniform sampling, or ``times`` (s, one per row) for random sampling;
+        ``units`` of the velocities (a change within a point is rejected, ``units_changed``).
         A block that is not finite or not of the stated shape is rejected and counted, never
         raised on.
         """
@@ -349,7 +358,7 @@ class Pipeline:
             t0 = 0.0
             if times is None and st.point is not None and st.point.stats is not None:
                 t0 = st.point.stats.n / float(rate_hz)
-            reason = self._feed_block(st, block, columns, rate_hz, times, t0)
+            reason = self._feed_block(st, block, columns, rate_hz, times, t0, units)
         if reason is None:
             st.active = True
             st.messages += 1
@@ -410,10 +419,13 @@ class Pipeline:
         st.ended = True
         st.active = True
 
-    def _feed_block(self, st, velocity, columns, rate_hz, times, t0) -> str | None:
+    def _feed_block(self, st, velocity, columns, rate_hz, times, t0, units="m/s") -> str | None:
         run = st.point if st.point is not None else self._start_point(st, None)
         columns = tuple(columns)
+        if run.units is not None and units != run.units:
+            return "units_changed"  # never converted, never mixed in
         if run.stats is None:
+            run.units = units
             run.columns, run.rate_hz = columns, rate_hz
             run.stats = self._stats.PointStatistics(columns, rate_hz, targets=self.targets)
         elif columns != run.columns or rate_hz != run.rate_hz:
@@ -525,6 +537,7 @@ class Pipeline:
             "suspect": {},
             "columns": list(run.columns) if run.columns else [],
             "rate_hz": run.rate_hz,
+            "units": run.units,
             "statistics": [],
         }
         if snap is not None:
