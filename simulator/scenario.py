@@ -6,7 +6,11 @@ Two ways to give the points:
 - ``[flow]`` with ``kind = "plane_wake"``: analytic self-similar profiles (below) sampled at the
   ``[traverse]`` positions; every point then also knows its k-budget terms.
 - ``[[points]]``: each point spelled out (``mean``, ``stress``, ``tint_s`` or ``length_m``,
-  optional ``skew``, ``shedding``, ``faults``).
+  optional ``skew`` or ``skew_a``, ``shedding``, ``faults``). ``skew`` is the skewness of each
+  independent unit process; the generator's parameter ``a`` of ``y = z + a (z^2 - 1)`` is
+  solved from it (:func:`skew_parameter`), so u, which is its first process times a constant,
+  has exactly that skewness (v and w mix in the earlier processes through the Cholesky factor
+  of ``stress``). ``skew_a`` gives ``a`` itself.
 
 Top-level ``[scenario]`` keys: ``name``, ``description``, ``facility``, ``stream``
 (default ``probe-a``), ``rate_hz``, ``point_seconds`` (time per point, the cap with
@@ -63,11 +67,16 @@ __all__ = [
     "builtin_scenarios",
     "load_scenario",
     "moment_names",
+    "skew_parameter",
+    "MAX_SKEWNESS",
     "point_truth",
     "write_truth",
 ]
 
 DEFAULT_SCENARIO = "wake"
+#: Largest |skewness| a scenario may ask for: the transform's skewness tends to 2 sqrt(2) as
+#: a grows, and 2.8 already needs a = 1.5.
+MAX_SKEWNESS = 2.8
 
 
 class ScenarioError(ValueError):
@@ -78,6 +87,29 @@ def builtin_scenarios() -> list[str]:
     """Names of the scenarios shipped in ``simulator/scenarios``."""
     root = importlib.resources.files("eddyvigil.simulator") / "scenarios"
     return sorted(p.name[:-5] for p in root.iterdir() if p.name.endswith(".toml"))
+
+
+def skew_parameter(skewness) -> np.ndarray:
+    """The ``a`` of ``y = (z + a (z^2 - 1)) / sqrt(1 + 2 a^2)`` (Gaussian ``z``) whose skewness
+    ``(6a + 8a^3)/(1 + 2a^2)^{3/2}`` is ``skewness`` (formula: REFERENCES §10; it is odd and
+    increasing in ``a``, so the root is unique). Raises ``ValueError`` beyond
+    :data:`MAX_SKEWNESS`.
+
+    >>> round(float(skew_parameter(0.590206)), 5)  # REFERENCES §10: a = 0.1 gives 0.590206
+    0.1
+    """
+    from scipy.optimize import brentq
+
+    s = np.atleast_1d(np.asarray(skewness, dtype=np.float64))
+    if not np.all(np.abs(s) <= MAX_SKEWNESS):
+        raise ValueError(f"skew must be a skewness within +-{MAX_SKEWNESS}, not {skewness}")
+    out = np.zeros_like(s)
+    for i, target in enumerate(s):
+        if target != 0.0:
+            root = brentq(lambda a, t=abs(target): skew_moments(a)[0] - t, 0.0, 10.0,
+                          xtol=1e-15, rtol=1e-15)
+            out[i] = math.copysign(root, target)
+    return out.reshape(np.shape(skewness))
 
 
 def moment_names(columns, order: int) -> list[str]:
@@ -303,6 +335,7 @@ def _point_from_table(t: dict, i: int) -> PointSpec:
         "tint_s",
         "length_m",
         "skew",
+        "skew_a",
         "shedding",
         "faults",
         "note",
@@ -322,7 +355,14 @@ def _point_from_table(t: dict, i: int) -> PointSpec:
         cholesky_factor(stress)
     except ValueError as e:
         raise ScenarioError(f"[[points]] #{i + 1}: {e}") from None
-    skew = tuple(np.broadcast_to(np.asarray(t.get("skew", 0.0), float), (m,)))
+    if "skew" in t and "skew_a" in t:
+        raise ScenarioError(f"[[points]] #{i + 1}: give skew (a skewness) or skew_a, not both")
+    try:
+        a = (skew_parameter(np.asarray(t["skew"], float)) if "skew" in t
+             else np.asarray(t.get("skew_a", 0.0), float))
+        skew = tuple(float(v) for v in np.broadcast_to(a, (m,)))
+    except ValueError as e:
+        raise ScenarioError(f"[[points]] #{i + 1}: {e}") from None
     shed = t.get("shedding")
     return PointSpec(
         id=str(t.get("id", f"P{i + 1:02d}")),
