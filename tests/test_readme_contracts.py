@@ -37,3 +37,18 @@ def test_readme_documents_every_scenario_key():
               "sampling", "data_rate_hz", "probe_diameter_m", "stream", "mean", "stress",
               "tint_s", "length_m", "skew", "skew_a", "shedding", "note"):
         assert k in keys, k
+
+
+def test_ci_script_names_only_files_in_the_repository():
+    """`.ci/run` runs from a fresh clone: every file it names must be part of the repository."""
+    import subprocess
+
+    text = (REPO_DIR / ".ci" / "run").read_text(encoding="utf-8")
+    tracked = set(
+        subprocess.run(["git", "ls-files"], cwd=REPO_DIR, capture_output=True, text=True,
+                       check=True).stdout.split()
+    )
+    named = set(re.findall(r"[\w./-]+\.(?:md|py|toml|txt|cfg|ini|json)\b", text))
+    assert named, "the check must see the file names in .ci/run"
+    for name in named:
+        assert name in tracked, f".ci/run names {name}, which is not in the repository"
