@@ -141,14 +141,17 @@ class TerminalSummary:
         """One sentence for a ``point`` or ``run`` summary line.
 
         >>> TerminalSummary.describe({"kind": "run", "samples": 1200000, "points": 3,
-        ...     "streams": 1, "lost": 0, "rejected": {"non_finite": 2}})
-        'run: 1.2M samples, 3 point(s) of 1 stream(s), 0 messages lost, 2 rejected'
+        ...     "streams": ["probe-a"], "lost": 0, "rejected": {"non_finite": 2}})
+        'run: 1.2M samples, 3 point(s) of 1 stream(s) (probe-a), 0 messages lost, 2 rejected'
         """
         if line.get("kind") == "run":
             rejected = sum((line.get("rejected") or {}).values())
+            streams = line.get("streams") or []
+            names = ", ".join(map(str, streams)) if isinstance(streams, list) else str(streams)
             return (f"run: {_count(line.get('samples'))} samples, {line.get('points')} point(s) "
-                    f"of {line.get('streams')} stream(s), {line.get('lost')} messages lost, "
-                    f"{rejected} rejected")
+                    f"of {len(streams) if isinstance(streams, list) else streams} stream(s)"
+                    f"{f' ({names})' if names and isinstance(streams, list) else ''}, "
+                    f"{line.get('lost')} messages lost, {rejected} rejected")
         point = (line.get("point") or {}).get("id")
         verdict = (f"converged after {line['converged_at_s']:.1f} s"
                    if line.get("converged") and line.get("converged_at_s") is not None
