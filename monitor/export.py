@@ -270,7 +270,8 @@ def run(args: argparse.Namespace) -> int:
                     f"--out {out}: the folder {folder} does not exist; create it first")
     if not base.is_dir() or (args.to != "csv" and out.is_dir()):
         return fail("export", ExitCode.CANNOT_WRITE,
-                    f"--out {out}: {'a folder is in the way' if out.is_dir() else f'{base} is a file'}")
+                    f"--out {out}: "
+                    + ("a folder is in the way" if out.is_dir() else f"{base} is a file"))
     col = collect(directory, int(args.max_message_mb * 2**20))
     for p in col.problems:
         print(

@@ -159,5 +159,6 @@ class TerminalSummary:
         ended = "" if line.get("complete") else " (cut short)"
         rejected = sum((line.get("rejected") or {}).values())
         return (f"point {point if point is not None else '-'} on {line.get('stream')}: "
-                f"{_count(line.get('samples'))} samples in {float(line.get('duration_s') or 0):.1f} s, "
+                f"{_count(line.get('samples'))} samples in "
+                f"{float(line.get('duration_s') or 0):.1f} s, "
                 f"{verdict}{ended}; {line.get('lost_messages', 0)} lost, {rejected} rejected")

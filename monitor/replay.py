@@ -140,7 +140,9 @@ def run(args: argparse.Namespace) -> int:
     if not directory.is_dir():
         return _fail(ExitCode.NO_RECORDING, f"{directory}: no such folder")
     if not holds_recording(directory):
-        return _fail(ExitCode.NO_RECORDING, f"{directory} holds no recording (made by watch --record)")
+        return _fail(
+            ExitCode.NO_RECORDING, f"{directory} holds no recording (made by watch --record)"
+        )
     settings = load_settings(directory)
     try:
         if args.targets:
@@ -214,7 +216,6 @@ def run(args: argparse.Namespace) -> int:
 
 def _republish(args, directory: Path) -> int:
     import zmq
-
     from eddyvigil.monitor.transport import AddressInUseError, EndpointError, open_publisher
 
     ctx = zmq.Context()

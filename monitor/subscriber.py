@@ -29,7 +29,12 @@ from collections.abc import Callable, Iterable
 import zmq
 from zmq.utils.monitor import recv_monitor_message
 
-from eddyvigil.monitor.transport import AddressInUseError, EndpointError, check_endpoint, open_socket
+from eddyvigil.monitor.transport import (
+    AddressInUseError,
+    EndpointError,
+    check_endpoint,
+    open_socket,
+)
 
 __all__ = [
     "Subscriber",

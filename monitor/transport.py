@@ -288,7 +288,9 @@ def port_number(text: str) -> int:
     try:
         value = int(text)
     except ValueError:
-        raise argparse.ArgumentTypeError(f"port must be a whole number 1-65535, not {text!r}") from None
+        raise argparse.ArgumentTypeError(
+            f"port must be a whole number 1-65535, not {text!r}"
+        ) from None
     if not 1 <= value <= 65535:
         raise argparse.ArgumentTypeError(f"port {value} is outside 1-65535")
     return value

@@ -121,7 +121,8 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         type=float,
         default=NO_PUBLISHER_S,
         metavar="S",
-        help=f"say once that nobody publishes after S s without a message (default {NO_PUBLISHER_S:g})",
+        help="say once that nobody publishes after S s without a message "
+        f"(default {NO_PUBLISHER_S:g})",
     )
     p.add_argument(
         "--max-message-mb",
@@ -153,7 +154,9 @@ def _fail(code: int, message: str) -> int:
     return fail("watch", code, message)
 
 
-def no_publisher_notice(endpoint: str, bind: bool, socket: str, peer_seen: bool, seconds: float) -> str:
+def no_publisher_notice(
+    endpoint: str, bind: bool, socket: str, peer_seen: bool, seconds: float
+) -> str:
     """The one plain notice when nothing has arrived for ``seconds``."""
     if peer_seen:
         return (

@@ -47,7 +47,6 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-
 from eddyvigil.simulator.faults import validate_faults
 from eddyvigil.simulator.signals import (
     OUGenerator,
@@ -106,7 +105,8 @@ def skew_parameter(skewness) -> np.ndarray:
     out = np.zeros_like(s)
     for i, target in enumerate(s):
         if target != 0.0:
-            root = brentq(lambda a, t=abs(target): skew_moments(a)[0] - t, 0.0, 10.0,
+            size = abs(float(target))
+            root = brentq(lambda a, t=size: skew_moments(a)[0] - t, 0.0, 10.0,
                           xtol=1e-15, rtol=1e-15)
             out[i] = math.copysign(root, target)
     return out.reshape(np.shape(skewness))
