@@ -216,6 +216,7 @@ def run(args: argparse.Namespace) -> int:
 
 def _republish(args, directory: Path) -> int:
     import zmq
+
     from eddyvigil.monitor.transport import AddressInUseError, EndpointError, open_publisher
 
     ctx = zmq.Context()

@@ -47,6 +47,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+
 from eddyvigil.simulator.faults import validate_faults
 from eddyvigil.simulator.signals import (
     OUGenerator,
