@@ -191,3 +191,11 @@ def test_nobody_publishing_is_said_once_with_what_to_check(tmp_path):
     assert text.count("nobody is publishing") == 1, text
     assert endpoint in text and "publisher started" in text and "firewall" in text
     assert "waiting for data" not in text and "Traceback" not in text
+
+
+def test_outputs_into_missing_folders_have_one_code_in_every_command(tmp_path):
+    rec = _recording(tmp_path / "rec")
+    refused("export", ExitCode.CANNOT_WRITE, str(rec), "--to", "npz",
+            "--out", str(tmp_path / "missing" / "x.npz"), words=("does not exist",))
+    refused("simulate", ExitCode.CANNOT_WRITE, "--connect", tcp_endpoint(), "--quiet",
+            "--truth", str(tmp_path / "missing" / "truth.json"), words=("--truth",))
