@@ -76,7 +76,7 @@ def check_endpoint(endpoint: str) -> str:
     >>> check_endpoint("127.0.0.1:5555")
     Traceback (most recent call last):
     ...
-    monitor.subscriber.SubscriberError: endpoint '127.0.0.1:5555' has no transport; write it \
+    eddyvigil.monitor.subscriber.SubscriberError: endpoint '127.0.0.1:5555' has no transport; write it \
 like tcp://127.0.0.1:5555 or ipc:///tmp/probe.sock
     """
     transport, sep, rest = endpoint.partition("://")

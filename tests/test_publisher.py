@@ -20,6 +20,8 @@ import zmq
 from eddyvigil.monitor import wire
 from eddyvigil.simulator.scenario import load_scenario
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
