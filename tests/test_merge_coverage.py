@@ -52,7 +52,7 @@ def test_merged_independent_repeats_cover_the_truth():
         sum(n**2 * ar1_mean_variance(RHO, n, np.sqrt(STRESS[0, 0])) for n in LENGTHS)
     ) / sum(LENGTHS)
     ratio = float(np.mean(se_u)) / exact
-    print(f"merged repeats: coverage {cov}, mean SE(U) / exact = {ratio:.3f}")  # noqa: T201
+    print(f"merged repeats: coverage {cov}, mean SE(U) / exact = {ratio:.3f}")
     for name, c in cov.items():
         assert 0.92 <= c <= 0.98, (name, c, cov)
     assert 0.9 <= ratio <= 1.1, ratio
