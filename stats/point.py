@@ -113,6 +113,23 @@ class PointStatistics:
         Tolerances (default: :meth:`Targets.defaults`).
     confidence
         Confidence of reported intervals (default: the targets' confidence).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> x = np.random.default_rng(3).normal([8.0, 0.2], [0.5, 0.3], size=(20_000, 2))
+    >>> ps = PointStatistics(("u", "v"), rate_hz=1000.0)
+    >>> for block in np.array_split(x, 5):
+    ...     ps = ps.update(block)
+    >>> snap = ps.snapshot()
+    >>> ps.n, snap.duration_s
+    (20000, 20.0)
+    >>> bool(np.isclose(snap.estimate("uv").value, np.cov(x.T, bias=True)[0, 1]))
+    True
+    >>> # white noise: the standard error of U is numpy's std / sqrt(n), to a few per cent
+    >>> se = x[:, 0].std() / np.sqrt(len(x))
+    >>> bool(abs(snap.estimate("U").stderr / se - 1) < 0.1)
+    True
     """
 
     def __init__(
