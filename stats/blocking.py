@@ -360,7 +360,7 @@ class BlockingAccumulator:
         TS = self.S @ T.T  # (L, D): T S_k per level
         cc = np.outer(c, c)
         new.S = TS + cnt[:, None] * c
-        TQT = np.einsum("ab,kbc,dc->kad", T, self.Q, T)
+        TQT = T @ self.Q @ T.T  # per level (matmul broadcasts over the first axis)
         new.Q = TQT + np.einsum("ka,b->kab", TS, c) + np.einsum("a,kb->kab", c, TS)
         new.Q += cnt[:, None, None] * cc
         # pairs: each block mean is in two pairs except the first, the last and those beside
@@ -368,7 +368,7 @@ class BlockingAccumulator:
         pairs = np.maximum(cnt - 1.0 - self.seams, 0.0)
         E = 2.0 * self.S - self.first - self.last - self.seam_ends
         TE = E @ T.T
-        TPT = np.einsum("ab,kbc,dc->kad", T, self.P, T)
+        TPT = T @ self.P @ T.T
         half = 0.5 * (np.einsum("ka,b->kab", TE, c) + np.einsum("a,kb->kab", c, TE))
         new.P = TPT + half + pairs[:, None, None] * cc
         live = (self.count > 0)[:, None]
