@@ -246,6 +246,12 @@ def test_independent_merge_has_no_lag_pair_across_the_seam():
     c0, gamma, n = merged._autocovariances(np.eye(merged.D)[:1])
     np.testing.assert_allclose(gamma[0, 0], want_gamma / y.size, rtol=1e-9)
     np.testing.assert_allclose(c0[0, 0], np.mean((y - mu) ** 2), rtol=1e-9)
+    # autocovariances do not depend on the reference: moving the joined state (seams included)
+    # elsewhere changes none of them
+    g = np.eye(merged.D)[:1]
+    c0_moved, gamma_moved, _ = merged.recentred(merged.ref + 0.37)._autocovariances(g)
+    np.testing.assert_allclose(c0_moved, c0, rtol=1e-9)
+    np.testing.assert_allclose(gamma_moved, gamma, rtol=1e-9, atol=1e-12 * c0.max())
     # joined as one record cut in two, the seam pair is counted (numpy over the concatenation)
     c0, gamma, n = a.merge(b, independent=False)._autocovariances(np.eye(merged.D)[:1])
     want_gamma = np.sum((y[:-1] - mu) * (y[1:] - mu))
