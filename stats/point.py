@@ -25,7 +25,7 @@ from eddyvigil.stats.convergence import (
 )
 from eddyvigil.stats.delta import K_METHODS, StatisticTable
 from eddyvigil.stats.moments import MomentAccumulator
-from eddyvigil.stats.names import components_of
+from eddyvigil.stats.names import components_of, statistic_names
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 from eddyvigil.stats.stationarity import assess_columns
 from eddyvigil.stats.targets import Targets
@@ -149,9 +149,8 @@ class PointStatistics:
         self.moments = MomentAccumulator(m)
         self.blocking = BlockingAccumulator(m, base=base, ref=ref)
         self.table = StatisticTable(self.columns, self.moments.layout)
-        self.names = self.table.names + tuple(
-            f"{prefix}_{c}" for prefix in ("Tint", "Neff", "L") for c in self.columns
-        )
+        # the moment statistics (table.names), then Tint_c, Neff_c, L_c: the one name table's order
+        self.names = tuple(statistic_names(self.columns))
         # per-name lookups done once: target resolution, components a name depends on
         self._plan = self.targets.plan(self.names)
         self._components = tuple(frozenset(components_of(name)) for name in self.names)
