@@ -494,12 +494,19 @@ class BlockingAccumulator:
             self.P[:L],
             self.first[:L],
             self.last[:L],
-            self.seams[:L],
-            self.seam_ends[:L],
             mu,
             c0,
             gamma,
         )
+        seams = self.seams[:L]
+        if seams.any():
+            # joins of independent records: the kernel counted n - 1 pairs and both block means
+            # beside each join as the end of two pairs; with zm = g @ mu and ze = g @ seam_ends,
+            # gamma n loses no pair products (none were summed across a join) but the mean
+            # correction changes by zm ze - seams zm^2 (the delta.py formula with seams)
+            zm = grad @ mu
+            ze = grad @ self.seam_ends[:L].T
+            gamma += (zm[:, None] * ze - seams[None, :] * zm[:, None] ** 2) / n[None, :]
         return c0, gamma, n
 
     def analyse(self, grad: np.ndarray) -> LevelChoice:

@@ -247,7 +247,7 @@ def chain_rule(raw, ref, cen, J, kfac, stress, third, fourth, c2, c3, c4, values
 
 
 @numba.njit(cache=True, error_model="numpy")
-def influence_autocovariances(grad, n, S, Q, P, first, last, seams, seam_ends, mu, c0, gamma):
+def influence_autocovariances(grad, n, S, Q, P, first, last, mu, c0, gamma):
     """Lag-0 and lag-1 autocovariances of every statistic's influence series, per level.
 
     The influence series of statistic ``s`` is ``grad[s] @ y`` over the monomial block means
@@ -257,15 +257,11 @@ def influence_autocovariances(grad, n, S, Q, P, first, last, seams, seam_ends, m
     of ``S``, ``first``, ``last``, and ``zmu = g @ mu`` the global mean (all base blocks):
 
         c0[s, k]    = (zq - 2 zmu zs + n zmu^2) / n
-        gamma[s, k] = (zp - zmu (2 zs - zf - zl - ze) + (n - 1 - seams_k) zmu^2) / n
+        gamma[s, k] = (zp - zmu (2 zs - zf - zl) + (n - 1) zmu^2) / n
 
     i.e. about the *global* mean, not each level's own (REFERENCES §2 pitfall). A gradient
     touches only the monomials of its statistic's components and order, so only its nonzero
     entries enter the products (exact zeros add nothing; a NaN entry is kept).
-
-    A level that holds independent records joined end to end has ``seams[k]`` joins with no lag
-    pair across them; ``seam_ends`` (L, D) sums the two block means beside each join (``ze`` is
-    its projection), which then are the end of one pair run each, not of two pairs.
     """
     n_stat, D = grad.shape
     L = Q.shape[0]
@@ -287,7 +283,6 @@ def influence_autocovariances(grad, n, S, Q, P, first, last, seams, seam_ends, m
             zs = 0.0
             zf = 0.0
             zl = 0.0
-            ze = 0.0
             for i in range(nz):
                 a = idx[i]
                 ga = g[i]
@@ -302,8 +297,6 @@ def influence_autocovariances(grad, n, S, Q, P, first, last, seams, seam_ends, m
                 zs += ga * S[k, a]
                 zf += ga * first[k, a]
                 zl += ga * last[k, a]
-                ze += ga * seam_ends[k, a]
             nk = n[k]
             c0[s, k] = (zq - 2.0 * zmu * zs + nk * zmu**2) / nk
-            pairs = nk - 1.0 - seams[k]
-            gamma[s, k] = (zp - zmu * (2.0 * zs - zf - zl - ze) + pairs * zmu**2) / nk
+            gamma[s, k] = (zp - zmu * (2.0 * zs - zf - zl) + (nk - 1.0) * zmu**2) / nk

@@ -85,8 +85,7 @@ def test_influence_autocovariances_match_dense_numpy(m):
     mu = b.S[0] / b.count[0]
     c0, gamma = np.empty((g.shape[0], L)), np.empty((g.shape[0], L))
     influence_autocovariances(
-        g, n, b.S[:L], b.Q[:L], b.P[:L], b.first[:L], b.last[:L], b.seams[:L], b.seam_ends[:L],
-        mu, c0, gamma,
+        g, n, b.S[:L], b.Q[:L], b.P[:L], b.first[:L], b.last[:L], mu, c0, gamma
     )
     zq = (np.matmul(g[None], b.Q[:L]) * g[None]).sum(axis=-1).T
     zp = (np.matmul(g[None], b.P[:L]) * g[None]).sum(axis=-1).T
