@@ -69,11 +69,15 @@ def main() -> None:
     print(f"{args.repeats} repeats x {args.samples} samples x 3 components (best of {args.repeat})")
     rate = total / best["build"] / 1e6
     print(f"  build from samples:      {best['build'] * 1e3:9.1f} ms ({rate:.1f} M samples/s)")
-    print(f"  merge the built points:  {best['merge'] * 1e3:9.1f} ms "
-          f"({best['build'] / best['merge']:.0f}x less than building)")
+    print(
+        f"  merge the built points:  {best['merge'] * 1e3:9.1f} ms "
+        f"({best['build'] / best['merge']:.0f}x less than building)"
+    )
     print(f"  save + load one state:   {best['save+load'] * 1e3:9.1f} ms")
-    print(f"  state file:              {size / 1024:9.1f} KiB "
-          f"(samples of one repeat as float32: {args.samples * 12 / 1024:.0f} KiB)")
+    print(
+        f"  state file:              {size / 1024:9.1f} KiB "
+        f"(samples of one repeat as float32: {args.samples * 12 / 1024:.0f} KiB)"
+    )
 
 
 if __name__ == "__main__":

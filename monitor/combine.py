@@ -180,9 +180,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument(
         "--save", metavar="DIR", help="write each combined point's state to DIR/point-ID.npz"
     )
-    p.add_argument(
-        "--targets", metavar="FILE", help="targets file for the inputs' verdicts (TOML)"
-    )
+    p.add_argument("--targets", metavar="FILE", help="targets file for the inputs' verdicts (TOML)")
     p.add_argument(
         "--sequential",
         action="store_true",

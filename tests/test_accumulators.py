@@ -14,7 +14,7 @@ from __future__ import annotations
 import dataclasses
 import pickle
 from dataclasses import dataclass
-from typing import Callable
+from collections.abc import Callable
 
 import numpy as np
 import pytest

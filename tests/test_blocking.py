@@ -223,9 +223,7 @@ def test_recentred_equals_accumulating_about_the_new_reference(m):
         scale = max(1.0, float(np.max(np.abs(want))))
         np.testing.assert_allclose(got, want, rtol=0, atol=1e-9 * scale, err_msg=name)
     g = np.eye(about_b.D)[:m]
-    np.testing.assert_allclose(
-        moved.analyse(g).variance, about_b.analyse(g).variance, rtol=1e-7
-    )
+    np.testing.assert_allclose(moved.analyse(g).variance, about_b.analyse(g).variance, rtol=1e-7)
 
 
 def test_independent_merge_has_no_lag_pair_across_the_seam():
@@ -242,7 +240,7 @@ def test_independent_merge_has_no_lag_pair_across_the_seam():
     yb = xb.reshape(-1, 64).mean(axis=1)
     y = np.concatenate([ya, yb])
     mu = y.mean()
-    want_gamma = (np.sum((ya[:-1] - mu) * (ya[1:] - mu)) + np.sum((yb[:-1] - mu) * (yb[1:] - mu)))
+    want_gamma = np.sum((ya[:-1] - mu) * (ya[1:] - mu)) + np.sum((yb[:-1] - mu) * (yb[1:] - mu))
     c0, gamma, n = merged._autocovariances(np.eye(merged.D)[:1])
     np.testing.assert_allclose(gamma[0, 0], want_gamma / y.size, rtol=1e-9)
     np.testing.assert_allclose(c0[0, 0], np.mean((y - mu) ** 2), rtol=1e-9)

@@ -13,6 +13,7 @@ import json
 import numpy as np
 import pytest
 from conftest import StreamWriter
+from processes import turbulence
 
 from eddyvigil.monitor import cli
 from eddyvigil.monitor.combine import (
@@ -26,7 +27,6 @@ from eddyvigil.monitor.combine import (
 from eddyvigil.monitor.recorder import Recorder
 from eddyvigil.stats.point import PointStatistics
 from eddyvigil.stats.targets import Targets
-from processes import turbulence
 
 COLUMNS = ("u", "v", "w")
 
