@@ -30,6 +30,7 @@ class ExitCode(IntEnum):
     ADDRESS_IN_USE = 6
     NO_RECORDING = 7
     CANNOT_WRITE = 8
+    CANNOT_COMBINE = 9
     STOPPED = 130
 
 
@@ -47,6 +48,8 @@ MEANINGS = {
     ExitCode.NO_RECORDING: "DIR is missing or holds no recording",
     ExitCode.CANNOT_WRITE: "cannot write an output there (missing folder, a file where a "
     "folder should be, no permission)",
+    ExitCode.CANNOT_COMBINE: "a saved point state is unreadable or of another format version, "
+    "or the parts of one point cannot be merged (different columns, rate or base block)",
     ExitCode.STOPPED: "stopped by Ctrl-C / SIGTERM before the work was done",
 }
 
@@ -57,6 +60,7 @@ COMMAND_CODES = {
     "export": (0, 1, 2, 7, 8),
     "simulate": (0, 1, 2, 3, 4, 6, 8, 130),
     "demo": (0, 1, 2, 4, 5, 6, 8),
+    "combine": (0, 1, 2, 4, 7, 8, 9),
 }
 
 #: Remarks shown under a command's list where a code needs its context.

@@ -39,7 +39,6 @@ profiles are taken by a 5-point central difference with a step of 1e-4 half-widt
 from __future__ import annotations
 
 import importlib.resources
-import itertools
 import json
 import math
 import tomllib
@@ -58,6 +57,7 @@ from eddyvigil.simulator.signals import (
     cholesky_factor,
     skew_moments,
 )
+from eddyvigil.stats import names
 
 __all__ = [
     "PointSpec",
@@ -115,7 +115,8 @@ def skew_parameter(skewness) -> np.ndarray:
 
 def moment_names(columns, order: int) -> list[str]:
     """Names of the co-moments of ``order`` in column order: ``uu, uv, ...`` (DESIGN §3)."""
-    return ["".join(c) for c in itertools.combinations_with_replacement(columns, order)]
+    cols = tuple(columns)
+    return [names.moment_name(cols, c) for c in names.moment_combinations(len(cols), order)]
 
 
 @dataclass(frozen=True)
@@ -530,7 +531,8 @@ def point_truth(scenario: Scenario, point: PointSpec, seed=0) -> dict:
         stats[name] = t3[tuple(idx[ch] for ch in name)]
     for name in moment_names(cols, 4):
         stats[name] = q4[tuple(idx[ch] for ch in name)]
-    stats["k"] = 0.5 * float(np.trace(r)) if len(cols) == 3 else None
+    # k as the monitor defines it for the components present (one table: stats/names.py)
+    stats["k"] = float(names.k_from_normal_stresses(np.diag(r)))
     c0 = cols[0]
     su = r[0, 0]
     stats[f"skew_{c0}"] = t3[0, 0, 0] / su**1.5

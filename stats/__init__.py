@@ -7,7 +7,9 @@ Public names are loaded on first use (PEP 562), so importing a light module such
 from importlib import import_module
 
 __all__ = [
+    "Accumulator",
     "BlockingAccumulator",
+    "BlockingSnapshot",
     "Estimate",
     "MomentAccumulator",
     "Moments",
@@ -23,7 +25,9 @@ __all__ = [
 ]
 
 _WHERE = {
+    "Accumulator": "eddyvigil.stats.protocol",
     "BlockingAccumulator": "eddyvigil.stats.blocking",
+    "BlockingSnapshot": "eddyvigil.stats.blocking",
     "Estimate": "eddyvigil.stats.snapshot",
     "MomentAccumulator": "eddyvigil.stats.moments",
     "Moments": "eddyvigil.stats.moments",

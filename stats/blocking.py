@@ -26,7 +26,13 @@ from eddyvigil.stats.delta import influence_autocovariances
 from eddyvigil.stats.kernels import blocking_push, ingest_block, kernel_view, segment_push
 from eddyvigil.stats.monomials import layout
 
-__all__ = ["BlockingAccumulator", "LevelChoice", "choose_level", "MIN_BLOCKS_PER_LEVEL"]
+__all__ = [
+    "BlockingAccumulator",
+    "BlockingSnapshot",
+    "LevelChoice",
+    "choose_level",
+    "MIN_BLOCKS_PER_LEVEL",
+]
 
 #: levels with fewer blocks than this take no part in the level choice
 MIN_BLOCKS_PER_LEVEL = 4
@@ -135,8 +141,59 @@ def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) ->
     return LevelChoice(var, level, blocks, block_samples, rel)
 
 
+@dataclass(frozen=True)
+class BlockingSnapshot:
+    """What a blocking state says about the component means, read-only.
+
+    ``c0[k, i]``: the lag-0 autocovariance of component ``i``'s level-``k`` block means about the
+    mean of all base blocks (divided by ``blocks[k]``); ``means``: the chosen level and lugsail
+    variance of each component mean (:func:`choose_level`).
+    """
+
+    n: int
+    base: int
+    ref: np.ndarray | None
+    blocks: np.ndarray
+    c0: np.ndarray
+    means: LevelChoice
+
+
+def _recentring_map(lay, shift: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``(T, c)`` with monomials of ``y + shift`` = ``T @ monomials of y + c`` (exact).
+
+    A monomial of the shifted vector is a product of ``y_i + shift_i``; expanding it over the
+    subsets of its factors (binomially) gives lower monomials of ``y`` times products of the
+    shift, and the empty subset a constant. The table is the one the kernels use to move sums
+    about the block mean to sums about ``ref`` (``monomials.layout``: r_target, r_src, r_comp).
+    """
+    D = lay.n_monomials
+    T = np.zeros((D, D))
+    c = np.zeros(D)
+    for t, s, comp in zip(lay.r_target, lay.r_src, lay.r_comp, strict=True):
+        coef = 1.0
+        for k in comp:
+            if k >= 0:
+                coef *= shift[k]
+        if s < 0:
+            c[t] += coef
+        else:
+            T[t, s] += coef
+    return T, c
+
+
 class BlockingAccumulator:
-    """Dyadic blocking of monomial means of ``x - ref`` over base blocks of ``base`` samples."""
+    """Dyadic blocking of monomial means of ``x - ref`` over base blocks of ``base`` samples.
+
+    >>> import numpy as np
+    >>> x = np.random.default_rng(1).normal(size=(4096, 1))
+    >>> acc = BlockingAccumulator(1, base=16).update(x[:1000]).update(x[1000:])
+    >>> acc.n, int(acc.snapshot().blocks[0])
+    (4096, 256)
+    >>> # level 0 holds the 16-sample block means: their spread equals numpy's
+    >>> y = x.reshape(256, 16).mean(axis=1)
+    >>> bool(np.isclose(acc.snapshot().c0[0, 0], y.var()))
+    True
+    """
 
     def __init__(self, m: int, base: int = 64, max_levels: int = 40, ref=None):
         if base < 2 or base & (base - 1):
@@ -146,8 +203,10 @@ class BlockingAccumulator:
         self.base = base
         D = self.layout.n_monomials
         self.D = D
-        # parts that will be merged must share a reference: pass one (e.g. a nominal mean)
+        # the first block's mean unless given; merge() re-centres parts with other references
         self.ref: np.ndarray | None = None if ref is None else np.asarray(ref, dtype=np.float64)
+        #: samples taken in (complete base blocks and the carry)
+        self.n = 0
         # a base block begun but not finished: its row count and monomial sums about ref
         self.carry_n = 0
         self.carry_sums = np.zeros(D)
@@ -161,6 +220,10 @@ class BlockingAccumulator:
         self.has_last = np.zeros(L, dtype=np.bool_)
         self.pending = np.zeros((L, D))
         self.has_pending = np.zeros(L, dtype=np.bool_)
+        # joins of independent records per level (no lag pair across them) and the sums of
+        # the two block means beside each join
+        self.seams = np.zeros(L, dtype=np.int64)
+        self.seam_ends = np.zeros((L, D))
         # segment store (component means of x - ref)
         self.seg_sums = np.zeros((SEGMENTS, m))
         self.seg_full = 0
@@ -172,39 +235,59 @@ class BlockingAccumulator:
     def empty(cls, m: int, base: int = 64, ref=None) -> BlockingAccumulator:
         return cls(m, base, ref=ref)
 
-    @property
-    def n(self) -> int:
-        """Samples inside complete base blocks (the rest waits in the carry)."""
-        return int(self.count[0]) * self.base
-
     def copy(self) -> BlockingAccumulator:
         new = BlockingAccumulator.__new__(BlockingAccumulator)
         for k, v in self.__dict__.items():
             setattr(new, k, v.copy() if isinstance(v, np.ndarray) else v)
         return new
 
-    def update(self, block: np.ndarray) -> BlockingAccumulator:
-        """Add a block (n, m) of samples in time order; returns self."""
-        self.ingest(block)
-        return self
+    def __getstate__(self):
+        return {k: v for k, v in self.__dict__.items() if k != "layout"}
 
-    def ingest(self, block: np.ndarray):
-        """Add a block and return its mean and central sums (for a moment accumulator).
+    def __setstate__(self, state):
+        self.__dict__.update(state)
+        self.layout = layout(self.m)
 
-        One sweep over the samples serves both: :func:`eddyvigil.stats.kernels.block_sums` (products of
+    def __eq__(self, other) -> bool:
+        """Same state, array for array (bit for bit)."""
+        if not isinstance(other, BlockingAccumulator):
+            return NotImplemented
+        if self.__dict__.keys() != other.__dict__.keys():
+            return False
+        for k, v in self.__dict__.items():
+            if k == "layout":
+                continue
+            w = other.__dict__[k]
+            if isinstance(v, np.ndarray) or isinstance(w, np.ndarray):
+                if not (isinstance(v, np.ndarray) and isinstance(w, np.ndarray)):
+                    return False
+                if v.shape != w.shape or not np.array_equal(v, w, equal_nan=v.dtype.kind == "f"):
+                    return False
+            elif v != w:
+                return False
+        return True
+
+    __hash__ = None  # mutable
+
+    def update(self, block: np.ndarray, moments=None) -> BlockingAccumulator:
+        """Add a block (n, m) of samples in time order; returns self.
+
+        One sweep over the samples: :func:`eddyvigil.stats.kernels.block_sums` (products of
         ``x - ref``) gives the monomial sums of every base block and, re-centred exactly, the
-        block's central co-moment sums. Base blocks are aligned on the stream, not on the
-        blocks it arrives in, so any split of the stream gives the same blocking state.
+        block's central co-moment sums, which are combined into ``moments`` (a
+        :class:`~eddyvigil.stats.moments.MomentAccumulator`) when one is given. Base blocks are
+        aligned on the stream, not on the blocks it arrives in, so any split of the stream
+        gives the same blocking state.
         """
         block = kernel_view(block)
         n = block.shape[0]
+        if n == 0:
+            return self
         lay = self.layout
         mean = np.empty(self.m)
         s2 = np.empty(len(lay.combos[2]))
         s3 = np.empty(len(lay.combos[3]))
         s4 = np.empty(len(lay.combos[4]))
-        if n == 0:
-            return None
         if self.ref is None:
             self.ref = block.mean(axis=0, dtype=np.float64)
         self.carry_n, self.seg_full, self.seg_len, self.seg_fill = ingest_block(
@@ -235,7 +318,10 @@ class BlockingAccumulator:
             self.seg_len,
             self.seg_fill,
         )
-        return mean, s2, s3, s4
+        self.n += n
+        if moments is not None:
+            moments._combine(n, mean, s2, s3, s4)
+        return self
 
     def _add_segments(self, means: np.ndarray) -> None:
         """Add base-block component means ``means`` (nb, m) to the segment store."""
@@ -252,13 +338,60 @@ class BlockingAccumulator:
     def segment_samples(self) -> int:
         return self.seg_len * self.base
 
-    def merge(self, other: BlockingAccumulator) -> BlockingAccumulator:
+    def recentred(self, ref) -> BlockingAccumulator:
+        """The same state about another reference: a new object (``self`` untouched).
+
+        Every kept quantity is a sum of monomial means of ``x - ref`` or of their products, and
+        the monomials about ``ref'`` are an affine map ``T y + c`` of those about ``ref``
+        (binomial expansion, :func:`_recentring_map`), so sums ``S``, outer-product sums
+        ``Q`` and lag-product sums ``P`` move exactly (to rounding): ``S' = T S + n c``,
+        ``Q' = T Q T' + T S c' + c S' T' + n c c'``, and ``P`` likewise over the pairs.
+        """
+        ref = np.asarray(ref, dtype=np.float64)
+        new = self.copy()
+        if self.ref is None:
+            new.ref = ref.copy()
+            return new
+        d = self.ref - ref
+        if not np.any(d):
+            return new
+        T, c = _recentring_map(self.layout, d)
+        cnt = self.count.astype(np.float64)
+        TS = self.S @ T.T  # (L, D): T S_k per level
+        cc = np.outer(c, c)
+        new.S = TS + cnt[:, None] * c
+        TQT = T @ self.Q @ T.T  # per level (matmul broadcasts over the first axis)
+        new.Q = TQT + np.einsum("ka,b->kab", TS, c) + np.einsum("a,kb->kab", c, TS)
+        new.Q += cnt[:, None, None] * cc
+        # pairs: each block mean is in two pairs except the first, the last and those beside
+        # a seam; the pair-element sums are 2 S - first - last - seam_ends
+        pairs = np.maximum(cnt - 1.0 - self.seams, 0.0)
+        E = 2.0 * self.S - self.first - self.last - self.seam_ends
+        TE = E @ T.T
+        TPT = T @ self.P @ T.T
+        half = 0.5 * (np.einsum("ka,b->kab", TE, c) + np.einsum("a,kb->kab", c, TE))
+        new.P = TPT + half + pairs[:, None, None] * cc
+        live = (self.count > 0)[:, None]
+        new.first = np.where(live, self.first @ T.T + c, 0.0)
+        new.last = np.where(live, self.last @ T.T + c, 0.0)
+        new.pending = np.where(self.has_pending[:, None], self.pending @ T.T + c, 0.0)
+        new.seam_ends = self.seam_ends @ T.T + 2.0 * self.seams[:, None] * c
+        new.carry_sums = T @ self.carry_sums + self.carry_n * c if self.carry_n else new.carry_sums
+        new.seg_sums = self.seg_sums.copy()
+        new.seg_sums[: self.seg_full] += self.seg_len * d
+        new.seg_cur = self.seg_cur + self.seg_fill * d
+        new.ref = ref.copy()
+        return new
+
+    def merge(self, other: BlockingAccumulator, independent: bool = True) -> BlockingAccumulator:
         """Blocking state of ``self`` followed by ``other`` (inputs untouched).
 
-        Level sums add and the lag products are linked across the seam; each part keeps its
-        own block alignment, so the result is statistically equivalent to, but not digit for
-        digit the same as, one pass over the concatenation. Both parts must share ``ref``
-        (an empty part takes the other's).
+        ``other`` is first re-centred exactly to ``self.ref`` (:meth:`recentred`). Level sums
+        add; each part keeps its own block alignment, so the result is statistically
+        equivalent to, but not digit for digit the same as, one pass over the concatenation.
+        Independent records (the default: repeats of a point, saved states) are joined with
+        no lag pair across the seam; ``independent=False`` links the last block mean of
+        ``self`` with the first of ``other`` at each level, for a record cut in two.
         """
         if other.m != self.m or other.base != self.base:
             raise ValueError("cannot merge blocking states of different shape")
@@ -267,20 +400,26 @@ class BlockingAccumulator:
         if self.ref is None:
             return other.copy()
         if not np.array_equal(self.ref, other.ref):
-            raise ValueError(
-                "blocking states merge only with a common reference (use empty(ref=...))"
-            )
+            other = other.recentred(self.ref)
         new = self.copy()
         both = (self.count > 0) & (other.count > 0)
-        link = np.einsum("ka,kb->kab", self.last, other.first)
-        link = 0.5 * (link + np.swapaxes(link, 1, 2))
-        new.P = self.P + other.P + np.where(both[:, None, None], link, 0.0)
+        new.P = self.P + other.P
+        new.seams = self.seams + other.seams
+        new.seam_ends = self.seam_ends + other.seam_ends
+        if independent:
+            new.seams = new.seams + both
+            new.seam_ends = new.seam_ends + np.where(both[:, None], self.last + other.first, 0.0)
+        else:
+            link = np.einsum("ka,kb->kab", self.last, other.first)
+            link = 0.5 * (link + np.swapaxes(link, 1, 2))
+            new.P = new.P + np.where(both[:, None, None], link, 0.0)
         new.S = self.S + other.S
         new.Q = self.Q + other.Q
         new.first = np.where((self.count > 0)[:, None], self.first, other.first)
         new.last = np.where((other.count > 0)[:, None], other.last, self.last)
         new.has_last = self.has_last | other.has_last
         new.count = self.count + other.count
+        new.n = self.n + other.n
         # the later part's unpaired block means wait for their pairs; the earlier part's lone
         # pending values stay counted at their own level only
         new.pending = other.pending.copy()
@@ -337,13 +476,13 @@ class BlockingAccumulator:
         self.seg_fill = 0
         self.seg_cur = np.zeros(self.m)
 
-    def analyse(self, grad: np.ndarray) -> LevelChoice:
-        """Blocking analysis of the series ``grad @ y`` for each row of ``grad`` (S, D)."""
+    def _autocovariances(self, grad: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``(c0, gamma, n)`` of the series ``grad @ y`` per row of ``grad`` and level in use."""
         L = int(np.count_nonzero(self.count))
         n = self.count[:L].astype(np.float64)
         S = grad.shape[0]
         if L == 0:
-            return choose_level(np.zeros((S, 0)), np.zeros((S, 0)), n, self.base)
+            return np.zeros((S, 0)), np.zeros((S, 0)), n
         mu = self.S[0] / self.count[0]  # global means of the monomials (all base blocks)
         c0 = np.empty((S, L))
         gamma = np.empty((S, L))
@@ -359,4 +498,34 @@ class BlockingAccumulator:
             c0,
             gamma,
         )
+        seams = self.seams[:L]
+        if seams.any():
+            # joins of independent records: the kernel counted n - 1 pairs and both block means
+            # beside each join as the end of two pairs; with zm = g @ mu and ze = g @ seam_ends,
+            # gamma n loses no pair products (none were summed across a join) but the mean
+            # correction changes by zm ze - seams zm^2 (the delta.py formula with seams)
+            zm = grad @ mu
+            ze = grad @ self.seam_ends[:L].T
+            gamma += (zm[:, None] * ze - seams[None, :] * zm[:, None] ** 2) / n[None, :]
+        return c0, gamma, n
+
+    def analyse(self, grad: np.ndarray) -> LevelChoice:
+        """Blocking analysis of the series ``grad @ y`` for each row of ``grad`` (S, D)."""
+        c0, gamma, n = self._autocovariances(grad)
         return choose_level(c0, gamma, n, self.base)
+
+    def snapshot(self) -> BlockingSnapshot:
+        """The blocking curve and level choice of each component mean (read-only arrays)."""
+        grad = np.eye(self.D)[: self.m]
+        c0, gamma, n = self._autocovariances(grad)
+        choice = choose_level(c0, gamma, n, self.base)
+        ref = None if self.ref is None else self.ref.copy()
+        for a in (c0, n, choice.variance, choice.level, choice.blocks):
+            a.setflags(write=False)
+        if ref is not None:
+            ref.setflags(write=False)
+        c0t = np.ascontiguousarray(c0.T)
+        c0t.setflags(write=False)
+        blocks = n.astype(np.int64)
+        blocks.setflags(write=False)
+        return BlockingSnapshot(self.n, self.base, ref, blocks, c0t, choice)

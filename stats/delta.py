@@ -17,7 +17,13 @@ import numba
 import numpy as np
 
 from eddyvigil.stats.monomials import Layout
-from eddyvigil.stats.names import moment_name
+from eddyvigil.stats.names import (
+    K_FACTORS,
+    K_METHODS,
+    k_from_normal_stresses,
+    moment_statistic_names,
+    stress_combinations,
+)
 
 __all__ = [
     "StatisticTable",
@@ -26,13 +32,6 @@ __all__ = [
     "chain_rule",
     "influence_autocovariances",
 ]
-
-#: How k is formed from the components present (DESIGN §3; README states the 2-component one).
-K_METHODS = {
-    3: "k = (uu + vv + ww)/2",
-    2: "k = 3/4 (uu + vv): two components, assuming ww = (uu + vv)/2 (common practice)",
-    1: "k = 3/2 uu: one component, assuming isotropy (common practice)",
-}
 
 _STEP = 1e-100  # complex step (tests): no subtractive cancellation, so it can be this small
 
@@ -45,16 +44,11 @@ class StatisticTable:
         self.layout = lay
         m = lay.m
         self.m = m
-        stress = [(i, i) for i in range(m)] + [(i, j) for i in range(m) for j in range(i + 1, m)]
+        stress = stress_combinations(m)
         self.stress_combos = stress
-        names = [c.upper() for c in self.columns]
-        names += [moment_name(self.columns, c) for c in stress]
-        names.append("k")
-        names += [moment_name(self.columns, c) for c in lay.combos[3]]
-        names += [moment_name(self.columns, c) for c in lay.combos[4]]
-        names += [f"skew_{c}" for c in self.columns]
-        names += [f"flat_{c}" for c in self.columns]
-        self.names = tuple(names)
+        # the names and their order come from the one table (names.py); evaluate() stacks the
+        # values in that order: means, stresses, k, third, fourth, skewness, flatness
+        self.names = moment_statistic_names(self.columns)
         # Expansion of every central co-moment into monomial means about ref, as one table of
         # terms: raw[mono] * prod(-delta[comp]), summed per combo. Index D (past the end) of
         # the extended raw vector is 1 and index m of the extended -delta vector is 1, so
@@ -85,7 +79,7 @@ class StatisticTable:
         self._quart_pos = np.array([pos[(i, i, i, i)] for i in range(m)], dtype=np.int64)
         self._third_pos = np.array([pos[c] for c in lay.combos[3]], dtype=np.int64)
         self._fourth_pos = np.array([pos[c] for c in lay.combos[4]], dtype=np.int64)
-        self._kfac = {3: 0.5, 2: 0.75, 1: 1.5}[m]
+        self._kfac = K_FACTORS[m]
 
     def central_all(self, raw: np.ndarray) -> np.ndarray:
         """All central co-moments (..., n2 + n3 + n4) from monomial means ``raw`` (..., D)."""
@@ -105,12 +99,7 @@ class StatisticTable:
         cols = [ref[i] + raw[..., i] for i in range(m)]
         stress = [cen[..., pos[c]] for c in self.stress_combos]
         normal = stress[:m]
-        if m == 3:
-            k = 0.5 * (normal[0] + normal[1] + normal[2])
-        elif m == 2:
-            k = 0.75 * (normal[0] + normal[1])
-        else:
-            k = 1.5 * normal[0]
+        k = k_from_normal_stresses(normal)
         third = [cen[..., pos[c]] for c in lay.combos[3]]
         fourth = [cen[..., pos[c]] for c in lay.combos[4]]
         skew = [cen[..., pos[(i, i, i)]] / normal[i] ** 1.5 for i in range(m)]

@@ -49,7 +49,22 @@ class Moments:
 
 
 class MomentAccumulator:
-    """Streaming co-moments of order 2-4 (sums of central products, Pébay's M_p)."""
+    """Streaming co-moments of order 2-4 (sums of central products, Pébay's M_p).
+
+    >>> import numpy as np
+    >>> x = np.random.default_rng(0).normal(size=(1000, 2)) + [10.0, 0.0]
+    >>> acc = MomentAccumulator(2)
+    >>> for part in np.array_split(x, 7):
+    ...     acc = acc.update(part)
+    >>> mo = acc.snapshot()
+    >>> acc.n, bool(np.allclose(mo.mean, x.mean(axis=0)))
+    (1000, True)
+    >>> bool(np.allclose(mo.covariance(), np.cov(x.T, bias=True)))
+    True
+    >>> from scipy import stats
+    >>> bool(np.isclose(mo.co_moment((0, 0, 0)), stats.moment(x[:, 0], 3)))
+    True
+    """
 
     def __init__(self, m: int):
         if not 1 <= m <= 3:
@@ -76,6 +91,29 @@ class MomentAccumulator:
         new.s2, new.s3, new.s4 = self.s2.copy(), self.s3.copy(), self.s4.copy()
         return new
 
+    def __getstate__(self):
+        return {k: v for k, v in self.__dict__.items() if k != "layout"} | {"m": self.m}
+
+    def __setstate__(self, state):
+        state = dict(state)
+        self.layout = layout(state.pop("m"))
+        self.__dict__.update(state)
+
+    def __eq__(self, other) -> bool:
+        """Same state, bit for bit."""
+        if not isinstance(other, MomentAccumulator):
+            return NotImplemented
+        return (
+            self.m == other.m
+            and self.n == other.n
+            and all(
+                np.array_equal(getattr(self, k), getattr(other, k), equal_nan=True)
+                for k in ("mean", "s2", "s3", "s4")
+            )
+        )
+
+    __hash__ = None  # mutable
+
     def update(self, block: np.ndarray) -> MomentAccumulator:
         """Add a block (n, m) of samples; returns self."""
         block = np.asarray(block)
@@ -100,14 +138,12 @@ class MomentAccumulator:
             new._combine(other.n, other.mean, other.s2, other.s3, other.s4)
         return new
 
-    def add_block_sums(self, nb: int, mean_b, s2b, s3b, s4b) -> MomentAccumulator:
-        """Combine a block already reduced to its mean and central sums (pairwise formula)."""
-        if nb:
-            self._combine(nb, mean_b, s2b, s3b, s4b)
-        return self
-
     def _combine(self, nb: int, mean_b, s2b, s3b, s4b) -> None:
+        """Combine a block already reduced to its mean and central sums (pairwise formula);
+        :meth:`BlockingAccumulator.update` hands its sweep's sums in here."""
         na = self.n
+        if nb == 0:
+            return
         if na == 0:
             self.n, self.mean = nb, np.array(mean_b, dtype=np.float64)
             self.s2, self.s3, self.s4 = s2b.copy(), s3b.copy(), s4b.copy()
@@ -134,6 +170,10 @@ class MomentAccumulator:
         shift = self.mean - ref
         r2, r3, r4 = shift_sums(lay, self.n, self.s2, self.s3, self.s4, shift)
         return np.concatenate([shift, r2 / self.n, r3 / self.n, r4 / self.n])
+
+    def snapshot(self) -> Moments:
+        """The population moments now (read-only arrays, NaN when empty)."""
+        return self.moments()
 
     def moments(self) -> Moments:
         n = self.n

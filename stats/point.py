@@ -16,10 +16,16 @@ import numpy as np
 from scipy import special
 
 from eddyvigil.stats.blocking import BlockingAccumulator
-from eddyvigil.stats.convergence import Checkpoints, eta_seconds, passes
+from eddyvigil.stats.convergence import (
+    MAX_SE_RELATIVE_ERROR,
+    MIN_BLOCKS,
+    Checkpoints,
+    eta_seconds,
+    passes,
+)
 from eddyvigil.stats.delta import K_METHODS, StatisticTable
 from eddyvigil.stats.moments import MomentAccumulator
-from eddyvigil.stats.names import components_of
+from eddyvigil.stats.names import components_of, statistic_names
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 from eddyvigil.stats.stationarity import assess_columns
 from eddyvigil.stats.targets import Targets
@@ -107,6 +113,23 @@ class PointStatistics:
         Tolerances (default: :meth:`Targets.defaults`).
     confidence
         Confidence of reported intervals (default: the targets' confidence).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> x = np.random.default_rng(3).normal([8.0, 0.2], [0.5, 0.3], size=(20_000, 2))
+    >>> ps = PointStatistics(("u", "v"), rate_hz=1000.0)
+    >>> for block in np.array_split(x, 5):
+    ...     ps = ps.update(block)
+    >>> snap = ps.snapshot()
+    >>> ps.n, snap.duration_s
+    (20000, 20.0)
+    >>> bool(np.isclose(snap.estimate("uv").value, np.cov(x.T, bias=True)[0, 1]))
+    True
+    >>> # white noise: the standard error of U is numpy's std / sqrt(n), to a few per cent
+    >>> se = x[:, 0].std() / np.sqrt(len(x))
+    >>> bool(abs(snap.estimate("U").stderr / se - 1) < 0.1)
+    True
     """
 
     def __init__(
@@ -126,9 +149,8 @@ class PointStatistics:
         self.moments = MomentAccumulator(m)
         self.blocking = BlockingAccumulator(m, base=base, ref=ref)
         self.table = StatisticTable(self.columns, self.moments.layout)
-        self.names = self.table.names + tuple(
-            f"{prefix}_{c}" for prefix in ("Tint", "Neff", "L") for c in self.columns
-        )
+        # the moment statistics (table.names), then Tint_c, Neff_c, L_c: the one name table's order
+        self.names = tuple(statistic_names(self.columns))
         # per-name lookups done once: target resolution, components a name depends on
         self._plan = self.targets.plan(self.names)
         self._components = tuple(frozenset(components_of(name)) for name in self.names)
@@ -147,6 +169,42 @@ class PointStatistics:
     @classmethod
     def empty(cls, columns, rate_hz, targets=None, confidence=None, **kw) -> PointStatistics:
         return cls(columns, rate_hz, targets, confidence, **kw)
+
+    def copy(self) -> PointStatistics:
+        """An independent copy (same state, bit for bit)."""
+        new = self._like()
+        new.moments = self.moments.copy()
+        new.blocking = self.blocking.copy()
+        new.checkpoints = self.checkpoints.copy()
+        new._duration_s = self._duration_s
+        return new
+
+    def _like(self) -> PointStatistics:
+        """A new, empty point with the same columns, rate, targets, confidence and base."""
+        return PointStatistics(
+            self.columns, self.rate_hz, self.targets, self.confidence, base=self.blocking.base
+        )
+
+    def __getstate__(self):
+        # Targets hold read-only mappings, which do not pickle: go through the saved-state form
+        from eddyvigil.stats.pointstate import to_state
+
+        return to_state(self)
+
+    def __setstate__(self, state):
+        from eddyvigil.stats.pointstate import from_state
+
+        self.__dict__.update(from_state(*state).__dict__)
+
+    def __eq__(self, other) -> bool:
+        """Same settings and state, bit for bit (what a saved state holds)."""
+        if not isinstance(other, PointStatistics):
+            return NotImplemented
+        from eddyvigil.stats.pointstate import same_state
+
+        return same_state(self, other)
+
+    __hash__ = None  # mutable
 
     # ------------------------------------------------------------------ state
     @property
@@ -174,8 +232,8 @@ class PointStatistics:
             if duration_s is None or not math.isfinite(duration_s) or duration_s < 0:
                 raise ValueError("random sampling (rate_hz None) needs the block's duration_s")
             self._duration_s += float(duration_s)
-        # one sweep: the blocking kernel also returns the block's central sums
-        self.moments.add_block_sums(block.shape[0], *self.blocking.ingest(block))
+        # one sweep: the blocking kernel also hands the block's central sums to the moments
+        self.blocking.update(block, moments=self.moments)
         self._cache = None
         self._checkpoint_ev = None
         if self.checkpoints.due(self.n):
@@ -184,20 +242,46 @@ class PointStatistics:
             self.checkpoints.record(self.n, self._passes(ev), self.duration_s)
         return self
 
-    def merge(self, other: PointStatistics) -> PointStatistics:
-        """A new object for ``self`` followed in time by ``other`` (inputs untouched).
+    def merge(self, other: PointStatistics, independent: bool = True) -> PointStatistics:
+        """A new object holding both points' samples (inputs untouched).
 
-        Values merge exactly; error estimates merge as in :meth:`BlockingAccumulator.merge`
-        (parts need a common ``ref``). Verdict history restarts from the merged state.
+        Values merge exactly (Pébay); the blocking states are re-centred to ``self``'s
+        reference and joined as :meth:`BlockingAccumulator.merge` does: as independent
+        records by default (repeats of a point, saved states), or with ``independent=False``
+        as ``other`` following ``self`` in time without a break. Settings (targets,
+        confidence) are ``self``'s.
+
+        Checkpoint streaks (rule): the merged point takes a checkpoint at its merged sample
+        count. Before it, each targeted statistic's streak is the longer of its two streaks,
+        since the merged record extends either part; the checkpoint then adds one if the
+        statistic passes on the merged state, and restarts the streak at zero if it does not.
+        So two converged repeats stay converged only if their union still meets its targets,
+        and ``converged_at_s`` is the merged duration when the union is converged. Below the
+        first checkpoint's sample count no streak exists and none is carried.
         """
         if other.columns != self.columns:
             raise ValueError("cannot merge points with different columns")
-        new = PointStatistics(
-            self.columns, self.rate_hz, self.targets, self.confidence, base=self.blocking.base
-        )
+        if other.rate_hz != self.rate_hz:
+            raise ValueError("cannot merge points sampled at different rates")
+        if other.blocking.base != self.blocking.base:
+            raise ValueError("cannot merge points with different base blocks")
+        new = self._like()
         new.moments = self.moments.merge(other.moments)
-        new.blocking = self.blocking.merge(other.blocking)
+        new.blocking = self.blocking.merge(other.blocking, independent=independent)
         new._duration_s = self._duration_s + other._duration_s
+        if new.checkpoints.due(new.n):
+            names = self._plan.targeted
+            streak = {
+                self.names[i]: max(
+                    self.checkpoints.streak.get(self.names[i], 0),
+                    other.checkpoints.streak.get(self.names[i], 0),
+                )
+                for i in names
+            }
+            new.checkpoints.streak.update(streak)
+            ev = new._evaluate(new._checkpoint_rows)
+            new._checkpoint_ev = ev
+            new.checkpoints.record(new.n, new._passes(ev), new.duration_s)
         return new
 
     # ------------------------------------------------------------- evaluation
@@ -304,8 +388,13 @@ class PointStatistics:
                     state, reason = "suspect", "; ".join(f"{c}: {ev.suspect[c]}" for c in bad)
                 elif converged:
                     state = "converged"
-                elif blocks < 64 or not math.isfinite(hw) or se_rel_err[i] > 0.15:
-                    state, reason = "warming-up", f"{blocks} blocks at the chosen level, 64 needed"
+                elif (
+                    blocks < MIN_BLOCKS
+                    or not math.isfinite(hw)
+                    or se_rel_err[i] > MAX_SE_RELATIVE_ERROR
+                ):
+                    state = "warming-up"
+                    reason = f"{blocks} blocks at the chosen level, {MIN_BLOCKS} needed"
                 else:
                     state = "converging"
                 if not converged:

@@ -52,7 +52,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from types import MappingProxyType
 
-from eddyvigil.stats.names import VELOCITY_LETTERS, family, is_known_name
+from eddyvigil.stats.names import (
+    MEAN_NAMES,
+    NOT_ESTIMATED,
+    STRESS_NAMES,
+    VELOCITY_LETTERS,
+    family,
+    is_known_name,
+    known_names,
+)
 
 __all__ = [
     "TargetsError",
@@ -68,18 +76,8 @@ DEFAULT_CONFIDENCE = 0.95
 
 #: Default targets as ``name -> relative tolerance`` (see the module docstring for the scales).
 DEFAULT_TARGETS: Mapping[str, float] = MappingProxyType(
-    {
-        "U": 0.01,
-        "V": 0.01,
-        "W": 0.01,
-        "uu": 0.05,
-        "vv": 0.05,
-        "ww": 0.05,
-        "uv": 0.05,
-        "uw": 0.05,
-        "vw": 0.05,
-        "k": 0.05,
-    }
+    # U V W to 1 % of |U|; uu vv ww uv uw vw and k to 5 % of k
+    {**{name: 0.01 for name in MEAN_NAMES}, **{name: 0.05 for name in STRESS_NAMES}}
 )
 
 # Families whose relative scale is the magnitude of the statistic itself.
@@ -179,7 +177,7 @@ def _suggest(word: str, choices) -> str:
 def _parse_target(source: str, name, spec) -> Target:
     where = f"{source}: [targets] {name}"
     if not isinstance(name, str) or not is_known_name(name):
-        known = _known_names()
+        known = known_names()
         if isinstance(name, str) and name.lower() in known:
             hint = f" (did you mean {name.lower()!r}? capitals are means, lower case fluctuations)"
         else:
@@ -217,17 +215,6 @@ def _parse_target(source: str, name, spec) -> Target:
     if not (math.isfinite(value) and value > 0):
         raise TargetsError(f"{where}: {key} must be positive and finite, got {value!r}")
     return Target(name=name, **{key: value})
-
-
-#: names of DESIGN §3 that have a relative scale here but no estimator yet
-NOT_ESTIMATED = ("eps", "eta")
-
-
-def _known_names() -> list[str]:
-    from eddyvigil.stats.names import statistic_names
-
-    cols = VELOCITY_LETTERS
-    return statistic_names(cols) + ["eps", "eta"] + [f"L_{c}" for c in cols]
 
 
 @dataclass(frozen=True, slots=True)

@@ -202,8 +202,58 @@ def test_merge_with_common_reference():
     v1, v2 = whole.analyse(g).variance, merged.analyse(g).variance
     np.testing.assert_allclose(v2, v1, rtol=0.15)
     np.testing.assert_allclose(merged.S[0], whole.S[0], rtol=1e-9)
-    with pytest.raises(ValueError):
-        a.merge(BlockingAccumulator(2, base=32).update(x[:100]))
+    with pytest.raises(ValueError):  # different base blocks cannot be joined
+        a.merge(BlockingAccumulator(2, base=64).update(x[:100]))
+
+
+@pytest.mark.parametrize("m", [1, 3])
+def test_recentred_equals_accumulating_about_the_new_reference(m):
+    # Monomials of x - b are an affine (binomial) map of those of x - a; every kept sum moves
+    # exactly, to rounding. Reference: the same samples accumulated about b directly.
+    rng = np.random.default_rng(30 + m)
+    x = ar1(rng, 20_000 + 37, m, 0.8) + np.array([12.0, -3.0, 0.5])[:m]
+    a_ref = np.array([11.5, -2.0, 0.0])[:m]
+    b_ref = np.array([12.3, -3.4, 0.9])[:m]
+    about_a = BlockingAccumulator(m, base=16, ref=a_ref).update(x[:7001]).update(x[7001:])
+    about_b = BlockingAccumulator(m, base=16, ref=b_ref).update(x)
+    moved = about_a.recentred(b_ref)
+    assert np.array_equal(about_a.ref, a_ref)  # input untouched
+    for name in ("S", "Q", "P", "first", "last", "pending", "carry_sums", "seg_sums", "seg_cur"):
+        want, got = getattr(about_b, name), getattr(moved, name)
+        scale = max(1.0, float(np.max(np.abs(want))))
+        np.testing.assert_allclose(got, want, rtol=0, atol=1e-9 * scale, err_msg=name)
+    g = np.eye(about_b.D)[:m]
+    np.testing.assert_allclose(moved.analyse(g).variance, about_b.analyse(g).variance, rtol=1e-7)
+
+
+def test_independent_merge_has_no_lag_pair_across_the_seam():
+    # Two records whose block means are identical constants inside each record but differ
+    # between them: joined as independent, the lag-1 autocovariance at level 0 counts only
+    # the pairs inside each record; numpy over the two series separately is the reference.
+    rng = np.random.default_rng(12)
+    xa = rng.normal(size=(64 * 40, 1))
+    xb = rng.normal(size=(64 * 24, 1)) + 0.7
+    a = BlockingAccumulator(1, base=64).update(xa)
+    b = BlockingAccumulator(1, base=64).update(xb)
+    merged = a.merge(b)  # independent by default; b re-centred to a's reference
+    ya = xa.reshape(-1, 64).mean(axis=1)
+    yb = xb.reshape(-1, 64).mean(axis=1)
+    y = np.concatenate([ya, yb])
+    mu = y.mean()
+    want_gamma = np.sum((ya[:-1] - mu) * (ya[1:] - mu)) + np.sum((yb[:-1] - mu) * (yb[1:] - mu))
+    c0, gamma, n = merged._autocovariances(np.eye(merged.D)[:1])
+    np.testing.assert_allclose(gamma[0, 0], want_gamma / y.size, rtol=1e-9)
+    np.testing.assert_allclose(c0[0, 0], np.mean((y - mu) ** 2), rtol=1e-9)
+    # autocovariances do not depend on the reference: moving the joined state (seams included)
+    # elsewhere changes none of them
+    g = np.eye(merged.D)[:1]
+    c0_moved, gamma_moved, _ = merged.recentred(merged.ref + 0.37)._autocovariances(g)
+    np.testing.assert_allclose(c0_moved, c0, rtol=1e-9)
+    np.testing.assert_allclose(gamma_moved, gamma, rtol=1e-9, atol=1e-12 * c0.max())
+    # joined as one record cut in two, the seam pair is counted (numpy over the concatenation)
+    c0, gamma, n = a.merge(b, independent=False)._autocovariances(np.eye(merged.D)[:1])
+    want_gamma = np.sum((y[:-1] - mu) * (y[1:] - mu))
+    np.testing.assert_allclose(gamma[0, 0], want_gamma / y.size, rtol=1e-9)
 
 
 def test_reported_relative_error_is_honest():

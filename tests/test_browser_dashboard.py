@@ -24,7 +24,7 @@ from eddyvigil.monitor.dashboard.server import DashboardServer
 CHROMIUM = "/usr/bin/chromium"
 CHROMEDRIVER = "/usr/bin/chromedriver"
 
-pytestmark = pytest.mark.browser
+pytestmark = [pytest.mark.browser, pytest.mark.integration]
 
 
 def _browser_or_skip():

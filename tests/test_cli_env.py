@@ -11,6 +11,10 @@ import os
 import subprocess
 import sys
 
+import pytest
+
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 PROBE = """
 import os, sys
 from eddyvigil.monitor import cli

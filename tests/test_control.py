@@ -11,6 +11,8 @@ from conftest import tcp_endpoint, wait_for
 from eddyvigil.monitor.control import ControlPublisher, converged_message
 from eddyvigil.monitor.subscriber import AddressInUseError, SubscriberError
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 
 def test_converged_signal_has_the_documented_frames_and_fields():
     ep = tcp_endpoint()

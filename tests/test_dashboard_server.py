@@ -13,6 +13,8 @@ from eddyvigil.monitor.dashboard.app import build_document
 from eddyvigil.monitor.dashboard.preview import PreviewRun
 from eddyvigil.monitor.dashboard.server import PortInUseError, serve, websocket_origins
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 
 def _serve_in_thread(**kw):
     """Run ``serve`` in a thread; returns (thread, stop_event, server-info dict, errors)."""

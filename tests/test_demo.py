@@ -17,6 +17,8 @@ import pytest
 from eddyvigil.monitor.demo import free_port
 from eddyvigil.monitor.watch import EXIT_ADDRESS_IN_USE
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 
 def _read_lines_until(proc, want: str, timeout_s: float) -> list[str]:
     """Lines of ``proc.stdout`` up to the first containing ``want`` (bounded in time)."""

@@ -19,6 +19,8 @@ from eddyvigil.monitor.pipeline import Pipeline
 from eddyvigil.monitor.recorder import read_recording
 from eddyvigil.monitor.summary import missing_fields
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 
 def read_lines(path) -> list[dict]:
     return [json.loads(line) for line in path.read_text().splitlines()]

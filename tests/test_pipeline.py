@@ -76,6 +76,7 @@ def test_statistics_are_numpy_population_moments_and_lines_are_well_formed():
     assert run["points"] == 1 and run["streams"] == ["probe-a"]
 
 
+@pytest.mark.integration
 def test_socket_path_and_in_process_api_give_identical_summaries():
     data = blocks(2, 5)
     p1, b1 = new_pipeline()

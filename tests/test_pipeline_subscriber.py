@@ -11,6 +11,8 @@ from conftest import StreamWriter, tcp_endpoint, write_messages
 from eddyvigil.monitor import wire
 from eddyvigil.monitor.subscriber import Subscriber, SubscriberError, check_endpoint
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 
 def test_receives_every_message_without_copy_and_reports_peer_drops(procs, tmp_path):
     w = StreamWriter()

@@ -21,6 +21,8 @@ from eddyvigil.monitor import wire
 from eddyvigil.monitor.exitcodes import ExitCode
 from eddyvigil.simulator.scenario import load_scenario
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 ROOT = Path(__file__).resolve().parents[1]
 
 

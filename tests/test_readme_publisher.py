@@ -9,6 +9,10 @@ import sys
 import threading
 from pathlib import Path
 
+import pytest
+
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 ROOT = Path(__file__).resolve().parents[1]
 
 

@@ -25,6 +25,8 @@ import zmq
 from eddyvigil.monitor import wire
 from eddyvigil.monitor.recorder import read_recording, recording_files
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 CHILD = r"""
 import sys, time, zmq
 from eddyvigil.monitor.recorder import Recorder

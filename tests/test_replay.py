@@ -13,6 +13,8 @@ from eddyvigil.monitor.recorder import Recorder
 from eddyvigil.monitor.replay import parse_speed
 from eddyvigil.monitor.watch import EXIT_NO_RECORDING
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 
 def test_parse_speed():
     assert parse_speed("max") is None and parse_speed("MAX") is None

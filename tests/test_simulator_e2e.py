@@ -17,6 +17,8 @@ from pathlib import Path
 import pytest
 import zmq
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 ROOT = Path(__file__).resolve().parents[1]
 
 

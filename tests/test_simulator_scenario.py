@@ -123,7 +123,9 @@ shedding = { frequency_hz = 20.0, amplitude = [0.0, 0.1] }
     assert sc.name == "bench" and sc.columns == ("u", "v")
     st = point_truth(sc, sc.points[0])["statistics"]
     assert st["vv"] == pytest.approx(0.04 + 0.1**2 / 2)
-    assert st["k"] is None  # two components: no k in the truth without a stated convention
+    # two components: the truth's k follows the monitor's convention, k = 3/4 (uu + vv)
+    # (DESIGN §3; the ww = (uu + vv)/2 assumption is common practice)
+    assert st["k"] == pytest.approx(0.75 * (st["uu"] + st["vv"]), rel=1e-12)
     assert sc.make_generator(sc.points[0], 1).next_block(10).shape == (10, 2)
 
 

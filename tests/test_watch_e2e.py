@@ -25,6 +25,8 @@ from eddyvigil.monitor.watch import (
     EXIT_TARGETS,
 )
 
+pytestmark = pytest.mark.integration  # real sockets or child processes
+
 LOOSE_TARGETS = """\
 confidence = 0.95
 [targets]

@@ -44,8 +44,7 @@ STATE_COLOURS = {
 }
 
 #: Statistics the running-estimate and profile plots show, in this order.
-MEAN_NAMES = ("U", "V", "W")
-STRESS_NAMES = ("uu", "vv", "ww", "uv", "uw", "vw", "k")
+from eddyvigil.stats.names import MEAN_NAMES, STRESS_NAMES  # noqa: E402  (the one name table)
 
 _FIXED_COLOURS = {
     "U": OKABE_ITO["blue"], "V": OKABE_ITO["vermillion"], "W": OKABE_ITO["purple"],

@@ -1,0 +1,152 @@
+"""A point's state as plain data: JSON-able settings plus named float/int arrays, versioned.
+
+``to_state(ps)`` returns ``(meta, arrays)``: ``meta`` is a dict of JSON types (columns, rate,
+targets, confidence, base, the scalar counters, the checkpoint streaks), ``arrays`` maps names
+to numpy arrays (the moment and blocking sums). ``from_state(meta, arrays)`` rebuilds a
+:class:`~eddyvigil.stats.point.PointStatistics` that continues bit for bit as the original
+would have. Writing them to a file is the monitor's job (``eddyvigil.monitor.combine``); this
+module does no I/O. Floats survive JSON exactly (Python writes the shortest repr that reads back
+the same double).
+
+Format version 1 (``meta["format"] == "eddyvigil-point-state"``, ``meta["version"] == 1``):
+arrays ``moments.mean``, ``moments.s2``, ``moments.s3``, ``moments.s4`` and ``blocking.<name>``
+for every array of :class:`~eddyvigil.stats.blocking.BlockingAccumulator` (``ref`` absent while
+empty); scalars in ``meta["moments"]``, ``meta["blocking"]``, ``meta["checkpoints"]``.
+
+>>> import numpy as np
+>>> from eddyvigil.stats.point import PointStatistics
+>>> ps = PointStatistics(("u", "v"), rate_hz=100.0).update(np.ones((5, 2)))
+>>> meta, arrays = to_state(ps)
+>>> meta["version"], meta["columns"], meta["moments"]["n"], arrays["moments.mean"].tolist()
+(1, ['u', 'v'], 5, [1.0, 1.0])
+>>> from_state(meta, arrays) == ps
+True
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+__all__ = ["FORMAT", "VERSION", "StateError", "to_state", "from_state", "same_state"]
+
+FORMAT = "eddyvigil-point-state"
+VERSION = 1
+
+_MOMENT_ARRAYS = ("mean", "s2", "s3", "s4")
+
+
+class StateError(ValueError):
+    """A saved state that cannot be used; the message is meant for the user."""
+
+
+def _scalar(v):
+    if isinstance(v, (bool, np.bool_)):
+        return bool(v)
+    if isinstance(v, (int, np.integer)):
+        return int(v)
+    if isinstance(v, (float, np.floating)):
+        return float(v)
+    return v
+
+
+def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
+    """``(meta, arrays)`` of a :class:`PointStatistics` (copies; ``ps`` untouched)."""
+    arrays: dict[str, np.ndarray] = {}
+    for k in _MOMENT_ARRAYS:
+        arrays[f"moments.{k}"] = np.array(getattr(ps.moments, k), copy=True)
+    blocking = {}
+    for k, v in vars(ps.blocking).items():
+        if k == "layout":
+            continue
+        if isinstance(v, np.ndarray):
+            arrays[f"blocking.{k}"] = v.copy()
+        elif v is not None:
+            blocking[k] = _scalar(v)
+    meta = {
+        "format": FORMAT,
+        "version": VERSION,
+        "columns": list(ps.columns),
+        "rate_hz": ps.rate_hz,
+        "confidence": ps.confidence,
+        "targets": ps.targets.to_dict(),
+        "duration_s": float(ps._duration_s),
+        "moments": {"n": int(ps.moments.n)},
+        "blocking": blocking,
+        "checkpoints": {
+            f.name: _scalar(getattr(ps.checkpoints, f.name))
+            for f in dataclasses.fields(ps.checkpoints)
+        },
+    }
+    return meta, arrays
+
+
+def _targets(d: dict):
+    from eddyvigil.stats.targets import Targets
+
+    if not d.get("targets"):  # a point with nothing targeted
+        return Targets(confidence=d["confidence"], targets={})
+    return Targets.from_dict(d, source="saved state")
+
+
+def from_state(meta: dict, arrays) -> object:
+    """The :class:`PointStatistics` a ``(meta, arrays)`` pair describes."""
+    from eddyvigil.stats.convergence import Checkpoints
+    from eddyvigil.stats.point import PointStatistics
+
+    if meta.get("format") != FORMAT:
+        raise StateError(f"not an eddyvigil point state (format {meta.get('format')!r})")
+    if meta.get("version") != VERSION:
+        raise StateError(
+            f"point state version {meta.get('version')!r}; this eddyvigil reads version {VERSION}"
+        )
+    try:
+        blocking = meta["blocking"]
+        ps = PointStatistics(
+            tuple(meta["columns"]),
+            meta["rate_hz"],
+            _targets(meta["targets"]),
+            meta["confidence"],
+            base=int(blocking["base"]),
+        )
+        mo = ps.moments
+        mo.n = int(meta["moments"]["n"])
+        for k in _MOMENT_ARRAYS:
+            want = getattr(mo, k)
+            a = np.array(arrays[f"moments.{k}"], dtype=np.float64)
+            if a.shape != want.shape:
+                raise StateError(f"moments.{k}: shape {a.shape}, expected {want.shape}")
+            setattr(mo, k, a)
+        bl = ps.blocking
+        for k, v in blocking.items():
+            setattr(bl, k, v)
+        bl.ref = None
+        for name in arrays:
+            if name.startswith("blocking."):
+                k = name.removeprefix("blocking.")
+                old = getattr(bl, k, None)
+                a = np.array(arrays[name])
+                if k != "ref":
+                    if old is None or a.shape[1:] != old.shape[1:] or a.dtype != old.dtype:
+                        raise StateError(f"{name}: unexpected shape or type {a.shape} {a.dtype}")
+                setattr(bl, k, a)
+        ps._duration_s = float(meta["duration_s"])
+        ps.checkpoints = Checkpoints(**meta["checkpoints"])
+    except (KeyError, TypeError) as exc:
+        raise StateError(f"incomplete point state: {exc!r}") from None
+    return ps
+
+
+def same_state(a, b) -> bool:
+    """True when two points have the same settings and state, bit for bit."""
+    ma, xa = to_state(a)
+    mb, xb = to_state(b)
+    if ma != mb or xa.keys() != xb.keys():
+        return False
+    return all(
+        xa[k].shape == xb[k].shape
+        and xa[k].dtype == xb[k].dtype
+        and np.array_equal(xa[k], xb[k], equal_nan=xa[k].dtype.kind == "f")
+        for k in xa
+    )
