@@ -328,7 +328,17 @@ def test_sigterm_mid_point_still_sends_end(ctx, tmp_path):
 def test_sigint_stops_a_push_publisher_nobody_reads(tmp_path):
     port = _free_port()
     proc = _spawn("--bind", f"tcp://127.0.0.1:{port}", "--socket", "push", "--speed", "max")
-    time.sleep(4.0)  # let it start and block on the first send (no peer)
+    # The publisher installs its SIGINT handler before it binds: once the port takes a plain TCP
+    # connection (not a ZeroMQ peer, so PUSH still has nobody to send to), the handler is in
+    # place, whatever the machine's load made the start-up cost.
+    deadline = time.monotonic() + 60.0
+    while time.monotonic() < deadline and proc.poll() is None:
+        try:
+            socket.create_connection(("127.0.0.1", port), timeout=0.5).close()
+            break
+        except OSError:
+            time.sleep(0.1)
+    time.sleep(0.5)  # and it blocks on the first send (no peer)
     proc.send_signal(2)
     code, err = _reap(proc, timeout=20)
     assert code == 130, err
