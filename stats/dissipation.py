@@ -1,0 +1,403 @@
+"""Dissipation rate, small scales and narrow-band peaks from a point's Welch spectra.
+
+All from one probe with Taylor's hypothesis, ``k1 = 2 pi f / U`` (REFERENCES §7):
+
+* inertial-range fit: ``eps = [E11(k1) k1^{5/3} / C1]^{3/2}``, ``E11 = U S(f) / 2 pi``, over the
+  widest band where the compensated spectrum is flat within ±5 % (or a user range);
+* isotropic derivative estimate ``eps_iso = 15 nu <(du/dx)^2> = 15 nu / U^2 int (2 pi f)^2 S df``
+  up to a cut-off: where a white noise floor is found, the floor is subtracted and the integral
+  stops where the signal sinks to the floor; the local-isotropy ratio
+  ``<(dv/dx)^2>/<(du/dx)^2>`` (2 expected) where v is present;
+* ``eta = (nu^3/eps)^{1/4}``, ``tau_eta = (nu/eps)^{1/2}``, ``lambda_g = (15 nu u'^2/eps)^{1/2}``,
+  ``Re_lambda = u' lambda_g / nu``, and ``L_u = U S(0) / (4 u'^2)`` as a cross-check;
+* ``peaks``: bins standing far above the running median of their neighbours (a Bonferroni bound
+  on the chi^2 scatter), with the fraction of the component's variance they hold.
+
+Every number comes with a reason when it cannot be given honestly (``Quantity.reason``).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import ndimage
+from scipy import stats as sst
+
+from eddyvigil.stats.spectra import SpectrumSnapshot, _bin_correlations, log_bin
+
+__all__ = [
+    "C1_DEFAULT",
+    "NU_AIR_20C",
+    "Dissipation",
+    "NoiseFloor",
+    "Peak",
+    "Quantity",
+    "dissipation",
+    "find_peaks",
+    "inertial_fit",
+    "isotropic_derivative",
+    "noise_floor",
+    "scales",
+]
+
+#: Kolmogorov constant of the 1-D longitudinal spectrum, (18/55) * 1.5 (Pope 2000, Turbulent Flows, §6.5; REFERENCES §7)
+C1_DEFAULT = 0.49
+#: kinematic viscosity of dry air at 20 °C and 101.325 kPa, m^2/s (common practice; handbook value, from memory)
+NU_AIR_20C = 1.51e-5
+#: flatness of the compensated spectrum accepted as inertial (REFERENCES §7: ±5 %)
+FLAT_TOLERANCE = 0.05
+#: the narrowest inertial range accepted, as a ratio of its end frequencies
+MIN_FIT_SPAN = 4.0
+#: fewest degrees of freedom of a band that may take part in the inertial fit (10 % scatter)
+MIN_BAND_DOF = 200.0
+#: eps_iso is "resolved" when the dissipation spectrum (2 pi f)^2 S at the cut-off is below this fraction of its peak
+RESOLVED_FRACTION = 0.05
+
+
+@dataclass(frozen=True)
+class Quantity:
+    """A value with its standard error and interval; ``reason`` says why any of them is missing."""
+
+    value: float | None
+    stderr: float | None = None
+    ci_low: float | None = None
+    ci_high: float | None = None
+    reason: str | None = None
+
+    @classmethod
+    def missing(cls, reason: str) -> Quantity:
+        return cls(None, None, None, None, reason)
+
+    @classmethod
+    def lognormal(cls, value: float, rel: float, z: float, reason: str | None = None) -> Quantity:
+        """Interval from a relative standard error, symmetric in log (positive quantities)."""
+        if not (math.isfinite(value) and value > 0 and math.isfinite(rel)):
+            return cls(value if math.isfinite(value) else None, None, None, None, reason or "no error estimate")
+        s = math.log1p(rel) if rel > 0 else 0.0
+        return cls(value, value * rel, value * math.exp(-z * s), value * math.exp(z * s), reason)
+
+    @property
+    def rel(self) -> float:
+        if self.value is None or self.stderr is None or self.value == 0:
+            return float("nan")
+        return self.stderr / abs(self.value)
+
+    def as_dict(self) -> dict:
+        return {"value": self.value, "stderr": self.stderr, "ci_low": self.ci_low, "ci_high": self.ci_high}
+
+
+@dataclass(frozen=True)
+class NoiseFloor:
+    level: float  # (m/s)^2/Hz, white
+    level_stderr: float
+    cutoff_hz: float  # the signal sinks to the floor here
+
+
+@dataclass(frozen=True)
+class Peak:
+    component: str
+    f_hz: float
+    fraction: float  # of the component's variance
+
+    def as_dict(self) -> dict:
+        return {"component": self.component, "f_hz": self.f_hz, "fraction": self.fraction}
+
+
+@dataclass(frozen=True)
+class Dissipation:
+    """Everything a point reports about dissipation and scales (DESIGN §3, §8)."""
+
+    eps: Quantity
+    eps_method: str
+    eps_inertial: Quantity
+    eps_iso: Quantity
+    eta: Quantity
+    tau_eta: Quantity
+    lambda_g: Quantity
+    Re_lambda: Quantity
+    L_u_spectral: Quantity
+    isotropy_ratio: Quantity | None
+    nu: float
+    nu_source: str
+    c1: float
+    speed_ms: float
+    fit_range_hz: tuple[float, float] | None
+    floors: dict = field(default_factory=dict)  # component -> NoiseFloor | None
+    cutoff_hz: float = float("nan")
+    peaks: tuple[Peak, ...] = ()
+
+    def rows(self) -> dict[str, Quantity]:
+        """The statistics rows named in DESIGN §3."""
+        return {
+            "eps": self.eps,
+            "eps_inertial": self.eps_inertial,
+            "eps_iso": self.eps_iso,
+            "eta": self.eta,
+            "tau_eta": self.tau_eta,
+            "lambda_g": self.lambda_g,
+            "Re_lambda": self.Re_lambda,
+        }
+
+
+def _z(confidence: float) -> float:
+    return float(sst.norm.ppf(0.5 + confidence / 2.0))
+
+
+# ---------------------------------------------------------------- noise floor
+
+
+def noise_floor(spec: SpectrumSnapshot, col: int = 0) -> NoiseFloor | None:
+    """A white floor at the top of the spectrum, or None when the spectrum still falls there.
+
+    The top octave (f_N/2 .. f_N) is "flat" when a least-squares line through its log-binned
+    values falls by less than a factor 1.25 across it (turbulence there falls by far more: the
+    -5/3 law alone gives 3.2). The level is the mean of its fine bins; the cut-off is the lowest
+    frequency above which the log-binned spectrum stays below twice the level (signal = noise).
+    """
+    f, s = spec.f_hz, spec.psd[:, col]
+    nyq = spec.rate_hz / 2.0
+    top = (f >= nyq / 2.0) & (f < nyq)
+    if top.sum() < 16:
+        return None
+    lb = log_bin(f[:-1], s[:-1], spec.dof[:-1], spec.window, 200)
+    ok = (lb.f_hz >= nyq / 2.0) & (lb.psd > 0)
+    if ok.sum() < 3 or np.any(lb.psd[lb.f_hz > 0] <= 0):
+        return None
+    slope = np.polyfit(np.log(lb.f_hz[ok]), np.log(lb.psd[ok]), 1)[0]
+    if abs(slope) * math.log(2.0) > math.log(1.25):
+        return None
+    level = float(s[top].mean())
+    dof_top = float(spec.dof[top].mean()) * top.sum() / 1.94  # Hann neighbours: 1 + 2(4/9 + 1/36)
+    above = np.flatnonzero(lb.psd > 2.0 * level)
+    cutoff = float(lb.f_hz[above[-1] + 1]) if above.size and above[-1] + 1 < lb.f_hz.size else nyq / 2.0
+    return NoiseFloor(level, level * math.sqrt(2.0 / dof_top), min(cutoff, nyq / 2.0))
+
+
+# ---------------------------------------------------------------- epsilon, two ways
+
+
+def _derivative_variance(spec, col, cutoff_hz, floor_level, floor_stderr):
+    """int_0^fc (2 pi f)^2 (S - floor) df over fine bins and its standard error (chi^2 per bin,
+    neighbouring bins correlated as the window makes them)."""
+    f, s, dof = spec.f_hz, spec.psd[:, col], spec.dof
+    sel = (f > 0) & (f <= cutoff_hz)
+    w = (2 * math.pi * f[sel]) ** 2 * spec.df_hz
+    net = s[sel] - floor_level
+    value = float(np.dot(w, net))
+    v = w * s[sel] * np.sqrt(2.0 / dof[sel])
+    r = _bin_correlations(spec.window, 3)
+    var = float(np.dot(v, v)) + sum(2.0 * r[j - 1] * float(np.dot(v[:-j], v[j:])) for j in range(1, 4) if v.size > j)
+    var += (float(w.sum()) * floor_stderr) ** 2
+    g = w * net
+    peak = float(g.max()) if g.size else 0.0
+    tail = float(np.mean(g[-max(1, g.size // 50) :])) / peak if peak > 0 else float("inf")
+    return value, math.sqrt(max(var, 0.0)), tail
+
+
+def isotropic_derivative(spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=None, confidence=0.95):
+    """``eps_iso`` from column ``col`` and the relative size of the integrand at the cut-off."""
+    fc = cutoff_hz if cutoff_hz is not None else (floor.cutoff_hz if floor else spec.rate_hz / 2.0)
+    level = floor.level if floor else 0.0
+    level_se = floor.level_stderr if floor else 0.0
+    d, d_se, tail = _derivative_variance(spec, col, fc, level, level_se)
+    if not d > 0:
+        return Quantity.missing("no derivative variance above the noise floor"), d, d_se, tail
+    k = 15.0 * nu / speed_ms**2
+    eps = k * d
+    z = _z(confidence)
+    if tail > RESOLVED_FRACTION:
+        why = (f"dissipation range not resolved: (2 pi f)^2 S at the cut-off {fc:.4g} Hz is "
+               f"{100 * tail:.0f} % of its peak, so this is a lower bound")
+        return Quantity(eps, None, None, None, why), d, d_se, tail
+    return Quantity.lognormal(eps, d_se / d, z), d, d_se, tail
+
+
+def inertial_fit(spec, speed_ms, *, col=0, c1=C1_DEFAULT, cutoff_hz=None, fit_range_hz=None,
+                 confidence=0.95):
+    """``eps`` from the flattest wide band of the compensated spectrum; (Quantity, range)."""
+    stop = spec.f_hz.size - 1 if spec.segment % 2 == 0 else spec.f_hz.size
+    lb = log_bin(spec.f_hz[:stop], spec.psd[:stop, col], spec.dof[:stop], spec.window, 200)
+    f, s, dof = lb.f_hz, lb.psd, lb.dof
+    k1 = 2 * math.pi * f / speed_ms
+    comp = speed_ms * s / (2 * math.pi) * k1 ** (5.0 / 3.0)
+    hi = cutoff_hz if cutoff_hz is not None else spec.rate_hz / 2.0
+    # bands noisier than 10 % (dof < 200) cannot show flatness within ±5 %: left out
+    usable = (f > 2 * spec.df_hz) & (f <= hi) & (comp > 0) & (dof >= MIN_BAND_DOF)
+    if fit_range_hz is not None:
+        a, b = fit_range_hz
+        pick = usable & (f >= a) & (f <= b)
+        if pick.sum() < 2:
+            return Quantity.missing(f"fewer than two spectral bands in the given range {a:g}-{b:g} Hz"), None
+        best = np.flatnonzero(pick)
+        best = (best[0], best[-1])
+    else:
+        best = _flattest_band(f, comp, dof, usable)
+        if best is None:
+            return Quantity.missing(
+                f"no inertial range: the compensated spectrum is nowhere flat within ±{100 * FLAT_TOLERANCE:.0f} % "
+                f"over a factor {MIN_FIT_SPAN:g} in frequency (low Reynolds number, noise, or too short a record)"
+            ), None
+    i, j = best
+    wgt = dof[i : j + 1]
+    cbar = float(np.sum(wgt * comp[i : j + 1]) / wgt.sum())
+    rel_stat = math.sqrt(2.0 / wgt.sum())
+    # a range accepted as flat within ±5 % leaves the plateau level uncertain by as much: a
+    # uniform error of half-width FLAT_TOLERANCE (sd tol/sqrt 3), beside the chi^2 scatter
+    rel_c = math.hypot(rel_stat, FLAT_TOLERANCE / math.sqrt(3.0))
+    eps = (cbar / c1) ** 1.5
+    return Quantity.lognormal(eps, 1.5 * rel_c, _z(confidence)), (float(f[i]), float(f[j]))
+
+
+def _flattest_band(f, comp, dof, usable):
+    """Widest run of bands (in log f) whose weighted line stays within ±5 % even at two standard
+    errors of its slope (so noise cannot pass for flatness), and whose scatter about it is chi^2-like."""
+    idx = np.flatnonzero(usable)
+    if idx.size < 5:
+        return None
+    x_all, y_all = np.log(f), np.log(comp)
+    best, best_span = None, math.log(MIN_FIT_SPAN)
+    for a_pos in range(idx.size - 4):
+        a = idx[a_pos]
+        for b_pos in range(idx.size - 1, a_pos + 3, -1):
+            b = idx[b_pos]
+            span = x_all[b] - x_all[a]
+            if span < best_span:
+                break
+            seg = slice(a, b + 1)
+            if not np.all(usable[seg]):
+                continue
+            x, y, w = x_all[seg], y_all[seg], dof[seg] / 2.0  # var(log S) ~ 2/dof
+            sw = w.sum()
+            xm, ym = np.dot(w, x) / sw, np.dot(w, y) / sw
+            sxx = np.dot(w, (x - xm) ** 2)
+            slope = np.dot(w, (x - xm) * (y - ym)) / sxx
+            # flat with confidence: the line's ends, widened by two standard errors of its slope
+            if (abs(slope) + 2.0 / math.sqrt(sxx)) * span / 2.0 > math.log1p(FLAT_TOLERANCE):
+                continue
+            resid = y - ym - slope * (x - xm)
+            chi2 = float(np.dot(w, resid**2))
+            if chi2 > sst.chi2.ppf(0.999, x.size - 2):
+                continue
+            best, best_span = (a, b), span
+            break
+    return best
+
+
+# ---------------------------------------------------------------- scales
+
+
+def scales(eps: Quantity, nu: float, variance: float, variance_rel: float = 0.0, confidence: float = 0.95):
+    """eta, tau_eta, lambda_g, Re_lambda from eps and u'^2 (REFERENCES §7), errors propagated in log."""
+    if eps.value is None or not eps.value > 0:
+        why = f"no dissipation rate ({eps.reason})" if eps.reason else "no dissipation rate"
+        return tuple(Quantity.missing(why) for _ in range(4))
+    e, z = eps.value, _z(confidence)
+    re = eps.rel if eps.stderr is not None else float("nan")
+    why = eps.reason if eps.stderr is None else None
+    eta = Quantity.lognormal((nu**3 / e) ** 0.25, 0.25 * re, z, why)
+    tau = Quantity.lognormal((nu / e) ** 0.5, 0.5 * re, z, why)
+    lam = Quantity.lognormal(math.sqrt(15.0 * nu * variance / e), 0.5 * math.hypot(re, variance_rel), z, why)
+    rel = math.hypot(0.5 * re, variance_rel)
+    rel_lambda = Quantity.lognormal(math.sqrt(variance) * lam.value / nu, rel, z, why)
+    return eta, tau, lam, rel_lambda
+
+
+# ---------------------------------------------------------------- peaks
+
+
+def find_peaks(spec: SpectrumSnapshot, *, alpha: float = 0.01, min_fraction: float = 0.002,
+               window_bins: int = 33) -> tuple[Peak, ...]:
+    """Narrow-band peaks of every column.
+
+    A fine bin is a candidate when it exceeds the running median (``window_bins`` bins, in log,
+    de-biased by the chi^2 median) by more than the ``1 - alpha/n`` chi^2 quantile (Bonferroni over
+    the ``n`` bins of a column), so a broadband spectrum shows a false peak in about ``alpha`` of
+    points. Touching candidates form one peak; its frequency is the power-weighted centroid and
+    its fraction the excess power over the median baseline (main lobe ±2 bins) over the variance.
+    """
+    out = []
+    n = spec.f_hz.size
+    stop = n - 1 if spec.segment % 2 == 0 else n
+    dof = float(spec.dof[1])
+    if stop < window_bins + 3 or not dof > 0:
+        return ()
+    thr = sst.chi2.ppf(1.0 - alpha / (stop - 2), dof) / dof
+    med_corr = sst.chi2.median(dof) / dof
+    for c, name in enumerate(spec.columns):
+        s = spec.psd[1:stop, c]
+        if not np.all(s > 0):
+            continue
+        base = np.exp(ndimage.median_filter(np.log(s), size=window_bins, mode="nearest")) / med_corr
+        hot = s > thr * base
+        hot[0] = False  # bin 1 leaks from the removed mean
+        total = float(spec.psd[:, c].sum())
+        labels, count = ndimage.label(hot)
+        for lab in range(1, count + 1):
+            where = np.flatnonzero(labels == lab)
+            lo, hi = max(where[0] - 2, 0), min(where[-1] + 3, s.size)
+            excess = np.clip(s[lo:hi] - base[lo:hi], 0.0, None)
+            frac = float(excess.sum()) / total
+            if frac < min_fraction:
+                continue
+            fc = float(np.dot(excess, spec.f_hz[1 + lo : 1 + hi]) / excess.sum())
+            out.append(Peak(name, fc, frac))
+    return tuple(out)
+
+
+# ---------------------------------------------------------------- all together
+
+
+def dissipation(spec: SpectrumSnapshot, speed_ms: float, *, nu: float | None = None, c1: float = C1_DEFAULT,
+                fit_range_hz=None, detect_floor: bool = True, variance: float | None = None,
+                variance_stderr: float | None = None, confidence: float = 0.95) -> Dissipation:
+    """Both estimates of eps, the choice between them, the scales and the peaks of one point.
+
+    Column 0 is taken as u (streamwise); column 1, if present, as v for the isotropy ratio.
+    ``variance`` is u'^2 (from the moments, better than the spectrum's windowed value).
+    """
+    nu_source = "point" if nu is not None else "default"
+    nu = float(nu) if nu is not None else NU_AIR_20C
+    z = _z(confidence)
+    speed = abs(float(speed_ms))
+    if variance is None:
+        variance = float(spec.variance()[0])
+    var_rel = (variance_stderr / variance) if (variance_stderr and variance > 0) else 0.0
+    floors = {name: (noise_floor(spec, c) if detect_floor else None) for c, name in enumerate(spec.columns)}
+    fl = floors[spec.columns[0]]
+    cutoff = fl.cutoff_hz if fl else spec.rate_hz / 2.0
+    peaks = find_peaks(spec)
+    if not speed > 0:
+        miss = Quantity.missing("no mean speed for Taylor's hypothesis")
+        return Dissipation(miss, "none: no mean speed", miss, miss, miss, miss, miss, miss, miss, None, nu,
+                           nu_source, c1, speed, None, floors, cutoff, peaks)
+    inertial, rng = inertial_fit(spec, speed, c1=c1, cutoff_hz=cutoff, fit_range_hz=fit_range_hz, confidence=confidence)
+    iso, du, du_se, tail = isotropic_derivative(spec, speed, nu, floor=fl, cutoff_hz=cutoff, confidence=confidence)
+    ratio = None
+    if len(spec.columns) > 1 and du > 0:
+        fv = floors[spec.columns[1]]
+        dv, dv_se, _ = _derivative_variance(spec, 1, cutoff, fv.level if fv else 0.0, fv.level_stderr if fv else 0.0)
+        if dv > 0:
+            ratio = Quantity.lognormal(dv / du, math.hypot(dv_se / dv, du_se / du), z)
+    # the choice: the derivative estimate needs no constant but must resolve the dissipation range
+    # and rests on local isotropy; the inertial fit needs a flat range and C1
+    iso_ok = iso.stderr is not None
+    isotropic = ratio is None or (ratio.ci_low is not None and ratio.ci_low <= 2.0 * 1.25 and ratio.ci_high >= 2.0 / 1.25)
+    if iso_ok and (isotropic or inertial.value is None):
+        eps, method = iso, "iso: the dissipation range is resolved above the noise floor (no constant needed)"
+        if not isotropic:
+            method += f"; local isotropy doubtful (ratio {ratio.value:.2f}, 2 expected)"
+    elif inertial.value is not None:
+        why = "the dissipation range is not resolved" if not iso_ok else f"local isotropy fails (ratio {ratio.value:.2f}, 2 expected)"
+        eps, method = inertial, f"inertial: {why}; fit {rng[0]:.4g}-{rng[1]:.4g} Hz with C1 = {c1:g}"
+    else:
+        eps = Quantity.missing(f"{inertial.reason}; and {iso.reason or 'no derivative estimate'}")
+        method = "none: neither an inertial range nor a resolved dissipation range"
+    eta, tau, lam, rel = scales(eps, nu, variance, var_rel, confidence)
+    s0 = float(np.mean(spec.psd[2:4, 0])) if spec.psd.shape[0] > 4 else float("nan")  # bin 1 feels the detrend
+    lu_rel = math.sqrt(2.0 / (2.0 * float(spec.dof[1]) / 1.44))  # two neighbouring bins, r1 = 4/9
+    lu = Quantity.lognormal(speed * s0 / (4.0 * variance), math.hypot(lu_rel, var_rel), z,
+                            "from the lowest bins; biased low when the resolution is coarse")
+    return Dissipation(eps, method, inertial, iso, eta, tau, lam, rel, lu, ratio, nu, nu_source, c1, speed, rng,
+                       floors, cutoff, peaks)
