@@ -49,9 +49,12 @@ NU_AIR_20C = 1.51e-5
 #: flatness of the compensated spectrum accepted as inertial (REFERENCES §7: ±5 %)
 FLAT_TOLERANCE = 0.05
 #: the narrowest inertial range accepted, as a ratio of its end frequencies
-MIN_FIT_SPAN = 4.0
+MIN_FIT_SPAN = 5.0
 #: fewest degrees of freedom of a band that may take part in the inertial fit (10 % scatter)
 MIN_BAND_DOF = 200.0
+#: standard errors by which the fitted shape is widened before the ±5 % test (0.5: the hump of an
+#: exponential spectrum is refused, a Re_lambda = 500 model spectrum of 52 s accepted; tests/test_dissipation*.py)
+WIDEN = 0.5
 #: eps_iso is "resolved" when the dissipation spectrum (2 pi f)^2 S at the cut-off is below this fraction of its peak
 RESOLVED_FRACTION = 0.05
 
@@ -196,8 +199,12 @@ def _derivative_variance(spec, col, cutoff_hz, floor_level, floor_stderr):
     return value, math.sqrt(max(var, 0.0)), tail
 
 
-def isotropic_derivative(spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=None, confidence=0.95):
-    """``eps_iso`` from column ``col`` and the relative size of the integrand at the cut-off."""
+def isotropic_derivative(spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=None, confidence=0.95,
+                         speed_rel=0.0):
+    """``eps_iso`` from column ``col`` and the relative size of the integrand at the cut-off.
+
+    ``speed_rel``: relative standard error of the convection speed; ``eps_iso ~ U^-2``.
+    """
     fc = cutoff_hz if cutoff_hz is not None else (floor.cutoff_hz if floor else spec.rate_hz / 2.0)
     level = floor.level if floor else 0.0
     level_se = floor.level_stderr if floor else 0.0
@@ -211,17 +218,23 @@ def isotropic_derivative(spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=Non
         why = (f"dissipation range not resolved: (2 pi f)^2 S at the cut-off {fc:.4g} Hz is "
                f"{100 * tail:.0f} % of its peak, so this is a lower bound")
         return Quantity(eps, None, None, None, why), d, d_se, tail
-    return Quantity.lognormal(eps, d_se / d, z), d, d_se, tail
+    return Quantity.lognormal(eps, math.hypot(d_se / d, 2.0 * speed_rel), z), d, d_se, tail
 
 
 def inertial_fit(spec, speed_ms, *, col=0, c1=C1_DEFAULT, cutoff_hz=None, fit_range_hz=None,
-                 confidence=0.95):
-    """``eps`` from the flattest wide band of the compensated spectrum; (Quantity, range)."""
+                 confidence=0.95, speed_rel=0.0):
+    """``eps`` from the flattest wide band of the compensated spectrum; (Quantity, range).
+
+    The interval is conditional on ``c1`` (Sreenivasan 1995 puts C1 at 0.53 ± 0.055, from
+    REFERENCES §7); ``eps ~ U^-1`` through Taylor's hypothesis, so ``speed_rel`` enters once.
+    """
+    # compensate the fine bins, then average into log bands (a band average of S f^{5/3}, not
+    # S at the band's mean frequency: exact for a pure power law)
     stop = spec.f_hz.size - 1 if spec.segment % 2 == 0 else spec.f_hz.size
-    lb = log_bin(spec.f_hz[:stop], spec.psd[:stop, col], spec.dof[:stop], spec.window, 200)
-    f, s, dof = lb.f_hz, lb.psd, lb.dof
-    k1 = 2 * math.pi * f / speed_ms
-    comp = speed_ms * s / (2 * math.pi) * k1 ** (5.0 / 3.0)
+    k1_fine = 2 * math.pi * spec.f_hz[:stop] / speed_ms
+    comp_fine = speed_ms * spec.psd[:stop, col] / (2 * math.pi) * k1_fine ** (5.0 / 3.0)
+    lb = log_bin(spec.f_hz[:stop], comp_fine, spec.dof[:stop], spec.window, 200)
+    f, comp, dof = lb.f_hz, lb.psd, lb.dof
     hi = cutoff_hz if cutoff_hz is not None else spec.rate_hz / 2.0
     # bands noisier than 10 % (dof < 200) cannot show flatness within ±5 %: left out
     usable = (f > 2 * spec.df_hz) & (f <= hi) & (comp > 0) & (dof >= MIN_BAND_DOF)
@@ -247,41 +260,62 @@ def inertial_fit(spec, speed_ms, *, col=0, c1=C1_DEFAULT, cutoff_hz=None, fit_ra
     # uniform error of half-width FLAT_TOLERANCE (sd tol/sqrt 3), beside the chi^2 scatter
     rel_c = math.hypot(rel_stat, FLAT_TOLERANCE / math.sqrt(3.0))
     eps = (cbar / c1) ** 1.5
-    return Quantity.lognormal(eps, 1.5 * rel_c, _z(confidence)), (float(f[i]), float(f[j]))
+    return Quantity.lognormal(eps, math.hypot(1.5 * rel_c, speed_rel), _z(confidence)), (float(f[i]), float(f[j]))
 
 
 def _flattest_band(f, comp, dof, usable):
-    """Widest run of bands (in log f) whose weighted line stays within ±5 % even at two standard
-    errors of its slope (so noise cannot pass for flatness), and whose scatter about it is chi^2-like."""
+    """Widest run of bands (in log f) whose smooth shape stays within ±5 % of its level.
+
+    Over each candidate run a weighted quadratic in log f is fitted to log(compensated) (weights
+    dof/2, since var log S = 2/dof); the run is flat when the quadratic, widened by two standard
+    errors, stays within log(1.05) of the run's mean level at both ends and at its vertex (so
+    neither a slope nor a hump nor noise passes for flatness), and the scatter about it is
+    chi^2-like. Prefix sums make every (start, end) pair O(1); the ends loop in numpy.
+    """
     idx = np.flatnonzero(usable)
     if idx.size < 5:
         return None
-    x_all, y_all = np.log(f), np.log(comp)
+    x = np.log(f)
+    x = x - x[idx].mean()
+    y = np.log(np.where(comp > 0, comp, 1.0))
+    w = np.where(usable, dof / 2.0, 0.0)
+    pw = [np.r_[0.0, np.cumsum(w * x**p)] for p in range(5)]
+    py = [np.r_[0.0, np.cumsum(w * y * x**p)] for p in range(3)]
+    pyy = np.r_[0.0, np.cumsum(w * y * y)]
+    # a run may not cross an unusable band
+    bad = np.r_[0, np.cumsum(~usable)]
+    tol = math.log1p(FLAT_TOLERANCE)
     best, best_span = None, math.log(MIN_FIT_SPAN)
-    for a_pos in range(idx.size - 4):
-        a = idx[a_pos]
-        for b_pos in range(idx.size - 1, a_pos + 3, -1):
-            b = idx[b_pos]
-            span = x_all[b] - x_all[a]
-            if span < best_span:
-                break
-            seg = slice(a, b + 1)
-            if not np.all(usable[seg]):
-                continue
-            x, y, w = x_all[seg], y_all[seg], dof[seg] / 2.0  # var(log S) ~ 2/dof
-            sw = w.sum()
-            xm, ym = np.dot(w, x) / sw, np.dot(w, y) / sw
-            sxx = np.dot(w, (x - xm) ** 2)
-            slope = np.dot(w, (x - xm) * (y - ym)) / sxx
-            # flat with confidence: the line's ends, widened by two standard errors of its slope
-            if (abs(slope) + 2.0 / math.sqrt(sxx)) * span / 2.0 > math.log1p(FLAT_TOLERANCE):
-                continue
-            resid = y - ym - slope * (x - xm)
-            chi2 = float(np.dot(w, resid**2))
-            if chi2 > sst.chi2.ppf(0.999, x.size - 2):
-                continue
-            best, best_span = (a, b), span
-            break
+    for a in idx:
+        b = np.arange(a + 4, f.size)
+        b = b[(bad[b + 1] - bad[a]) == 0]
+        b = b[x[b] - x[a] >= best_span]
+        if b.size == 0:
+            continue
+        s = [pw[p][b + 1] - pw[p][a] for p in range(5)]
+        m = np.stack([np.stack([s[0], s[1], s[2]], -1), np.stack([s[1], s[2], s[3]], -1),
+                      np.stack([s[2], s[3], s[4]], -1)], -2)
+        r = np.stack([py[p][b + 1] - py[p][a] for p in range(3)], -1)
+        try:
+            cov = np.linalg.inv(m)
+        except np.linalg.LinAlgError:
+            continue
+        beta = np.einsum("kij,kj->ki", cov, r)
+        chi2 = (pyy[b + 1] - pyy[a]) - np.einsum("ki,ki->k", beta, r)
+        xm, x2m = s[1] / s[0], s[2] / s[0]
+        vertex = np.where(beta[:, 2] != 0, -beta[:, 1] / (2 * np.where(beta[:, 2] != 0, beta[:, 2], 1.0)), x[a])
+        vertex = np.clip(vertex, x[a], x[b])
+        worst = np.zeros(b.size)
+        for xe in (np.full(b.size, x[a]), x[b], vertex):
+            g = np.stack([np.zeros(b.size), xe - xm, xe**2 - x2m], -1)
+            dev = np.abs(np.einsum("ki,ki->k", g, beta))
+            sd = np.sqrt(np.maximum(np.einsum("ki,kij,kj->k", g, cov, g), 0.0))
+            worst = np.maximum(worst, dev + WIDEN * sd)
+        n = b - a + 1
+        ok = (worst <= tol) & (chi2 <= sst.chi2.ppf(0.999, np.maximum(n - 3, 1)))
+        if ok.any():
+            k = np.flatnonzero(ok)[-1]  # the widest from this start
+            best, best_span = (int(a), int(b[k])), float(x[b[k]] - x[a])
     return best
 
 
@@ -308,20 +342,23 @@ def scales(eps: Quantity, nu: float, variance: float, variance_rel: float = 0.0,
 
 
 def find_peaks(spec: SpectrumSnapshot, *, alpha: float = 0.01, min_fraction: float = 0.002,
-               window_bins: int = 33) -> tuple[Peak, ...]:
+               flank: int = 8, gap: int = 3) -> tuple[Peak, ...]:
     """Narrow-band peaks of every column.
 
-    A fine bin is a candidate when it exceeds the running median (``window_bins`` bins, in log,
-    de-biased by the chi^2 median) by more than the ``1 - alpha/n`` chi^2 quantile (Bonferroni over
-    the ``n`` bins of a column), so a broadband spectrum shows a false peak in about ``alpha`` of
-    points. Touching candidates form one peak; its frequency is the power-weighted centroid and
-    its fraction the excess power over the median baseline (main lobe ±2 bins) over the variance.
+    A fine bin is a candidate when it exceeds the broadband level by more than the
+    ``1 - alpha/n`` chi^2 quantile (Bonferroni over the ``n`` bins of a column), so a broadband
+    spectrum shows a false peak in about ``alpha`` of points. The broadband level is the larger
+    of the medians of ``flank`` bins on either side, ``gap`` bins away (clear of the Hann main
+    lobe), de-biased by the chi^2 median: on a sloping spectrum the higher flank keeps a slope
+    from passing for a peak. Touching candidates form one peak; its frequency is the
+    power-weighted centroid of its main lobe, its fraction the excess power over the level
+    divided by the column's variance.
     """
     out = []
     n = spec.f_hz.size
     stop = n - 1 if spec.segment % 2 == 0 else n
     dof = float(spec.dof[1])
-    if stop < window_bins + 3 or not dof > 0:
+    if stop < 2 * (flank + gap) + 4 or not dof > 0:
         return ()
     thr = sst.chi2.ppf(1.0 - alpha / (stop - 2), dof) / dof
     med_corr = sst.chi2.median(dof) / dof
@@ -329,15 +366,18 @@ def find_peaks(spec: SpectrumSnapshot, *, alpha: float = 0.01, min_fraction: flo
         s = spec.psd[1:stop, c]
         if not np.all(s > 0):
             continue
-        base = np.exp(ndimage.median_filter(np.log(s), size=window_bins, mode="nearest")) / med_corr
+        med = np.median(np.lib.stride_tricks.sliding_window_view(s, flank), axis=1)  # med[k]: bins k..k+flank-1
+        base = np.full(s.size, np.inf)
+        i = np.arange(flank + gap, s.size - flank - gap)
+        base[i] = np.maximum(med[i - gap - flank + 1], med[i + gap]) / med_corr
         hot = s > thr * base
-        hot[0] = False  # bin 1 leaks from the removed mean
         total = float(spec.psd[:, c].sum())
         labels, count = ndimage.label(hot)
         for lab in range(1, count + 1):
             where = np.flatnonzero(labels == lab)
             lo, hi = max(where[0] - 2, 0), min(where[-1] + 3, s.size)
-            excess = np.clip(s[lo:hi] - base[lo:hi], 0.0, None)
+            level = float(np.min(base[where]))
+            excess = np.clip(s[lo:hi] - level, 0.0, None)
             frac = float(excess.sum()) / total
             if frac < min_fraction:
                 continue
@@ -351,11 +391,13 @@ def find_peaks(spec: SpectrumSnapshot, *, alpha: float = 0.01, min_fraction: flo
 
 def dissipation(spec: SpectrumSnapshot, speed_ms: float, *, nu: float | None = None, c1: float = C1_DEFAULT,
                 fit_range_hz=None, detect_floor: bool = True, variance: float | None = None,
-                variance_stderr: float | None = None, confidence: float = 0.95) -> Dissipation:
+                variance_stderr: float | None = None, speed_stderr: float | None = None,
+                confidence: float = 0.95) -> Dissipation:
     """Both estimates of eps, the choice between them, the scales and the peaks of one point.
 
     Column 0 is taken as u (streamwise); column 1, if present, as v for the isotropy ratio.
-    ``variance`` is u'^2 (from the moments, better than the spectrum's windowed value).
+    ``variance`` is u'^2 (from the moments, better than the spectrum's windowed value);
+    ``speed_stderr`` the standard error of the mean speed (Taylor's hypothesis converts with it).
     """
     nu_source = "point" if nu is not None else "default"
     nu = float(nu) if nu is not None else NU_AIR_20C
@@ -372,8 +414,11 @@ def dissipation(spec: SpectrumSnapshot, speed_ms: float, *, nu: float | None = N
         miss = Quantity.missing("no mean speed for Taylor's hypothesis")
         return Dissipation(miss, "none: no mean speed", miss, miss, miss, miss, miss, miss, miss, None, nu,
                            nu_source, c1, speed, None, floors, cutoff, peaks)
-    inertial, rng = inertial_fit(spec, speed, c1=c1, cutoff_hz=cutoff, fit_range_hz=fit_range_hz, confidence=confidence)
-    iso, du, du_se, tail = isotropic_derivative(spec, speed, nu, floor=fl, cutoff_hz=cutoff, confidence=confidence)
+    speed_rel = (speed_stderr / speed) if speed_stderr else 0.0
+    inertial, rng = inertial_fit(spec, speed, c1=c1, cutoff_hz=cutoff, fit_range_hz=fit_range_hz,
+                                 confidence=confidence, speed_rel=speed_rel)
+    iso, du, du_se, tail = isotropic_derivative(spec, speed, nu, floor=fl, cutoff_hz=cutoff,
+                                                confidence=confidence, speed_rel=speed_rel)
     ratio = None
     if len(spec.columns) > 1 and du > 0:
         fv = floors[spec.columns[1]]
