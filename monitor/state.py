@@ -55,6 +55,8 @@ class StreamView:
     finished: tuple[Mapping, ...] = ()
     ended: bool = False
     converged_wall_age_s: float | None = None
+    #: (stats.spectra.SpectrumSnapshot | None, stats.dissipation.Dissipation | None) of the current point
+    spectrum: tuple | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

@@ -342,7 +342,7 @@ def scales(eps: Quantity, nu: float, variance: float, variance_rel: float = 0.0,
 
 
 def find_peaks(spec: SpectrumSnapshot, *, alpha: float = 0.01, min_fraction: float = 0.002,
-               flank: int = 8, gap: int = 3) -> tuple[Peak, ...]:
+               flank: int = 9, gap: int = 3) -> tuple[Peak, ...]:
     """Narrow-band peaks of every column.
 
     A fine bin is a candidate when it exceeds the broadband level by more than the
@@ -366,7 +366,9 @@ def find_peaks(spec: SpectrumSnapshot, *, alpha: float = 0.01, min_fraction: flo
         s = spec.psd[1:stop, c]
         if not np.all(s > 0):
             continue
-        med = np.median(np.lib.stride_tricks.sliding_window_view(s, flank), axis=1)  # med[k]: bins k..k+flank-1
+        # med[k]: median of bins k..k+flank-1 (flank odd: a true median)
+        h = flank // 2
+        med = ndimage.median_filter(s, size=flank, mode="nearest")[h : h + s.size - flank + 1]
         base = np.full(s.size, np.inf)
         i = np.arange(flank + gap, s.size - flank - gap)
         base[i] = np.maximum(med[i - gap - flank + 1], med[i + gap]) / med_corr

@@ -20,7 +20,7 @@ apart, ``|sum h_t^2 e^{-2 pi i j t/N}|^2 / (sum h_t^2)^2`` (Percival & Walden 19
 and 1/36 for Hann).
 
 The segment length is chosen so the resolution is well below ``1/T_int``:
-``N >= RESOLUTION_FACTOR * T_int * rate`` rounded up to a power of two (:func:`segment_length`).
+``N >= RESOLUTION_FACTOR * T_int * rate`` (20) rounded up to a power of two (:func:`segment_length`).
 """
 
 from __future__ import annotations
@@ -45,8 +45,9 @@ __all__ = [
     "welch_dof",
 ]
 
-#: segment length >= this many integral times, so the bin width is <= 1/(RESOLUTION_FACTOR T_int)
-RESOLUTION_FACTOR = 50.0
+#: segment length >= this many integral times, so the bin width is <= 1/(RESOLUTION_FACTOR T_int);
+#: more would sharpen the lowest bins (L_u from S(0)) but leave too few segments for the inertial fit
+RESOLUTION_FACTOR = 20.0
 MIN_SEGMENT = 256
 MAX_SEGMENT = 1 << 16
 
@@ -54,14 +55,14 @@ MAX_SEGMENT = 1 << 16
 def segment_length(rate_hz: float, tint_s: float | None) -> int:
     """Power-of-two segment length for a rate and an integral time scale (None: 1 s of data).
 
-    >>> segment_length(20000.0, 0.01)   # 50 * 0.01 s * 20 kHz = 10000 -> 16384
-    16384
+    >>> segment_length(20000.0, 0.01)   # 20 * 0.01 s * 20 kHz = 4000 -> 4096 (nearest power of two)
+    4096
     """
     if tint_s is None or not math.isfinite(tint_s) or tint_s <= 0:
         want = rate_hz
     else:
         want = RESOLUTION_FACTOR * tint_s * rate_hz
-    n = 1 << max(0, math.ceil(math.log2(max(want, 1.0))))
+    n = 1 << max(0, round(math.log2(max(want, 1.0))))  # nearest power of two (factor 14-28)
     return int(min(max(n, MIN_SEGMENT), MAX_SEGMENT))
 
 
@@ -110,11 +111,8 @@ def welch_dof(window: np.ndarray, hop: int, segments: int) -> float:
 def _bin_correlations(window: np.ndarray, reach: int = 4) -> np.ndarray:
     """Squared correlation of periodogram ordinates j = 1..reach bins apart (smooth spectrum)."""
     h2 = np.asarray(window, dtype=np.float64) ** 2
-    t = np.arange(h2.size)
-    total = h2.sum()
-    return np.array(
-        [abs(np.sum(h2 * np.exp(-2j * np.pi * j * t / h2.size))) ** 2 / total**2 for j in range(1, reach + 1)]
-    )
+    spec = np.fft.rfft(h2)
+    return np.abs(spec[1 : reach + 1]) ** 2 / float(h2.sum()) ** 2
 
 
 def chi2_interval(psd, dof, confidence: float = 0.95) -> tuple[np.ndarray, np.ndarray]:

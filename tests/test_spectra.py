@@ -74,8 +74,9 @@ def test_welch_dof_hann_half_overlap():
 
 
 def test_segment_length_from_integral_time():
-    # resolution rate/N <= 1/(50 T_int), power of two
-    assert segment_length(20_000.0, 0.01) == 16384
+    # resolution rate/N ~ 1/(20 T_int), nearest power of two
+    assert segment_length(20_000.0, 0.01) == 4096
+    assert segment_length(20_000.0, 0.046) == 16384  # 18400 -> 16384
     assert segment_length(1000.0, 0.001) == 256  # lower clamp
     rng = np.random.default_rng(4)
     rho = np.exp(-1 / 50)  # T_int = 50 samples (analytic: (1+rho)/(2(1-rho)) ~ 50)
@@ -85,7 +86,7 @@ def test_segment_length_from_integral_time():
 
 def test_segment_chosen_from_probe_samples():
     rng = np.random.default_rng(5)
-    rho = np.exp(-1 / 20)  # T_int ~ 20 samples at 1 kHz = 0.02 s -> N >= 1000 -> 1024
+    rho = np.exp(-1 / 50)  # T_int ~ 50 samples at 1 kHz = 0.05 s -> N >= 1000 -> 1024
     x = ar1(rng, 20_000, 1, rho)
     acc = SpectrumAccumulator(("u",), 1000.0, probe=8000)
     acc.update(x[:5000])
