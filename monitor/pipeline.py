@@ -658,7 +658,7 @@ class Pipeline:
                 converged_wall_age_s=(
                     now - run.converged_clock if run and run.converged_clock is not None else None
                 ),
-                spectrum=(run.spectra.live(run.snapshot, run.point.get("nu"))
+                spectrum=(run.spectra.live(run.snapshot, run.point.get("nu"), now)
                           if run and run.spectra is not None else None),
             )
         return RunSnapshot(

@@ -285,38 +285,40 @@ def _flattest_band(f, comp, dof, usable):
     # a run may not cross an unusable band
     bad = np.r_[0, np.cumsum(~usable)]
     tol = math.log1p(FLAT_TOLERANCE)
-    best, best_span = None, math.log(MIN_FIT_SPAN)
-    for a in idx:
-        b = np.arange(a + 4, f.size)
-        b = b[(bad[b + 1] - bad[a]) == 0]
-        b = b[x[b] - x[a] >= best_span]
-        if b.size == 0:
-            continue
-        s = [pw[p][b + 1] - pw[p][a] for p in range(5)]
-        m = np.stack([np.stack([s[0], s[1], s[2]], -1), np.stack([s[1], s[2], s[3]], -1),
-                      np.stack([s[2], s[3], s[4]], -1)], -2)
-        r = np.stack([py[p][b + 1] - py[p][a] for p in range(3)], -1)
-        try:
-            cov = np.linalg.inv(m)
-        except np.linalg.LinAlgError:
-            continue
-        beta = np.einsum("kij,kj->ki", cov, r)
-        chi2 = (pyy[b + 1] - pyy[a]) - np.einsum("ki,ki->k", beta, r)
-        xm, x2m = s[1] / s[0], s[2] / s[0]
-        vertex = np.where(beta[:, 2] != 0, -beta[:, 1] / (2 * np.where(beta[:, 2] != 0, beta[:, 2], 1.0)), x[a])
-        vertex = np.clip(vertex, x[a], x[b])
-        worst = np.zeros(b.size)
-        for xe in (np.full(b.size, x[a]), x[b], vertex):
-            g = np.stack([np.zeros(b.size), xe - xm, xe**2 - x2m], -1)
-            dev = np.abs(np.einsum("ki,ki->k", g, beta))
-            sd = np.sqrt(np.maximum(np.einsum("ki,kij,kj->k", g, cov, g), 0.0))
-            worst = np.maximum(worst, dev + WIDEN * sd)
-        n = b - a + 1
-        ok = (worst <= tol) & (chi2 <= sst.chi2.ppf(0.999, np.maximum(n - 3, 1)))
-        if ok.any():
-            k = np.flatnonzero(ok)[-1]  # the widest from this start
-            best, best_span = (int(a), int(b[k])), float(x[b[k]] - x[a])
-    return best
+    # every (start, end) pair at once: ends at least 4 bands on, spanning MIN_FIT_SPAN, no unusable band inside
+    a, b = np.triu_indices(f.size, 4)
+    keep = usable[a] & usable[b] & ((bad[b + 1] - bad[a]) == 0) & (x[b] - x[a] >= math.log(MIN_FIT_SPAN))
+    a, b = a[keep], b[keep]
+    if a.size == 0:
+        return None
+    s = [pw[p][b + 1] - pw[p][a] for p in range(5)]
+    m = np.stack([np.stack([s[0], s[1], s[2]], -1), np.stack([s[1], s[2], s[3]], -1),
+                  np.stack([s[2], s[3], s[4]], -1)], -2)
+    r = np.stack([py[p][b + 1] - py[p][a] for p in range(3)], -1)
+    det = np.linalg.det(m)
+    good = np.abs(det) > 1e-12 * np.abs(m).max(axis=(1, 2)) ** 3
+    a, b, m, r, s = a[good], b[good], m[good], r[good], [v[good] for v in s]
+    if a.size == 0:
+        return None
+    cov = np.linalg.inv(m)
+    beta = np.einsum("kij,kj->ki", cov, r)
+    chi2 = (pyy[b + 1] - pyy[a]) - np.einsum("ki,ki->k", beta, r)
+    xm, x2m = s[1] / s[0], s[2] / s[0]
+    c2 = np.where(beta[:, 2] != 0, beta[:, 2], 1.0)
+    vertex = np.clip(np.where(beta[:, 2] != 0, -beta[:, 1] / (2 * c2), x[a]), x[a], x[b])
+    worst = np.zeros(a.size)
+    for xe in (x[a], x[b], vertex):
+        g = np.stack([np.zeros(a.size), xe - xm, xe**2 - x2m], -1)
+        dev = np.abs(np.einsum("ki,ki->k", g, beta))
+        sd = np.sqrt(np.maximum(np.einsum("ki,kij,kj->k", g, cov, g), 0.0))
+        worst = np.maximum(worst, dev + WIDEN * sd)
+    n = b - a + 1
+    ok = (worst <= tol) & (chi2 <= sst.chi2.ppf(0.999, np.maximum(n - 3, 1)))
+    if not ok.any():
+        return None
+    span = np.where(ok, x[b] - x[a], -np.inf)
+    k = int(np.argmax(span))  # the widest (first of equals: the lowest start)
+    return int(a[k]), int(b[k])
 
 
 # ---------------------------------------------------------------- scales

@@ -32,15 +32,16 @@ class PointSpectra:
     segment : samples per Welch segment (None: from the integral time of the first samples)
     c1 : Kolmogorov constant of the 1-D spectrum for the inertial fit
     fit_range_hz : a (low, high) range for the inertial fit instead of the automatic one
+    stride : transform every ``stride``-th Welch segment only (cheaper, fewer dof)
     """
 
     def __init__(self, columns, rate_hz: float, *, segment: int | None = None, c1: float = C1_DEFAULT,
-                 fit_range_hz=None):
+                 fit_range_hz=None, stride: int = 1):
         self.columns = tuple(columns)
         self.rate_hz = float(rate_hz)
         self.c1 = float(c1)
         self.fit_range_hz = fit_range_hz
-        self.welch = SpectrumAccumulator(self.columns, self.rate_hz, segment=segment)
+        self.welch = SpectrumAccumulator(self.columns, self.rate_hz, segment=segment, stride=stride)
         self._cache: tuple | None = None
         self._live: tuple | None = None
 
@@ -74,14 +75,20 @@ class PointSpectra:
         return spec, result
 
 
-    def live(self, moments, nu: float | None = None, growth: float = 1.25):
-        """Like :meth:`evaluate`, but re-evaluated only once the segment count has grown by
-        ``growth`` since the last live evaluation (a display needs no fresher ε, and the fit
-        costs ~0.1 s); the point's end always uses :meth:`evaluate`."""
-        if self._live is not None and self.welch.segments < growth * self._live[0] and self._live[0] > 0:
-            return self._live[1]
+    def live(self, moments, nu: float | None = None, now: float | None = None, growth: float = 1.25,
+             min_interval_s: float = 1.0):
+        """Like :meth:`evaluate`, for a display: re-evaluated only once the segment count has grown
+        by ``growth`` and (when the caller passes its clock's ``now``) ``min_interval_s`` has passed
+        since the last live evaluation; a display needs no fresher ε, and the fit costs tens of ms.
+        The point's summary line always uses :meth:`evaluate`."""
+        if self._live is not None:
+            segs, at, out = self._live
+            grown = self.welch.segments >= growth * segs and self.welch.segments > segs
+            waited = now is None or at is None or now - at >= min_interval_s
+            if segs > 0 and not (grown and waited):
+                return out
         out = self.evaluate(moments, nu)
-        self._live = (self.welch.segments, out)
+        self._live = (self.welch.segments, now, out)
         return out
 
 

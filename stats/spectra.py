@@ -33,6 +33,8 @@ import scipy.fft
 from scipy import signal as sps
 from scipy import stats as sst
 
+from eddyvigil.stats.spectral_kernels import accumulate_power
+
 __all__ = [
     "RESOLUTION_FACTOR",
     "LogSpectrum",
@@ -169,10 +171,10 @@ def log_bin(f_hz, psd, dof, window: np.ndarray | None = None, max_bins: int = 20
     pb = np.add.reduceat(p[1:], starts, axis=0) / (count if p.ndim == 1 else count[:, None])
     db = np.add.reduceat(d[1:], starts) / count
     factor = np.empty(count.size)
-    for i, mcount in enumerate(count):
+    for mcount in np.unique(count):  # depends on the band's bin count only
         js = np.arange(1, min(mcount, r.size + 1))
         corr = np.sum((1.0 - js / mcount) * r[js - 1]) if js.size else 0.0
-        factor[i] = mcount / (1.0 + 2.0 * corr)
+        factor[count == mcount] = mcount / (1.0 + 2.0 * corr)
     return LogSpectrum(fb, pb, db * factor, first, count)
 
 
@@ -216,17 +218,25 @@ class SpectrumAccumulator:
     rate_hz : sampling rate
     segment : samples per segment (a power of two is fastest); None chooses it from the
         integral time scale ``tint_s`` or, when that is None too, from the first ``probe`` samples.
+    stride : transform only every ``stride``-th segment of the 50 %-overlapped sequence (1: all,
+        Welch's estimator proper). A larger stride costs ``1/stride`` of the FFT work and gives
+        fewer degrees of freedom, which the dof and intervals account for (benchmarks/bench_spectra.py).
     """
 
     def __init__(self, columns, rate_hz: float, *, segment: int | None = None, tint_s: float | None = None,
-                 probe: int | None = None):
+                 probe: int | None = None, stride: int = 1):
         self.columns = tuple(columns)
+        self.stride = int(stride)
+        if self.stride < 1:
+            raise ValueError(f"stride must be >= 1, got {stride!r}")
+        self._skip = 0
         self.rate_hz = float(rate_hz)
         if not (self.rate_hz > 0 and math.isfinite(self.rate_hz)):
             raise ValueError(f"rate must be positive, got {rate_hz!r}")
         self._m = len(self.columns)
         self._probe = int(probe) if probe is not None else int(min(max(4 * MIN_SEGMENT, 2 * rate_hz), 1 << 18))
-        self._tail = np.zeros((0, self._m))
+        self._buf = np.zeros((self._m, 0))  # column-major samples not yet past a segment start
+        self._fill = 0
         self.segment = None
         self._sum = None
         self.segments = 0
@@ -246,6 +256,8 @@ class SpectrumAccumulator:
         self.hop = n - n // 2  # scipy.signal.welch's default overlap n // 2
         self.window = sps.get_window("hann", n)  # periodic Hann, as scipy.signal.welch
         self._scale = 1.0 / (self.rate_hz * float(np.dot(self.window, self.window)))
+        self._window_ft = scipy.fft.rfft(self.window)
+        self._window_bins = np.flatnonzero(np.abs(self._window_ft) > 1e-9 * abs(self._window_ft[0]))
         self._sum = np.zeros((n // 2 + 1, self._m))
 
     @property
@@ -254,29 +266,50 @@ class SpectrumAccumulator:
         return 0 if not self.segments else self.segment + (self.segments - 1) * self.hop
 
     def update(self, block) -> SpectrumAccumulator:
-        x = np.asarray(block, dtype=np.float64)
+        x = np.asarray(block)
         if x.ndim == 1:
             x = x[:, None]
         if x.shape[1] != self._m:
             raise ValueError(f"block has {x.shape[1]} columns, expected {self._m}")
-        buf = np.concatenate([self._tail, x]) if self._tail.shape[0] else x
+        if self._skip:
+            drop = min(self._skip, x.shape[0])
+            x, self._skip = x[drop:], self._skip - drop
+        self._append(x)
         if self.segment is None:
-            if buf.shape[0] < self._probe:
-                self._tail = buf.copy()
+            if self._fill < self._probe:
                 return self
-            self._set_segment(segment_length(self.rate_hz, integral_time_estimate(buf, self.rate_hz)))
-        n, hop = self.segment, self.hop
-        k = 0 if buf.shape[0] < n else 1 + (buf.shape[0] - n) // hop
+            held = self._buf[:, : self._fill].T
+            self._set_segment(segment_length(self.rate_hz, integral_time_estimate(held, self.rate_hz)))
+        n, step = self.segment, self.hop * self.stride
+        have = self._fill
+        k = 0 if have < n else 1 + (have - n) // step
         if k:
-            # (k, m, n) view of the overlapping segments; one batched FFT per block
-            segs = np.lib.stride_tricks.sliding_window_view(buf, n, axis=0)[: (k - 1) * hop + 1 : hop]
-            segs = segs - segs.mean(axis=2, keepdims=True)
+            # (m, k, n) view of the segments on the column-major buffer: the window product reads
+            # memory in order, and one batched FFT serves the whole block
+            segs = np.lib.stride_tricks.sliding_window_view(self._buf[:, : (k - 1) * step + n], n, axis=1)[:, ::step]
             spec = scipy.fft.rfft(segs * self.window, axis=2)
-            power = spec.real**2 + spec.imag**2
-            self._sum += power.sum(axis=0).T
+            # each segment's own mean removed after the transform, FFT(h (x - m)) = FFT(h x) - m FFT(h);
+            # the periodic Hann window's transform is non-zero in bins 0 and 1 only
+            mean = segs.mean(axis=2)  # contiguous rows: a fast reduce
+            for b in self._window_bins:
+                spec[:, :, b] -= mean * self._window_ft[b]
+            accumulate_power(spec, self._sum)
             self.segments += k
-        self._tail = buf[k * hop :].copy()
+            self._skip = max(0, k * step - have)  # a stride may step past the data held
+            keep = max(0, have - k * step)
+            self._buf[:, :keep] = self._buf[:, have - keep : have].copy()
+            self._fill = keep
         return self
+
+    def _append(self, x: np.ndarray) -> None:
+        """Copy rows into the column-major buffer (growing it by doubling; cast to float64 here)."""
+        need = self._fill + x.shape[0]
+        if need > self._buf.shape[1]:
+            grown = np.zeros((self._m, max(need, 2 * self._buf.shape[1])))
+            grown[:, : self._fill] = self._buf[:, : self._fill]
+            self._buf = grown
+        self._buf[:, self._fill : need] = x.T
+        self._fill = need
 
     def merge(self, other: SpectrumAccumulator) -> SpectrumAccumulator:
         """Pool the segments of two records (other follows self; the seam's partial segment is lost)."""
@@ -284,10 +317,14 @@ class SpectrumAccumulator:
             raise ValueError("spectra of different columns or rates cannot be merged")
         if self.segment is None or other.segment is None or self.segment != other.segment:
             raise ValueError("spectra with different (or undecided) segment lengths cannot be merged")
-        out = SpectrumAccumulator(self.columns, self.rate_hz, segment=self.segment)
+        if self.stride != other.stride:
+            raise ValueError("spectra taken with different strides cannot be merged")
+        out = SpectrumAccumulator(self.columns, self.rate_hz, segment=self.segment, stride=self.stride)
         out._sum = self._sum + other._sum
         out.segments = self.segments + other.segments
-        out._tail = other._tail.copy()
+        out._buf = other._buf[:, : other._fill].copy()
+        out._fill = other._fill
+        out._skip = other._skip
         return out
 
     def snapshot(self) -> SpectrumSnapshot | None:
@@ -297,7 +334,7 @@ class SpectrumAccumulator:
         n = self.segment
         psd = self._sum * (self._scale / self.segments)
         psd[1 : (n + 1) // 2] *= 2.0  # one-sided: all but DC (and Nyquist for even n)
-        dof = np.full(psd.shape[0], welch_dof(self.window, self.hop, self.segments))
+        dof = np.full(psd.shape[0], welch_dof(self.window, self.hop * self.stride, self.segments))
         dof[0] /= 2.0
         if n % 2 == 0:
             dof[-1] /= 2.0

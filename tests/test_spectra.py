@@ -154,3 +154,21 @@ def test_log_bin_independent_when_no_window():
     lb = log_bin(f, np.ones(11), np.full(11, 2.0), None, max_bins=3)
     assert lb.count.sum() == 10
     np.testing.assert_allclose(lb.dof, 2.0 * lb.count)
+
+
+def test_stride_uses_every_other_segment_like_scipy_without_overlap():
+    # stride 2 at 50 % overlap = adjacent, non-overlapping segments: scipy.signal.welch with noverlap=0
+    rng = np.random.default_rng(8)
+    x = ar1(rng, 30_000, 2, 0.9)
+    acc = _feed(SpectrumAccumulator(("u", "v"), 100.0, segment=1000, stride=2), x, rng)
+    _, p = sps.welch(x, fs=100.0, nperseg=1000, noverlap=0, axis=0)
+    np.testing.assert_allclose(acc.snapshot().psd, p, rtol=1e-11)
+    assert acc.segments == 30
+    # no overlap between the used segments: nu = 2K (Percival & Walden 1993, eq. 292b)
+    assert acc.snapshot().dof[5] == pytest.approx(60.0)
+    # stride 3: every third segment, gaps between them, still exact whatever the blocks
+    segs = np.lib.stride_tricks.sliding_window_view(x, 1000, axis=0)[::1500]
+    ref = np.mean([sps.welch(s.T, fs=100.0, nperseg=1000, axis=0)[1] for s in segs], axis=0)
+    for _ in range(8):  # block sequences that end inside a skipped stretch were once mishandled
+        acc3 = _feed(SpectrumAccumulator(("u", "v"), 100.0, segment=1000, stride=3), x, rng)
+        np.testing.assert_allclose(acc3.snapshot().psd, ref, rtol=1e-11)
