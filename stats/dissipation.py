@@ -55,6 +55,10 @@ MIN_BAND_DOF = 200.0
 #: standard errors by which the fitted shape is widened before the ±5 % test (0.5: the hump of an
 #: exponential spectrum is refused, a Re_lambda = 500 model spectrum of 52 s accepted; tests/test_dissipation*.py)
 WIDEN = 0.5
+#: above this turbulence intensity u'/U no spectral eps is given (Taylor's hypothesis, REFERENCES §7 pitfalls)
+MAX_INTENSITY = 0.5
+#: above this one eps_method says Taylor's hypothesis is strained (Wyngaard & Clifford 1977, from memory)
+STRAINED_INTENSITY = 0.25
 #: eps_iso is "resolved" when the dissipation spectrum (2 pi f)^2 S at the cut-off is below this fraction of its peak
 RESOLVED_FRACTION = 0.05
 
@@ -174,7 +178,9 @@ def noise_floor(spec: SpectrumSnapshot, col: int = 0) -> NoiseFloor | None:
     level = float(s[top].mean())
     dof_top = float(spec.dof[top].mean()) * top.sum() / 1.94  # Hann neighbours: 1 + 2(4/9 + 1/36)
     above = np.flatnonzero(lb.psd > 2.0 * level)
-    cutoff = float(lb.f_hz[above[-1] + 1]) if above.size and above[-1] + 1 < lb.f_hz.size else nyq / 2.0
+    if above.size == 0:  # nothing stands above the floor: no signal to differentiate
+        return NoiseFloor(level, level * math.sqrt(2.0 / dof_top), 0.0)
+    cutoff = float(lb.f_hz[above[-1] + 1]) if above[-1] + 1 < lb.f_hz.size else nyq / 2.0
     return NoiseFloor(level, level * math.sqrt(2.0 / dof_top), min(cutoff, nyq / 2.0))
 
 
@@ -208,6 +214,9 @@ def isotropic_derivative(spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=Non
     fc = cutoff_hz if cutoff_hz is not None else (floor.cutoff_hz if floor else spec.rate_hz / 2.0)
     level = floor.level if floor else 0.0
     level_se = floor.level_stderr if floor else 0.0
+    if floor is not None and not np.any(spec.psd[(spec.f_hz > 0) & (spec.f_hz <= fc), col] > 10.0 * level):
+        why = "the spectrum never rises ten times above the noise floor: no derivative estimate"
+        return Quantity.missing(why), 0.0, 0.0, float("inf")
     d, d_se, tail = _derivative_variance(spec, col, fc, level, level_se)
     if not d > 0:
         return Quantity.missing("no derivative variance above the noise floor"), d, d_se, tail
@@ -414,9 +423,12 @@ def dissipation(spec: SpectrumSnapshot, speed_ms: float, *, nu: float | None = N
     fl = floors[spec.columns[0]]
     cutoff = fl.cutoff_hz if fl else spec.rate_hz / 2.0
     peaks = find_peaks(spec)
-    if not speed > 0:
-        miss = Quantity.missing("no mean speed for Taylor's hypothesis")
-        return Dissipation(miss, "none: no mean speed", miss, miss, miss, miss, miss, miss, miss, None, nu,
+    intensity = math.sqrt(variance) / speed if speed > 0 and variance >= 0 else math.inf
+    if not intensity <= MAX_INTENSITY:
+        why = (f"Taylor's hypothesis untenable: turbulence intensity u'/U = {intensity:.2g} "
+               f"(above {MAX_INTENSITY:g})" if speed > 0 else "no mean speed for Taylor's hypothesis")
+        miss = Quantity.missing(why)
+        return Dissipation(miss, f"none: {why}", miss, miss, miss, miss, miss, miss, miss, None, nu,
                            nu_source, c1, speed, None, floors, cutoff, peaks)
     speed_rel = (speed_stderr / speed) if speed_stderr else 0.0
     inertial, rng = inertial_fit(spec, speed, c1=c1, cutoff_hz=cutoff, fit_range_hz=fit_range_hz,
@@ -443,10 +455,12 @@ def dissipation(spec: SpectrumSnapshot, speed_ms: float, *, nu: float | None = N
     else:
         eps = Quantity.missing(f"{inertial.reason}; and {iso.reason or 'no derivative estimate'}")
         method = "none: neither an inertial range nor a resolved dissipation range"
+    if eps.value is not None and intensity > STRAINED_INTENSITY:
+        method += f"; Taylor's hypothesis strained at u'/U = {intensity:.2f}"
     eta, tau, lam, rel = scales(eps, nu, variance, var_rel, confidence)
     s0 = float(np.mean(spec.psd[2:4, 0])) if spec.psd.shape[0] > 4 else float("nan")  # bin 1 feels the detrend
     lu_rel = math.sqrt(2.0 / (2.0 * float(spec.dof[1]) / 1.44))  # two neighbouring bins, r1 = 4/9
-    lu = Quantity.lognormal(speed * s0 / (4.0 * variance), math.hypot(lu_rel, var_rel), z,
+    lu = Quantity.lognormal(speed * s0 / (4.0 * variance) if variance > 0 else math.nan, math.hypot(lu_rel, var_rel), z,
                             "from the lowest bins; biased low when the resolution is coarse")
     return Dissipation(eps, method, inertial, iso, eta, tau, lam, rel, lu, ratio, nu, nu_source, c1, speed, rng,
                        floors, cutoff, peaks)

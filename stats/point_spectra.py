@@ -151,7 +151,7 @@ def summary_fields(spectra: PointSpectra | None, moments, point: dict | None, *,
         "spectra_segments": int(spec.segments),
     }
     if d is None:
-        why = "no mean speed or variance yet"
+        why = "no finite mean speed or no positive u variance"
         fields.update({"peaks": [], "eps_method": f"none: {why}", "nu": nu_msg if nu_msg is not None else NU_AIR_20C,
                        "nu_source": "point" if nu_msg is not None else "default"})
         return fields, [_row(n, Quantity.missing(why)) for n in SPECTRAL_ROWS]

@@ -170,3 +170,42 @@ def test_broadband_streams_report_no_peak():
         spec = SpectrumAccumulator(("u", "v"), 1000.0, segment=1024).update(x).snapshot()
         hits += bool(find_peaks(spec))
     assert hits / 200 <= 0.05, hits
+
+
+def test_white_noise_alone_gives_no_eps_and_high_intensity_refuses_taylor():
+    # white noise: a floor and nothing above it -> no derivative estimate, no inertial range
+    rng = np.random.default_rng(9)
+    x = 10.0 + 0.1 * rng.standard_normal((1 << 17, 1))
+    spec = SpectrumAccumulator(("u",), 1000.0, segment=1024).update(x).snapshot()
+    d = dissipation(spec, 10.0)
+    assert d.floors["u"] is not None
+    assert d.eps.value is None and d.eps_iso.value is None and "floor" in d.eps_iso.reason
+    # u'/U = 0.8: Taylor's hypothesis does not hold (REFERENCES §7 pitfalls), so no eps at all
+    d2 = dissipation(spec, 0.125, variance=0.01)
+    assert d2.eps.value is None and "Taylor" in d2.eps_method
+
+
+def test_degenerate_streams_through_the_pipeline_never_raise():
+    import io
+    import json
+
+    from eddyvigil.monitor.pipeline import Pipeline
+
+    class Clock:
+        t = 0.0
+
+        def __call__(self):
+            return self.t
+
+    for block in (np.full((40_000, 3), 5.0), 1e-300 * np.random.default_rng(1).standard_normal((40_000, 3))):
+        buf = io.StringIO()
+        p = Pipeline(summary=buf, clock=Clock())
+        for i in range(0, block.shape[0], 4096):
+            assert p.feed("s", block[i : i + 4096], rate_hz=1000.0) is None
+        p.publish()
+        p.end("s")
+        p.close()
+        line = json.loads(buf.getvalue().splitlines()[0])
+        rows = {r["name"]: r for r in line["statistics"]}
+        assert rows["eps"]["value"] is None and rows["eps"]["reason"]
+        assert p.internal_errors == []
