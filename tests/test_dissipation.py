@@ -209,3 +209,16 @@ def test_degenerate_streams_through_the_pipeline_never_raise():
         rows = {r["name"]: r for r in line["statistics"]}
         assert rows["eps"]["value"] is None and rows["eps"]["reason"]
         assert p.internal_errors == []
+
+
+def test_user_fit_range_is_used_as_given():
+    # an exact -5/3 law (REFERENCES §7 frequency-domain form) fitted only over 100-300 Hz
+    U = 10.0
+    f = np.linspace(0, 10_000, 8193)
+    k1 = 2 * np.pi * np.maximum(f, 1e-9) / U
+    psd = 2 * np.pi / U * C1_DEFAULT * 0.5 ** (2 / 3) * k1 ** (-5 / 3)
+    q, rng = inertial_fit(model_snapshot(f, psd, 20_000.0), U, fit_range_hz=(100.0, 300.0))
+    assert q.value == pytest.approx(0.5, rel=1e-9)
+    assert 100.0 <= rng[0] < rng[1] <= 300.0
+    q2, rng2 = inertial_fit(model_snapshot(f, psd, 20_000.0), U, fit_range_hz=(100.0, 100.5))
+    assert q2.value is None and "given range" in q2.reason and rng2 is None
