@@ -321,8 +321,9 @@ def _flattest_band(f, comp, dof, usable):
         dev = np.abs(np.einsum("ki,ki->k", g, beta))
         sd = np.sqrt(np.maximum(np.einsum("ki,kij,kj->k", g, cov, g), 0.0))
         worst = np.maximum(worst, dev + WIDEN * sd)
-    n = b - a + 1
-    ok = (worst <= tol) & (chi2 <= sst.chi2.ppf(0.999, np.maximum(n - 3, 1)))
+    n = np.maximum(b - a - 2, 1)  # bands minus the quadratic's three parameters
+    limit = sst.chi2.ppf(0.999, np.arange(n.max() + 1).clip(1))  # once per dof, not per pair
+    ok = (worst <= tol) & (chi2 <= limit[n])
     if not ok.any():
         return None
     span = np.where(ok, x[b] - x[a], -np.inf)
