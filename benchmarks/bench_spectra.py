@@ -46,11 +46,18 @@ def frames_of(x: np.ndarray, rows: int, points: int) -> list[list[bytes]]:
     out, seq = [], 0
     per_point = x.shape[0] // points
     for p in range(points):
-        out.append(wire.encode_point("bench", "s1", seq, {"id": f"P{p}", "x": 0.0, "y": 0.01 * p, "z": 0.0}))
+        out.append(
+            wire.encode_point(
+                "bench", "s1", seq, {"id": f"P{p}", "x": 0.0, "y": 0.01 * p, "z": 0.0}
+            )
+        )
         seq += 1
         for i in range(p * per_point, (p + 1) * per_point - rows + 1, rows):
-            out.append(wire.encode_samples("bench", "s1", seq, x[i : i + rows], ("u", "v", "w"),
-                                           rate_hz=RATE, t0=i / RATE))
+            out.append(
+                wire.encode_samples(
+                    "bench", "s1", seq, x[i : i + rows], ("u", "v", "w"), rate_hz=RATE, t0=i / RATE
+                )
+            )
             seq += 1
     out.append(wire.encode_end("bench", "s1", seq))
     return out
@@ -60,12 +67,14 @@ def run(frames, stride: int | None) -> float:
     """Seconds to feed ``frames``; ``stride`` None switches the spectra off."""
     p = Pipeline(summary=io.StringIO())
     if stride is None:
-        p._spectra = types.SimpleNamespace(PointSpectra=lambda *a, **k: None,
-                                           summary_fields=point_spectra.summary_fields)
+        p._spectra = types.SimpleNamespace(
+            PointSpectra=lambda *a, **k: None, summary_fields=point_spectra.summary_fields
+        )
     elif stride != 1:
         p._spectra = types.SimpleNamespace(
             PointSpectra=functools.partial(point_spectra.PointSpectra, stride=stride),
-            summary_fields=point_spectra.summary_fields)
+            summary_fields=point_spectra.summary_fields,
+        )
     t = time.perf_counter()
     for f in frames:
         p.handle_frames(f)
@@ -93,15 +102,23 @@ def main() -> None:
     for r in range(a.repeat):
         for v in variants:  # side by side, interleaved
             times[v].append(run(frames, v))
-        row = ", ".join(f"{'off' if v is None else f'stride {v}'} {samples / times[v][-1] / 1e6:6.2f}"
-                        for v in variants)
+        row = ", ".join(
+            f"{'off' if v is None else f'stride {v}'} {samples / times[v][-1] / 1e6:6.2f}"
+            for v in variants
+        )
         print(f"round {r + 1} (M samples/s): {row}")
     base = statistics.median(times[None])
     for v in variants[1:]:
-        extra = statistics.median(t / b for t, b in zip(times[v], times[None]))
-        print(f"spectra + eps with stride {v:2d}: median extra cost {100 * (extra - 1):6.1f} % of the ingest path "
-              f"(off: {samples / base / 1e6:.1f} M samples/s)")
-    print(f"({a.points} points of {a.seconds:g} s, 3 float32 columns at 20 kHz, {a.rows} rows/message)")
+        extra = statistics.median(t / b for t, b in zip(times[v], times[None], strict=True))
+        print(
+            f"spectra + eps with stride {v:2d}: median extra cost {100 * (extra - 1):6.1f} % "
+            "of the ingest path "
+            f"(off: {samples / base / 1e6:.1f} M samples/s)"
+        )
+    print(
+        f"({a.points} points of {a.seconds:g} s, 3 float32 columns at 20 kHz, "
+        f"{a.rows} rows/message)"
+    )
     from eddyvigil.stats.spectra import SpectrumAccumulator
 
     spec = SpectrumAccumulator(("u", "v", "w"), RATE).update(x[: int(a.seconds * RATE)]).snapshot()
@@ -109,8 +126,10 @@ def main() -> None:
     t = time.perf_counter()
     for _ in range(5):
         dissipation(spec, 5.0)
-    print(f"one dissipation() evaluation (segment {spec.segment}, 3 columns): "
-          f"{(time.perf_counter() - t) / 5 * 1e3:.0f} ms")
+    print(
+        f"one dissipation() evaluation (segment {spec.segment}, 3 columns): "
+        f"{(time.perf_counter() - t) / 5 * 1e3:.0f} ms"
+    )
 
 
 if __name__ == "__main__":

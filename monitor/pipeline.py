@@ -537,7 +537,9 @@ class Pipeline:
         if snap is not None:
             fields = snap.summary_fields()
             line.update(fields)
-            extra, rows = self._spectra.summary_fields(run.spectra, snap, run.point, random_sampling=run.rate_hz is None)
+            extra, rows = self._spectra.summary_fields(
+                run.spectra, snap, run.point, random_sampling=run.rate_hz is None
+            )
             line.update(extra)
             # keep the contract order: statistics last
             line["statistics"] = line.pop("statistics") + rows

@@ -55,7 +55,7 @@ class StreamView:
     finished: tuple[Mapping, ...] = ()
     ended: bool = False
     converged_wall_age_s: float | None = None
-    #: (stats.spectra.SpectrumSnapshot | None, stats.dissipation.Dissipation | None) of the current point
+    #: (SpectrumSnapshot | None, Dissipation | None) of the current point (stats.point_spectra)
     spectrum: tuple | None = None
 
     def __post_init__(self):

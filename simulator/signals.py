@@ -505,12 +505,15 @@ class PopeSpectrum:
 
         def residual(c):
             e = self._energy(kap, c[0], c[1])
-            return [np.trapezoid(e * kap, self._x) / self.k - 1.0,
-                    np.trapezoid(2 * self.nu * kap**3 * e, self._x) / self.eps - 1.0]
+            return [
+                np.trapezoid(e * kap, self._x) / self.k - 1.0,
+                np.trapezoid(2 * self.nu * kap**3 * e, self._x) / self.eps - 1.0,
+            ]
 
         self.c_L, self.c_eta = (float(v) for v in fsolve(residual, [6.78, 0.40], xtol=1e-12))
         e = self._energy(kap, self.c_L, self.c_eta)
-        # tails from the top: A(k1) = int_{k1} E dx, B(k1) = int_{k1} E / kappa^2 dx  (dx = dkappa/kappa)
+        # tails from the top: A(k1) = int_{k1} E dx, B(k1) = int_{k1} E / kappa^2 dx
+        # (dx = dkappa/kappa)
         dx = self._x[1] - self._x[0]
         self._a = np.r_[np.cumsum(((e[1:] + e[:-1]) * dx / 2)[::-1])[::-1], 0.0]
         eb = e / kap**2
@@ -540,7 +543,10 @@ class PopeSpectrum:
         return 0.5 * (a + k**2 * b)
 
     def psd(self, f_hz, speed_ms, transverse=False) -> np.ndarray:
-        """One-sided frequency spectrum (Hz) by Taylor's hypothesis: ``S = 2 pi E11(2 pi f/U) / U``."""
+        """One-sided frequency spectrum (Hz) by Taylor's hypothesis.
+
+        ``S = 2 pi E11(2 pi f/U) / U`` (``E22`` when ``transverse``).
+        """
         f = np.asarray(f_hz, dtype=np.float64)
         k1 = np.maximum(2 * math.pi * f / speed_ms, np.exp(self._x[0]))
         e = self.e22(k1) if transverse else self.e11(k1)
@@ -585,7 +591,9 @@ class PopeGenerator(TurbulenceGenerator):
         self.spectrum = PopeSpectrum(k, eps, nu)
         stress = np.eye(m) * self.spectrum.u_rms**2
         super().__init__(mean, stress, rate_hz, seed, shedding=shedding)
-        self.speed_ms = float(speed_ms) if speed_ms is not None else float(np.linalg.norm(self.mean))
+        self.speed_ms = (
+            float(speed_ms) if speed_ms is not None else float(np.linalg.norm(self.mean))
+        )
         if not self.speed_ms > 0:
             raise ValueError("Pope generator needs a mean speed > 0")
         tl = self.spectrum.l11 / self.speed_ms
@@ -606,7 +614,10 @@ class PopeGenerator(TurbulenceGenerator):
     def psd_unit(self, f_hz, transverse=False, folds=8) -> np.ndarray:
         """Unit-variance one-sided PSD folded about Nyquist (``folds`` images each side)."""
         f = np.asarray(f_hz, dtype=np.float64)
-        one = lambda g: self.spectrum.psd(np.abs(g), self.speed_ms, transverse) / self.spectrum.u_rms**2  # noqa: E731
+
+        def one(g):
+            return self.spectrum.psd(np.abs(g), self.speed_ms, transverse) / self.spectrum.u_rms**2
+
         s = one(f)
         for j in range(1, folds + 1):
             s = s + one(j * self.rate_hz - f) + one(j * self.rate_hz + f)
@@ -614,8 +625,15 @@ class PopeGenerator(TurbulenceGenerator):
 
     def truth(self) -> dict:
         sp = self.spectrum
-        return {"eps": sp.eps, "eta": sp.eta, "tau_eta": sp.tau_eta, "lambda_g": sp.lambda_g,
-                "Re_lambda": sp.re_lambda, "nu": sp.nu, "L_u": sp.l11}
+        return {
+            "eps": sp.eps,
+            "eta": sp.eta,
+            "tau_eta": sp.tau_eta,
+            "lambda_g": sp.lambda_g,
+            "Re_lambda": sp.re_lambda,
+            "nu": sp.nu,
+            "L_u": sp.l11,
+        }
 
     def _fill(self, n, out):
         parts, have = [self._ready], self._ready.shape[0]
@@ -623,7 +641,13 @@ class PopeGenerator(TurbulenceGenerator):
             noise = self._rng.standard_normal((self._chunk, self.m))
             buf = np.concatenate([self._history, noise])
             self._history = buf[-(self.taps - 1) :].copy()
-            c = np.stack([sps.fftconvolve(buf[:, i], self.kernels[:, i], mode="valid") for i in range(self.m)], axis=1)
+            c = np.stack(
+                [
+                    sps.fftconvolve(buf[:, i], self.kernels[:, i], mode="valid")
+                    for i in range(self.m)
+                ],
+                axis=1,
+            )
             parts.append(c)
             have += c.shape[0]
         pool = np.concatenate(parts) if len(parts) > 1 else self._ready

@@ -22,10 +22,9 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
+from eddyvigil.stats.spectra import SpectrumSnapshot, _bin_correlations, log_bin
 from scipy import ndimage
 from scipy import stats as sst
-
-from eddyvigil.stats.spectra import SpectrumSnapshot, _bin_correlations, log_bin
 
 __all__ = [
     "C1_DEFAULT",
@@ -42,9 +41,11 @@ __all__ = [
     "scales",
 ]
 
-#: Kolmogorov constant of the 1-D longitudinal spectrum, (18/55) * 1.5 (Pope 2000, Turbulent Flows, §6.5; REFERENCES §7)
+#: Kolmogorov constant of the 1-D longitudinal spectrum, (18/55) * 1.5 (Pope 2000, Turbulent Flows,
+#: §6.5; REFERENCES §7)
 C1_DEFAULT = 0.49
-#: kinematic viscosity of dry air at 20 °C and 101.325 kPa, m^2/s (common practice; handbook value, from memory)
+#: kinematic viscosity of dry air at 20 °C and 101.325 kPa, m^2/s (common practice; handbook value,
+#: from memory)
 NU_AIR_20C = 1.51e-5
 #: flatness of the compensated spectrum accepted as inertial (REFERENCES §7: ±5 %)
 FLAT_TOLERANCE = 0.05
@@ -53,13 +54,17 @@ MIN_FIT_SPAN = 5.0
 #: fewest degrees of freedom of a band that may take part in the inertial fit (10 % scatter)
 MIN_BAND_DOF = 200.0
 #: standard errors by which the fitted shape is widened before the ±5 % test (0.5: the hump of an
-#: exponential spectrum is refused, a Re_lambda = 500 model spectrum of 52 s accepted; tests/test_dissipation*.py)
+#: exponential spectrum is refused, a Re_lambda = 500 model spectrum of 52 s accepted;
+#: tests/test_dissipation*.py)
 WIDEN = 0.5
-#: above this turbulence intensity u'/U no spectral eps is given (Taylor's hypothesis, REFERENCES §7 pitfalls)
+#: above this turbulence intensity u'/U no spectral eps is given (Taylor's hypothesis, REFERENCES §7
+#: pitfalls)
 MAX_INTENSITY = 0.5
-#: above this one eps_method says Taylor's hypothesis is strained (Wyngaard & Clifford 1977, from memory)
+#: above this one eps_method says Taylor's hypothesis is strained (Wyngaard & Clifford 1977, from
+#: memory)
 STRAINED_INTENSITY = 0.25
-#: eps_iso is "resolved" when the dissipation spectrum (2 pi f)^2 S at the cut-off is below this fraction of its peak
+#: eps_iso is "resolved" when the dissipation spectrum (2 pi f)^2 S at the cut-off is below this
+#: fraction of its peak
 RESOLVED_FRACTION = 0.05
 
 
@@ -81,7 +86,13 @@ class Quantity:
     def lognormal(cls, value: float, rel: float, z: float, reason: str | None = None) -> Quantity:
         """Interval from a relative standard error, symmetric in log (positive quantities)."""
         if not (math.isfinite(value) and value > 0 and math.isfinite(rel)):
-            return cls(value if math.isfinite(value) else None, None, None, None, reason or "no error estimate")
+            return cls(
+                value if math.isfinite(value) else None,
+                None,
+                None,
+                None,
+                reason or "no error estimate",
+            )
         s = math.log1p(rel) if rel > 0 else 0.0
         return cls(value, value * rel, value * math.exp(-z * s), value * math.exp(z * s), reason)
 
@@ -92,7 +103,12 @@ class Quantity:
         return self.stderr / abs(self.value)
 
     def as_dict(self) -> dict:
-        return {"value": self.value, "stderr": self.stderr, "ci_low": self.ci_low, "ci_high": self.ci_high}
+        return {
+            "value": self.value,
+            "stderr": self.stderr,
+            "ci_low": self.ci_low,
+            "ci_high": self.ci_high,
+        }
 
 
 @dataclass(frozen=True)
@@ -197,7 +213,9 @@ def _derivative_variance(spec, col, cutoff_hz, floor_level, floor_stderr):
     value = float(np.dot(w, net))
     v = w * s[sel] * np.sqrt(2.0 / dof[sel])
     r = _bin_correlations(spec.window, 3)
-    var = float(np.dot(v, v)) + sum(2.0 * r[j - 1] * float(np.dot(v[:-j], v[j:])) for j in range(1, 4) if v.size > j)
+    var = float(np.dot(v, v)) + sum(
+        2.0 * r[j - 1] * float(np.dot(v[:-j], v[j:])) for j in range(1, 4) if v.size > j
+    )
     var += (float(w.sum()) * floor_stderr) ** 2
     g = w * net
     peak = float(g.max()) if g.size else 0.0
@@ -205,8 +223,9 @@ def _derivative_variance(spec, col, cutoff_hz, floor_level, floor_stderr):
     return value, math.sqrt(max(var, 0.0)), tail
 
 
-def isotropic_derivative(spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=None, confidence=0.95,
-                         speed_rel=0.0):
+def isotropic_derivative(
+    spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=None, confidence=0.95, speed_rel=0.0
+):
     """``eps_iso`` from column ``col`` and the relative size of the integrand at the cut-off.
 
     ``speed_rel``: relative standard error of the convection speed; ``eps_iso ~ U^-2``.
@@ -214,7 +233,9 @@ def isotropic_derivative(spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=Non
     fc = cutoff_hz if cutoff_hz is not None else (floor.cutoff_hz if floor else spec.rate_hz / 2.0)
     level = floor.level if floor else 0.0
     level_se = floor.level_stderr if floor else 0.0
-    if floor is not None and not np.any(spec.psd[(spec.f_hz > 0) & (spec.f_hz <= fc), col] > 10.0 * level):
+    if floor is not None and not np.any(
+        spec.psd[(spec.f_hz > 0) & (spec.f_hz <= fc), col] > 10.0 * level
+    ):
         why = "the spectrum never rises ten times above the noise floor: no derivative estimate"
         return Quantity.missing(why), 0.0, 0.0, float("inf")
     d, d_se, tail = _derivative_variance(spec, col, fc, level, level_se)
@@ -224,14 +245,25 @@ def isotropic_derivative(spec, speed_ms, nu, *, col=0, floor=None, cutoff_hz=Non
     eps = k * d
     z = _z(confidence)
     if tail > RESOLVED_FRACTION:
-        why = (f"dissipation range not resolved: (2 pi f)^2 S at the cut-off {fc:.4g} Hz is "
-               f"{100 * tail:.0f} % of its peak, so this is a lower bound")
+        why = (
+            f"dissipation range not resolved: (2 pi f)^2 S at the cut-off {fc:.4g} Hz is "
+            f"{100 * tail:.0f} % of its peak, so this is a lower bound"
+        )
         return Quantity(eps, None, None, None, why), d, d_se, tail
     return Quantity.lognormal(eps, math.hypot(d_se / d, 2.0 * speed_rel), z), d, d_se, tail
 
 
-def inertial_fit(spec, speed_ms, *, col=0, c1=C1_DEFAULT, cutoff_hz=None, fit_range_hz=None,
-                 confidence=0.95, speed_rel=0.0):
+def inertial_fit(
+    spec,
+    speed_ms,
+    *,
+    col=0,
+    c1=C1_DEFAULT,
+    cutoff_hz=None,
+    fit_range_hz=None,
+    confidence=0.95,
+    speed_rel=0.0,
+):
     """``eps`` from the flattest wide band of the compensated spectrum; (Quantity, range).
 
     The interval is conditional on ``c1`` (Sreenivasan 1995 puts C1 at 0.53 ± 0.055, from
@@ -251,15 +283,19 @@ def inertial_fit(spec, speed_ms, *, col=0, c1=C1_DEFAULT, cutoff_hz=None, fit_ra
         a, b = fit_range_hz
         pick = usable & (f >= a) & (f <= b)
         if pick.sum() < 2:
-            return Quantity.missing(f"fewer than two spectral bands in the given range {a:g}-{b:g} Hz"), None
+            return Quantity.missing(
+                f"fewer than two spectral bands in the given range {a:g}-{b:g} Hz"
+            ), None
         best = np.flatnonzero(pick)
         best = (best[0], best[-1])
     else:
         best = _flattest_band(f, comp, dof, usable)
         if best is None:
             return Quantity.missing(
-                f"no inertial range: the compensated spectrum is nowhere flat within ±{100 * FLAT_TOLERANCE:.0f} % "
-                f"over a factor {MIN_FIT_SPAN:g} in frequency (low Reynolds number, noise, or too short a record)"
+                "no inertial range: the compensated spectrum is nowhere flat within "
+                f"±{100 * FLAT_TOLERANCE:.0f} % "
+                f"over a factor {MIN_FIT_SPAN:g} in frequency "
+                "(low Reynolds number, noise, or too short a record)"
             ), None
     i, j = best
     wgt = dof[i : j + 1]
@@ -269,7 +305,10 @@ def inertial_fit(spec, speed_ms, *, col=0, c1=C1_DEFAULT, cutoff_hz=None, fit_ra
     # uniform error of half-width FLAT_TOLERANCE (sd tol/sqrt 3), beside the chi^2 scatter
     rel_c = math.hypot(rel_stat, FLAT_TOLERANCE / math.sqrt(3.0))
     eps = (cbar / c1) ** 1.5
-    return Quantity.lognormal(eps, math.hypot(1.5 * rel_c, speed_rel), _z(confidence)), (float(f[i]), float(f[j]))
+    return Quantity.lognormal(eps, math.hypot(1.5 * rel_c, speed_rel), _z(confidence)), (
+        float(f[i]),
+        float(f[j]),
+    )
 
 
 def _flattest_band(f, comp, dof, usable):
@@ -294,15 +333,27 @@ def _flattest_band(f, comp, dof, usable):
     # a run may not cross an unusable band
     bad = np.r_[0, np.cumsum(~usable)]
     tol = math.log1p(FLAT_TOLERANCE)
-    # every (start, end) pair at once: ends at least 4 bands on, spanning MIN_FIT_SPAN, no unusable band inside
+    # every (start, end) pair at once: ends at least 4 bands on, spanning MIN_FIT_SPAN, no unusable
+    # band inside
     a, b = np.triu_indices(f.size, 4)
-    keep = usable[a] & usable[b] & ((bad[b + 1] - bad[a]) == 0) & (x[b] - x[a] >= math.log(MIN_FIT_SPAN))
+    keep = (
+        usable[a]
+        & usable[b]
+        & ((bad[b + 1] - bad[a]) == 0)
+        & (x[b] - x[a] >= math.log(MIN_FIT_SPAN))
+    )
     a, b = a[keep], b[keep]
     if a.size == 0:
         return None
     s = [pw[p][b + 1] - pw[p][a] for p in range(5)]
-    m = np.stack([np.stack([s[0], s[1], s[2]], -1), np.stack([s[1], s[2], s[3]], -1),
-                  np.stack([s[2], s[3], s[4]], -1)], -2)
+    m = np.stack(
+        [
+            np.stack([s[0], s[1], s[2]], -1),
+            np.stack([s[1], s[2], s[3]], -1),
+            np.stack([s[2], s[3], s[4]], -1),
+        ],
+        -2,
+    )
     r = np.stack([py[p][b + 1] - py[p][a] for p in range(3)], -1)
     det = np.linalg.det(m)
     good = np.abs(det) > 1e-12 * np.abs(m).max(axis=(1, 2)) ** 3
@@ -334,8 +385,13 @@ def _flattest_band(f, comp, dof, usable):
 # ---------------------------------------------------------------- scales
 
 
-def scales(eps: Quantity, nu: float, variance: float, variance_rel: float = 0.0, confidence: float = 0.95):
-    """eta, tau_eta, lambda_g, Re_lambda from eps and u'^2 (REFERENCES §7), errors propagated in log."""
+def scales(
+    eps: Quantity, nu: float, variance: float, variance_rel: float = 0.0, confidence: float = 0.95
+):
+    """eta, tau_eta, lambda_g, Re_lambda from eps and u'^2 (REFERENCES §7).
+
+    Errors are propagated in log (powers of eps and u'^2).
+    """
     if eps.value is None or not eps.value > 0:
         why = f"no dissipation rate ({eps.reason})" if eps.reason else "no dissipation rate"
         return tuple(Quantity.missing(why) for _ in range(4))
@@ -344,7 +400,9 @@ def scales(eps: Quantity, nu: float, variance: float, variance_rel: float = 0.0,
     why = eps.reason if eps.stderr is None else None
     eta = Quantity.lognormal((nu**3 / e) ** 0.25, 0.25 * re, z, why)
     tau = Quantity.lognormal((nu / e) ** 0.5, 0.5 * re, z, why)
-    lam = Quantity.lognormal(math.sqrt(15.0 * nu * variance / e), 0.5 * math.hypot(re, variance_rel), z, why)
+    lam = Quantity.lognormal(
+        math.sqrt(15.0 * nu * variance / e), 0.5 * math.hypot(re, variance_rel), z, why
+    )
     rel = math.hypot(0.5 * re, variance_rel)
     rel_lambda = Quantity.lognormal(math.sqrt(variance) * lam.value / nu, rel, z, why)
     return eta, tau, lam, rel_lambda
@@ -353,8 +411,14 @@ def scales(eps: Quantity, nu: float, variance: float, variance_rel: float = 0.0,
 # ---------------------------------------------------------------- peaks
 
 
-def find_peaks(spec: SpectrumSnapshot, *, alpha: float = 0.01, min_fraction: float = 0.002,
-               flank: int = 9, gap: int = 3) -> tuple[Peak, ...]:
+def find_peaks(
+    spec: SpectrumSnapshot,
+    *,
+    alpha: float = 0.01,
+    min_fraction: float = 0.002,
+    flank: int = 9,
+    gap: int = 3,
+) -> tuple[Peak, ...]:
     """Narrow-band peaks of every column.
 
     A fine bin is a candidate when it exceeds the broadband level by more than the
@@ -403,10 +467,19 @@ def find_peaks(spec: SpectrumSnapshot, *, alpha: float = 0.01, min_fraction: flo
 # ---------------------------------------------------------------- all together
 
 
-def dissipation(spec: SpectrumSnapshot, speed_ms: float, *, nu: float | None = None, c1: float = C1_DEFAULT,
-                fit_range_hz=None, detect_floor: bool = True, variance: float | None = None,
-                variance_stderr: float | None = None, speed_stderr: float | None = None,
-                confidence: float = 0.95) -> Dissipation:
+def dissipation(
+    spec: SpectrumSnapshot,
+    speed_ms: float,
+    *,
+    nu: float | None = None,
+    c1: float = C1_DEFAULT,
+    fit_range_hz=None,
+    detect_floor: bool = True,
+    variance: float | None = None,
+    variance_stderr: float | None = None,
+    speed_stderr: float | None = None,
+    confidence: float = 0.95,
+) -> Dissipation:
     """Both estimates of eps, the choice between them, the scales and the peaks of one point.
 
     Column 0 is taken as u (streamwise); column 1, if present, as v for the isotropy ratio.
@@ -420,48 +493,119 @@ def dissipation(spec: SpectrumSnapshot, speed_ms: float, *, nu: float | None = N
     if variance is None:
         variance = float(spec.variance()[0])
     var_rel = (variance_stderr / variance) if (variance_stderr and variance > 0) else 0.0
-    floors = {name: (noise_floor(spec, c) if detect_floor else None) for c, name in enumerate(spec.columns)}
+    floors = {
+        name: (noise_floor(spec, c) if detect_floor else None)
+        for c, name in enumerate(spec.columns)
+    }
     fl = floors[spec.columns[0]]
     cutoff = fl.cutoff_hz if fl else spec.rate_hz / 2.0
     peaks = find_peaks(spec)
     intensity = math.sqrt(variance) / speed if speed > 0 and variance >= 0 else math.inf
     if not intensity <= MAX_INTENSITY:
-        why = (f"Taylor's hypothesis untenable: turbulence intensity u'/U = {intensity:.2g} "
-               f"(above {MAX_INTENSITY:g})" if speed > 0 else "no mean speed for Taylor's hypothesis")
+        why = (
+            f"Taylor's hypothesis untenable: turbulence intensity u'/U = {intensity:.2g} "
+            f"(above {MAX_INTENSITY:g})"
+            if speed > 0
+            else "no mean speed for Taylor's hypothesis"
+        )
         miss = Quantity.missing(why)
-        return Dissipation(miss, f"none: {why}", miss, miss, miss, miss, miss, miss, miss, None, nu,
-                           nu_source, c1, speed, None, floors, cutoff, peaks)
+        return Dissipation(
+            miss,
+            f"none: {why}",
+            miss,
+            miss,
+            miss,
+            miss,
+            miss,
+            miss,
+            miss,
+            None,
+            nu,
+            nu_source,
+            c1,
+            speed,
+            None,
+            floors,
+            cutoff,
+            peaks,
+        )
     speed_rel = (speed_stderr / speed) if speed_stderr else 0.0
-    inertial, rng = inertial_fit(spec, speed, c1=c1, cutoff_hz=cutoff, fit_range_hz=fit_range_hz,
-                                 confidence=confidence, speed_rel=speed_rel)
-    iso, du, du_se, tail = isotropic_derivative(spec, speed, nu, floor=fl, cutoff_hz=cutoff,
-                                                confidence=confidence, speed_rel=speed_rel)
+    inertial, rng = inertial_fit(
+        spec,
+        speed,
+        c1=c1,
+        cutoff_hz=cutoff,
+        fit_range_hz=fit_range_hz,
+        confidence=confidence,
+        speed_rel=speed_rel,
+    )
+    iso, du, du_se, tail = isotropic_derivative(
+        spec, speed, nu, floor=fl, cutoff_hz=cutoff, confidence=confidence, speed_rel=speed_rel
+    )
     ratio = None
     if len(spec.columns) > 1 and du > 0:
         fv = floors[spec.columns[1]]
-        dv, dv_se, _ = _derivative_variance(spec, 1, cutoff, fv.level if fv else 0.0, fv.level_stderr if fv else 0.0)
+        dv, dv_se, _ = _derivative_variance(
+            spec, 1, cutoff, fv.level if fv else 0.0, fv.level_stderr if fv else 0.0
+        )
         if dv > 0:
             ratio = Quantity.lognormal(dv / du, math.hypot(dv_se / dv, du_se / du), z)
     # the choice: the derivative estimate needs no constant but must resolve the dissipation range
     # and rests on local isotropy; the inertial fit needs a flat range and C1
     iso_ok = iso.stderr is not None
-    isotropic = ratio is None or (ratio.ci_low is not None and ratio.ci_low <= 2.0 * 1.25 and ratio.ci_high >= 2.0 / 1.25)
+    isotropic = ratio is None or (
+        ratio.ci_low is not None and ratio.ci_low <= 2.0 * 1.25 and ratio.ci_high >= 2.0 / 1.25
+    )
     if iso_ok and (isotropic or inertial.value is None):
-        eps, method = iso, "iso: the dissipation range is resolved above the noise floor (no constant needed)"
+        eps, method = (
+            iso,
+            "iso: the dissipation range is resolved above the noise floor (no constant needed)",
+        )
         if not isotropic:
             method += f"; local isotropy doubtful (ratio {ratio.value:.2f}, 2 expected)"
     elif inertial.value is not None:
-        why = "the dissipation range is not resolved" if not iso_ok else f"local isotropy fails (ratio {ratio.value:.2f}, 2 expected)"
-        eps, method = inertial, f"inertial: {why}; fit {rng[0]:.4g}-{rng[1]:.4g} Hz with C1 = {c1:g}"
+        why = (
+            "the dissipation range is not resolved"
+            if not iso_ok
+            else f"local isotropy fails (ratio {ratio.value:.2f}, 2 expected)"
+        )
+        eps, method = (
+            inertial,
+            f"inertial: {why}; fit {rng[0]:.4g}-{rng[1]:.4g} Hz with C1 = {c1:g}",
+        )
     else:
         eps = Quantity.missing(f"{inertial.reason}; and {iso.reason or 'no derivative estimate'}")
         method = "none: neither an inertial range nor a resolved dissipation range"
     if eps.value is not None and intensity > STRAINED_INTENSITY:
         method += f"; Taylor's hypothesis strained at u'/U = {intensity:.2f}"
     eta, tau, lam, rel = scales(eps, nu, variance, var_rel, confidence)
-    s0 = float(np.mean(spec.psd[2:4, 0])) if spec.psd.shape[0] > 4 else float("nan")  # bin 1 feels the detrend
+    s0 = (
+        float(np.mean(spec.psd[2:4, 0])) if spec.psd.shape[0] > 4 else float("nan")
+    )  # bin 1 feels the detrend
     lu_rel = math.sqrt(2.0 / (2.0 * float(spec.dof[1]) / 1.44))  # two neighbouring bins, r1 = 4/9
-    lu = Quantity.lognormal(speed * s0 / (4.0 * variance) if variance > 0 else math.nan, math.hypot(lu_rel, var_rel), z,
-                            "from the lowest bins; biased low when the resolution is coarse")
-    return Dissipation(eps, method, inertial, iso, eta, tau, lam, rel, lu, ratio, nu, nu_source, c1, speed, rng,
-                       floors, cutoff, peaks)
+    lu = Quantity.lognormal(
+        speed * s0 / (4.0 * variance) if variance > 0 else math.nan,
+        math.hypot(lu_rel, var_rel),
+        z,
+        "from the lowest bins; biased low when the resolution is coarse",
+    )
+    return Dissipation(
+        eps,
+        method,
+        inertial,
+        iso,
+        eta,
+        tau,
+        lam,
+        rel,
+        lu,
+        ratio,
+        nu,
+        nu_source,
+        c1,
+        speed,
+        rng,
+        floors,
+        cutoff,
+        peaks,
+    )

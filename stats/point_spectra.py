@@ -19,8 +19,10 @@ __all__ = ["NO_SPECTRUM_RANDOM", "SPECTRAL_ROWS", "PointSpectra", "summary_field
 
 #: the rows this module adds to a point's ``statistics`` (DESIGN §3)
 SPECTRAL_ROWS = ("eps", "eps_inertial", "eps_iso", "eta", "tau_eta", "lambda_g", "Re_lambda")
-NO_SPECTRUM_RANDOM = ("randomly sampled data (a t column): no spectrum is computed yet; "
-                      "it needs a method for irregular sampling")
+NO_SPECTRUM_RANDOM = (
+    "randomly sampled data (a t column): no spectrum is computed yet; "
+    "it needs a method for irregular sampling"
+)
 
 
 class PointSpectra:
@@ -35,8 +37,16 @@ class PointSpectra:
     stride : transform every ``stride``-th Welch segment only (cheaper, fewer dof)
     """
 
-    def __init__(self, columns, rate_hz: float, *, segment: int | None = None, c1: float = C1_DEFAULT,
-                 fit_range_hz=None, stride: int = 1):
+    def __init__(
+        self,
+        columns,
+        rate_hz: float,
+        *,
+        segment: int | None = None,
+        c1: float = C1_DEFAULT,
+        fit_range_hz=None,
+        stride: int = 1,
+    ):
         self.columns = tuple(columns)
         self.rate_hz = float(rate_hz)
         self.c1 = float(c1)
@@ -52,12 +62,18 @@ class PointSpectra:
     def spectrum(self) -> SpectrumSnapshot | None:
         return self.welch.snapshot()
 
-    def evaluate(self, moments, nu: float | None = None) -> tuple[SpectrumSnapshot | None, Dissipation | None]:
+    def evaluate(
+        self, moments, nu: float | None = None
+    ) -> tuple[SpectrumSnapshot | None, Dissipation | None]:
         """Spectrum and dissipation given the point's moment snapshot (``PointSnapshot``).
 
         Cached until a new segment completes (the estimate cannot change in between).
         """
-        key = (self.welch.segments, None if moments is None else moments.samples, nu)  # moments drift slowly
+        key = (
+            self.welch.segments,
+            None if moments is None else moments.samples,
+            nu,
+        )  # moments drift slowly
         if self._cache is not None and self._cache[0] == key:
             return self._cache[1], self._cache[2]
         spec = self.welch.snapshot()
@@ -67,16 +83,28 @@ class PointSpectra:
             speed, speed_se = _value_and_error(moments, u.upper())
             var, var_se = _value_and_error(moments, u + u)
             if math.isfinite(speed) and math.isfinite(var) and var > 0:
-                result = dissipation(spec, speed, nu=nu, c1=self.c1, fit_range_hz=self.fit_range_hz,
-                                     variance=var, variance_stderr=var_se if math.isfinite(var_se) else None,
-                                     speed_stderr=speed_se if math.isfinite(speed_se) else None,
-                                     confidence=moments.confidence)
+                result = dissipation(
+                    spec,
+                    speed,
+                    nu=nu,
+                    c1=self.c1,
+                    fit_range_hz=self.fit_range_hz,
+                    variance=var,
+                    variance_stderr=var_se if math.isfinite(var_se) else None,
+                    speed_stderr=speed_se if math.isfinite(speed_se) else None,
+                    confidence=moments.confidence,
+                )
         self._cache = (key, spec, result)
         return spec, result
 
-
-    def live(self, moments, nu: float | None = None, now: float | None = None, growth: float = 1.25,
-             min_interval_s: float = 1.0):
+    def live(
+        self,
+        moments,
+        nu: float | None = None,
+        now: float | None = None,
+        growth: float = 1.25,
+        min_interval_s: float = 1.0,
+    ):
         """Like :meth:`evaluate`, for a display: re-evaluated only once the segment count has grown
         by ``growth`` and (when the caller passes its clock's ``now``) ``min_interval_s`` has passed
         since the last live evaluation; a display needs no fresher ε, and the fit costs tens of ms.
@@ -120,8 +148,14 @@ def _row(name: str, q) -> dict:
     }
 
 
-def summary_fields(spectra: PointSpectra | None, moments, point: dict | None, *, random_sampling: bool = False,
-                   max_bins: int = 200) -> tuple[dict, list[dict]]:
+def summary_fields(
+    spectra: PointSpectra | None,
+    moments,
+    point: dict | None,
+    *,
+    random_sampling: bool = False,
+    max_bins: int = 200,
+) -> tuple[dict, list[dict]]:
     """The DESIGN §8 fields of a point line and the spectral rows of its ``statistics``.
 
     ``random_sampling``: the point's samples carry a ``t`` column; then no spectrum is computed
@@ -130,15 +164,26 @@ def summary_fields(spectra: PointSpectra | None, moments, point: dict | None, *,
     nu_msg = (point or {}).get("nu")
     if random_sampling or spectra is None:
         why = NO_SPECTRUM_RANDOM if random_sampling else "no regularly sampled data"
-        fields = {"spectra": None, "spectra_reason": why, "peaks": [], "eps_method": f"none: {why}",
-                  "nu": nu_msg, "nu_source": "point" if nu_msg is not None else None}
+        fields = {
+            "spectra": None,
+            "spectra_reason": why,
+            "peaks": [],
+            "eps_method": f"none: {why}",
+            "nu": nu_msg,
+            "nu_source": "point" if nu_msg is not None else None,
+        }
         return fields, [_row(n, Quantity.missing(why)) for n in SPECTRAL_ROWS]
     spec, d = spectra.evaluate(moments, nu=nu_msg)
     if spec is None:
         why = "fewer samples than one spectral segment"
-        fields = {"spectra": None, "spectra_reason": why, "peaks": [], "eps_method": f"none: {why}",
-                  "nu": nu_msg if nu_msg is not None else NU_AIR_20C,
-                  "nu_source": "point" if nu_msg is not None else "default"}
+        fields = {
+            "spectra": None,
+            "spectra_reason": why,
+            "peaks": [],
+            "eps_method": f"none: {why}",
+            "nu": nu_msg if nu_msg is not None else NU_AIR_20C,
+            "nu_source": "point" if nu_msg is not None else "default",
+        }
         return fields, [_row(n, Quantity.missing(why)) for n in SPECTRAL_ROWS]
     lb = spec.log_binned(max_bins)
     spectra_json = {
@@ -152,19 +197,27 @@ def summary_fields(spectra: PointSpectra | None, moments, point: dict | None, *,
     }
     if d is None:
         why = "no finite mean speed or no positive u variance"
-        fields.update({"peaks": [], "eps_method": f"none: {why}", "nu": nu_msg if nu_msg is not None else NU_AIR_20C,
-                       "nu_source": "point" if nu_msg is not None else "default"})
+        fields.update(
+            {
+                "peaks": [],
+                "eps_method": f"none: {why}",
+                "nu": nu_msg if nu_msg is not None else NU_AIR_20C,
+                "nu_source": "point" if nu_msg is not None else "default",
+            }
+        )
         return fields, [_row(n, Quantity.missing(why)) for n in SPECTRAL_ROWS]
     floor = d.floors.get(spec.columns[0])
-    fields.update({
-        "peaks": [p.as_dict() for p in d.peaks],
-        "eps_method": d.eps_method,
-        "nu": d.nu,
-        "nu_source": d.nu_source,
-        "c1": d.c1,
-        "eps_fit_range_hz": list(d.fit_range_hz) if d.fit_range_hz else None,
-        "noise_floor": ({"psd": floor.level, "cutoff_hz": floor.cutoff_hz} if floor else None),
-        "isotropy_ratio": d.isotropy_ratio.as_dict() if d.isotropy_ratio is not None else None,
-        "L_u_spectral": d.L_u_spectral.as_dict(),
-    })
+    fields.update(
+        {
+            "peaks": [p.as_dict() for p in d.peaks],
+            "eps_method": d.eps_method,
+            "nu": d.nu,
+            "nu_source": d.nu_source,
+            "c1": d.c1,
+            "eps_fit_range_hz": list(d.fit_range_hz) if d.fit_range_hz else None,
+            "noise_floor": ({"psd": floor.level, "cutoff_hz": floor.cutoff_hz} if floor else None),
+            "isotropy_ratio": d.isotropy_ratio.as_dict() if d.isotropy_ratio is not None else None,
+            "L_u_spectral": d.L_u_spectral.as_dict(),
+        }
+    )
     return fields, [_row(n, q) for n, q in d.rows().items()]

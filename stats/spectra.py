@@ -11,7 +11,8 @@ Uncertainty: the Welch average of ``K`` segments at 50 % overlap is ~ ``S chi2_n
 the equivalent degrees of freedom (Percival & Walden 1993, *Spectral Analysis for Physical
 Applications*, CUP, eq. 292b)
 
-    nu = 2 K / (1 + 2 sum_{m=1}^{K-1} (1 - m/K) rho_m^2),  rho_m = sum_t h_t h_{t+m D} / sum_t h_t^2,
+    nu = 2 K / (1 + 2 sum_{m=1}^{K-1} (1 - m/K) rho_m^2),
+    rho_m = sum_t h_t h_{t+m D} / sum_t h_t^2,
 
 (only ``rho_1`` is non-zero for Hann at 50 %: 1/6, so ``nu ~ 1.89 K``); half that at 0 Hz and at
 Nyquist. Averaging ``M`` adjacent bins (log-binning) multiplies ``nu`` by
@@ -20,7 +21,7 @@ apart, ``|sum h_t^2 e^{-2 pi i j t/N}|^2 / (sum h_t^2)^2`` (Percival & Walden 19
 and 1/36 for Hann).
 
 The segment length is chosen so the resolution is well below ``1/T_int``:
-``N >= RESOLUTION_FACTOR * T_int * rate`` (20) rounded up to a power of two (:func:`segment_length`).
+``N ~ RESOLUTION_FACTOR * T_int * rate`` (20), the nearest power of two (:func:`segment_length`).
 """
 
 from __future__ import annotations
@@ -30,10 +31,9 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.fft
+from eddyvigil.stats.spectral_kernels import accumulate_power
 from scipy import signal as sps
 from scipy import stats as sst
-
-from eddyvigil.stats.spectral_kernels import accumulate_power
 
 __all__ = [
     "RESOLUTION_FACTOR",
@@ -48,7 +48,8 @@ __all__ = [
 ]
 
 #: segment length >= this many integral times, so the bin width is <= 1/(RESOLUTION_FACTOR T_int);
-#: more would sharpen the lowest bins (L_u from S(0)) but leave too few segments for the inertial fit
+#: more would sharpen the lowest bins (L_u from S(0)) but leave too few segments for the inertial
+#: fit
 RESOLUTION_FACTOR = 20.0
 MIN_SEGMENT = 256
 MAX_SEGMENT = 1 << 16
@@ -117,7 +118,8 @@ def _bin_correlations(window: np.ndarray, reach: int = 4) -> np.ndarray:
     t = np.arange(h2.size) * (2.0 * np.pi / h2.size)
     total = float(h2.sum())
     # the few coefficients wanted, by a direct sum over a strided sample of the phases: h^2 of a
-    # periodic Hann window is a trigonometric polynomial of degree 2, so 16 points per period are exact
+    # periodic Hann window is a trigonometric polynomial of degree 2, so 16 points per period are
+    # exact
     step = max(1, h2.size // 64) if h2.size % max(1, h2.size // 64) == 0 else 1
     hs, ts = h2[::step], t[::step]
     scale = h2.size / hs.size
@@ -162,7 +164,8 @@ def log_bin(f_hz, psd, dof, window: np.ndarray | None = None, max_bins: int = 20
     """Average fine bins 1.. (DC left out) into at most ``max_bins`` log-spaced bands.
 
     Each band's ``dof`` is the fine-bin dof times the effective number of independent bins it holds
-    (adjacent Hann bins are correlated, see the module docstring); ``window`` None means independent.
+    (adjacent Hann bins are correlated, see the module docstring); ``window`` None means
+    independent bins.
     """
     f = np.asarray(f_hz, dtype=np.float64)
     p = np.asarray(psd, dtype=np.float64)
@@ -216,7 +219,8 @@ class SpectrumSnapshot:
 
     def log_binned(self, max_bins: int = 200) -> LogSpectrum:
         """Log-spaced bands of bins 1 .. below Nyquist (the Nyquist ordinate of an even segment
-        holds half the one-sided density, as in scipy, so it is no density estimate and is left out)."""
+        holds half the one-sided density, as in scipy, so it is no density estimate and is
+        left out)."""
         stop = self.f_hz.size - 1 if self.segment % 2 == 0 else self.f_hz.size
         return log_bin(self.f_hz[:stop], self.psd[:stop], self.dof[:stop], self.window, max_bins)
 
@@ -232,11 +236,20 @@ class SpectrumAccumulator:
         integral time scale ``tint_s`` or, when that is None too, from the first ``probe`` samples.
     stride : transform only every ``stride``-th segment of the 50 %-overlapped sequence (1: all,
         Welch's estimator proper). A larger stride costs ``1/stride`` of the FFT work and gives
-        fewer degrees of freedom, which the dof and intervals account for (benchmarks/bench_spectra.py).
+        fewer degrees of freedom, which the dof and intervals account for
+        (benchmarks/bench_spectra.py).
     """
 
-    def __init__(self, columns, rate_hz: float, *, segment: int | None = None, tint_s: float | None = None,
-                 probe: int | None = None, stride: int = 1):
+    def __init__(
+        self,
+        columns,
+        rate_hz: float,
+        *,
+        segment: int | None = None,
+        tint_s: float | None = None,
+        probe: int | None = None,
+        stride: int = 1,
+    ):
         self.columns = tuple(columns)
         self.stride = int(stride)
         if self.stride < 1:
@@ -246,7 +259,11 @@ class SpectrumAccumulator:
         if not (self.rate_hz > 0 and math.isfinite(self.rate_hz)):
             raise ValueError(f"rate must be positive, got {rate_hz!r}")
         self._m = len(self.columns)
-        self._probe = int(probe) if probe is not None else int(min(max(4 * MIN_SEGMENT, 2 * rate_hz), 1 << 18))
+        self._probe = (
+            int(probe)
+            if probe is not None
+            else int(min(max(4 * MIN_SEGMENT, 2 * rate_hz), 1 << 18))
+        )
         self._buf = np.zeros((self._m, 0))  # column-major samples not yet past a segment start
         self._fill = 0
         self.segment = None
@@ -291,16 +308,21 @@ class SpectrumAccumulator:
             if self._fill < self._probe:
                 return self
             held = self._buf[:, : self._fill].T
-            self._set_segment(segment_length(self.rate_hz, integral_time_estimate(held, self.rate_hz)))
+            self._set_segment(
+                segment_length(self.rate_hz, integral_time_estimate(held, self.rate_hz))
+            )
         n, step = self.segment, self.hop * self.stride
         have = self._fill
         k = 0 if have < n else 1 + (have - n) // step
         if k:
             # (m, k, n) view of the segments on the column-major buffer: the window product reads
             # memory in order, and one batched FFT serves the whole block
-            segs = np.lib.stride_tricks.sliding_window_view(self._buf[:, : (k - 1) * step + n], n, axis=1)[:, ::step]
+            segs = np.lib.stride_tricks.sliding_window_view(
+                self._buf[:, : (k - 1) * step + n], n, axis=1
+            )[:, ::step]
             spec = scipy.fft.rfft(segs * self.window, axis=2)
-            # each segment's own mean removed after the transform, FFT(h (x - m)) = FFT(h x) - m FFT(h);
+            # each segment's own mean removed after the transform, FFT(h (x - m)) = FFT(h x) - m
+            # FFT(h);
             # the periodic Hann window's transform is non-zero in bins 0 and 1 only
             mean = segs.mean(axis=2)  # contiguous rows: a fast reduce
             for b in self._window_bins:
@@ -324,14 +346,21 @@ class SpectrumAccumulator:
         self._fill = need
 
     def merge(self, other: SpectrumAccumulator) -> SpectrumAccumulator:
-        """Pool the segments of two records (other follows self; the seam's partial segment is lost)."""
+        """Pool the segments of two records.
+
+        ``other`` follows ``self``; the partial segment at the seam is lost.
+        """
         if self.columns != other.columns or self.rate_hz != other.rate_hz:
             raise ValueError("spectra of different columns or rates cannot be merged")
         if self.segment is None or other.segment is None or self.segment != other.segment:
-            raise ValueError("spectra with different (or undecided) segment lengths cannot be merged")
+            raise ValueError(
+                "spectra with different (or undecided) segment lengths cannot be merged"
+            )
         if self.stride != other.stride:
             raise ValueError("spectra taken with different strides cannot be merged")
-        out = SpectrumAccumulator(self.columns, self.rate_hz, segment=self.segment, stride=self.stride)
+        out = SpectrumAccumulator(
+            self.columns, self.rate_hz, segment=self.segment, stride=self.stride
+        )
         out._sum = self._sum + other._sum
         out.segments = self.segments + other.segments
         out._buf = other._buf[:, : other._fill].copy()
@@ -353,4 +382,6 @@ class SpectrumAccumulator:
         f = np.arange(psd.shape[0]) * (self.rate_hz / n)
         for a in (f, psd, dof):
             a.flags.writeable = False
-        return SpectrumSnapshot(self.columns, self.rate_hz, n, self.segments, f, psd, dof, self.window)
+        return SpectrumSnapshot(
+            self.columns, self.rate_hz, n, self.segments, f, psd, dof, self.window
+        )

@@ -10,10 +10,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from test_browser_dashboard import _browser_or_skip, _png_colours, _ServerThread, _wait_for
-
 from eddyvigil.monitor.pipeline import Pipeline
 from eddyvigil.simulator.signals import PopeGenerator, generate
+from test_browser_dashboard import _browser_or_skip, _png_colours, _ServerThread, _wait_for
 
 pytestmark = pytest.mark.browser
 
@@ -42,10 +41,15 @@ def test_spectrum_panel_draws_spectra_slope_and_peak(tmp_path):
         driver.set_window_size(1280, 2600)
         driver.set_page_load_timeout(30)
         driver.get(srv.server.url)
-        _wait_for(driver, "return window.Bokeh !== undefined && Bokeh.documents.length > 0",
-                  what="the Bokeh document")
+        _wait_for(
+            driver,
+            "return window.Bokeh !== undefined && Bokeh.documents.length > 0",
+            what="the Bokeh document",
+        )
         model = "Bokeh.documents[0].get_model_by_name"
-        n = _wait_for(driver, f"return {model}('spectrum_source').data.f_hz.length", what="spectrum rows")
+        n = _wait_for(
+            driver, f"return {model}('spectrum_source').data.f_hz.length", what="spectrum rows"
+        )
         assert 50 <= n <= 200
         assert driver.execute_script(f"return {model}('spectrum_slope').data.f_hz.length") > 0
         peaks = driver.execute_script(f"return Array.from({model}('spectrum_peaks').data.f_hz)")
@@ -55,11 +59,17 @@ def test_spectrum_panel_draws_spectra_slope_and_peak(tmp_path):
         assert "Hz" in driver.execute_script(f"return {model}('spectrum').below[0].axis_label")
         # the compensated toggle switches the axis to k1 by Taylor's hypothesis
         driver.execute_script(f"{model}('spectrum_compensated').active = true")
-        _wait_for(driver, f"return {model}('spectrum').left[0].axis_label.includes('Taylor')",
-                  what="the compensated axis label")
+        _wait_for(
+            driver,
+            f"return {model}('spectrum').left[0].axis_label.includes('Taylor')",
+            what="the compensated axis label",
+        )
         driver.execute_script(f"{model}('spectrum_compensated').active = false")
-        _wait_for(driver, f"return !{model}('spectrum').left[0].axis_label.includes('Taylor')",
-                  what="the plain axis label")
+        _wait_for(
+            driver,
+            f"return !{model}('spectrum').left[0].axis_label.includes('Taylor')",
+            what="the plain axis label",
+        )
         time.sleep(0.5)
         shot = tmp_path / "spectrum.png"
         driver.save_screenshot(str(shot))

@@ -5,7 +5,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-
 from eddyvigil.monitor.dashboard.spectrum import SpectrumPanel, scales_html, spectrum_columns
 from eddyvigil.simulator.signals import PopeGenerator, generate
 from eddyvigil.stats.dissipation import dissipation
@@ -17,7 +16,9 @@ def _pope_view_spectrum(seed=21, line=False):
     gen = PopeGenerator([U, 0.0], 1.5, 4.0, 1.5e-5, rate, seed)
     x = generate(gen, 1 << 20)
     if line:  # a 50 Hz line holding ~10 % of v's variance
-        x[:, 1] += math.sqrt(2 * 0.1 * gen.stress[1, 1] / 0.9) * np.sin(2 * math.pi * 50.0 * np.arange(x.shape[0]) / rate)
+        x[:, 1] += math.sqrt(2 * 0.1 * gen.stress[1, 1] / 0.9) * np.sin(
+            2 * math.pi * 50.0 * np.arange(x.shape[0]) / rate
+        )
     spec = SpectrumAccumulator(("u", "v"), rate, segment=16384).update(x).snapshot()
     return spec, dissipation(spec, U, nu=1.5e-5)
 

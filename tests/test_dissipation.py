@@ -4,8 +4,6 @@ import math
 
 import numpy as np
 import pytest
-from scipy import integrate
-
 from eddyvigil.simulator.signals import PopeGenerator, VonKarmanGenerator, generate, von_karman_psd
 from eddyvigil.stats.dissipation import (
     C1_DEFAULT,
@@ -18,6 +16,8 @@ from eddyvigil.stats.dissipation import (
     scales,
 )
 from eddyvigil.stats.spectra import SpectrumAccumulator, SpectrumSnapshot
+from scipy import integrate
+
 from tests.processes import ar1
 
 
@@ -28,8 +28,16 @@ def model_snapshot(f_hz, psd, rate_hz, dof=1e9, columns=("u",)):
 
     p = np.asarray(psd, dtype=np.float64)
     p = p[:, None] if p.ndim == 1 else p
-    return SpectrumSnapshot(tuple(columns), rate_hz, n, 10**6, np.asarray(f_hz), p, np.full(len(f_hz), dof),
-                            get_window("hann", n))
+    return SpectrumSnapshot(
+        tuple(columns),
+        rate_hz,
+        n,
+        10**6,
+        np.asarray(f_hz),
+        p,
+        np.full(len(f_hz), dof),
+        get_window("hann", n),
+    )
 
 
 def test_check_case_scales():
@@ -39,13 +47,15 @@ def test_check_case_scales():
     assert tau.value == pytest.approx(3.8730e-3, rel=5e-5)
     assert lam.value == pytest.approx(0.015, rel=5e-5)
     assert rel.value == pytest.approx(1000.0, rel=5e-5)
-    # propagated: eta ~ eps^-1/4, tau ~ eps^-1/2, Re_lambda ~ eps^-1/2 (log errors scale by the power)
+    # propagated: eta ~ eps^-1/4, tau ~ eps^-1/2, Re_lambda ~ eps^-1/2 (log errors scale by the
+    # power)
     assert eta.rel == pytest.approx(0.25 * 0.01) and tau.rel == pytest.approx(0.5 * 0.01)
     assert eta.ci_low < eta.value < eta.ci_high
 
 
 def test_frequency_domain_check_value_and_exact_power_law():
-    # REFERENCES §7: eps = 1, C1 = 0.49 -> E11(100 /m) = 2.2744e-4; at U = 10, f = 159.15 Hz, S = 1.4290e-4
+    # REFERENCES §7: eps = 1, C1 = 0.49 -> E11(100 /m) = 2.2744e-4; at U = 10, f = 159.15 Hz, S =
+    # 1.4290e-4
     U, eps = 10.0, 1.0
     f = np.linspace(0, 10_000, 8193)
     k1 = 2 * np.pi * np.maximum(f, 1e-9) / U
@@ -197,7 +207,10 @@ def test_degenerate_streams_through_the_pipeline_never_raise():
         def __call__(self):
             return self.t
 
-    for block in (np.full((40_000, 3), 5.0), 1e-300 * np.random.default_rng(1).standard_normal((40_000, 3))):
+    for block in (
+        np.full((40_000, 3), 5.0),
+        1e-300 * np.random.default_rng(1).standard_normal((40_000, 3)),
+    ):
         buf = io.StringIO()
         p = Pipeline(summary=buf, clock=Clock())
         for i in range(0, block.shape[0], 4096):

@@ -2,7 +2,6 @@
 
 import numpy as np
 import pytest
-
 from eddyvigil.simulator.signals import PopeGenerator, generate
 from eddyvigil.stats.dissipation import dissipation
 from eddyvigil.stats.spectra import SpectrumAccumulator

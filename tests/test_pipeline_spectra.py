@@ -6,11 +6,10 @@ import io
 import json
 
 import numpy as np
-from scipy import signal as sps
-
 from eddyvigil.monitor.pipeline import Pipeline
 from eddyvigil.simulator.signals import PopeGenerator, generate
 from eddyvigil.stats.point_spectra import NO_SPECTRUM_RANDOM, SPECTRAL_ROWS
+from scipy import signal as sps
 
 
 class FakeClock:
@@ -43,7 +42,9 @@ def test_point_line_carries_log_binned_spectra_eps_and_scales():
     assert line["nu"] == nu and line["nu_source"] == "point"
     assert line["eps_method"].startswith("iso")
     spec = line["spectra"]["u"]
-    assert 50 <= len(spec["f_hz"]) <= 200 and len(spec["psd"]) == len(spec["dof"]) == len(spec["f_hz"])
+    assert 50 <= len(spec["f_hz"]) <= 200 and len(spec["psd"]) == len(spec["dof"]) == len(
+        spec["f_hz"]
+    )
     # the log bands are averages of the Welch estimate (scipy.signal.welch as reference)
     f, pw = sps.welch(x[:, 0].astype(np.float64), fs=rate, nperseg=line["spectra_segment"])
     band = np.interp(spec["f_hz"][-1], f, pw)
@@ -56,7 +57,11 @@ def test_point_line_carries_log_binned_spectra_eps_and_scales():
         assert rows[name]["ci_low"] <= truth["eps"] <= rows[name]["ci_high"], (name, rows[name])
     # scales follow from eps and the moments' u'^2 (sampling error of u'^2 included)
     for name in ("eta", "lambda_g", "Re_lambda", "tau_eta"):
-        assert rows[name]["ci_low"] <= truth[name] <= rows[name]["ci_high"], (name, rows[name], truth[name])
+        assert rows[name]["ci_low"] <= truth[name] <= rows[name]["ci_high"], (
+            name,
+            rows[name],
+            truth[name],
+        )
     assert line["peaks"] == []
 
 

@@ -2,8 +2,6 @@
 
 import numpy as np
 import pytest
-from scipy import signal as sps
-
 from eddyvigil.stats.spectra import (
     SpectrumAccumulator,
     integral_time_estimate,
@@ -11,6 +9,8 @@ from eddyvigil.stats.spectra import (
     segment_length,
     welch_dof,
 )
+from scipy import signal as sps
+
 from tests.processes import ar1
 
 
@@ -26,9 +26,12 @@ def _feed(acc, x, rng):
 
 def ar1_psd(f_hz, rho, rate_hz, sigma=1.0):
     """One-sided PSD of a unit-variance AR(1): 2 sigma_e^2 dt / |1 - rho e^{-i 2 pi f dt}|^2,
-    sigma_e^2 = sigma^2 (1 - rho^2) (Priestley 1981, Spectral Analysis and Time Series, §4.12; from memory)."""
+    sigma_e^2 = sigma^2 (1 - rho^2) (Priestley 1981, Spectral Analysis and Time Series, §4.12;
+    from memory)."""
     dt = 1.0 / rate_hz
-    return 2.0 * sigma**2 * (1 - rho**2) * dt / np.abs(1 - rho * np.exp(-2j * np.pi * f_hz * dt)) ** 2
+    return (
+        2.0 * sigma**2 * (1 - rho**2) * dt / np.abs(1 - rho * np.exp(-2j * np.pi * f_hz * dt)) ** 2
+    )
 
 
 def test_equals_scipy_welch_whatever_the_blocks():
@@ -106,7 +109,9 @@ def test_merge_pools_segments_of_independent_records():
     _, pa = sps.welch(a[:, 0], fs=10.0, nperseg=256)
     _, pb = sps.welch(b[:, 0], fs=10.0, nperseg=256)
     ka, kb = ma.segments, mb.segments
-    np.testing.assert_allclose(both.snapshot().psd[:, 0], (ka * pa + kb * pb) / (ka + kb), rtol=1e-12)
+    np.testing.assert_allclose(
+        both.snapshot().psd[:, 0], (ka * pa + kb * pb) / (ka + kb), rtol=1e-12
+    )
     assert ma.segments == ka and both.segments == ka + kb  # inputs untouched
     with pytest.raises(ValueError):
         ma.merge(SpectrumAccumulator(("u",), 10.0, segment=512))
@@ -114,11 +119,17 @@ def test_merge_pools_segments_of_independent_records():
 
 def test_log_bins_keep_parseval_and_bound_count():
     rng = np.random.default_rng(7)
-    snap = SpectrumAccumulator(("u",), 1000.0, segment=8192).update(rng.normal(size=(100_000, 1))).snapshot()
+    snap = (
+        SpectrumAccumulator(("u",), 1000.0, segment=8192)
+        .update(rng.normal(size=(100_000, 1)))
+        .snapshot()
+    )
     lb = snap.log_binned(200)
     assert len(lb.f_hz) <= 200
     assert np.all(np.diff(lb.f_hz) > 0)
-    total = (np.sum(lb.psd[:, 0] * lb.count) + snap.psd[0, 0] + snap.psd[-1, 0]) * snap.df_hz  # + DC, Nyquist
+    total = (
+        np.sum(lb.psd[:, 0] * lb.count) + snap.psd[0, 0] + snap.psd[-1, 0]
+    ) * snap.df_hz  # + DC, Nyquist
     assert total == pytest.approx(snap.variance()[0], rel=1e-12)
     assert np.all(lb.dof >= snap.dof[1] - 1e-9)
 
@@ -141,7 +152,12 @@ def test_chi2_intervals_cover_ar1_spectrum():
 
         llo, lhi = chi2_interval(lb.psd[:, 0], lb.dof)
         # truth of a band: the mean of the analytic spectrum over its fine bins
-        t = np.array([ar1_psd(snap.f_hz[s : s + c], rho, rate).mean() for s, c in zip(lb.first, lb.count)])
+        t = np.array(
+            [
+                ar1_psd(snap.f_hz[s : s + c], rho, rate).mean()
+                for s, c in zip(lb.first, lb.count, strict=True)
+            ]
+        )
         keep = lb.first >= 2
         log_hits += np.sum(((llo <= t) & (t <= lhi))[keep])
         log_total += int(keep.sum())
@@ -157,7 +173,8 @@ def test_log_bin_independent_when_no_window():
 
 
 def test_stride_uses_every_other_segment_like_scipy_without_overlap():
-    # stride 2 at 50 % overlap = adjacent, non-overlapping segments: scipy.signal.welch with noverlap=0
+    # stride 2 at 50 % overlap = adjacent, non-overlapping segments: scipy.signal.welch with
+    # noverlap=0
     rng = np.random.default_rng(8)
     x = ar1(rng, 30_000, 2, 0.9)
     acc = _feed(SpectrumAccumulator(("u", "v"), 100.0, segment=1000, stride=2), x, rng)

@@ -31,15 +31,25 @@ def _compensate(f, psd, speed):
 
 
 def spectrum_columns(spectrum, compensated: bool = False, max_bins: int = 200) -> dict:
-    """Columns for the panel from ``StreamView.spectrum`` = (SpectrumSnapshot | None, Dissipation | None).
+    """Columns for the panel from ``StreamView.spectrum``.
 
-    Returns ``{"lines": {...}, "band": {...}, "slope": {...}, "peaks": {...}, "fit": (lo, hi) | None,
+    ``spectrum`` = (SpectrumSnapshot | None, Dissipation | None).
+
+    Returns ``{"lines": {...}, "band": {...}, "slope": {...}, "peaks": {...},
+    "fit": (lo, hi) | None,
     "floor": level | None, "cutoff": Hz | None, "compensated": bool}``; empty columns when there
     is no spectrum yet. Compensating needs the mean speed (from the dissipation result).
     """
-    empty = {"lines": {"f_hz": []}, "band": {"f_hz": [], "lo": [], "hi": []},
-             "slope": {"f_hz": [], "y": []}, "peaks": {"f_hz": [], "y": [], "label": []},
-             "fit": None, "floor": None, "cutoff": None, "compensated": False}
+    empty = {
+        "lines": {"f_hz": []},
+        "band": {"f_hz": [], "lo": [], "hi": []},
+        "slope": {"f_hz": [], "y": []},
+        "peaks": {"f_hz": [], "y": [], "label": []},
+        "fit": None,
+        "floor": None,
+        "cutoff": None,
+        "compensated": False,
+    }
     if spectrum is None or spectrum[0] is None:
         return empty
     spec, diss = spectrum
@@ -57,13 +67,19 @@ def spectrum_columns(spectrum, compensated: bool = False, max_bins: int = 200) -
     from eddyvigil.stats.spectra import chi2_interval
 
     lo, hi = chi2_interval(lb.psd[:, 0], lb.dof)
-    out = dict(empty, lines=lines, band={"f_hz": f, "lo": y_of(f, lo), "hi": y_of(f, hi)}, compensated=comp)
+    out = dict(
+        empty, lines=lines, band={"f_hz": f, "lo": y_of(f, lo), "hi": y_of(f, hi)}, compensated=comp
+    )
     if diss is None:
         return out
     out["fit"] = diss.fit_range_hz
     floor = diss.floors.get(spec.columns[0])
     if floor is not None:
-        out["floor"] = float(y_of(np.array([floor.cutoff_hz]), np.array([floor.level]))[0]) if comp else floor.level
+        out["floor"] = (
+            float(y_of(np.array([floor.cutoff_hz]), np.array([floor.level]))[0])
+            if comp
+            else floor.level
+        )
         out["cutoff"] = floor.cutoff_hz
     if diss.eps.value is not None and math.isfinite(speed) and speed > 0:
         # E11 = C1 eps^{2/3} k1^{-5/3}, S = 2 pi E11 / U (Taylor's hypothesis)
@@ -74,10 +90,17 @@ def spectrum_columns(spectrum, compensated: bool = False, max_bins: int = 200) -
     if diss.peaks:
         pf = np.array([p.f_hz for p in diss.peaks])
         col = {n: i for i, n in enumerate(spec.columns)}
-        py = np.array([np.interp(p.f_hz, f, lb.psd[:, col.get(p.component, 0)]) for p in diss.peaks])
-        out["peaks"] = {"f_hz": pf, "y": y_of(pf, py) * 1.5,
-                        "label": [f"{p.component} {p.f_hz:.4g} Hz, {100 * p.fraction:.1f} % of variance"
-                                  for p in diss.peaks]}
+        py = np.array(
+            [np.interp(p.f_hz, f, lb.psd[:, col.get(p.component, 0)]) for p in diss.peaks]
+        )
+        out["peaks"] = {
+            "f_hz": pf,
+            "y": y_of(pf, py) * 1.5,
+            "label": [
+                f"{p.component} {p.f_hz:.4g} Hz, {100 * p.fraction:.1f} % of variance"
+                for p in diss.peaks
+            ],
+        }
     return out
 
 
@@ -94,52 +117,100 @@ def scales_html(spectrum) -> str:
     if spectrum is None or spectrum[0] is None:
         return "<i>spectrum: waiting for the first complete segment</i>"
     spec, d = spectrum
-    head = (f"Welch: {spec.segments} segments of {spec.segment} samples "
-            f"(Δf = {spec.df_hz:.3g} Hz, Hann, 50 % overlap)")
+    head = (
+        f"Welch: {spec.segments} segments of {spec.segment} samples "
+        f"(Δf = {spec.df_hz:.3g} Hz, Hann, 50 % overlap)"
+    )
     if d is None:
         return f"<div>{head}; ε needs the mean speed and u′² first</div>"
-    rows = [("ε", d.eps, "m²/s³"), ("ε inertial", d.eps_inertial, "m²/s³"), ("ε iso", d.eps_iso, "m²/s³"),
-            ("η", d.eta, "m"), ("τ_η", d.tau_eta, "s"), ("λ_g", d.lambda_g, "m"), ("Re_λ", d.Re_lambda, "")]
+    rows = [
+        ("ε", d.eps, "m²/s³"),
+        ("ε inertial", d.eps_inertial, "m²/s³"),
+        ("ε iso", d.eps_iso, "m²/s³"),
+        ("η", d.eta, "m"),
+        ("τ_η", d.tau_eta, "s"),
+        ("λ_g", d.lambda_g, "m"),
+        ("Re_λ", d.Re_lambda, ""),
+    ]
     body = "".join(f"<tr><td>{n}</td><td>{_fmt(q, unit)}</td></tr>" for n, q, unit in rows)
-    nu = f"ν = {d.nu:.4g} m²/s ({'from the point' if d.nu_source == 'point' else 'air at 20 °C, default'})"
+    source = "from the point" if d.nu_source == "point" else "air at 20 °C, default"
+    nu = f"ν = {d.nu:.4g} m²/s ({source})"
     iso = ""
     if d.isotropy_ratio is not None and d.isotropy_ratio.value is not None:
         iso = f"; isotropy ratio ⟨(∂v/∂x)²⟩/⟨(∂u/∂x)²⟩ = {_fmt(d.isotropy_ratio, '')} (2 expected)"
-    return (f"<div style='font-size:13px'>{head}<br>method: {html.escape(d.eps_method)}<br>{nu}{iso}"
-            f"<table>{body}</table>"
-            f"<small>Taylor's hypothesis (k1 = 2πf/U) converts time to space; it fails at high turbulence "
-            f"intensity.</small></div>")
+    return (
+        f"<div style='font-size:13px'>{head}<br>method: {html.escape(d.eps_method)}<br>{nu}{iso}"
+        f"<table>{body}</table>"
+        f"<small>Taylor's hypothesis (k1 = 2πf/U) converts time to space; "
+        f"it fails at high turbulence "
+        f"intensity.</small></div>"
+    )
 
 
 class SpectrumPanel:
     """Bokeh models of the panel; :meth:`update` takes the shown ``StreamView``."""
 
     def __init__(self, height: int = 340):
-        self.lines = ColumnDataSource({"f_hz": [], "u": [], "v": [], "w": []}, name="spectrum_source")
+        self.lines = ColumnDataSource(
+            {"f_hz": [], "u": [], "v": [], "w": []}, name="spectrum_source"
+        )
         self.band = ColumnDataSource({"f_hz": [], "lo": [], "hi": []})
         self.slope = ColumnDataSource({"f_hz": [], "y": []}, name="spectrum_slope")
         self.peaks = ColumnDataSource({"f_hz": [], "y": [], "label": []}, name="spectrum_peaks")
-        self.fig = figure(name="spectrum", title="spectra (Welch, 95 % χ² band on u)", height=height,
-                          x_axis_type="log", y_axis_type="log", sizing_mode="stretch_width",
-                          x_axis_label="frequency f (Hz)", y_axis_label=_PSD_LABEL,
-                          tools="pan,wheel_zoom,box_zoom,reset,save,hover",
-                          tooltips=[("f (Hz)", "@f_hz{0.000}"), ("", "@label")])
-        self.fig.varea("f_hz", "lo", "hi", source=self.band, fill_color=_COLOURS["u"], fill_alpha=0.15)
+        self.fig = figure(
+            name="spectrum",
+            title="spectra (Welch, 95 % χ² band on u)",
+            height=height,
+            x_axis_type="log",
+            y_axis_type="log",
+            sizing_mode="stretch_width",
+            x_axis_label="frequency f (Hz)",
+            y_axis_label=_PSD_LABEL,
+            tools="pan,wheel_zoom,box_zoom,reset,save,hover",
+            tooltips=[("f (Hz)", "@f_hz{0.000}"), ("", "@label")],
+        )
+        self.fig.varea(
+            "f_hz", "lo", "hi", source=self.band, fill_color=_COLOURS["u"], fill_alpha=0.15
+        )
         for c, colour in _COLOURS.items():
-            self.fig.line("f_hz", c, source=self.lines, color=colour, line_width=1.6, legend_label=c)
-        self.fig.line("f_hz", "y", source=self.slope, color="black", line_dash="dashed", line_width=1.5,
-                      legend_label="−5/3 from ε (Taylor)")
-        self.fig.scatter("f_hz", "y", source=self.peaks, marker="inverted_triangle", size=12,
-                         color="#ff7f0e", legend_label="peak")
+            self.fig.line(
+                "f_hz", c, source=self.lines, color=colour, line_width=1.6, legend_label=c
+            )
+        self.fig.line(
+            "f_hz",
+            "y",
+            source=self.slope,
+            color="black",
+            line_dash="dashed",
+            line_width=1.5,
+            legend_label="−5/3 from ε (Taylor)",
+        )
+        self.fig.scatter(
+            "f_hz",
+            "y",
+            source=self.peaks,
+            marker="inverted_triangle",
+            size=12,
+            color="#ff7f0e",
+            legend_label="peak",
+        )
         self.fit = BoxAnnotation(fill_color="#bbbbbb", fill_alpha=0.3, visible=False)
-        self.floor = Span(dimension="width", line_color="#7f7f7f", line_dash="dotted", line_width=2, visible=False)
-        self.cutoff = Span(dimension="height", line_color="#7f7f7f", line_dash="dotdash", line_width=1.5,
-                           visible=False)
+        self.floor = Span(
+            dimension="width", line_color="#7f7f7f", line_dash="dotted", line_width=2, visible=False
+        )
+        self.cutoff = Span(
+            dimension="height",
+            line_color="#7f7f7f",
+            line_dash="dotdash",
+            line_width=1.5,
+            visible=False,
+        )
         for m in (self.fit, self.floor, self.cutoff):
             self.fig.add_layout(m)
         self.fig.legend.location = "bottom_left"
-        self.toggle = Toggle(name="spectrum_compensated", label="compensated E11·k1^(5/3)", active=False,
-                             width=220)
+        self.toggle = Toggle(
+            name="spectrum_compensated", label="compensated E11·k1^(5/3)", active=False, width=220
+        )
         self.toggle.on_change("active", self._on_toggle)
         self.text = Div(name="spectrum_scales", text=scales_html(None), width=520)
         self.layout = row(self.fig, column(self.toggle, self.text), sizing_mode="stretch_width")
