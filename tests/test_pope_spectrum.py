@@ -6,12 +6,12 @@ import math
 
 import numpy as np
 import pytest
-from scipy import integrate
-
 from eddyvigil.simulator.signals import PopeGenerator, PopeSpectrum, generate
 from eddyvigil.stats.spectra import SpectrumAccumulator, chi2_interval
+from scipy import integrate
 
-# REFERENCES §7 check case: u' = 1 m/s (k = 1.5), eps = 1 m^2/s^3, nu = 1.5e-5 m^2/s, Re_lambda = 1000
+# REFERENCES §7 check case: u' = 1 m/s (k = 1.5), eps = 1 m^2/s^3, nu = 1.5e-5 m^2/s
+# (Re_lambda = 1000)
 K, EPS, NU = 1.5, 1.0, 1.5e-5
 
 
