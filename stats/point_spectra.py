@@ -59,6 +59,19 @@ class PointSpectra:
         self.welch.update(block)
         return self
 
+    def merge(self, other: PointSpectra) -> PointSpectra:
+        """A new PointSpectra pooling both records' segments (inputs untouched; other follows)."""
+        out = PointSpectra(
+            self.columns,
+            self.rate_hz,
+            segment=self.welch.segment,
+            c1=self.c1,
+            fit_range_hz=self.fit_range_hz,
+            stride=self.welch.stride,
+        )
+        out.welch = self.welch.merge(other.welch)
+        return out
+
     def spectrum(self) -> SpectrumSnapshot | None:
         return self.welch.snapshot()
 

@@ -91,3 +91,22 @@ def test_short_point_has_no_spectrum_and_no_made_up_eps():
     line = json.loads(buf.getvalue().splitlines()[0])
     assert line["spectra"] is None and line["nu_source"] == "default"
     assert all(_rows(line)[n]["value"] is None for n in SPECTRAL_ROWS)
+
+
+def test_point_spectra_merge_pools_segments_like_scipy():
+    # two independent records of one point: the merged Welch average is the count-weighted mean
+    # of scipy.signal.welch on each (Welch 1967: an average of segment periodograms)
+    from eddyvigil.stats.point_spectra import PointSpectra
+
+    rng = np.random.default_rng(12)
+    a, b = rng.standard_normal((20_000, 2)), rng.standard_normal((12_000, 2))
+    pa = PointSpectra(("u", "v"), 1000.0, segment=1024).update(a)
+    pb = PointSpectra(("u", "v"), 1000.0, segment=1024).update(b)
+    both = pa.merge(pb).spectrum()
+    ka, kb = pa.welch.segments, pb.welch.segments
+    ref = (
+        ka * sps.welch(a, fs=1000.0, nperseg=1024, axis=0)[1]
+        + kb * sps.welch(b, fs=1000.0, nperseg=1024, axis=0)[1]
+    ) / (ka + kb)
+    np.testing.assert_allclose(both.psd, ref, rtol=1e-11)
+    assert pa.welch.segments == ka  # untouched
