@@ -89,6 +89,7 @@ class _PointRun:
         self.index = index
         self.point = dict(point) if point is not None else {"id": None}
         self.stats = None  # stats.PointStatistics, created at the first samples
+        self.spectra = None  # stats.point_spectra.PointSpectra (regularly sampled points only)
         self.columns: tuple[str, ...] | None = None
         self.rate_hz: float | None = None
         self.units: str | None = None  # of the first accepted samples
@@ -176,6 +177,9 @@ class Pipeline:
         from eddyvigil import stats  # the numba-compiled core is loaded only when a pipeline is built
 
         self._stats = stats
+        from eddyvigil.stats import point_spectra  # Welch spectra and eps beside the moments
+
+        self._spectra = point_spectra
         self.targets = targets if targets is not None else stats.Targets.defaults()
         self._writer = summary if isinstance(summary, SummaryWriter) else SummaryWriter(summary)
         self._on_converged = on_converged
@@ -428,6 +432,7 @@ class Pipeline:
             run.units = units
             run.columns, run.rate_hz = columns, rate_hz
             run.stats = self._stats.PointStatistics(columns, rate_hz, targets=self.targets)
+            run.spectra = None if rate_hz is None else self._spectra.PointSpectra(columns, rate_hz)
         elif columns != run.columns or rate_hz != run.rate_hz:
             return "layout_changed"
         duration_s = None
@@ -443,6 +448,8 @@ class Pipeline:
             run.stats.update(velocity, duration_s=duration_s)
         else:
             run.stats.update(velocity)
+        if run.spectra is not None:
+            run.spectra.update(velocity)
         st.samples += n
         st.rate_hz = rate_hz
         self._trace(st, velocity, columns, rate_hz, times, t0)
@@ -543,8 +550,12 @@ class Pipeline:
         if snap is not None:
             fields = snap.summary_fields()
             line.update(fields)
+            extra, rows = self._spectra.summary_fields(
+                run.spectra, snap, run.point, random_sampling=run.rate_hz is None
+            )
+            line.update(extra)
             # keep the contract order: statistics last
-            line["statistics"] = line.pop("statistics")
+            line["statistics"] = line.pop("statistics") + rows
         return line
 
     def run_line(self) -> dict:
@@ -662,6 +673,8 @@ class Pipeline:
                 converged_wall_age_s=(
                     now - run.converged_clock if run and run.converged_clock is not None else None
                 ),
+                spectrum=(run.spectra.live(run.snapshot, run.point.get("nu"), now)
+                          if run and run.spectra is not None else None),
             )
         return RunSnapshot(
             sequence=self._sequence,

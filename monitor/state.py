@@ -55,6 +55,8 @@ class StreamView:
     finished: tuple[Mapping, ...] = ()
     ended: bool = False
     converged_wall_age_s: float | None = None
+    #: (SpectrumSnapshot | None, Dissipation | None) of the current point (stats.point_spectra)
+    spectrum: tuple | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

@@ -33,6 +33,8 @@ __all__ = [
     "TurbulenceGenerator",
     "OUGenerator",
     "VonKarmanGenerator",
+    "PopeGenerator",
+    "PopeSpectrum",
     "RandomSampler",
     "cholesky_factor",
     "skew_moments",
@@ -474,3 +476,193 @@ def generate(generator, n: int, block: int = 65536) -> np.ndarray:
     if not parts:
         return generator.next_block(0)
     return np.concatenate(parts)
+
+
+# ---------------------------------------------------------------- Pope's model spectrum
+
+#: constants of Pope's model spectrum (Pope 2000, Turbulent Flows, CUP, §6.5; REFERENCES §7)
+POPE_C, POPE_BETA, POPE_P0 = 1.5, 5.2, 2.0
+
+
+class PopeSpectrum:
+    """Pope's model energy spectrum for given ``k``, ``eps``, ``nu`` and its 1-D spectra.
+
+    ``E(kappa) = C eps^{2/3} kappa^{-5/3} f_L(kappa L) f_eta(kappa eta)``, ``L = k^{3/2}/eps``,
+    with ``c_L``, ``c_eta`` solved so that ``int E = k`` and ``int 2 nu kappa^2 E = eps``.
+    ``E11(k1) = int_{k1}^inf E/kappa (1 - k1^2/kappa^2) dkappa`` and
+    ``E22(k1) = 1/2 int_{k1}^inf E/kappa (1 + k1^2/kappa^2) dkappa`` (isotropic turbulence;
+    Pope 2000, §6.5, from memory). Integrals on a fine logarithmic grid.
+    """
+
+    def __init__(self, k: float, eps: float, nu: float, grid: int = 20_001):
+        from scipy.optimize import fsolve
+
+        self.k, self.eps, self.nu = float(k), float(eps), float(nu)
+        self.L = self.k**1.5 / self.eps
+        self.eta = (self.nu**3 / self.eps) ** 0.25
+        self._x = np.linspace(math.log(1e-6 / self.L), math.log(60.0 / self.eta), grid)
+        kap = np.exp(self._x)
+
+        def residual(c):
+            e = self._energy(kap, c[0], c[1])
+            return [
+                np.trapezoid(e * kap, self._x) / self.k - 1.0,
+                np.trapezoid(2 * self.nu * kap**3 * e, self._x) / self.eps - 1.0,
+            ]
+
+        self.c_L, self.c_eta = (float(v) for v in fsolve(residual, [6.78, 0.40], xtol=1e-12))
+        e = self._energy(kap, self.c_L, self.c_eta)
+        # tails from the top: A(k1) = int_{k1} E dx, B(k1) = int_{k1} E / kappa^2 dx
+        # (dx = dkappa/kappa)
+        dx = self._x[1] - self._x[0]
+        self._a = np.r_[np.cumsum(((e[1:] + e[:-1]) * dx / 2)[::-1])[::-1], 0.0]
+        eb = e / kap**2
+        self._b = np.r_[np.cumsum(((eb[1:] + eb[:-1]) * dx / 2)[::-1])[::-1], 0.0]
+
+    def _energy(self, kap, c_l, c_eta):
+        kl = kap * self.L
+        f_l = (kl / np.sqrt(kl**2 + c_l)) ** (5.0 / 3.0 + POPE_P0)
+        f_eta = np.exp(-POPE_BETA * (((kap * self.eta) ** 4 + c_eta**4) ** 0.25 - c_eta))
+        return POPE_C * self.eps ** (2.0 / 3.0) * kap ** (-5.0 / 3.0) * f_l * f_eta
+
+    def energy(self, kappa) -> np.ndarray:
+        return self._energy(np.asarray(kappa, dtype=np.float64), self.c_L, self.c_eta)
+
+    def _tails(self, k1):
+        x = np.log(np.asarray(k1, dtype=np.float64))
+        a = np.interp(x, self._x, self._a, right=0.0)
+        b = np.interp(x, self._x, self._b, right=0.0)
+        return a, b, np.exp(x)
+
+    def e11(self, k1) -> np.ndarray:
+        a, b, k = self._tails(k1)
+        return np.clip(a - k**2 * b, 0.0, None)
+
+    def e22(self, k1) -> np.ndarray:
+        a, b, k = self._tails(k1)
+        return 0.5 * (a + k**2 * b)
+
+    def psd(self, f_hz, speed_ms, transverse=False) -> np.ndarray:
+        """One-sided frequency spectrum (Hz) by Taylor's hypothesis.
+
+        ``S = 2 pi E11(2 pi f/U) / U`` (``E22`` when ``transverse``).
+        """
+        f = np.asarray(f_hz, dtype=np.float64)
+        k1 = np.maximum(2 * math.pi * f / speed_ms, np.exp(self._x[0]))
+        e = self.e22(k1) if transverse else self.e11(k1)
+        return 2 * math.pi * e / speed_ms
+
+    # ---- truth (REFERENCES §7)
+    @property
+    def u_rms(self) -> float:
+        return math.sqrt(2.0 * self.k / 3.0)
+
+    @property
+    def tau_eta(self) -> float:
+        return math.sqrt(self.nu / self.eps)
+
+    @property
+    def lambda_g(self) -> float:
+        return math.sqrt(15.0 * self.nu * self.u_rms**2 / self.eps)
+
+    @property
+    def re_lambda(self) -> float:
+        return self.u_rms * self.lambda_g / self.nu
+
+    @property
+    def l11(self) -> float:
+        """Longitudinal integral length, pi E11(0) / (2 u'^2)."""
+        return math.pi * float(self._a[0]) / (2.0 * self.u_rms**2)
+
+
+class PopeGenerator(TurbulenceGenerator):
+    """Isotropic turbulence with Pope's model spectrum (inertial and dissipation ranges).
+
+    Column 0 (u) has the longitudinal spectrum E11, the others the transverse E22, each by
+    Taylor's hypothesis at ``speed_ms`` (default the mean speed), folded about Nyquist as ideal
+    sampling gives it; components independent with variance ``u'^2 = 2k/3``. Made, like
+    :class:`VonKarmanGenerator`, by FIR filtering white noise (overlap-save, fixed chunks).
+    Truth: ``spectrum`` (a :class:`PopeSpectrum`) gives eps, eta, tau_eta, lambda_g, Re_lambda.
+    """
+
+    def __init__(self, mean, k, eps, nu, rate_hz, seed, *, speed_ms=None, shedding=None, taps=None):
+        mean = np.array(mean, dtype=np.float64).reshape(-1)
+        m = mean.size
+        self.spectrum = PopeSpectrum(k, eps, nu)
+        stress = np.eye(m) * self.spectrum.u_rms**2
+        super().__init__(mean, stress, rate_hz, seed, shedding=shedding)
+        self.speed_ms = (
+            float(speed_ms) if speed_ms is not None else float(np.linalg.norm(self.mean))
+        )
+        if not self.speed_ms > 0:
+            raise ValueError("Pope generator needs a mean speed > 0")
+        tl = self.spectrum.l11 / self.speed_ms
+        if taps is None:
+            taps = 1 << max(10, math.ceil(math.log2(64 * tl * self.rate_hz)))
+        self.taps = int(taps)
+        f = np.fft.rfftfreq(self.taps, 1.0 / self.rate_hz)
+        kernels = []
+        for transverse in (False, True):
+            s = self.psd_unit(f, transverse)
+            h = np.roll(np.fft.irfft(np.sqrt(s * self.rate_hz / 2), self.taps), self.taps // 2)
+            kernels.append(h / math.sqrt(np.sum(h**2)))
+        self.kernels = np.stack([kernels[0 if i == 0 else 1] for i in range(m)], axis=1)
+        self._chunk = max(4 * self.taps, 1 << 15)
+        self._history = self._rng.standard_normal((self.taps - 1, m))
+        self._ready = np.empty((0, m))
+
+    def psd_unit(self, f_hz, transverse=False, folds=8) -> np.ndarray:
+        """Unit-variance one-sided PSD folded about Nyquist (``folds`` images each side)."""
+        f = np.asarray(f_hz, dtype=np.float64)
+
+        def one(g):
+            return self.spectrum.psd(np.abs(g), self.speed_ms, transverse) / self.spectrum.u_rms**2
+
+        s = one(f)
+        for j in range(1, folds + 1):
+            s = s + one(j * self.rate_hz - f) + one(j * self.rate_hz + f)
+        return s
+
+    def truth(self) -> dict:
+        sp = self.spectrum
+        return {
+            "eps": sp.eps,
+            "eta": sp.eta,
+            "tau_eta": sp.tau_eta,
+            "lambda_g": sp.lambda_g,
+            "Re_lambda": sp.re_lambda,
+            "nu": sp.nu,
+            "L_u": sp.l11,
+        }
+
+    def _fill(self, n, out):
+        parts, have = [self._ready], self._ready.shape[0]
+        while have < n:
+            noise = self._rng.standard_normal((self._chunk, self.m))
+            buf = np.concatenate([self._history, noise])
+            self._history = buf[-(self.taps - 1) :].copy()
+            c = np.stack(
+                [
+                    sps.fftconvolve(buf[:, i], self.kernels[:, i], mode="valid")
+                    for i in range(self.m)
+                ],
+                axis=1,
+            )
+            parts.append(c)
+            have += c.shape[0]
+        pool = np.concatenate(parts) if len(parts) > 1 else self._ready
+        out[:] = pool[:n] * self.spectrum.u_rms + self.mean
+        self._ready = pool[n:]
+
+    def unit_acf(self, lags: int) -> np.ndarray:
+        h = self.kernels[:, 0]
+        spec = np.abs(np.fft.rfft(h, 2 * self.taps)) ** 2
+        acf = np.fft.irfft(spec, 2 * self.taps)[: self.taps]
+        out = np.zeros(lags)
+        k = min(lags, self.taps)
+        out[:k] = acf[:k] / acf[0]
+        return out
+
+    def _unit_integral_time(self) -> np.ndarray:
+        rho = self.unit_acf(self.taps)
+        return np.full(self.m, (0.5 + rho[1:].sum()) / self.rate_hz)

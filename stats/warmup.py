@@ -33,4 +33,7 @@ def prepare_kernels() -> float:
                 for part in np.array_split(block, 3):
                     stats.update(part, duration_s=None if rate_hz else part.shape[0] / 1000.0)
                 stats.snapshot()
+    from eddyvigil.stats.spectral_kernels import accumulate_power  # Welch sums: one signature
+
+    accumulate_power(np.zeros((1, 1, 2), dtype=np.complex128), np.zeros((2, 1)))
     return time.perf_counter() - start

@@ -1,0 +1,387 @@
+"""Online Welch spectra: Hann-windowed, 50 %-overlapped segments, one-sided PSD in (m/s)^2/Hz.
+
+Welch (1967, IEEE Trans. Audio Electroacoust. 15:70) averages the periodograms of windowed,
+overlapping segments. Here the average is kept as a *sum* of periodograms and a count, so a
+point's spectrum is updated block by block and two records merge exactly (sums add). Each
+segment is detrended by its own mean (as ``scipy.signal.welch``'s default), windowed with a
+periodic Hann window, and every complete segment of a block goes through ``scipy.fft.rfft`` in
+one batch: no per-sample Python.
+
+Uncertainty: the Welch average of ``K`` segments at 50 % overlap is ~ ``S chi2_nu / nu`` with
+the equivalent degrees of freedom (Percival & Walden 1993, *Spectral Analysis for Physical
+Applications*, CUP, eq. 292b)
+
+    nu = 2 K / (1 + 2 sum_{m=1}^{K-1} (1 - m/K) rho_m^2),
+    rho_m = sum_t h_t h_{t+m D} / sum_t h_t^2,
+
+(only ``rho_1`` is non-zero for Hann at 50 %: 1/6, so ``nu ~ 1.89 K``); half that at 0 Hz and at
+Nyquist. Averaging ``M`` adjacent bins (log-binning) multiplies ``nu`` by
+``M / (1 + 2 sum_j (1 - j/M) r_j)``, ``r_j`` the squared correlation of periodogram bins ``j``
+apart, ``|sum h_t^2 e^{-2 pi i j t/N}|^2 / (sum h_t^2)^2`` (Percival & Walden 1993, §6.6; 4/9
+and 1/36 for Hann).
+
+The segment length is chosen so the resolution is well below ``1/T_int``:
+``N ~ RESOLUTION_FACTOR * T_int * rate`` (20), the nearest power of two (:func:`segment_length`).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.fft
+from eddyvigil.stats.spectral_kernels import accumulate_power
+from scipy import signal as sps
+from scipy import stats as sst
+
+__all__ = [
+    "RESOLUTION_FACTOR",
+    "LogSpectrum",
+    "SpectrumAccumulator",
+    "SpectrumSnapshot",
+    "chi2_interval",
+    "integral_time_estimate",
+    "log_bin",
+    "segment_length",
+    "welch_dof",
+]
+
+#: segment length >= this many integral times, so the bin width is <= 1/(RESOLUTION_FACTOR T_int);
+#: more would sharpen the lowest bins (L_u from S(0)) but leave too few segments for the inertial
+#: fit
+RESOLUTION_FACTOR = 20.0
+MIN_SEGMENT = 256
+MAX_SEGMENT = 1 << 16
+
+
+def segment_length(rate_hz: float, tint_s: float | None) -> int:
+    """Power-of-two segment length for a rate and an integral time scale (None: 1 s of data).
+
+    >>> segment_length(20000.0, 0.01)   # 20 * 0.01 s * 20 kHz = 4000 -> 4096 (nearest power of two)
+    4096
+    """
+    if tint_s is None or not math.isfinite(tint_s) or tint_s <= 0:
+        want = rate_hz
+    else:
+        want = RESOLUTION_FACTOR * tint_s * rate_hz
+    n = 1 << max(0, round(math.log2(max(want, 1.0))))  # nearest power of two (factor 14-28)
+    return int(min(max(n, MIN_SEGMENT), MAX_SEGMENT))
+
+
+def integral_time_estimate(x: np.ndarray, rate_hz: float) -> float:
+    """Integral time scale (s) of the slowest column: the ACF integrated to its first zero.
+
+    Used only to pick the segment length, so a rough value is enough.
+    """
+    x = np.asarray(x, dtype=np.float64)
+    if x.ndim == 1:
+        x = x[:, None]
+    n = x.shape[0]
+    if n < 16:
+        return float("nan")
+    y = x - x.mean(axis=0)
+    nfft = scipy.fft.next_fast_len(2 * n)
+    spec = scipy.fft.rfft(y, nfft, axis=0)
+    acf = scipy.fft.irfft(np.abs(spec) ** 2, nfft, axis=0)[:n]
+    out = 0.0
+    for j in range(acf.shape[1]):
+        if acf[0, j] <= 0:
+            continue
+        r = acf[:, j] / acf[0, j]
+        neg = np.flatnonzero(r <= 0)
+        stop = int(neg[0]) if neg.size else n
+        out = max(out, (r[:stop].sum() - 0.5) / rate_hz)
+    return out if out > 0 else float("nan")
+
+
+def welch_dof(window: np.ndarray, hop: int, segments: int) -> float:
+    """Equivalent chi^2 degrees of freedom of a Welch average (Percival & Walden 1993, eq. 292b)."""
+    if segments <= 0:
+        return 0.0
+    h = np.asarray(window, dtype=np.float64)
+    n = h.size
+    denom = float(np.dot(h, h))
+    acc = 0.0
+    m = 1
+    while m < segments and m * hop < n:
+        rho = float(np.dot(h[: n - m * hop], h[m * hop :])) / denom
+        acc += (1.0 - m / segments) * rho * rho
+        m += 1
+    return 2.0 * segments / (1.0 + 2.0 * acc)
+
+
+def _bin_correlations(window: np.ndarray, reach: int = 4) -> np.ndarray:
+    """Squared correlation of periodogram ordinates j = 1..reach bins apart (smooth spectrum):
+    ``|sum_t h_t^2 e^{-2 pi i j t/N}|^2 / (sum h_t^2)^2`` (4/9, 1/36, 0, 0 for Hann)."""
+    h2 = np.asarray(window, dtype=np.float64) ** 2
+    t = np.arange(h2.size) * (2.0 * np.pi / h2.size)
+    total = float(h2.sum())
+    # the few coefficients wanted, by a direct sum over a strided sample of the phases: h^2 of a
+    # periodic Hann window is a trigonometric polynomial of degree 2, so 16 points per period are
+    # exact
+    step = max(1, h2.size // 64) if h2.size % max(1, h2.size // 64) == 0 else 1
+    hs, ts = h2[::step], t[::step]
+    scale = h2.size / hs.size
+    out = np.empty(reach)
+    for j in range(1, reach + 1):
+        c = scale * float(np.dot(hs, np.cos(j * ts)))
+        s_ = scale * float(np.dot(hs, np.sin(j * ts)))
+        out[j - 1] = (c * c + s_ * s_) / total**2
+    return out
+
+
+def chi2_interval(psd, dof, confidence: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
+    """Interval ``[nu S / chi2_{nu,1-a/2}, nu S / chi2_{nu,a/2}]`` for the true spectrum per bin.
+
+    Bendat & Piersol 2010, *Random Data*, 4th ed., §8.5.4 (from memory): a spectral estimate with
+    ``nu`` degrees of freedom is distributed as ``S chi2_nu / nu``.
+    """
+    psd = np.asarray(psd, dtype=np.float64)
+    dof = np.asarray(dof, dtype=np.float64)
+    a = 1.0 - confidence
+    with np.errstate(invalid="ignore", divide="ignore"):
+        low = dof * psd / sst.chi2.ppf(1.0 - a / 2.0, dof)
+        high = dof * psd / sst.chi2.ppf(a / 2.0, dof)
+    bad = ~(dof > 0)
+    low[bad] = np.nan
+    high[bad] = np.nan
+    return low, high
+
+
+@dataclass(frozen=True)
+class LogSpectrum:
+    """A spectrum averaged over logarithmically spaced frequency bands (DESIGN §8)."""
+
+    f_hz: np.ndarray
+    psd: np.ndarray  # (bins,) or (bins, m)
+    dof: np.ndarray
+    first: np.ndarray  # index of the first fine bin of each band
+    count: np.ndarray  # fine bins per band
+
+
+def log_bin(f_hz, psd, dof, window: np.ndarray | None = None, max_bins: int = 200) -> LogSpectrum:
+    """Average fine bins 1.. (DC left out) into at most ``max_bins`` log-spaced bands.
+
+    Each band's ``dof`` is the fine-bin dof times the effective number of independent bins it holds
+    (adjacent Hann bins are correlated, see the module docstring); ``window`` None means
+    independent bins.
+    """
+    f = np.asarray(f_hz, dtype=np.float64)
+    p = np.asarray(psd, dtype=np.float64)
+    d = np.broadcast_to(np.asarray(dof, dtype=np.float64), f.shape)
+    if f.size < 2:
+        empty = np.zeros(0)
+        return LogSpectrum(empty, p[:0], empty, empty.astype(np.int64), empty.astype(np.int64))
+    f1, fn = f[1], f[-1]
+    span = math.log(fn / f1) if fn > f1 else 1.0
+    width = span / max(max_bins - 1, 1)
+    ids = np.floor(np.log(f[1:] / f1) / width + 1e-9).astype(np.int64)
+    # bands narrower than one fine bin collapse: renumber the distinct ids
+    starts = np.flatnonzero(np.r_[True, ids[1:] != ids[:-1]])
+    count = np.diff(np.r_[starts, ids.size])
+    first = starts + 1
+    r = _bin_correlations(window) if window is not None else np.zeros(0)
+    fb = np.add.reduceat(f[1:], starts) / count
+    pb = np.add.reduceat(p[1:], starts, axis=0) / (count if p.ndim == 1 else count[:, None])
+    db = np.add.reduceat(d[1:], starts) / count
+    factor = np.empty(count.size)
+    for mcount in np.unique(count):  # depends on the band's bin count only
+        js = np.arange(1, min(mcount, r.size + 1))
+        corr = np.sum((1.0 - js / mcount) * r[js - 1]) if js.size else 0.0
+        factor[count == mcount] = mcount / (1.0 + 2.0 * corr)
+    return LogSpectrum(fb, pb, db * factor, first, count)
+
+
+@dataclass(frozen=True)
+class SpectrumSnapshot:
+    """Welch estimate at one moment: fine bins, all columns."""
+
+    columns: tuple[str, ...]
+    rate_hz: float
+    segment: int
+    segments: int
+    f_hz: np.ndarray  # (nfreq,)
+    psd: np.ndarray  # (nfreq, m), one-sided, units^2/Hz
+    dof: np.ndarray  # (nfreq,)
+    window: np.ndarray
+
+    @property
+    def df_hz(self) -> float:
+        return self.rate_hz / self.segment
+
+    def variance(self) -> np.ndarray:
+        """Integral of the PSD over frequency (Parseval): the windowed within-segment variance."""
+        return self.psd.sum(axis=0) * self.df_hz
+
+    def interval(self, confidence: float = 0.95):
+        return chi2_interval(self.psd, self.dof[:, None], confidence)
+
+    def log_binned(self, max_bins: int = 200) -> LogSpectrum:
+        """Log-spaced bands of bins 1 .. below Nyquist (the Nyquist ordinate of an even segment
+        holds half the one-sided density, as in scipy, so it is no density estimate and is
+        left out)."""
+        stop = self.f_hz.size - 1 if self.segment % 2 == 0 else self.f_hz.size
+        return log_bin(self.f_hz[:stop], self.psd[:stop], self.dof[:stop], self.window, max_bins)
+
+
+class SpectrumAccumulator:
+    """Welch spectrum of every column of a point, updated block by block, mergeable.
+
+    Parameters
+    ----------
+    columns : names of the velocity columns (``("u", "v", "w")``)
+    rate_hz : sampling rate
+    segment : samples per segment (a power of two is fastest); None chooses it from the
+        integral time scale ``tint_s`` or, when that is None too, from the first ``probe`` samples.
+    stride : transform only every ``stride``-th segment of the 50 %-overlapped sequence (1: all,
+        Welch's estimator proper). A larger stride costs ``1/stride`` of the FFT work and gives
+        fewer degrees of freedom, which the dof and intervals account for
+        (benchmarks/bench_spectra.py).
+    """
+
+    def __init__(
+        self,
+        columns,
+        rate_hz: float,
+        *,
+        segment: int | None = None,
+        tint_s: float | None = None,
+        probe: int | None = None,
+        stride: int = 1,
+    ):
+        self.columns = tuple(columns)
+        self.stride = int(stride)
+        if self.stride < 1:
+            raise ValueError(f"stride must be >= 1, got {stride!r}")
+        self._skip = 0
+        self.rate_hz = float(rate_hz)
+        if not (self.rate_hz > 0 and math.isfinite(self.rate_hz)):
+            raise ValueError(f"rate must be positive, got {rate_hz!r}")
+        self._m = len(self.columns)
+        self._probe = (
+            int(probe)
+            if probe is not None
+            else int(min(max(4 * MIN_SEGMENT, 2 * rate_hz), 1 << 18))
+        )
+        self._buf = np.zeros((self._m, 0))  # column-major samples not yet past a segment start
+        self._fill = 0
+        self.segment = None
+        self._sum = None
+        self.segments = 0
+        if segment is not None:
+            self._set_segment(int(segment))
+        elif tint_s is not None:
+            self._set_segment(segment_length(self.rate_hz, tint_s))
+
+    @classmethod
+    def empty(cls, columns, rate_hz, **kw) -> SpectrumAccumulator:
+        return cls(columns, rate_hz, **kw)
+
+    def _set_segment(self, n: int) -> None:
+        if n < 8:
+            raise ValueError(f"segment must hold at least 8 samples, got {n}")
+        self.segment = n
+        self.hop = n - n // 2  # scipy.signal.welch's default overlap n // 2
+        self.window = sps.get_window("hann", n)  # periodic Hann, as scipy.signal.welch
+        self._scale = 1.0 / (self.rate_hz * float(np.dot(self.window, self.window)))
+        self._window_ft = scipy.fft.rfft(self.window)
+        self._window_bins = np.flatnonzero(np.abs(self._window_ft) > 1e-9 * abs(self._window_ft[0]))
+        self._sum = np.zeros((n // 2 + 1, self._m))
+
+    @property
+    def n(self) -> int:
+        """Samples that entered complete segments (overlap counted once)."""
+        return 0 if not self.segments else self.segment + (self.segments - 1) * self.hop
+
+    def update(self, block) -> SpectrumAccumulator:
+        x = np.asarray(block)
+        if x.ndim == 1:
+            x = x[:, None]
+        if x.shape[1] != self._m:
+            raise ValueError(f"block has {x.shape[1]} columns, expected {self._m}")
+        if self._skip:
+            drop = min(self._skip, x.shape[0])
+            x, self._skip = x[drop:], self._skip - drop
+        self._append(x)
+        if self.segment is None:
+            if self._fill < self._probe:
+                return self
+            held = self._buf[:, : self._fill].T
+            self._set_segment(
+                segment_length(self.rate_hz, integral_time_estimate(held, self.rate_hz))
+            )
+        n, step = self.segment, self.hop * self.stride
+        have = self._fill
+        k = 0 if have < n else 1 + (have - n) // step
+        if k:
+            # (m, k, n) view of the segments on the column-major buffer: the window product reads
+            # memory in order, and one batched FFT serves the whole block
+            segs = np.lib.stride_tricks.sliding_window_view(
+                self._buf[:, : (k - 1) * step + n], n, axis=1
+            )[:, ::step]
+            spec = scipy.fft.rfft(segs * self.window, axis=2)
+            # each segment's own mean removed after the transform, FFT(h (x - m)) = FFT(h x) - m
+            # FFT(h);
+            # the periodic Hann window's transform is non-zero in bins 0 and 1 only
+            mean = segs.mean(axis=2)  # contiguous rows: a fast reduce
+            for b in self._window_bins:
+                spec[:, :, b] -= mean * self._window_ft[b]
+            accumulate_power(spec, self._sum)
+            self.segments += k
+            self._skip = max(0, k * step - have)  # a stride may step past the data held
+            keep = max(0, have - k * step)
+            self._buf[:, :keep] = self._buf[:, have - keep : have].copy()
+            self._fill = keep
+        return self
+
+    def _append(self, x: np.ndarray) -> None:
+        """Copy rows into the column-major buffer (growing it by doubling; cast to float64 here)."""
+        need = self._fill + x.shape[0]
+        if need > self._buf.shape[1]:
+            grown = np.zeros((self._m, max(need, 2 * self._buf.shape[1])))
+            grown[:, : self._fill] = self._buf[:, : self._fill]
+            self._buf = grown
+        self._buf[:, self._fill : need] = x.T
+        self._fill = need
+
+    def merge(self, other: SpectrumAccumulator) -> SpectrumAccumulator:
+        """Pool the segments of two records.
+
+        ``other`` follows ``self``; the partial segment at the seam is lost.
+        """
+        if self.columns != other.columns or self.rate_hz != other.rate_hz:
+            raise ValueError("spectra of different columns or rates cannot be merged")
+        if self.segment is None or other.segment is None or self.segment != other.segment:
+            raise ValueError(
+                "spectra with different (or undecided) segment lengths cannot be merged"
+            )
+        if self.stride != other.stride:
+            raise ValueError("spectra taken with different strides cannot be merged")
+        out = SpectrumAccumulator(
+            self.columns, self.rate_hz, segment=self.segment, stride=self.stride
+        )
+        out._sum = self._sum + other._sum
+        out.segments = self.segments + other.segments
+        out._buf = other._buf[:, : other._fill].copy()
+        out._fill = other._fill
+        out._skip = other._skip
+        return out
+
+    def snapshot(self) -> SpectrumSnapshot | None:
+        """The current estimate, or None before the first complete segment."""
+        if not self.segments:
+            return None
+        n = self.segment
+        psd = self._sum * (self._scale / self.segments)
+        psd[1 : (n + 1) // 2] *= 2.0  # one-sided: all but DC (and Nyquist for even n)
+        dof = np.full(psd.shape[0], welch_dof(self.window, self.hop * self.stride, self.segments))
+        dof[0] /= 2.0
+        if n % 2 == 0:
+            dof[-1] /= 2.0
+        f = np.arange(psd.shape[0]) * (self.rate_hz / n)
+        for a in (f, psd, dof):
+            a.flags.writeable = False
+        return SpectrumSnapshot(
+            self.columns, self.rate_hz, n, self.segments, f, psd, dof, self.window
+        )
