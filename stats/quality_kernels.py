@@ -1,0 +1,294 @@
+"""Numba kernels of the signal-quality checks (state lives in :mod:`eddyvigil.stats.quality`).
+
+Plain loops over float64 arrays; no validation, no state kept here.
+
+``judge_window`` does the per-window work of one component column:
+
+1. **Dropouts**: runs of identical values longer than the data allow. The chance that a
+   sample repeats its predecessor, p̂, is the window's fraction of zero first differences
+   (counting none that lie inside runs of 8 or more zeros, so a dropout does not excuse
+   itself); a run of L equal values is flagged when N p̂^(L-1) < ``DROPOUT_ALPHA``
+   (a geometric run-length bound, common practice), and at least 3 equal values whatever
+   p̂. A run at the window's own minimum or maximum is pile-up at a rail, left to the
+   clipping count. The run's first value is a real sample; the held copies are flagged.
+2. **Spikes**: the phase-space method of Goring & Nikora (2002, J. Hydraul. Eng.
+   128(1):117-126) with the median/MAD centre and scale of Wahl (2003, discussion, ibid.):
+   u about its median, Δu_i = (u_{i+1} - u_{i-1})/2, Δ²u_i = (Δu_{i+1} - Δu_{i-1})/2, the
+   universal threshold λ_U = √(2 ln N), three ellipses ((u, Δu), (Δu, Δ²u), and (u, Δ²u)
+   rotated by θ = atan(Σ u Δ²u / Σ u²)). A point outside any ellipse is a candidate; it is
+   confirmed only where its deviation from the mean of its two neighbours is the largest
+   within ±2 rows (the neighbours of a spike leave the ellipses only through the spike's
+   own differences). Confirmed spikes are replaced by linear interpolation and the search
+   is repeated, as Goring & Nikora iterate, with the window's robust scales held fixed.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+__all__ = ["extremes", "judge_window", "universal_threshold"]
+
+#: Expected number of naturally occurring dropouts of the flagged length per window.
+DROPOUT_ALPHA = 1e-3
+#: Longest zero-difference run still counted in p̂ (longer runs are suspected dropouts).
+_LONG_ZERO_RUN = 8
+#: Consistency factor turning a MAD into a standard deviation for Gaussian data.
+_MAD_TO_SIGMA = 1.482602218505602
+#: At most this many detect-and-replace passes per window.
+_MAX_PASSES = 8
+
+FLAG_NONE = 0
+FLAG_SPIKE = 1
+FLAG_DROPOUT = 2
+
+
+def universal_threshold(n: int) -> float:
+    """λ_U = √(2 ln N) (Goring & Nikora 2002); NaN below 2 samples."""
+    return math.sqrt(2.0 * math.log(n)) if n >= 2 else math.nan
+
+
+@numba.njit(cache=True, nogil=True)
+def extremes(block):
+    """Per column: min, max and how many samples equal each (for pile-up at a rail)."""
+    n, m = block.shape
+    mn = np.empty(m)
+    mx = np.empty(m)
+    cmin = np.zeros(m, dtype=np.int64)
+    cmax = np.zeros(m, dtype=np.int64)
+    for c in range(m):
+        lo = np.inf
+        hi = -np.inf
+        for i in range(n):
+            v = block[i, c]
+            if v < lo:
+                lo = v
+            if v > hi:
+                hi = v
+        a = 0
+        b = 0
+        for i in range(n):
+            v = block[i, c]
+            if v == lo:
+                a += 1
+            if v == hi:
+                b += 1
+        mn[c], mx[c], cmin[c], cmax[c] = lo, hi, a, b
+    return mn, mx, cmin, cmax
+
+
+@numba.njit(cache=True, nogil=True)
+def _robust_scale(x):
+    """Median and 1.4826 MAD of x; the standard deviation when the MAD vanishes."""
+    med = np.median(x)
+    mad = np.median(np.abs(x - med)) * _MAD_TO_SIGMA
+    if mad <= 0.0:
+        mad = np.std(x)
+    return med, mad
+
+
+@numba.njit(cache=True, nogil=True)
+def _interpolate(y, flags, lo, hi):
+    """Replace flagged rows of y[lo:hi] linearly between the nearest unflagged rows of y.
+
+    Rows before ``lo`` are unflagged anchors by contract; rows from ``hi`` on are searched
+    for a right anchor (the lookahead); with none, the left anchor is held.
+    """
+    n = y.shape[0]
+    i = lo
+    while i < hi:
+        if flags[i] == FLAG_NONE:
+            i += 1
+            continue
+        a = i - 1
+        b = i
+        while b < n and flags[b] != FLAG_NONE:
+            b += 1
+        if a < 0 and b >= n:
+            return
+        for k in range(i, min(b, n)):
+            if a < 0:
+                y[k] = y[b]
+            elif b >= n:
+                y[k] = y[a]
+            else:
+                y[k] = y[a] + (y[b] - y[a]) * (k - a) / (b - a)
+        i = b
+
+
+@numba.njit(cache=True, nogil=True)
+def _dropouts(raw, flags, lo, hi, w0, w1, run_min):
+    """Flag held copies in runs of >= run_min equal values within raw[lo:hi].
+
+    Runs at the window's extreme values (rows w0..w1) are left alone (clipping)."""
+    lo_v = np.inf
+    hi_v = -np.inf
+    for i in range(w0, w1):
+        if raw[i] < lo_v:
+            lo_v = raw[i]
+        if raw[i] > hi_v:
+            hi_v = raw[i]
+    i = lo
+    while i < hi:
+        j = i + 1
+        while j < hi and raw[j] == raw[i]:
+            j += 1
+        if j - i >= run_min and raw[i] != lo_v and raw[i] != hi_v:
+            for k in range(i + 1, j):
+                flags[k] = FLAG_DROPOUT
+        i = j
+
+
+@numba.njit(cache=True, nogil=True)
+def _differences(y, d1, d2):
+    """Central first and second differences; edge rows copy their neighbour's value."""
+    n = y.shape[0]
+    for i in range(1, n - 1):
+        d1[i] = 0.5 * (y[i + 1] - y[i - 1])
+    d1[0] = d1[1]
+    d1[n - 1] = d1[n - 2]
+    for i in range(1, n - 1):
+        d2[i] = 0.5 * (d1[i + 1] - d1[i - 1])
+    d2[0] = d2[1]
+    d2[n - 1] = d2[n - 2]
+
+
+@numba.njit(cache=True, nogil=True)
+def judge_window(buf, flags, work, w0, w1, lam, stats):
+    """Judge rows w0..w1 of ``buf`` (n, m) for spikes and its rows 2..w1 for dropouts.
+
+    ``buf`` rows 0-1 are cleaned context (already output), rows 2..w0 pending rows judged
+    before, w0..w1 the new window, w1..n the lookahead (raw). ``flags`` (n, m) int8 holds the
+    pending rows' flags on entry and all of them on return; ``work`` (n, m) receives the
+    cleaned values. ``stats`` (m, 7) receives per component: new spikes, new dropout
+    samples, the window's smallest non-zero |Δu|, the fraction of non-zero |Δu| that are
+    whole multiples of it, the window's sum and sum of squares about its median, the median.
+    """
+    n, m = buf.shape
+    nw = w1 - w0
+    d1 = np.empty(n)
+    d2 = np.empty(n)
+    dev = np.empty(n)
+    for c in range(m):
+        raw = buf[:, c].copy()
+        fl = flags[:, c]
+        # --- quantisation and the repeat probability, from the window's first differences
+        zeros = 0
+        long_zeros = 0
+        run = 0
+        qmin = np.inf
+        for i in range(w0 + 1, w1):
+            d = abs(raw[i] - raw[i - 1])
+            if d == 0.0:
+                zeros += 1
+                run += 1
+            else:
+                if run >= _LONG_ZERO_RUN:
+                    long_zeros += run
+                run = 0
+                if d < qmin:
+                    qmin = d
+        if run >= _LONG_ZERO_RUN:
+            long_zeros += run
+        whole = 0
+        nonzero = 0
+        if math.isfinite(qmin):
+            for i in range(w0 + 1, w1):
+                d = abs(raw[i] - raw[i - 1])
+                if d > 0.0:
+                    nonzero += 1
+                    r = d / qmin
+                    if abs(r - round(r)) < 0.02:
+                        whole += 1
+        usable = (nw - 1) - long_zeros
+        p = (zeros - long_zeros) / usable if usable > 0 else 0.0
+        run_min = 3
+        if p > 0.0 and p < 1.0:
+            need = 1.0 + math.log(DROPOUT_ALPHA / max(nw, 2)) / math.log(p)
+            run_min = max(3, int(math.ceil(need)))
+        elif p >= 1.0:
+            run_min = n + 1  # nothing but repeats: no basis for calling a run too long
+        old = fl.copy()
+        for i in range(2, n):  # dropout flags are recomputed over all pending rows
+            if i >= w1 or fl[i] == FLAG_DROPOUT:
+                fl[i] = FLAG_NONE
+        _dropouts(raw, fl, 2, w1, w0, w1, run_min)
+        new_drop = 0
+        for i in range(2, w1):
+            if fl[i] == FLAG_DROPOUT and old[i] != FLAG_DROPOUT:
+                new_drop += 1
+        # --- spikes on the window, dropouts already interpolated
+        y = raw.copy()
+        _interpolate(y, fl, 2, n)
+        new_spikes = 0
+        med, su = _robust_scale(y[w0:w1])
+        _differences(y, d1, d2)
+        m1, s1 = _robust_scale(d1[w0:w1])
+        m2, s2 = _robust_scale(d2[w0:w1])
+        suu = 0.0
+        su2 = 0.0
+        for i in range(w0, w1):
+            suu += (y[i] - med) ** 2
+            su2 += (y[i] - med) * (d2[i] - m2)
+        if su > 0.0 and s1 > 0.0 and s2 > 0.0 and suu > 0.0 and nw >= 8:
+            theta = math.atan(su2 / suu)
+            ct = math.cos(theta)
+            st = math.sin(theta)
+            c2 = ct * ct - st * st
+            au = (lam * su) ** 2
+            a2 = (lam * s2) ** 2
+            aa = (au * ct * ct - a2 * st * st) / c2 if c2 != 0.0 else -1.0
+            bb = (a2 * ct * ct - au * st * st) / c2 if c2 != 0.0 else -1.0
+            rotated = aa > 0.0 and bb > 0.0
+            for _ in range(_MAX_PASSES):
+                _differences(y, d1, d2)
+                for i in range(1, n - 1):
+                    dev[i] = abs(y[i] - 0.5 * (y[i - 1] + y[i + 1]))
+                dev[0] = 0.0
+                dev[n - 1] = 0.0
+                found = 0
+                for i in range(w0, w1):
+                    if fl[i] != FLAG_NONE:
+                        continue
+                    x0 = (y[i] - med) / (lam * su)
+                    x1 = (d1[i] - m1) / (lam * s1)
+                    x2 = (d2[i] - m2) / (lam * s2)
+                    out = x0 * x0 + x1 * x1 > 1.0 or x1 * x1 + x2 * x2 > 1.0
+                    if not out and rotated:
+                        xu = y[i] - med
+                        xv = d2[i] - m2
+                        r1 = xu * ct + xv * st
+                        r2 = -xu * st + xv * ct
+                        out = r1 * r1 / aa + r2 * r2 / bb > 1.0
+                    if not out:
+                        continue
+                    k0 = max(i - 2, 0)
+                    k1 = min(i + 3, n)
+                    peak = True
+                    for k in range(k0, k1):
+                        if k != i and dev[k] > dev[i]:
+                            peak = False
+                    if peak:
+                        fl[i] = FLAG_SPIKE
+                        found += 1
+                if found == 0:
+                    break
+                new_spikes += found
+                y[:] = raw
+                _interpolate(y, fl, 2, n)
+        # sums about the window's median for the point's r.m.s. (σ/q̂)
+        s = 0.0
+        ss = 0.0
+        for i in range(w0, w1):
+            s += raw[i] - med
+            ss += (raw[i] - med) ** 2
+        work[:, c] = y
+        stats[c, 0] = new_spikes
+        stats[c, 1] = new_drop
+        stats[c, 2] = qmin
+        stats[c, 3] = whole / nonzero if nonzero > 0 else np.nan
+        stats[c, 4] = s
+        stats[c, 5] = ss
+        stats[c, 6] = med
