@@ -112,6 +112,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="S",
         help="seconds to wait for subscribers before re-sending (default 1)",
     )
+    p.add_argument(  # signal-quality policy (README, Signal quality)
+        "--quality",
+        choices=("flag", "exclude"),
+        default="flag",
+        help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
+        "and dropout samples by linear interpolation before the statistics",
+    )
     p.add_argument("--quiet", action="store_true", help="no status line")
 
 
@@ -187,7 +194,9 @@ def run(args: argparse.Namespace) -> int:
     from eddyvigil.monitor.pipeline import Pipeline
 
     summary = args.summary if args.summary else sys.stdout
-    pipeline = Pipeline(targets, summary=summary, max_message_bytes=max_bytes)
+    pipeline = Pipeline(
+        targets, summary=summary, max_message_bytes=max_bytes, quality=args.quality
+    )
     stop = threading.Event()
     status = StatusPrinter(quiet=args.quiet)
     if args.no_dashboard:

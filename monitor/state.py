@@ -55,6 +55,7 @@ class StreamView:
     finished: tuple[Mapping, ...] = ()
     ended: bool = False
     converged_wall_age_s: float | None = None
+    quality: Mapping | None = None  # the point's "quality" object (DESIGN §9) + recent "marks"
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

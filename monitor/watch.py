@@ -118,6 +118,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         default=DEFAULT_RCVHWM,
         help=f"receive queue depth in messages (default {DEFAULT_RCVHWM})",
     )
+    p.add_argument(  # signal-quality policy (README, Signal quality)
+        "--quality",
+        choices=("flag", "exclude"),
+        default="flag",
+        help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
+        "and dropout samples by linear interpolation before the statistics",
+    )
     p.add_argument("--quiet", action="store_true", help="no status line")
 
 
@@ -323,6 +330,7 @@ def run(args: argparse.Namespace) -> int:
             on_converged=control,
             recorder=recorder,
             max_message_bytes=max_bytes,
+            quality=args.quality,
         )
         status = StatusPrinter(quiet=args.quiet)
 

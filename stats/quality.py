@@ -58,7 +58,7 @@ FLAGGED_FRACTION_SUSPECT = 0.01
 CLIPPED_FRACTION_SUSPECT = 0.001
 #: A flagged (or held) run pending longer than this many windows is let through as it is.
 MAX_PENDING_WINDOWS = 4
-#: Flagged samples remembered for display (row, component index, kind).
+#: Flagged samples remembered for display (row, component index, kind, raw value).
 MARKS_KEPT = 500
 #: Share of windows whose differences must sit on whole steps for q̂ to be reported.
 QUANTISED_WINDOWS = 0.9
@@ -105,7 +105,7 @@ class SignalQuality:
         self._var_n = 0
         self._var_mean = np.zeros(m)
         self._var_m2 = np.zeros(m)
-        self.marks: list[tuple[int, int, int]] = []
+        self.marks: list[tuple[int, int, int, float]] = []
 
     # ------------------------------------------------------------------ streaming
 
@@ -165,7 +165,7 @@ class SignalQuality:
             qk_interpolate(work, flags)
         end = stop if final else self._releasable(ext, flags, stop)
         out = work[2 : 2 + end].copy()
-        self._count(flags[2 : 2 + end])
+        self._count(flags[2 : 2 + end], ext[2 : 2 + end])
         if end > 0:
             self._ctx = work[end : end + 2].copy()
         keep = self._fill - end
@@ -187,7 +187,7 @@ class SignalQuality:
                 break
         return end if end > limit else stop
 
-    def _count(self, flags: np.ndarray) -> None:
+    def _count(self, flags: np.ndarray, raw: np.ndarray) -> None:
         spikes = flags == qk.FLAG_SPIKE
         drops = flags == qk.FLAG_DROPOUT
         self.spikes += spikes.sum(axis=0)
@@ -198,7 +198,8 @@ class SignalQuality:
         if rows.size:
             base = self.n_out
             self.marks.extend(
-                (int(base + r), int(c), int(flags[r, c])) for r, c in zip(rows, comps, strict=True)
+                (int(base + r), int(c), int(flags[r, c]), float(raw[r, c]))
+                for r, c in zip(rows, comps, strict=True)
             )
             del self.marks[:-MARKS_KEPT]
 
@@ -303,3 +304,31 @@ def qk_interpolate(work: np.ndarray, flags: np.ndarray) -> None:
         col = np.ascontiguousarray(work[:, c])
         qk._interpolate(col, np.ascontiguousarray(flags[:, c]), 2, col.shape[0])
         work[:, c] = col
+
+
+def hold_suspect(snapshot, reasons: dict[str, str]):
+    """``snapshot`` (a PointSnapshot) with the quality guard applied: a new, frozen snapshot.
+
+    Every statistic that depends on a component named in ``reasons`` becomes ``suspect`` (never
+    converged) and so does the point; the reasons join the snapshot's ``suspect`` mapping.
+    Returns ``snapshot`` itself when ``reasons`` is empty.
+    """
+    if not reasons or snapshot is None:
+        return snapshot
+    from dataclasses import replace
+
+    from eddyvigil.stats.names import components_of
+
+    estimates = []
+    for e in snapshot.estimates:
+        bad = sorted(components_of(e.name) & reasons.keys())
+        if bad and e.target is not None:
+            why = "; ".join(f"{c}: {reasons[c]}" for c in bad)
+            e = e._replace(converged=False, state="suspect", reason=why, eta_s=None)
+        estimates.append(e)
+    suspect = dict(snapshot.suspect)
+    for c, why in reasons.items():
+        suspect[c] = f"{suspect[c]}; {why}" if c in suspect else why
+    return replace(
+        snapshot, estimates=tuple(estimates), converged=False, converged_at_s=None, suspect=suspect
+    )
