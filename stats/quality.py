@@ -59,7 +59,7 @@ CLIPPED_FRACTION_SUSPECT = 0.001
 #: A flagged (or held) run pending longer than this many windows is let through as it is.
 MAX_PENDING_WINDOWS = 4
 #: Flagged samples remembered for display (row, component index, kind, raw value).
-MARKS_KEPT = 500
+MARKS_KEPT = 2000
 #: Share of windows whose differences must sit on whole steps for q̂ to be reported.
 QUANTISED_WINDOWS = 0.9
 
