@@ -100,6 +100,7 @@ class SignalQuality:
         self._at_min = np.zeros(m, dtype=np.int64)
         self._at_max = np.zeros(m, dtype=np.int64)
         self._windows = 0
+        self._scales = np.zeros((m, qk.SCALE_WINDOWS, 6))  # per-window estimates, a ring
         self._quantised = np.zeros(m, dtype=np.int64)
         self._steps: list[np.ndarray] = []
         self._var_n = 0
@@ -158,7 +159,8 @@ class SignalQuality:
         w0, w1 = 2 + self._judged, 2 + stop
         nw = stop - self._judged
         if nw > 0:
-            qk.judge_window(ext, flags, work, w0, w1, qk.universal_threshold(nw), stats)
+            lam = qk.universal_threshold(nw)
+            qk.judge_window(ext, flags, work, w0, w1, lam, stats, self._scales, self._windows)
             self._window_stats(stats, nw)
         else:
             work[:] = ext

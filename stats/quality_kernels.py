@@ -37,6 +37,12 @@ DROPOUT_ALPHA = 1e-3
 _LONG_ZERO_RUN = 8
 #: Consistency factor turning a MAD into a standard deviation for Gaussian data.
 _MAD_TO_SIGMA = 1.482602218505602
+#: Values per window the centre (median of u) is taken from.
+_CENTRE_SAMPLES = 1024
+#: Values per window the scales (MAD) and the differences' medians are taken from.
+_SCALE_SAMPLES = 256
+#: Windows whose scale estimates are averaged (the current one and those before it).
+SCALE_WINDOWS = 8
 #: At most this many detect-and-replace passes per window.
 _MAX_PASSES = 8
 
@@ -80,13 +86,52 @@ def extremes(block):
 
 
 @numba.njit(cache=True, nogil=True)
-def _robust_scale(x):
-    """Median and 1.4826 MAD of x; the standard deviation when the MAD vanishes."""
-    med = np.median(x)
-    mad = np.median(np.abs(x - med)) * _MAD_TO_SIGMA
-    if mad <= 0.0:
-        mad = np.std(x)
-    return med, mad
+def _median_sorted(v):
+    v.sort()
+    k = v.shape[0]
+    return 0.5 * (v[(k - 1) // 2] + v[k // 2])
+
+
+@numba.njit(cache=True, nogil=True)
+def _mad_sigma(v, centre):
+    """1.4826 x median |v - centre| (v is overwritten)."""
+    for i in range(v.shape[0]):
+        v[i] = abs(v[i] - centre)
+    return _median_sorted(v) * _MAD_TO_SIGMA
+
+
+@numba.njit(cache=True, nogil=True)
+def _window_estimates(y, w0, w1, est):
+    """Median of u (centre) and, from an evenly strided subsample, the medians and 1.4826 MAD
+    of Δu and Δ²u and the MAD of u: est = [med_u, sigma_u, med_1, sigma_1, med_2, sigma_2].
+
+    Subsamples keep the sorts cheap; the scales are then averaged over the last windows
+    (see ``judge_window``), so their noise stays small."""
+    nw = w1 - w0
+    step = max(1, nw // _CENTRE_SAMPLES)
+    k = (nw + step - 1) // step
+    v = np.empty(k)
+    for i in range(k):
+        v[i] = y[w0 + i * step]
+    med = _median_sorted(v)
+    step = max(1, nw // _SCALE_SAMPLES)
+    k = (nw + step - 1) // step
+    a = np.empty(k)
+    b = np.empty(k)
+    c = np.empty(k)
+    for i in range(k):
+        r = w0 + i * step
+        a[i] = y[r]
+        b[i] = 0.5 * (y[r + 1] - y[r - 1])
+        c[i] = 0.25 * (y[r + 2] - 2.0 * y[r] + y[r - 2])
+    est[0] = med
+    est[1] = _mad_sigma(a, med)
+    m1 = _median_sorted(b.copy())
+    est[2] = m1
+    est[3] = _mad_sigma(b, m1)
+    m2 = _median_sorted(c.copy())
+    est[4] = m2
+    est[5] = _mad_sigma(c, m2)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -142,21 +187,7 @@ def _dropouts(raw, flags, lo, hi, w0, w1, run_min):
 
 
 @numba.njit(cache=True, nogil=True)
-def _differences(y, d1, d2):
-    """Central first and second differences; edge rows copy their neighbour's value."""
-    n = y.shape[0]
-    for i in range(1, n - 1):
-        d1[i] = 0.5 * (y[i + 1] - y[i - 1])
-    d1[0] = d1[1]
-    d1[n - 1] = d1[n - 2]
-    for i in range(1, n - 1):
-        d2[i] = 0.5 * (d1[i + 1] - d1[i - 1])
-    d2[0] = d2[1]
-    d2[n - 1] = d2[n - 2]
-
-
-@numba.njit(cache=True, nogil=True)
-def judge_window(buf, flags, work, w0, w1, lam, stats):
+def judge_window(buf, flags, work, w0, w1, lam, stats, hist, nhist):
     """Judge rows w0..w1 of ``buf`` (n, m) for spikes and its rows 2..w1 for dropouts.
 
     ``buf`` rows 0-1 are cleaned context (already output), rows 2..w0 pending rows judged
@@ -165,10 +196,12 @@ def judge_window(buf, flags, work, w0, w1, lam, stats):
     cleaned values. ``stats`` (m, 7) receives per component: new spikes, new dropout
     samples, the window's smallest non-zero |Δu|, the fraction of non-zero |Δu| that are
     whole multiples of it, the window's sum and sum of squares about its median, the median.
+    ``hist`` (m, SCALE_WINDOWS, 6) holds the estimates of earlier windows (``nhist`` of them
+    so far; this window's go into slot ``nhist % SCALE_WINDOWS``): the ellipses use the
+    window's own median of u and the mean of the other estimates over the held windows.
     """
     n, m = buf.shape
     nw = w1 - w0
-    d1 = np.empty(n)
     d2 = np.empty(n)
     dev = np.empty(n)
     for c in range(m):
@@ -223,10 +256,23 @@ def judge_window(buf, flags, work, w0, w1, lam, stats):
         y = raw.copy()
         _interpolate(y, fl, 2, n)
         new_spikes = 0
-        med, su = _robust_scale(y[w0:w1])
-        _differences(y, d1, d2)
-        m1, s1 = _robust_scale(d1[w0:w1])
-        m2, s2 = _robust_scale(d2[w0:w1])
+        slot = nhist % SCALE_WINDOWS
+        _window_estimates(y, w0, w1, hist[c, slot])
+        held = min(nhist + 1, SCALE_WINDOWS)
+        med = hist[c, slot, 0]
+        su = 0.0
+        m1 = 0.0
+        s1 = 0.0
+        m2 = 0.0
+        s2 = 0.0
+        for h in range(held):
+            su += hist[c, h, 1] / held
+            m1 += hist[c, h, 2] / held
+            s1 += hist[c, h, 3] / held
+            m2 += hist[c, h, 4] / held
+            s2 += hist[c, h, 5] / held
+        for i in range(w0 - 2, w1 + 2):  # the (u, Δ²u) covariance for the rotation angle
+            d2[i] = 0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) if 2 <= i < n - 2 else 0.0
         suu = 0.0
         su2 = 0.0
         for i in range(w0, w1):
@@ -242,42 +288,55 @@ def judge_window(buf, flags, work, w0, w1, lam, stats):
             aa = (au * ct * ct - a2 * st * st) / c2 if c2 != 0.0 else -1.0
             bb = (a2 * ct * ct - au * st * st) / c2 if c2 != 0.0 else -1.0
             rotated = aa > 0.0 and bb > 0.0
+            iu = 1.0 / (lam * su)
+            i1 = 1.0 / (lam * s1)
+            i2 = 1.0 / (lam * s2)
+            todo = np.arange(w0, w1)
+            ntodo = nw
             for _ in range(_MAX_PASSES):
-                _differences(y, d1, d2)
-                for i in range(1, n - 1):
-                    dev[i] = abs(y[i] - 0.5 * (y[i - 1] + y[i + 1]))
-                dev[0] = 0.0
-                dev[n - 1] = 0.0
                 found = 0
-                for i in range(w0, w1):
+                for t in range(ntodo):
+                    i = todo[t]
                     if fl[i] != FLAG_NONE:
                         continue
-                    x0 = (y[i] - med) / (lam * su)
-                    x1 = (d1[i] - m1) / (lam * s1)
-                    x2 = (d2[i] - m2) / (lam * s2)
+                    g1 = 0.5 * (y[i + 1] - y[i - 1]) - m1
+                    g2 = 0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) - m2
+                    xu = y[i] - med
+                    x0 = xu * iu
+                    x1 = g1 * i1
+                    x2 = g2 * i2
                     out = x0 * x0 + x1 * x1 > 1.0 or x1 * x1 + x2 * x2 > 1.0
                     if not out and rotated:
-                        xu = y[i] - med
-                        xv = d2[i] - m2
-                        r1 = xu * ct + xv * st
-                        r2 = -xu * st + xv * ct
+                        r1 = xu * ct + g2 * st
+                        r2 = -xu * st + g2 * ct
                         out = r1 * r1 / aa + r2 * r2 / bb > 1.0
                     if not out:
                         continue
-                    k0 = max(i - 2, 0)
-                    k1 = min(i + 3, n)
+                    # confirmed where it stands out most from its neighbours' mean, within ±2
+                    di = abs(y[i] - 0.5 * (y[i - 1] + y[i + 1]))
                     peak = True
-                    for k in range(k0, k1):
-                        if k != i and dev[k] > dev[i]:
+                    for k in range(max(i - 2, 1), min(i + 3, n - 1)):
+                        if k != i and abs(y[k] - 0.5 * (y[k - 1] + y[k + 1])) > di:
                             peak = False
                     if peak:
                         fl[i] = FLAG_SPIKE
+                        dev[found] = i
                         found += 1
                 if found == 0:
                     break
                 new_spikes += found
                 y[:] = raw
                 _interpolate(y, fl, 2, n)
+                # with the scales fixed, only rows within ±2 of a replaced one can change
+                ntodo = 0
+                todo = np.empty(5 * found, dtype=np.int64)
+                last = -1
+                for f in range(found):
+                    r = int(dev[f])
+                    for k in range(max(r - 2, w0, last + 1), min(r + 3, w1)):
+                        todo[ntodo] = k
+                        ntodo += 1
+                        last = k
         # sums about the window's median for the point's r.m.s. (σ/q̂)
         s = 0.0
         ss = 0.0
