@@ -6,7 +6,9 @@ verdicts do not depend on how the stream was cut into messages). The per-window 
 :mod:`eddyvigil.stats.quality_kernels` (what is detected and how is described there):
 
 - **spikes**: Goring & Nikora (2002) phase-space method, median/MAD variant of Wahl (2003),
-  λ_U = √(2 ln N) with N the window length (4096 rows: λ_U = 4.0787);
+  λ_U = √(2 ln N) with N the window length (4096 rows: λ_U = 4.0787); scales from strided
+  subsamples, averaged over the last 8 estimates (one per window for the first 8 windows,
+  then one every 8th window);
 - **dropouts**: runs of identical values longer than the window's own repeat rate allows;
 - **clipping**: pile-up at the point's extreme values (at least :data:`PILE_UP_MIN` samples
   and 1e-4 of them sharing the minimum or the maximum exactly);
@@ -100,7 +102,8 @@ class SignalQuality:
         self._at_min = np.zeros(m, dtype=np.int64)
         self._at_max = np.zeros(m, dtype=np.int64)
         self._windows = 0
-        self._scales = np.zeros((m, qk.SCALE_WINDOWS, 6))  # per-window estimates, a ring
+        self._scales = np.zeros((m, qk.SCALE_WINDOWS, 6))  # scale estimates, a ring
+        self._estimates = 0
         self._quantised = np.zeros(m, dtype=np.int64)
         self._steps: list[np.ndarray] = []
         self._var_n = 0
@@ -160,7 +163,12 @@ class SignalQuality:
         nw = stop - self._judged
         if nw > 0:
             lam = qk.universal_threshold(nw)
-            qk.judge_window(ext, flags, work, w0, w1, lam, stats, self._scales, self._windows)
+            # a fresh estimate for each of the first windows, then every SCALE_WINDOWS-th
+            due = self._estimates < qk.SCALE_WINDOWS or self._windows % qk.SCALE_WINDOWS == 0
+            qk.judge_window(
+                ext, flags, work, w0, w1, lam, stats, self._scales, self._estimates, due
+            )
+            self._estimates += bool(due)
             self._window_stats(stats, nw)
         else:
             work[:] = ext
@@ -190,20 +198,20 @@ class SignalQuality:
         return end if end > limit else stop
 
     def _count(self, flags: np.ndarray, raw: np.ndarray) -> None:
-        spikes = flags == qk.FLAG_SPIKE
-        drops = flags == qk.FLAG_DROPOUT
-        self.spikes += spikes.sum(axis=0)
-        self.dropout_samples += drops.sum(axis=0)
+        spikes, drops, total = qk.count_flags(flags)
+        if not total:
+            return
+        self.spikes += spikes
+        self.dropout_samples += drops
         if self.policy == "exclude":
-            self.replaced += (spikes | drops).sum(axis=0)
+            self.replaced += spikes + drops
         rows, comps = np.nonzero(flags)
-        if rows.size:
-            base = self.n_out
-            self.marks.extend(
-                (int(base + r), int(c), int(flags[r, c]), float(raw[r, c]))
-                for r, c in zip(rows, comps, strict=True)
-            )
-            del self.marks[:-MARKS_KEPT]
+        base = self.n_out
+        self.marks.extend(
+            (int(base + r), int(c), int(flags[r, c]), float(raw[r, c]))
+            for r, c in zip(rows, comps, strict=True)
+        )
+        del self.marks[:-MARKS_KEPT]
 
     def _extremes(self, block: np.ndarray) -> None:
         mn, mx, cmin, cmax = qk.extremes(np.ascontiguousarray(block))
