@@ -192,24 +192,6 @@ def _dropouts(raw, flags, lo, hi, w0, w1, run_min):
 
 
 @numba.njit(cache=True, nogil=True)
-def _outside(y, i, centre, m1, m2, iu, i1, i2, ct, st, aa, bb, rotated):
-    """Is row i of y outside any of the three phase-space ellipses?"""
-    xu = y[i] - centre
-    g1 = 0.5 * (y[i + 1] - y[i - 1]) - m1
-    g2 = 0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) - m2
-    x0 = xu * iu
-    x1 = g1 * i1
-    x2 = g2 * i2
-    if x0 * x0 + x1 * x1 > 1.0 or x1 * x1 + x2 * x2 > 1.0:
-        return True
-    if rotated:
-        r1 = xu * ct + g2 * st
-        r2 = -xu * st + g2 * ct
-        return r1 * r1 / aa + r2 * r2 / bb > 1.0
-    return False
-
-
-@numba.njit(cache=True, nogil=True)
 def _fill_run(y, fl, i):
     """Interpolate the flagged run around row i between its unflagged neighbours.
 
@@ -269,31 +251,32 @@ def judge_window(buf, flags, work, w0, w1, lam, stats, hist, nest, estimate):
     for c in range(m):
         col = buf[:, c]
         fl = flags[:, c]
-        # --- pass 1: centre, repeat probability, quantisation step
+        # --- pass 1: centre; tan θ = Σ u Δ²u / Σ u² over the whole window (u about its
+        # centre, as Goring & Nikora define the angle; sums about the first value, for
+        # round-off); repeats of the previous value (for p̂); the quantisation step
         zeros = 0
         long_zeros = 0
         run = 0
+        longest = 0
         qmin = np.inf
-        # centre, and tan θ = Σ u Δ²u / Σ u² over the whole window (u about its centre;
-        # sums about the first value, for round-off), as Goring & Nikora define the angle
         s0 = col[w0]
         sa = 0.0
         sb = 0.0
         sc = 0.0
         sd = 0.0
+        prev = col[w0 - 1]
         for i in range(w0, w1):
-            a = col[i] - s0
-            g = 0.25 * (col[i + 2] - 2.0 * col[i] + col[i - 2])
+            x = col[i]
+            a = x - s0
+            g = 0.25 * (col[i + 2] - 2.0 * x + col[i - 2])
             sa += a
             sb += a * a
             sc += a * g
             sd += g
-        centre = s0 + sa / nw
-        var = sb / nw - (sa / nw) ** 2
-        tan_theta = (sc / nw - (sa / nw) * (sd / nw)) / var if var > 0.0 else 0.0
-        longest = 0
-        for i in range(w0 + 1, w1):
-            d = abs(col[i] - col[i - 1])
+            d = abs(x - prev)
+            prev = x
+            if i == w0:
+                continue
             if d == 0.0:
                 zeros += 1
                 run += 1
@@ -309,6 +292,9 @@ def judge_window(buf, flags, work, w0, w1, lam, stats, hist, nest, estimate):
             long_zeros += run
         if run > longest:
             longest = run
+        centre = s0 + sa / nw
+        var = sb / nw - (sa / nw) ** 2
+        tan_theta = (sc / nw - (sa / nw) * (sd / nw)) / var if var > 0.0 else 0.0
         usable = (nw - 1) - long_zeros
         p = (zeros - long_zeros) / usable if usable > 0 else 0.0
         run_min = 3
@@ -365,8 +351,7 @@ def judge_window(buf, flags, work, w0, w1, lam, stats, hist, nest, estimate):
                 if abs(r - math.floor(r + 0.5)) < 0.02:
                     whole += 1
         # --- dropouts: only where a long enough run exists or rows are pending
-        work[:, c] = col
-        y = work[:, c]
+        y = col.copy()
         new_spikes = 0
         new_drop = 0
         if w0 > 2 or longest + 1 >= run_min:
@@ -383,24 +368,34 @@ def judge_window(buf, flags, work, w0, w1, lam, stats, hist, nest, estimate):
         # flagged run) and the scan steps back two rows, which is Goring & Nikora's iteration
         # done locally (with the scales fixed only rows within ±2 of a replacement change)
         if judge:
+            ia = 1.0 / aa if rotated else 0.0
+            ib = 1.0 / bb if rotated else 0.0
             i = w0
             while i < w1:
-                if fl[i] == FLAG_NONE and _outside(
-                    y, i, centre, m1, m2, iu, i1, i2, ct, st, aa, bb, rotated
-                ) and _peak(y, i):
+                # the three ellipses, written out (this loop is most of a window's cost)
+                xu = y[i] - centre
+                g1 = (0.5 * (y[i + 1] - y[i - 1]) - m1) * i1
+                g2r = 0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) - m2
+                g2 = g2r * i2
+                x0 = xu * iu
+                q1 = g1 * g1
+                out = x0 * x0 + q1 > 1.0 or q1 + g2 * g2 > 1.0
+                if not out and rotated:
+                    r1 = xu * ct + g2r * st
+                    r2 = g2r * ct - xu * st
+                    out = r1 * r1 * ia + r2 * r2 * ib > 1.0
+                if out and fl[i] == FLAG_NONE and _peak(y, i):
                     fl[i] = FLAG_SPIKE
                     new_spikes += 1
                     _fill_run(y, fl, i)
                     i = max(w0, i - 2)
                     continue
                 i += 1
+        work[:, c] = y
         med = centre
-        # sums about the window's centre for the point's r.m.s. (σ/q̂)
+        # sums about the window's centre for the point's r.m.s. (σ/q̂), from pass 1's
         s = 0.0
-        ss = 0.0
-        for i in range(w0, w1):
-            s += col[i] - med
-            ss += (col[i] - med) ** 2
+        ss = max(sb - sa * sa / nw, 0.0)
         stats[c, 0] = new_spikes
         stats[c, 1] = new_drop
         stats[c, 2] = qmin
