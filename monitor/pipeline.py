@@ -699,6 +699,28 @@ def quality_view(run: _PointRun | None) -> dict | None:
     return out
 
 
+def quality_note(quality: Mapping | None) -> str:
+    """Non-zero quality counts for the terminal status, e.g. `` quality u: 3 spikes, 200 dropout``."""
+    if not quality:
+        return ""
+    parts = []
+    for c, q in quality.items():
+        if not isinstance(q, Mapping) or "spikes" not in q:
+            continue
+        found = [
+            f"{q[key]} {label}"
+            for key, label in (
+                ("spikes", "spikes"),
+                ("dropout_samples", "dropout"),
+                ("clipped_samples", "clipped"),
+            )
+            if q[key]
+        ]
+        if found:
+            parts.append(f"{c}: {', '.join(found)}")
+    return (" quality " + "; ".join(parts)) if parts else ""
+
+
 def _checkpoint_mark(point_stats):
     """The sample count of the statistics' next convergence checkpoint (None if unknown)."""
     checkpoints = getattr(point_stats, "checkpoints", None)

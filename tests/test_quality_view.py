@@ -69,3 +69,13 @@ def test_panel_draws_on_the_trace_and_the_page_builds():
     doc = Document()
     build_document(doc, get_snapshot=lambda: snap, title="quality")
     assert doc.select_one({"name": "quality"}) is not None
+
+
+def test_terminal_status_warns_with_the_counts():
+    from eddyvigil.monitor.watch import status_line
+
+    p, _, _, _ = _spiked_pipeline()
+    snap = p.publish()
+    q = snap.streams["probe-a"].quality
+    line = status_line(snap)
+    assert f"v: {q['v']['spikes']} spikes" in line
