@@ -95,6 +95,7 @@ class _PointRun:
         self.snapshot = None  # latest stats.snapshot.PointSnapshot
         self.quality = None  # stats.quality.SignalQuality, created with the statistics
         self.t0: float | None = None  # t of the point's first row (uniform sampling)
+        self.held_s = 0.0  # duration of rows the quality checks hold back (random sampling)
         self.stale = False  # data arrived since the last statistics snapshot
         self.converged_signalled = False
         self.converged_clock: float | None = None
@@ -437,8 +438,11 @@ class Pipeline:
         n = velocity.shape[0]
         mark = _checkpoint_mark(run.stats)
         cleaned = run.quality.update(velocity)  # the same block, or replaced rows ("exclude")
-        if rate_hz is None:
-            run.stats.update(cleaned, duration_s=duration_s)
+        if rate_hz is None:  # a duration waits for rows when "exclude" holds them back
+            run.held_s += duration_s
+            if cleaned.shape[0]:
+                run.stats.update(cleaned, duration_s=run.held_s)
+                run.held_s = 0.0
         else:
             run.stats.update(cleaned)
         st.samples += n
@@ -501,7 +505,7 @@ class Pipeline:
         run = st.point
         if run.stats is not None:  # the rows the quality checks still hold
             tail = run.quality.flush()
-            run.stats.update(tail, **({} if run.rate_hz else {"duration_s": 0.0}))
+            run.stats.update(tail, **({} if run.rate_hz else {"duration_s": run.held_s}))
             run.stale = True
         if run.stats is not None and (run.snapshot is None or run.stale):
             self._take_stats_snapshot(st, run)

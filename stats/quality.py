@@ -115,18 +115,18 @@ class SignalQuality:
 
     def update(self, block: np.ndarray) -> np.ndarray:
         """Take the next rows (n, m); return the rows the statistics should see now."""
-        block = np.asarray(block, dtype=np.float64)
+        given = block  # "flag" hands on exactly what it was given (same dtype, same bits)
         n = block.shape[0]
         if n == 0:
-            return block if self.policy == "flag" else block[:0]
-        self._extremes(block)
+            return given if self.policy == "flag" else np.empty((0, len(self.columns)))
+        self._extremes(np.ascontiguousarray(block))
         self.n += n
         self._append(block)
         released = []
         while self._fill - self._judged >= self.window + 2:
             released.append(self._judge(self._judged + self.window, final=False))
         if self.policy == "flag":
-            return block
+            return given
         if not released:
             return block[:0]
         return released[0] if len(released) == 1 else np.concatenate(released)
@@ -214,7 +214,7 @@ class SignalQuality:
         del self.marks[:-MARKS_KEPT]
 
     def _extremes(self, block: np.ndarray) -> None:
-        mn, mx, cmin, cmax = qk.extremes(np.ascontiguousarray(block))
+        mn, mx, cmin, cmax = qk.extremes(block)
         lower = mn < self._min
         self._at_min = np.where(lower, cmin, self._at_min + np.where(mn == self._min, cmin, 0))
         self._min = np.minimum(self._min, mn)

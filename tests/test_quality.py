@@ -178,3 +178,26 @@ def test_flagged_fraction_above_threshold_makes_the_point_suspect_never_converge
     assert line["quality"]["u"]["spikes"] >= 0.95 * rows.size
     u = next(e for e in line["statistics"] if e["name"] == "U")
     assert u["state"] == "suspect" and u["converged"] is False
+
+
+def test_exclude_keeps_every_row_and_the_duration_of_random_sampling():
+    # the duration is the span of the t column (DESIGN §10), whatever the policy holds back
+    from eddyvigil.monitor import Pipeline
+
+    rng = np.random.default_rng(17)
+    t = np.cumsum(rng.exponential(1e-3, 20_000))
+    u = 10.0 + ar1(rng, 20_000, 1, math.exp(-1.0 / 5.0))
+    u[5000, 0] += 9.0
+    out = {}
+    for policy in ("flag", "exclude"):
+        buf = io.StringIO()
+        p = Pipeline(summary=buf, quality=policy)
+        for i in range(0, 20_000, 700):
+            assert p.feed("lda", u[i : i + 700], columns=("u",), times=t[i : i + 700]) is None
+        p.end("lda")
+        p.close()
+        out[policy] = json.loads(buf.getvalue().splitlines()[0])
+    for line in out.values():
+        assert line["samples"] == 20_000
+        assert line["duration_s"] == pytest.approx(t[-1] - t[0], rel=1e-12)
+    assert out["exclude"]["quality"]["u"]["replaced"] >= 1
