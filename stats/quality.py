@@ -198,18 +198,17 @@ class SignalQuality:
         return end if end > limit else stop
 
     def _count(self, flags: np.ndarray, raw: np.ndarray) -> None:
-        spikes, drops, total = qk.count_flags(flags)
-        if not total:
+        spikes, drops, where = qk.count_flags(flags)
+        if not where.shape[0]:
             return
         self.spikes += spikes
         self.dropout_samples += drops
         if self.policy == "exclude":
             self.replaced += spikes + drops
-        rows, comps = np.nonzero(flags)
         base = self.n_out
         self.marks.extend(
             (int(base + r), int(c), int(flags[r, c]), float(raw[r, c]))
-            for r, c in zip(rows, comps, strict=True)
+            for r, c in where[-MARKS_KEPT:].tolist()
         )
         del self.marks[:-MARKS_KEPT]
 

@@ -78,10 +78,12 @@ def extremes(block):
 
 @numba.njit(cache=True, nogil=True)
 def count_flags(flags):
-    """Per column: spikes and dropout samples among ``flags`` (n, m); and all flags."""
+    """Per column: spikes and dropout samples among ``flags`` (n, m); and (row, column) of
+    every flag, in row order."""
     n, m = flags.shape
     spikes = np.zeros(m, dtype=np.int64)
     drops = np.zeros(m, dtype=np.int64)
+    where = np.empty((0, 2), dtype=np.int64)
     total = 0
     for i in range(n):
         for c in range(m):
@@ -92,7 +94,16 @@ def count_flags(flags):
             elif f == FLAG_DROPOUT:
                 drops[c] += 1
                 total += 1
-    return spikes, drops, total
+    if total:
+        where = np.empty((total, 2), dtype=np.int64)
+        k = 0
+        for i in range(n):
+            for c in range(m):
+                if flags[i, c] != FLAG_NONE:
+                    where[k, 0] = i
+                    where[k, 1] = c
+                    k += 1
+    return spikes, drops, where
 
 
 @numba.njit(cache=True, nogil=True)
