@@ -22,6 +22,7 @@ def prepare_kernels() -> float:
     components, uniform and random sampling, checkpoints and snapshots.
     """
     from eddyvigil.stats.point import PointStatistics
+    from eddyvigil.stats.quality import SignalQuality
 
     start = time.perf_counter()
     rng = np.random.default_rng(0)
@@ -33,4 +34,7 @@ def prepare_kernels() -> float:
                 for part in np.array_split(block, 3):
                     stats.update(part, duration_s=None if rate_hz else part.shape[0] / 1000.0)
                 stats.snapshot()
+            quality = SignalQuality(columns, "exclude")  # the signal-quality kernels
+            quality.update(block)
+            quality.flush()
     return time.perf_counter() - start
