@@ -34,7 +34,8 @@ def prepare_kernels() -> float:
                 for part in np.array_split(block, 3):
                     stats.update(part, duration_s=None if rate_hz else part.shape[0] / 1000.0)
                 stats.snapshot()
-            quality = SignalQuality(columns, "exclude")  # the signal-quality kernels
-            quality.update(block)
-            quality.flush()
+            if len(columns) == 3:  # the signal-quality kernels: one window, per input dtype
+                quality = SignalQuality(columns, "exclude")
+                quality.update(block[:4200])
+                quality.flush()
     return time.perf_counter() - start
