@@ -704,7 +704,7 @@ def quality_view(run: _PointRun | None) -> dict | None:
 
 
 def quality_note(quality: Mapping | None) -> str:
-    """Non-zero quality counts for the terminal status, e.g. `` quality u: 3 spikes, 200 dropout``."""
+    """Non-zero quality counts for the status line, e.g. `` quality u: 3 spikes, 200 dropout``."""
     if not quality:
         return ""
     parts = []

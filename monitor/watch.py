@@ -158,7 +158,7 @@ def status_line(snapshot) -> str:
             f"{_fmt_count(sv.ingest_rate_hz)}/s lost {sv.lost_messages} "
             f"rej {sum(sv.rejected.values())}"
         )
-        from eddyvigil.monitor.pipeline import quality_note  # signal-quality counts, if any
+        from eddyvigil.monitor.pipeline import quality_note  # quality counts, if any
 
         text += quality_note(getattr(sv, "quality", None))
         if sv.ended:

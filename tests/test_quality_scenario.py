@@ -20,7 +20,7 @@ from eddyvigil.simulator.publisher import Publisher, PublisherOptions
 USER_SCENARIO = """
 [scenario]
 name = "faulty-probe"
-description = "An invented water channel probe that spikes, drops out, clips and is coarsely digitised"
+description = "An invented flume probe that spikes, drops out, clips and is coarsely digitised"
 facility = "Osprey test flume (invented)"
 stream = "probe-q"
 rate_hz = 2000.0
