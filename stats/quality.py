@@ -237,6 +237,43 @@ class SignalQuality:
         self._var_m2 = self._var_m2 + m2_w + delta**2 * n_a * nw / n
         self._var_n = n
 
+    def merge(self, other: SignalQuality) -> SignalQuality:
+        """A new object holding the counts of both (``other`` follows in time); inputs untouched.
+
+        Both must be flushed (no rows held). Counts, extremes and the per-window quantisation
+        and r.m.s. records combine exactly; spikes and dropouts are those each part found (a
+        window is not re-judged across the seam).
+        """
+        if self.columns != other.columns:
+            raise ValueError("cannot merge the quality of different components")
+        if self._fill or other._fill:
+            raise ValueError("flush() both before merging")
+        out = SignalQuality(self.columns, self.policy, self.window)
+        out.n, out.n_out = self.n + other.n, self.n_out + other.n_out
+        for name in ("spikes", "dropout_samples", "replaced"):
+            setattr(out, name, getattr(self, name) + getattr(other, name))
+        out._min = np.minimum(self._min, other._min)
+        out._max = np.maximum(self._max, other._max)
+        out._at_min = np.where(self._min == out._min, self._at_min, 0) + np.where(
+            other._min == out._min, other._at_min, 0
+        )
+        out._at_max = np.where(self._max == out._max, self._at_max, 0) + np.where(
+            other._max == out._max, other._at_max, 0
+        )
+        out._windows = self._windows + other._windows
+        out._quantised = self._quantised + other._quantised
+        out._steps = self._steps + other._steps
+        # Chan et al. (1979) pairwise merge of the r.m.s. records
+        n_a, n_b = self._var_n, other._var_n
+        out._var_n = n_a + n_b
+        if out._var_n:
+            delta = other._var_mean - self._var_mean
+            out._var_mean = self._var_mean + delta * n_b / out._var_n
+            out._var_m2 = self._var_m2 + other._var_m2 + delta**2 * n_a * n_b / out._var_n
+        out.marks = list(self.marks) + [(r + self.n_out, c, k, v) for r, c, k, v in other.marks]
+        del out.marks[:-MARKS_KEPT]
+        return out
+
     # ------------------------------------------------------------------ results
 
     def clipped_samples(self) -> np.ndarray:

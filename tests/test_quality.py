@@ -201,3 +201,24 @@ def test_exclude_keeps_every_row_and_the_duration_of_random_sampling():
         assert line["samples"] == 20_000
         assert line["duration_s"] == pytest.approx(t[-1] - t[0], rel=1e-12)
     assert out["exclude"]["quality"]["u"]["replaced"] >= 1
+
+
+def test_merge_of_two_flushed_parts_matches_the_whole():
+    # counts add; pile-up at a rail and the r.m.s. combine exactly (Chan, Golub & LeVeque 1979
+    # pairwise update, checked against numpy on the whole record)
+    rng = np.random.default_rng(23)
+    x = turbulence(rng, 16_384, math.exp(-1.0 / 10.0))
+    x[:, 2] = np.minimum(x[:, 2], np.quantile(x[:, 2], 0.99))
+    x[3000, 0] += 8.0
+    x[12_000, 1] += 8.0
+    a, b, whole = SignalQuality("uvw"), SignalQuality("uvw"), SignalQuality("uvw")
+    feed(a, x[:8192], 1000)
+    feed(b, x[8192:], 1000)
+    feed(whole, x, 1000)
+    both = a.merge(b)
+    assert a.n == 8192 and b.n == 8192  # inputs untouched
+    np.testing.assert_array_equal(both.clipped_samples(), whole.clipped_samples())
+    assert both.clipped_samples()[2] == int((x[:, 2] == x[:, 2].max()).sum())
+    np.testing.assert_array_equal(both.spikes, a.spikes + b.spikes)
+    np.testing.assert_allclose(both.sigma(), np.std(x, axis=0), rtol=1e-12)
+    assert {(r, c) for r, c, k, _ in both.marks if k == 1} >= {(3000, 0), (12_000, 1)}
