@@ -99,6 +99,9 @@ class _PointRun:
         self.rejected: Counter = Counter()
         self.last_t: float | None = None
         self.snapshot = None  # latest stats.snapshot.PointSnapshot
+        self.quality = None  # stats.quality.SignalQuality, created with the statistics
+        self.t0: float | None = None  # t of the point's first row (uniform sampling)
+        self.held_s = 0.0  # duration of rows the quality checks hold back (random sampling)
         self.stale = False  # data arrived since the last statistics snapshot
         self.converged_signalled = False
         self.converged_clock: float | None = None
@@ -173,13 +176,16 @@ class Pipeline:
         snapshot_interval_s: float = 0.25,
         clock: Callable[[], float] = time.monotonic,
         max_message_bytes: int = wire.DEFAULT_MAX_MESSAGE_BYTES,
+        quality: str = "flag",
     ):
         from eddyvigil import stats  # the numba-compiled core is loaded only when a pipeline is built
 
         self._stats = stats
         from eddyvigil.stats import point_spectra  # Welch spectra and eps beside the moments
+        from eddyvigil.stats import quality as _quality
 
         self._spectra = point_spectra
+        self._quality = _quality
         self.targets = targets if targets is not None else stats.Targets.defaults()
         self._writer = summary if isinstance(summary, SummaryWriter) else SummaryWriter(summary)
         self._on_converged = on_converged
@@ -187,6 +193,7 @@ class Pipeline:
         self._interval = float(snapshot_interval_s)
         self._clock = clock
         self.max_message_bytes = int(max_message_bytes)
+        self.quality_policy = quality  # stats.quality: "flag" or "exclude" (README, Signal quality)
         self._streams: dict[str, _StreamState] = {}
         self._rejected: Counter = Counter()
         self._received = 0
@@ -361,7 +368,7 @@ class Pipeline:
         if reason is None:
             t0 = 0.0
             if times is None and st.point is not None and st.point.stats is not None:
-                t0 = st.point.stats.n / float(rate_hz)
+                t0 = st.point.quality.n / float(rate_hz)  # rows received (the statistics may lag)
             reason = self._feed_block(st, block, columns, rate_hz, times, t0, units)
         if reason is None:
             st.active = True
@@ -433,6 +440,8 @@ class Pipeline:
             run.columns, run.rate_hz = columns, rate_hz
             run.stats = self._stats.PointStatistics(columns, rate_hz, targets=self.targets)
             run.spectra = None if rate_hz is None else self._spectra.PointSpectra(columns, rate_hz)
+            run.quality = self._quality.SignalQuality(columns, self.quality_policy)
+            run.t0 = float(t0) if rate_hz is not None and t0 is not None else None
         elif columns != run.columns or rate_hz != run.rate_hz:
             return "layout_changed"
         duration_s = None
@@ -444,12 +453,16 @@ class Pipeline:
             run.last_t = t_last
         n = velocity.shape[0]
         mark = _checkpoint_mark(run.stats)
-        if rate_hz is None:
-            run.stats.update(velocity, duration_s=duration_s)
+        cleaned = run.quality.update(velocity)  # the same block, or replaced rows ("exclude")
+        if rate_hz is None:  # a duration waits for rows when "exclude" holds them back
+            run.held_s += duration_s
+            if cleaned.shape[0]:
+                run.stats.update(cleaned, duration_s=run.held_s)
+                run.held_s = 0.0
         else:
-            run.stats.update(velocity)
-        if run.spectra is not None:
-            run.spectra.update(velocity)
+            run.stats.update(cleaned)
+        if run.spectra is not None and cleaned.shape[0]:
+            run.spectra.update(cleaned)  # the rows the statistics see: a continuous series
         st.samples += n
         st.rate_hz = rate_hz
         self._trace(st, velocity, columns, rate_hz, times, t0)
@@ -468,6 +481,7 @@ class Pipeline:
 
     def _on_checkpoint(self, st: _StreamState, run: _PointRun) -> None:
         snap = run.stats.targeted_snapshot()
+        snap = self._quality.hold_suspect(snap, run.quality.suspect_reasons())
         self._add_history(run, snap)
         if snap.converged and not run.converged_signalled:
             self._take_stats_snapshot(st, run, history=False)  # the summary line needs all
@@ -476,7 +490,7 @@ class Pipeline:
 
     def _take_stats_snapshot(self, st: _StreamState, run: _PointRun, history=True) -> None:
         run.stale = False
-        snap = run.stats.snapshot()
+        snap = self._quality.hold_suspect(run.stats.snapshot(), run.quality.suspect_reasons())
         run.snapshot = snap
         if history:
             self._add_history(run, snap)
@@ -507,6 +521,10 @@ class Pipeline:
 
     def _finish_point(self, st: _StreamState, complete: bool) -> None:
         run = st.point
+        if run.stats is not None:  # the rows the quality checks still hold
+            tail = run.quality.flush()
+            run.stats.update(tail, **({} if run.rate_hz else {"duration_s": run.held_s}))
+            run.stale = True
         if run.stats is not None and (run.snapshot is None or run.stale):
             self._take_stats_snapshot(st, run)
         line = self._point_line(st, run, complete)
@@ -555,6 +573,7 @@ class Pipeline:
             )
             line.update(extra)
             # keep the contract order: statistics last
+            line["quality"] = run.quality.summary()
             line["statistics"] = line.pop("statistics") + rows
         return line
 
@@ -675,6 +694,7 @@ class Pipeline:
                 ),
                 spectrum=(run.spectra.live(run.snapshot, run.point.get("nu"), now)
                           if run and run.spectra is not None else None),
+                quality=quality_view(run),
             )
         return RunSnapshot(
             sequence=self._sequence,
@@ -689,6 +709,44 @@ class Pipeline:
         self.internal_errors.append(text)
         del self.internal_errors[:-20]
         print(f"eddyvigil: internal error (message dropped and counted):\n{text}", file=sys.stderr)
+
+
+def quality_view(run: _PointRun | None) -> dict | None:
+    """The point's quality object for readers, with the recent flagged samples as ``marks``
+    (``t`` s, ``component``, ``kind`` 1 spike / 2 dropout, raw ``value``; uniform sampling only)."""
+    if run is None or run.quality is None:
+        return None
+    out = run.quality.summary()
+    marks = run.quality.marks if run.t0 is not None and run.rate_hz else []
+    out["marks"] = {
+        "t": [run.t0 + r / run.rate_hz for r, _, _, _ in marks],
+        "component": [run.columns[c] for _, c, _, _ in marks],
+        "kind": [k for _, _, k, _ in marks],
+        "value": [v for _, _, _, v in marks],
+    }
+    return out
+
+
+def quality_note(quality: Mapping | None) -> str:
+    """Non-zero quality counts for the status line, e.g. `` quality u: 3 spikes, 200 dropout``."""
+    if not quality:
+        return ""
+    parts = []
+    for c, q in quality.items():
+        if not isinstance(q, Mapping) or "spikes" not in q:
+            continue
+        found = [
+            f"{q[key]} {label}"
+            for key, label in (
+                ("spikes", "spikes"),
+                ("dropout_samples", "dropout"),
+                ("clipped_samples", "clipped"),
+            )
+            if q[key]
+        ]
+        if found:
+            parts.append(f"{c}: {', '.join(found)}")
+    return (" quality " + "; ".join(parts)) if parts else ""
 
 
 def _checkpoint_mark(point_stats):

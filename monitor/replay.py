@@ -88,6 +88,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="S",
         help="seconds to wait for subscribers before re-sending (default 1)",
     )
+    p.add_argument(  # signal-quality policy (README, Signal quality)
+        "--quality",
+        choices=("flag", "exclude"),
+        default="flag",
+        help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
+        "and dropout samples by linear interpolation before the statistics",
+    )
     p.add_argument("--quiet", action="store_true", help="no status line")
 
 
@@ -189,7 +196,9 @@ def run(args: argparse.Namespace) -> int:
         return _fail(exc.code, str(exc))
     try:
         sink = summary if summary is not None else terminal_summary_sink("replay", args.quiet)
-        pipeline = Pipeline(targets, summary=sink, max_message_bytes=max_bytes)
+        pipeline = Pipeline(
+            targets, summary=sink, max_message_bytes=max_bytes, quality=args.quality
+        )
         stop = threading.Event()
         status = StatusPrinter(quiet=args.quiet)
         if args.no_dashboard:

@@ -57,6 +57,7 @@ class StreamView:
     converged_wall_age_s: float | None = None
     #: (SpectrumSnapshot | None, Dissipation | None) of the current point (stats.point_spectra)
     spectrum: tuple | None = None
+    quality: Mapping | None = None  # the point's "quality" object (DESIGN §9) + recent "marks"
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

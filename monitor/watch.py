@@ -136,6 +136,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         default=DEFAULT_RCVHWM,
         help=f"receive queue depth in messages (default {DEFAULT_RCVHWM})",
     )
+    p.add_argument(  # signal-quality policy (README, Signal quality)
+        "--quality",
+        choices=("flag", "exclude"),
+        default="flag",
+        help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
+        "and dropout samples by linear interpolation before the statistics",
+    )
     p.add_argument("--quiet", action="store_true", help="no status line")
 
 
@@ -203,6 +210,9 @@ def status_line(snapshot) -> str:
             f"{_fmt_count(sv.ingest_rate_hz)}/s lost {sv.lost_messages} "
             f"rej {sum(sv.rejected.values())}"
         )
+        from eddyvigil.monitor.pipeline import quality_note  # quality counts, if any
+
+        text += quality_note(getattr(sv, "quality", None))
         if sv.ended:
             text += " [ended]"
         elif sv.stats is not None:
@@ -405,6 +415,7 @@ def run(args: argparse.Namespace) -> int:
             on_converged=control,
             recorder=recorder,
             max_message_bytes=max_bytes,
+            quality=args.quality,
         )
         status = StatusPrinter(quiet=args.quiet)
         started = time.monotonic()

@@ -22,6 +22,7 @@ def prepare_kernels() -> float:
     components, uniform and random sampling, checkpoints and snapshots.
     """
     from eddyvigil.stats.point import PointStatistics
+    from eddyvigil.stats.quality import SignalQuality
 
     start = time.perf_counter()
     rng = np.random.default_rng(0)
@@ -33,6 +34,10 @@ def prepare_kernels() -> float:
                 for part in np.array_split(block, 3):
                     stats.update(part, duration_s=None if rate_hz else part.shape[0] / 1000.0)
                 stats.snapshot()
+            if len(columns) == 3:  # the signal-quality kernels: one window, per input dtype
+                quality = SignalQuality(columns, "exclude")
+                quality.update(block[:4200])
+                quality.flush()
     from eddyvigil.stats.spectral_kernels import accumulate_power  # Welch sums: one signature
 
     accumulate_power(np.zeros((1, 1, 2), dtype=np.complex128), np.zeros((2, 1)))

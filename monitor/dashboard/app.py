@@ -26,6 +26,7 @@ from bokeh.models import (
 from bokeh.plotting import figure
 
 from eddyvigil.monitor.dashboard import views
+from eddyvigil.monitor.dashboard.quality_view import QualityPanel
 from eddyvigil.monitor.dashboard.spectrum import SpectrumPanel
 from eddyvigil.monitor.state import RunSnapshot
 
@@ -88,6 +89,7 @@ class _Page:
         for c in ("u", "v", "w"):
             self.trace.line("t", c, source=self.trace_source, color=views.statistic_colour(
                 c.upper()), legend_label=c, line_width=1.2)
+        self.quality = QualityPanel(self.trace)  # counts table + flagged samples on the trace
         self.trace.legend.location = "top_left"
 
         self.history_source = ColumnDataSource(views.history_columns(None), name="history_source")
@@ -147,6 +149,7 @@ class _Page:
             row(self.header, self.select),
             self.verdict,
             row(self.status, self.health),
+            self.quality.table,
             row(self.trace, self.halfwidth, sizing_mode="stretch_width"),
             row(self.running_mean, self.running_stresses, sizing_mode="stretch_width"),
             row(self.profile_mean, self.profile_stresses, sizing_mode="stretch_width"),
@@ -209,6 +212,7 @@ class _Page:
         new_point = identity != self.identity
         self.identity = identity
         self._update_trace(view, reset=new_point and name != self.stream)
+        self.quality.update(snap, view)
         self._update_history(view, reset=new_point)
         self.stream = name
 
