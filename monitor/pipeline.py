@@ -94,7 +94,11 @@ class _PointRun:
         self.last_t: float | None = None
         self.snapshot = None  # latest stats.snapshot.PointSnapshot
         self.stale = False  # data arrived since the last statistics snapshot
-        self.converged_signalled = False
+        # the control signals: "converged" when the verdict says move on, "withdrawn" when a
+        # signalled point turns suspect while data keep coming (at most one of each pending)
+        self.signalled = False
+        self.signalled_at_s: float | None = None
+        self.withdrawn_at_s: float | None = None
         self.converged_clock: float | None = None
         self.history: dict[str, list[float]] = {"duration_s": []}
 
@@ -144,8 +148,16 @@ class Pipeline:
     summary : path, text file, list of those, or SummaryWriter, optional
         Where the DESIGN §4 JSON lines go (each line flushed as written).
     on_converged : callable, optional
-        ``on_converged(stream, point, at_s, summary_line)``, called once per point as soon as
-        every target of the point is met (the control socket hangs here).
+        ``on_converged(stream, point, at_s, summary_line)``, called when the point's verdict
+        (:mod:`eddyvigil.stats.verdict`) first says move on: every target met and the record
+        long enough for the drift check (the control socket hangs here). Decided at the
+        statistics' checkpoints only, so a replay signals at the same samples.
+    on_withdrawn : callable, optional
+        ``on_withdrawn(stream, point, at_s, summary_line)``, called when a point that was
+        signalled converged turns suspect at a later checkpoint (a statistic held by the
+        stationarity guard) while data keep coming; after that the point may be signalled
+        converged again. Default: ``on_converged.withdrawn`` when it has one (a
+        :class:`~eddyvigil.monitor.control.ControlPublisher` sends both).
     recorder : monitor.recorder.Recorder, optional
         Receives every frame list exactly as received, with the rejection reason if any.
     snapshot_interval_s : float
@@ -163,17 +175,23 @@ class Pipeline:
         *,
         summary=None,
         on_converged: Callable | None = None,
+        on_withdrawn: Callable | None = None,
         recorder=None,
         snapshot_interval_s: float = 0.25,
         clock: Callable[[], float] = time.monotonic,
         max_message_bytes: int = wire.DEFAULT_MAX_MESSAGE_BYTES,
     ):
         from eddyvigil import stats  # the numba-compiled core is loaded only when a pipeline is built
+        from eddyvigil.stats.verdict import point_verdict
 
         self._stats = stats
         self.targets = targets if targets is not None else stats.Targets.defaults()
         self._writer = summary if isinstance(summary, SummaryWriter) else SummaryWriter(summary)
         self._on_converged = on_converged
+        if on_withdrawn is None:
+            on_withdrawn = getattr(on_converged, "withdrawn", None)
+        self._on_withdrawn = on_withdrawn
+        self._point_verdict = point_verdict
         self._recorder = recorder
         self._interval = float(snapshot_interval_s)
         self._clock = clock
@@ -448,12 +466,39 @@ class Pipeline:
         return None
 
     def _on_checkpoint(self, st: _StreamState, run: _PointRun) -> None:
+        """The control signals are decided here only (sample-count checkpoints: replay = live).
+
+        ``converged`` once the full snapshot's verdict says move on (the record-length rule
+        needs the integral times, which only the full snapshot has); ``withdrawn`` when a
+        signalled point has a suspect targeted statistic at a later checkpoint.
+        """
         snap = run.stats.targeted_snapshot()
         self._add_history(run, snap)
-        if snap.converged and not run.converged_signalled:
+        if not run.signalled and snap.converged:
             self._take_stats_snapshot(st, run, history=False)  # the summary line needs all
+            if self._point_verdict(run.snapshot).move_on:
+                self._signal(st, run, converged=True)
+        elif run.signalled and any(e.state == "suspect" for e in snap.targeted()):
+            self._take_stats_snapshot(st, run, history=False)
+            self._signal(st, run, converged=False)
         else:
             run.stale = True
+            if run.snapshot is None:
+                self._take_stats_snapshot(st, run, history=False)
+
+    def _signal(self, st: _StreamState, run: _PointRun, converged: bool) -> None:
+        at_s = float(run.snapshot.duration_s)
+        run.signalled = converged
+        if converged:
+            run.signalled_at_s, run.converged_clock = at_s, self._clock()
+        else:
+            run.withdrawn_at_s, run.converged_clock = at_s, None
+        callback = self._on_converged if converged else self._on_withdrawn
+        if callback is not None:
+            try:
+                callback(st.name, dict(run.point), at_s, self._point_line(st, run, False))
+            except Exception:
+                self._internal_error()
 
     def _take_stats_snapshot(self, st: _StreamState, run: _PointRun, history=True) -> None:
         run.stale = False
@@ -461,17 +506,6 @@ class Pipeline:
         run.snapshot = snap
         if history:
             self._add_history(run, snap)
-        if snap.converged and not run.converged_signalled:
-            run.converged_signalled = True
-            run.converged_clock = self._clock()
-            if self._on_converged is not None:
-                at_s = snap.converged_at_s if snap.converged_at_s is not None else snap.duration_s
-                try:
-                    self._on_converged(
-                        st.name, dict(run.point), float(at_s), self._point_line(st, run, False)
-                    )
-                except Exception:
-                    self._internal_error()
 
     @staticmethod
     def _add_history(run: _PointRun, snap) -> None:
@@ -523,6 +557,9 @@ class Pipeline:
             "converged_at_s": None,
             "k_method": None,
             "suspect": {},
+            "verdict": self._point_verdict(snap).to_json(),
+            "signalled_at_s": run.signalled_at_s,
+            "withdrawn_at_s": run.withdrawn_at_s,
             "columns": list(run.columns) if run.columns else [],
             "rate_hz": run.rate_hz,
             "statistics": [],

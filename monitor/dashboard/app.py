@@ -15,6 +15,7 @@ from bokeh.layouts import column, row
 from bokeh.models import (
     Band,
     ColumnDataSource,
+    CustomJS,
     DataTable,
     Div,
     Select,
@@ -81,6 +82,8 @@ class _Page:
                      TableColumn(field="state", title="state", formatter=coloured, width=90),
                      TableColumn(field="eta", title="ETA", width=80)])
 
+        _redraw_on_new_data(self.status_source, self.status)
+
         self.trace_source = ColumnDataSource(views.trace_columns(None), name="trace_source")
         self.trace = figure(name="trace", title="live trace (decimated)", x_axis_label="t (s)",
                             y_axis_label="velocity", **_PLOT)
@@ -139,6 +142,7 @@ class _Page:
                 ("id", "point"), ("x", "x (m)"), ("y", "y (m)"), ("z", "z (m)"),
                 ("samples", "samples"), ("duration", "duration"), ("converged", "converged"),
                 ("lost", "lost msgs"), ("U", "U ± hw"), ("k", "k ± hw"))])
+        _redraw_on_new_data(self.finished_source, self.finished)
 
         doc.title = title
         doc.add_root(column(
@@ -242,6 +246,18 @@ class _Page:
             self.history_source.stream(rows, rollover=HISTORY_ROLLOVER)
         d = cols["duration_s"]
         self.last_d = float(d[-1]) if len(d) else None
+
+
+def _redraw_on_new_data(source: ColumnDataSource, table: DataTable) -> None:
+    """Make ``table`` redraw whenever ``source.data`` is replaced.
+
+    BokehJS (3.x) redraws a DataTable's cells only when the table's CDSView announces new
+    row indices; replacing the data with the same number of rows leaves the indices equal, so
+    no change is announced and the browser keeps the old cells (the frozen status board: the
+    rows of the moment the point or the page started). Announcing a change of the table model
+    itself makes its view re-render from the current data.
+    """
+    source.js_on_change("data", CustomJS(args={"table": table}, code="table.change.emit()"))
 
 
 def _set_text(div: Div, text: str) -> None:

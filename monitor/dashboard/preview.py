@@ -71,6 +71,12 @@ class PreviewRun:
             hw = 0.02 * truth["k"] / math.sqrt(max(t, 1e-3))
             out.append(Estimate(name, truth[name], hw / 1.96, truth[name] - hw, truth[name] + hw,
                                 hw, None, None, None, "untargeted"))
+        for c in _COLUMNS:  # integral time scales of an invented 5 ms, as the monitor names them
+            tint = 0.005
+            for name, value in ((f"Tint_{c}", tint), (f"Neff_{c}", t / (2 * tint)),
+                                (f"L_{c}", tint * truth["U"])):
+                out.append(Estimate(name, value, 0.1 * value, 0.8 * value, 1.2 * value,
+                                    0.2 * value, None, None, None, "untargeted"))
         return tuple(out)
 
     def _summary(self, index: int, y: float) -> dict:

@@ -16,11 +16,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from eddyvigil.monitor.state import RunSnapshot, StreamView
-from eddyvigil.stats.convergence import STOP_MARGIN
+from eddyvigil.stats.verdict import display_state, point_verdict, state_words
 
 __all__ = [
     "OKABE_ITO", "STATE_COLOURS", "MEAN_NAMES", "STRESS_NAMES", "statistic_colour", "pick_stream",
-    "Verdict", "verdict", "verdict_html", "health_html", "status_columns", "rows_after",
+    "KIND_COLOURS", "Banner", "banner", "verdict_html", "health_html", "status_columns", "rows_after",
     "trace_columns", "history_columns", "halfwidth_columns", "guide_columns",
     "profile_axis", "profile_columns", "current_profile_columns", "finished_columns",
     "format_value", "format_duration", "GREY", "targeted_names",
@@ -39,7 +39,9 @@ STATE_COLOURS = {
     "warming-up": GREY,
     "converging": OKABE_ITO["orange"],
     "converged": OKABE_ITO["green"],
+    "confirming": OKABE_ITO["blue"],
     "suspect": OKABE_ITO["vermillion"],
+    "no-interval": OKABE_ITO["purple"],
     "untargeted": OKABE_ITO["sky"],
 }
 
@@ -117,9 +119,20 @@ def pick_stream(snapshot: RunSnapshot, wanted: str | None) -> str | None:
 # ---------------------------------------------------------------------------- verdict
 
 
+#: Badge colour per verdict kind (``stats.verdict.KINDS``): (background, text).
+KIND_COLOURS = {
+    "waiting": (GREY, "#FFFFFF"),
+    "no-targets": (OKABE_ITO["sky"], "#000000"),
+    "warming-up": (GREY, "#FFFFFF"),
+    "keep-acquiring": (OKABE_ITO["orange"], "#000000"),
+    "check-signal": (OKABE_ITO["vermillion"], "#FFFFFF"),
+    "move-on": (OKABE_ITO["green"], "#FFFFFF"),
+}
+
+
 @dataclass(frozen=True)
-class Verdict:
-    """What to do at a stream's current point, in words a person acts on."""
+class Banner:
+    """One stream's badge: the verdict's headline and reason, with the stream facts around it."""
 
     headline: str
     detail: str
@@ -127,64 +140,33 @@ class Verdict:
     text_colour: str
 
 
-def verdict(view: StreamView) -> Verdict:
-    """The point's overall verdict: move on, keep acquiring, or look at the signal.
-
-    ``MOVE ON`` only when every target of the current point is met. A suspect statistic
-    (stationarity guard) says ``CHECK SIGNAL`` once the error bars are otherwise good enough,
-    i.e. when the guard is what stands between the user and moving on; before that the guard,
-    re-tested at every update, fires now and then on stationary data (a few per cent of
-    looks), so the banner says ``KEEP ACQUIRING`` and names what was flagged so far.
-    """
+def banner(view: StreamView) -> Banner:
+    """The badge of one stream: the point verdict of :mod:`eddyvigil.stats.verdict`, worded
+    with the point's name; a calm RUN ENDED once the stream has sent ``end``."""
     point = _point_label(view)
-    snap = view.stats
-    if view.ended and snap is None:
-        return Verdict("RUN ENDED", f"{len(view.finished)} points finished", GREY, "#FFFFFF")
-    if snap is None or snap.samples == 0:
-        return Verdict("WAITING FOR DATA", point, GREY, "#FFFFFF")
-    suspect = [e for e in snap.estimates if e.state == "suspect"]
-    flagged = ""
-    if suspect or snap.suspect:
-        names = ", ".join(sorted({e.name for e in suspect} | set(snap.suspect)))[:80]
-        if _precise_enough(snap):
-            return Verdict("CHECK SIGNAL", f"{point}: not stationary ({names})",
-                           STATE_COLOURS["suspect"], "#FFFFFF")
-        flagged = f"; flagged not stationary so far: {html.escape(', '.join(sorted(snap.suspect)))}"
-    if snap.converged:
-        at = format_duration(snap.converged_at_s)
-        age = format_duration(view.converged_wall_age_s)
-        return Verdict("MOVE ON", f"{point}: all targets met after {at} of data, {age} ago",
-                       STATE_COLOURS["converged"], "#FFFFFF")
-    targeted = snap.targeted()
-    if not targeted:
-        return Verdict("NO TARGETS", f"{point}: nothing to converge", STATE_COLOURS["untargeted"],
-                       "#000000")
-    if all(e.state in ("warming-up", "suspect") for e in targeted) and not all(
-        e.state == "suspect" for e in targeted
-    ):
-        return Verdict("WARMING UP", f"{point}: too few blocks for an honest error bar yet"
-                       + flagged, GREY, "#FFFFFF")
-    slow = snap.slowest()
-    eta = "unknown" if slow is None or slow.eta_s is None else f"≈ {format_duration(slow.eta_s)}"
-    met = sum(1 for e in targeted if e.converged)
-    name = html.escape(slow.name) if slow is not None else "–"
-    return Verdict("KEEP ACQUIRING",
-                   f"{point}: {met}/{len(targeted)} targets met; slowest {name}, {eta} more"
-                   + flagged, STATE_COLOURS["converging"], "#000000")
-
-
-def _precise_enough(snap) -> bool:
-    """Every targeted half-width (with the stopping margin) within its target."""
-    for e in snap.targeted():
-        if not (math.isfinite(e.half_width) and e.target is not None and math.isfinite(e.target)):
-            return False
-        if STOP_MARGIN * e.half_width > e.target:
-            return False
-    return True
+    if view.ended and view.stats is None:
+        last = view.finished[-1] if view.finished else None
+        tail = ""
+        if last is not None:
+            pid = html.escape(str((last.get("point") or {}).get("id", "–")))
+            verdict = last.get("verdict") or {}
+            tail = f"; last point {pid}: {html.escape(str(verdict.get('reason', '')))}"
+        return Banner("RUN ENDED", f"the publisher sent end: {len(view.finished)} points "
+                      f"finished{tail}", GREY, "#FFFFFF")
+    v = point_verdict(view.stats)
+    colour, text_colour = KIND_COLOURS[v.kind]
+    detail = f"{point}: {html.escape(v.reason)}"
+    if v.move_on and view.converged_wall_age_s is not None:
+        detail += f", {format_duration(view.converged_wall_age_s)} ago"
+    if view.stats is not None and view.point is not None and view.point.get("id") is None:
+        detail += " (data arrived before any point message: counted under point null)"
+    return Banner(v.headline, detail, colour, text_colour)
 
 
 def _point_label(view: StreamView) -> str:
     p = view.point or {}
+    if view.point and p.get("id") is None:
+        return "no point message yet"
     pid = html.escape(str(p.get("id", "no point yet")))
     return f"point {pid}" if view.point else pid
 
@@ -192,12 +174,12 @@ def _point_label(view: StreamView) -> str:
 def verdict_html(snapshot: RunSnapshot) -> str:
     """One large, unmistakable badge per stream (headline words, not just a colour)."""
     if not snapshot.streams:
-        return _badge("", Verdict("WAITING FOR DATA", "no stream has been heard yet", GREY,
-                                  "#FFFFFF"))
-    return "".join(_badge(html.escape(name), verdict(v)) for name, v in snapshot.streams.items())
+        return _badge("", Banner("WAITING FOR DATA", "no stream has been heard yet", GREY,
+                                 "#FFFFFF"))
+    return "".join(_badge(html.escape(name), banner(v)) for name, v in snapshot.streams.items())
 
 
-def _badge(stream: str, v: Verdict) -> str:
+def _badge(stream: str, v: Banner) -> str:
     return (
         f'<div style="display:inline-block;margin:4px 8px 4px 0;padding:10px 18px;'
         f'border-radius:6px;background:{v.colour};color:{v.text_colour};min-width:380px">'
@@ -278,9 +260,10 @@ def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
             cols["name"].append(e.name)
             cols["value"].append(f"{format_value(e.value)} ± {format_value(e.half_width, 2)}")
             cols["target"].append(f"± {format_value(e.target, 2)}")
-            cols["state"].append(e.state)
+            state = display_state(e)
+            cols["state"].append(state_words(state))
             cols["eta"].append("done" if e.converged else format_duration(e.eta_s))
-            cols["colour"].append(STATE_COLOURS.get(e.state, GREY))
+            cols["colour"].append(STATE_COLOURS.get(state, GREY))
     return cols
 
 
