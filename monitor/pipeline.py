@@ -45,6 +45,7 @@ from collections.abc import Callable, Mapping, Sequence
 import numpy as np
 
 from eddyvigil.monitor import wire
+from eddyvigil.monitor.rate import ReceiveRate
 from eddyvigil.monitor.state import RunSnapshot, StreamView
 from eddyvigil.monitor.summary import SummaryWriter
 
@@ -130,12 +131,12 @@ class _StreamState:
         self.point: _PointRun | None = None
         self.points_started = 0
         self.finished: list[dict] = []
+        self.last_history: dict[str, list[float]] = {}  # of the last finished point (display)
         self.rate_hz: float | None = None
         self.trace = np.zeros((TRACE_ROWS, 0))
         self.trace_columns: tuple[str, ...] = ()
         self.trace_fill = 0
-        self.rate_mark: tuple[float, int] | None = None
-        self.ingest_rate_hz = 0.0
+        self.receive = ReceiveRate()
 
 
 class Pipeline:
@@ -427,6 +428,7 @@ class Pipeline:
             self._finish_point(st, complete=True)
         st.ended = True
         st.active = True
+        self._maybe_publish(force=True)  # readers see the end at once
 
     def _feed_block(self, st, velocity, columns, rate_hz, times, t0) -> str | None:
         run = st.point if st.point is not None else self._start_point(st, None)
@@ -450,6 +452,7 @@ class Pipeline:
         else:
             run.stats.update(velocity)
         st.samples += n
+        st.receive.add(self._clock(), n)
         st.rate_hz = rate_hz
         self._trace(st, velocity, columns, rate_hz, times, t0)
         # Convergence is decided at the statistics' own checkpoints (inside update, from the
@@ -527,6 +530,7 @@ class Pipeline:
         line = self._point_line(st, run, complete)
         self._writer.write(line)
         st.finished.append(line)
+        st.last_history = run.history
         st.point = None
         self._points_finished += 1
         self._maybe_publish(force=True)
@@ -651,10 +655,6 @@ class Pipeline:
         self._sequence += 1
         views = {}
         for name, st in self._streams.items():
-            if st.rate_mark is not None and now > st.rate_mark[0]:
-                dt = now - st.rate_mark[0]
-                st.ingest_rate_hz = (st.samples - st.rate_mark[1]) / dt
-            st.rate_mark = (now, st.samples)
             run = st.point
             if run is not None and run.stale:
                 self._take_stats_snapshot(st, run)
@@ -665,7 +665,9 @@ class Pipeline:
                 trace["t"] = window[:, 0]
                 for j, c in enumerate(st.trace_columns):
                     trace[c] = window[:, j + 1]
-            history = {k: np.asarray(v) for k, v in run.history.items()} if run else {}
+            # after a point ends its running estimates stay on screen until the next begins
+            shown = run.history if run else st.last_history
+            history = {k: np.asarray(v) for k, v in shown.items()}
             views[name] = StreamView(
                 stream=name,
                 session=st.session,
@@ -673,7 +675,7 @@ class Pipeline:
                 point_index=run.index if run else st.points_started - 1,
                 stats=run.snapshot if run else None,
                 rate_hz=st.rate_hz,
-                ingest_rate_hz=float(st.ingest_rate_hz),
+                received_rate_hz=st.receive.rate_hz(now),
                 messages=st.messages,
                 lost_messages=st.lost,
                 gaps=st.gaps,

@@ -179,17 +179,22 @@ def plain_reason(component: str, reason: str) -> str:
     return f"{component}: {reason.split(';')[0].strip()}"
 
 
-def _record_integral_times(snap: PointSnapshot) -> float | None:
-    """Record length over the longest finite integral time of the point's components."""
+def _record_integral_times(snap: PointSnapshot, skip=frozenset()) -> float | None:
+    """Record length over the longest finite integral time of the point's components.
+
+    ``skip``: components whose integral time is not to be trusted (a drift inflates it: a
+    drift of a few sigma turns 5 ms into seconds), left out unless every component is.
+    """
     tints = []
     have = set(snap.names)
-    for c in snap.columns:
+    columns = [c for c in snap.columns if c not in skip] or list(snap.columns)
+    for c in columns:
         name = f"Tint_{c}"
         if name in have:
             t = snap.estimate(name).value
             if math.isfinite(t) and t > 0:
                 tints.append(t)
-    if len(tints) != len(snap.columns) or not snap.duration_s > 0:
+    if len(tints) != len(columns) or not snap.duration_s > 0:
         return None
     return snap.duration_s / max(tints)
 
@@ -207,10 +212,12 @@ def _precise_enough(targeted) -> bool:
 def point_verdict(snap: PointSnapshot | None) -> Verdict:
     """The verdict for a point's current statistics (None or no samples: ``waiting``).
 
-    A suspect statistic (stationarity guard) gives CHECK SIGNAL once the error bars are
-    otherwise good enough, i.e. when the guard is what stands between the user and moving on;
-    before that the guard, re-tested at every look, fires now and then on stationary data, so
-    the verdict keeps acquiring and lists what was flagged so far.
+    A suspect statistic (stationarity guard) gives CHECK SIGNAL once the guard has power
+    (the record spans ``MIN_RECORD_INTEGRAL_TIMES``) or the error bars are otherwise good
+    enough (the guard is then what stands between the user and moving on). Before that the
+    guard, re-tested at every look, fires now and then on stationary data (a few per cent of
+    looks), so the verdict keeps acquiring and lists what was flagged so far. A drift inflates
+    the error bars, so waiting for them alone would hide it.
     """
     if snap is None or snap.samples == 0:
         return Verdict("waiting", "no samples of this point yet")
@@ -228,7 +235,10 @@ def point_verdict(snap: PointSnapshot | None) -> Verdict:
     base.update(slowest=slow_name, eta_s=slow_eta)
     no_interval = [e for e in targeted if e.state == "no-interval"]
     suspect = [e for e in targeted if e.state == "suspect"]
-    if (flags or suspect) and _precise_enough(targeted):
+    # the guard's power is judged on the components it did not flag
+    guarded = _record_integral_times(snap, skip=frozenset(snap.suspect))
+    long_enough = guarded is not None and guarded >= MIN_RECORD_INTEGRAL_TIMES
+    if (flags or suspect) and (long_enough or _precise_enough(targeted)):
         words = "; ".join(flags) or "; ".join(f"{e.name}: {e.reason}" for e in suspect)
         return Verdict("check-signal", f"not stationary: {words}", **base)
     if no_interval and all(e.converged or e in no_interval for e in targeted):

@@ -22,7 +22,7 @@ def _view(estimates, *, converged=False, name="probe-a", point=None, history=Non
           finished=(), suspect=None, **health):
     stats = PointSnapshot(("u", "v"), 40_000, 2.0, 0.95, tuple(estimates), converged,
                           1.5 if converged else None, "two-component", suspect or {})
-    kw = dict(rate_hz=20_000.0, ingest_rate_hz=19_800.0, messages=40, lost_messages=0, gaps=0,
+    kw = dict(rate_hz=20_000.0, received_rate_hz=19_800.0, messages=40, lost_messages=0, gaps=0,
               restarts=0, rejected={})
     kw.update(health)
     return StreamView(stream=name, session="s1", point=point or {"id": "P03", "y": 0.01},
@@ -39,25 +39,33 @@ OPEN = [_est("U", 8.2, 0.05, 0.08, "converged", 0.0), _est("uv", -0.5, 0.03, 0.0
                                                           12.0)]
 
 
-def test_verdict_keeps_acquiring_until_every_target_is_met():
-    v = views.verdict(_view(OPEN))
+TINTS = [_est(f"Tint_{c}", 0.005, 0.001, None, "untargeted") for c in ("u", "v")]
+
+
+def test_banner_keeps_acquiring_until_every_target_is_met():
+    v = views.banner(_view(OPEN))
     assert v.headline == "KEEP ACQUIRING"
     assert "1/2 targets met" in v.detail and "slowest uv" in v.detail and "12 s" in v.detail
-    done = views.verdict(_view([_est("U", 8.2, 0.05, 0.08, "converged", 0.0)], converged=True))
+    # 2 s of record over T_int 5 ms = 400 integral times: past the 200 the drift check needs
+    done = views.banner(_view([_est("U", 8.2, 0.05, 0.08, "converged", 0.0)] + TINTS,
+                              converged=True))
     assert done.headline == "MOVE ON" and "4 s ago" in done.detail
     assert done.colour == views.STATE_COLOURS["converged"]
 
 
-def test_verdict_flags_suspect_and_warming_up_and_no_data():
+def test_banner_flags_suspect_and_warming_up_and_no_data():
     suspect = [_est("U", 8.2, 0.05, 0.08, "suspect")]
-    assert views.verdict(_view(suspect)).headline == "CHECK SIGNAL"
+    drift = {"u": "trend: mean drifts by +8.8 standard errors over the record (slope t = 5.0)"}
+    flagged = views.banner(_view(suspect, suspect=drift))
+    assert flagged.headline == "CHECK SIGNAL" and "u: mean drifts +8.8 standard errors" in (
+        flagged.detail)
     # the guard fires now and then on stationary data while it is re-tested at every update:
     # while the error bars are not there anyway, the banner keeps acquiring and names the flag
     early = [_est("U", 8.2, 0.05, 0.08, "suspect"), _est("uv", -0.5, 0.03, 0.02, "converging")]
-    v = views.verdict(_view(early, suspect={"u": "trend"}))
-    assert v.headline == "KEEP ACQUIRING" and "flagged not stationary so far: u" in v.detail
+    v = views.banner(_view(early, suspect={"u": "halves differ by 4.0 standard errors"}))
+    assert v.headline == "KEEP ACQUIRING" and "flagged so far: u: mean steps by 4.0" in v.detail
     warm = [_est("U", 8.2, 0.5, 0.08, "warming-up")]
-    assert views.verdict(_view(warm)).headline == "WARMING UP"
+    assert views.banner(_view(warm)).headline == "WARMING UP"
     assert "WAITING FOR DATA" in views.verdict_html(RunSnapshot(0, 0.0))
 
 

@@ -120,7 +120,7 @@ class PreviewRun:
         view = StreamView(
             stream="probe-a", session="pv", point={"id": f"P{index:02d}", "x": 0.3, "y": y,
                                                    "z": 0.0},
-            point_index=index, stats=stats, rate_hz=20_000.0, ingest_rate_hz=20_000.0,
+            point_index=index, stats=stats, rate_hz=20_000.0, received_rate_hz=20_000.0,
             messages=int(10 * t_s), lost_messages=0, gaps=0, restarts=0,
             rejected={"non_finite": 2} if t_s > 5 else {}, trace=trace, history=history,
             finished=tuple(self._summary(i, float(self.ys[i])) for i in range(index)),

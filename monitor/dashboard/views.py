@@ -15,6 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from eddyvigil.monitor.rate import WINDOW_S, format_rate
 from eddyvigil.monitor.state import RunSnapshot, StreamView
 from eddyvigil.stats.verdict import display_state, point_verdict, state_words
 
@@ -197,7 +198,8 @@ def health_html(snapshot: RunSnapshot) -> str:
 
     A flagged cell carries a "!" as well as a colour, so it does not depend on colour vision.
     """
-    head = ("<tr><th>stream</th><th>rate (Hz)</th><th>received (Hz)</th><th>messages</th>"
+    head = ("<tr><th>stream</th><th>sampling rate</th>"
+            f"<th>received (last {WINDOW_S:.0f} s)</th><th>messages</th>"
             "<th>lost</th><th>gaps</th><th>restarts</th><th>rejected</th></tr>")
     rows = []
     for name, v in snapshot.streams.items():
@@ -205,8 +207,8 @@ def health_html(snapshot: RunSnapshot) -> str:
         rej = ", ".join(f"{html.escape(str(k))} {n}" for k, n in sorted(rejected.items()))
         cells = [
             _cell(html.escape(name)),
-            _cell(format_value(v.rate_hz, 6) if v.rate_hz else "varies"),
-            _cell(format_value(v.ingest_rate_hz, 4)),
+            _cell(_nominal_rate(v)),
+            _cell(format_rate(v.received_rate_hz)),
             _cell(str(v.messages)),
             _cell(str(v.lost_messages), flag=v.lost_messages > 0),
             _cell(str(v.gaps), flag=v.gaps > 0),
@@ -219,9 +221,13 @@ def health_html(snapshot: RunSnapshot) -> str:
     if other:
         listed = ", ".join(f"{html.escape(str(k))} {n}" for k, n in sorted(other.items()))
         extra += f'<div style="{_FLAG}">! rejected in this run: {listed}</div>'
+    ended = bool(snapshot.streams) and all(v.ended for v in snapshot.streams.values())
     for event in snapshot.transport_events[-3:]:
         text = html.escape(str(event))
-        if any(word in text.lower() for word in _TROUBLE):
+        if ended and any(word in text.lower() for word in _AFTER_END):
+            extra += (f'<div style="font-size:12px;padding:2px 6px">the publisher closed its '
+                      f"connection after end (normal): {text}</div>")
+        elif any(word in text.lower() for word in _TROUBLE):
             extra += f'<div style="{_FLAG}">! transport: {text}</div>'
         else:
             extra += f'<div style="font-size:12px;padding:2px 6px">transport: {text}</div>'
@@ -230,6 +236,17 @@ def health_html(snapshot: RunSnapshot) -> str:
     return table + extra
 
 
+def _nominal_rate(v: StreamView) -> str:
+    """The rate the publisher states; random sampling says so; en dash before any sample."""
+    if v.rate_hz:
+        return format_rate(v.rate_hz)
+    if v.stats is not None and v.stats.samples > 0:
+        return "random sampling"
+    return "–"
+
+
+#: A peer going away after every stream sent ``end`` is the normal ending, not trouble.
+_AFTER_END = ("closed", "disconnect")
 #: Words that make a transport event a problem rather than news (e.g. "connected").
 _TROUBLE = ("closed", "disconnect", "drop", "lost", "fail", "error", "refused", "limit")
 
