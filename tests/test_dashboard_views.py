@@ -163,3 +163,33 @@ def test_transport_trouble_is_flagged_but_a_connection_is_news():
     text = views.health_html(snap)
     assert "! transport: 10:00:09 connection closed" in text
     assert "! transport: 10:00:01" not in text and "transport: 10:00:01 connected" in text
+
+
+def test_statistics_sharing_a_hue_differ_in_line_style():
+    for a, b in (("U", "uu"), ("V", "vv"), ("W", "ww")):
+        assert views.statistic_colour(a) == views.statistic_colour(b)
+        assert views.statistic_dash(a) != views.statistic_dash(b)
+    assert "dashed" in views.STYLE_NOTE and "solid" in views.STYLE_NOTE
+
+
+def test_flow_facts_turbulence_intensity_and_integral_times():
+    # TI = sqrt(uu)/|U| with |U| = sqrt(U^2 + V^2): sqrt(0.25)/sqrt(8^2 + 6^2) = 0.5/10 = 5 %
+    # (definition, e.g. Tennekes & Lumley 1972; arithmetic)
+    est = [_est("U", 8.0, 0.1, None, "untargeted"), _est("V", 6.0, 0.1, None, "untargeted"),
+           _est("uu", 0.25, 0.01, None, "untargeted"),
+           _est("Tint_u", 0.0042, 0.001, None, "untargeted"),
+           _est("Tint_v", 0.0031, 0.001, None, "untargeted"),
+           _est("Neff_u", 476.0, 50, None, "untargeted"),
+           _est("Neff_v", 645.0, 50, None, "untargeted")]
+    text = views.flow_html(_run(_view(est)))
+    assert "5.0 %" in text and "4.2 / 3.1" in text and "476 / 645" in text
+
+
+def test_rates_never_say_varies_before_data_and_name_random_sampling():
+    none_yet = StreamView(stream="a", session="s", point={"id": "P"}, point_index=0, stats=None,
+                          rate_hz=None, received_rate_hz=None, messages=0, lost_messages=0,
+                          gaps=0, restarts=0, rejected={})
+    text = views.health_html(_run(none_yet))
+    assert "varies" not in text and "–" in text
+    random = _view(OPEN, rate_hz=None)
+    assert "random sampling" in views.health_html(_run(random))

@@ -17,6 +17,7 @@ import numpy as np
 
 from eddyvigil.monitor.rate import WINDOW_S, format_rate
 from eddyvigil.monitor.state import RunSnapshot, StreamView
+from eddyvigil.stats.names import family
 from eddyvigil.stats.verdict import display_state, point_verdict, state_words
 
 __all__ = [
@@ -24,7 +25,8 @@ __all__ = [
     "KIND_COLOURS", "Banner", "banner", "verdict_html", "health_html", "status_columns", "rows_after",
     "trace_columns", "history_columns", "halfwidth_columns", "guide_columns",
     "profile_axis", "profile_columns", "current_profile_columns", "finished_columns",
-    "format_value", "format_duration", "GREY", "targeted_names",
+    "format_value", "format_duration", "GREY", "targeted_names", "statistic_dash",
+    "STYLE_NOTE", "flow_html", "slowest_first",
 ]
 
 #: Okabe & Ito (2008, "Color universal design") palette: distinguishable with every common
@@ -71,6 +73,22 @@ def statistic_colour(name: str) -> str:
     if name in _FIXED_COLOURS:
         return _FIXED_COLOURS[name]
     return OKABE_ITO[_CYCLE[sum(name.encode()) % len(_CYCLE)]]
+
+
+#: Line style by family, so statistics that share a component's hue (U and uu, V and vv...)
+#: stay apart: means solid, second moments dashed, everything else dotted.
+_FAMILY_DASH = {"mean": "solid", "second": "dashed"}
+#: Said beside every plot where hues are shared.
+STYLE_NOTE = "colour = velocity component; line: solid = mean, dashed = stress/k, dotted = other"
+
+
+def statistic_dash(name: str) -> str:
+    """The line style of a statistic in every plot (by family: see :data:`STYLE_NOTE`).
+
+    >>> statistic_dash("U"), statistic_dash("uu"), statistic_dash("k"), statistic_dash("uuv")
+    ('solid', 'dashed', 'dashed', 'dotted')
+    """
+    return _FAMILY_DASH.get(family(name), "dotted")
 
 
 def _num(x) -> float:
@@ -311,12 +329,27 @@ def rows_after(columns: Mapping[str, np.ndarray], key: str, last: float | None
 
 def trace_columns(view: StreamView | None, components: Sequence[str] = ("u", "v", "w")
                   ) -> dict[str, np.ndarray]:
-    """The decimated live trace, one column per velocity component (NaN where absent)."""
+    """The decimated live trace, one column per velocity component (NaN where absent).
+
+    Where time jumps by more than three typical steps (a rejected or lost block, a pause of
+    the publisher) a NaN row is put in, so the line breaks there instead of bridging the gap.
+
+    >>> cols = trace_columns(StreamView("a", None, None, 0, None, None, None, 0, 0, 0, 0, {},
+    ...     trace={"t": np.array([0.0, 0.1, 0.2, 1.0, 1.1]), "u": np.arange(5.0)}), ("u",))
+    >>> cols["t"].tolist()[:4], bool(np.isnan(cols["u"][3]))
+    ([0.0, 0.1, 0.2, 0.6], True)
+    """
     t = np.asarray(view.trace.get("t", np.empty(0)) if view else np.empty(0), dtype=float)
     out = {"t": t}
     for c in components:
         col = view.trace.get(c) if view else None
         out[c] = np.asarray(col, dtype=float) if col is not None else np.full(t.shape, np.nan)
+    if len(t) > 2:
+        dt = np.diff(t)
+        gaps = np.flatnonzero(dt > 3.0 * np.median(dt))
+        if len(gaps):
+            mid = 0.5 * (t[gaps] + t[gaps + 1])
+            out = {k: np.insert(v, gaps + 1, mid if k == "t" else np.nan) for k, v in out.items()}
     return out
 
 
@@ -364,6 +397,21 @@ def halfwidth_columns(view: StreamView | None, names: Sequence[str]) -> dict[str
     return out
 
 
+def slowest_first(hw: Mapping[str, np.ndarray]) -> list[str]:
+    """Names of half-width columns, furthest from their target now first (NaN last).
+
+    >>> slowest_first({"duration_s": np.array([1.0, 2.0]), "U": np.array([3.0, 0.5]),
+    ...                "uv": np.array([4.0, 2.0]), "k": np.array([np.nan, np.nan])})
+    ['uv', 'U', 'k']
+    """
+    def last(n):
+        r = np.asarray(hw[n], dtype=float)
+        r = r[np.isfinite(r)]
+        return -r[-1] if len(r) else math.inf
+
+    return sorted((n for n in hw if n != "duration_s"), key=last)
+
+
 def guide_columns(view: StreamView | None, span: float = 1e4) -> dict[str, list]:
     """T^(-1/2) guides through the current half-width of every open targeted statistic.
 
@@ -388,6 +436,41 @@ def guide_columns(view: StreamView | None, span: float = 1e4) -> dict[str, list]
         out["name"].append(e.name)
         out["colour"].append(statistic_colour(e.name))
     return out
+
+
+# ---------------------------------------------------------------------------- flow facts
+
+
+def flow_html(snapshot: RunSnapshot) -> str:
+    """Turbulence intensity √uu/|U|, integral time scales and effective sample counts.
+
+    |U| is the local mean speed over the components present (DESIGN's relative scale).
+    """
+    rows = []
+    for name, v in snapshot.streams.items():
+        s = v.stats
+        if s is None or s.samples == 0:
+            continue
+        have = set(s.names)
+
+        def val(n, have=have, s=s):
+            return _num(s.estimate(n).value) if n in have else math.nan
+
+        speed = math.sqrt(sum(val(c.upper()) ** 2 for c in s.columns
+                              if not math.isnan(val(c.upper()))))
+        ti = math.sqrt(val("uu")) / speed if val("uu") >= 0 and speed > 0 else math.nan
+        tint = " / ".join(format_value(val(f"Tint_{c}") * 1e3, 3) for c in s.columns)
+        neff = " / ".join(format_value(val(f"Neff_{c}"), 3) for c in s.columns)
+        comps = "/".join(s.columns)
+        ti_text = "–" if math.isnan(ti) else f"{100 * ti:.1f} %"
+        rows.append(f"<tr><td>{html.escape(name)}</td><td>{ti_text}</td>"
+                    f"<td>{tint}</td><td>{neff}</td><td>{comps}</td></tr>")
+    if not rows:
+        return ""
+    head = ("<tr><th>stream</th><th>turbulence intensity √uu/|U|</th>"
+            "<th>T<sub>int</sub> (ms)</th><th>N<sub>eff</sub></th><th>components</th></tr>")
+    return (f'<table style="border-collapse:collapse;font-size:13px;margin-top:8px" '
+            f'cellpadding="4">{head}{"".join(rows)}</table>')
 
 
 # ---------------------------------------------------------------------------- traverse
