@@ -193,3 +193,27 @@ def test_rates_never_say_varies_before_data_and_name_random_sampling():
     assert "varies" not in text and "–" in text
     random = _view(OPEN, rate_hz=None)
     assert "random sampling" in views.health_html(_run(random))
+
+
+def test_a_normal_end_looks_finished():
+    """Must-fix 8: after ``end`` the last point's running plots stay, the ending is said once
+    and calmly, and the publisher closing its connection then is not flagged."""
+    import io
+
+    from eddyvigil.monitor.pipeline import Pipeline
+
+    p = Pipeline(summary=io.StringIO(), snapshot_interval_s=0.0)
+    p.begin_point("probe-a", {"id": "P1"})
+    rng = np.random.default_rng(4)
+    for _ in range(12):
+        p.feed("probe-a", 5.0 + rng.standard_normal((4096, 3)), rate_hz=4096.0)
+    p.end("probe-a")
+    p.transport_event("peer disconnected from tcp://127.0.0.1:5555")
+    snap = p.snapshot
+    view = snap.streams["probe-a"]
+    assert len(view.history["duration_s"]) > 0  # the plots keep the last point
+    badge = views.banner(view)
+    assert badge.headline == "RUN ENDED" and "1 points finished" in badge.detail
+    health = views.health_html(snap)
+    assert "! transport" not in health and "after end (normal)" in health
+    p.close()

@@ -80,13 +80,13 @@ class _Page:
             views.status_columns(RunSnapshot(0, 0.0)), name="status_source")
         coloured = StringFormatter(text_color="colour", font_style="bold")
         self.status = DataTable(
-            name="status", source=self.status_source, height=220, width=640, index_position=None,
-            columns=[TableColumn(field="stream", title="stream", width=80),
+            name="status", source=self.status_source, height=290, width=640, index_position=None,
+            columns=[TableColumn(field="stream", title="stream", width=70),
                      TableColumn(field="point", title="point", width=60),
                      TableColumn(field="name", title="statistic", width=60),
                      TableColumn(field="value", title="value ± half-width", width=150),
                      TableColumn(field="target", title="target", width=80),
-                     TableColumn(field="state", title="state", formatter=coloured, width=90),
+                     TableColumn(field="state", title="state", formatter=coloured, width=120),
                      TableColumn(field="eta", title="ETA", width=80)])
 
         _redraw_on_new_data(self.status_source, self.status)
