@@ -150,7 +150,8 @@ def status_line(snapshot) -> str:
     parts = []
     for name, sv in snapshot.streams.items():
         if sv.ended and sv.stats is None:
-            parts.append(f"{name}: finished, {len(sv.finished)} points (the publisher sent end)")
+            n = len(sv.finished)
+            parts.append(f"{name}: finished, {n} point{'s' * (n != 1)} (the publisher sent end)")
             continue
         pid = sv.point.get("id") if sv.point else None
         samples = sv.stats.samples if sv.stats is not None else 0

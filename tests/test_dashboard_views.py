@@ -213,7 +213,7 @@ def test_a_normal_end_looks_finished():
     view = snap.streams["probe-a"]
     assert len(view.history["duration_s"]) > 0  # the plots keep the last point
     badge = views.banner(view)
-    assert badge.headline == "RUN ENDED" and "1 points finished" in badge.detail
+    assert badge.headline == "RUN ENDED" and "1 point finished" in badge.detail
     health = views.health_html(snap)
     assert "! transport" not in health and "after end (normal)" in health
     p.close()

@@ -20,6 +20,7 @@ from conftest import StreamWriter, tcp_endpoint, wait_for
 from eddyvigil.monitor.control import ControlPublisher
 from eddyvigil.monitor.dashboard import views
 from eddyvigil.monitor.pipeline import Pipeline
+from eddyvigil.monitor.summary import POINT_SIGNAL_FIELDS
 from eddyvigil.monitor.watch import status_line
 from eddyvigil.stats.snapshot import STATES, Estimate, PointSnapshot
 from eddyvigil.stats.targets import Targets
@@ -135,6 +136,7 @@ def test_terminal_summary_and_dashboard_show_the_same_verdict(drift):
     p.close()
     point_line = json.loads(lines.getvalue().splitlines()[0])
     assert point_line["verdict"] == v.to_json()
+    assert all(f in point_line for f in POINT_SIGNAL_FIELDS)
 
 
 def test_a_drifting_point_is_signalled_then_withdrawn_on_a_real_control_socket():

@@ -23,7 +23,7 @@ def test_status_names_stream_point_counts_and_the_verdict():
     assert "lost 0" in line and "rej 1" in line
     assert point_verdict(p.snapshot.streams["probe-a"].stats).text() in line
     p.end("probe-a")
-    assert status_line(p.publish()) == "probe-a: finished, 1 points (the publisher sent end)"
+    assert status_line(p.publish()) == "probe-a: finished, 1 point (the publisher sent end)"
     out = io.StringIO()
     printer = StatusPrinter(out, plain_interval_s=0.0)  # not a terminal: plain lines
     for _ in range(3):

@@ -170,7 +170,8 @@ def banner(view: StreamView) -> Banner:
             pid = html.escape(str((last.get("point") or {}).get("id", "–")))
             verdict = last.get("verdict") or {}
             tail = f"; last point {pid}: {html.escape(str(verdict.get('reason', '')))}"
-        return Banner("RUN ENDED", f"the publisher sent end: {len(view.finished)} points "
+        n = len(view.finished)
+        return Banner("RUN ENDED", f"the publisher sent end: {n} point{'s' * (n != 1)} "
                       f"finished{tail}", GREY, "#FFFFFF")
     v = point_verdict(view.stats)
     colour, text_colour = KIND_COLOURS[v.kind]
