@@ -67,3 +67,61 @@ def test_terminal_and_dashboard_show_the_pipelines_one_rate():
     assert "10.0 kHz" in views.health_html(snap)
     assert format_rate(snap.streams["probe-a"].rate_hz) == "10.0 kHz"
     p.close()
+
+
+def test_a_paced_publisher_over_a_real_socket_reads_its_rate():
+    """10 kHz in 500-sample messages every 50 ms of the publisher's own clock, over loopback
+    PUSH/PULL; the monitor's received rate is compared with what the publisher achieved over
+    the same stretch (both measured here, so the machine's load cancels)."""
+    import threading
+    import time
+
+    import zmq
+    from conftest import tcp_endpoint
+
+    ep = tcp_endpoint()
+    ctx = zmq.Context()
+    pull = ctx.socket(zmq.PULL)
+    pull.setsockopt(zmq.LINGER, 0)
+    pull.bind(ep)
+    sent_at: list[float] = []
+
+    def publish():
+        push = ctx.socket(zmq.PUSH)
+        push.setsockopt(zmq.LINGER, 0)
+        push.connect(ep)
+        w = StreamWriter(rate_hz=10_000.0)
+        block = np.random.default_rng(9).standard_normal((500, 3)).astype(np.float32)
+        push.send_multipart(w.point("P1"))
+        start = time.monotonic()
+        for k in range(70):  # 3.5 s
+            delay = start + 0.05 * k - time.monotonic()
+            if delay > 0:
+                time.sleep(delay)
+            push.send_multipart(w.samples(block))
+            sent_at.append(time.monotonic())
+        push.send_multipart(w.end())
+        push.close(linger=1000)
+
+    p = Pipeline(summary=io.StringIO(), snapshot_interval_s=0.25)
+    thread = threading.Thread(target=publish, daemon=True)
+    thread.start()
+    try:
+        messages = 0
+        deadline = time.monotonic() + 30
+        while messages < 72 and time.monotonic() < deadline:
+            if pull.poll(500):
+                p.handle_frames(pull.recv_multipart())
+                messages += 1
+                if messages == 71:  # the last samples message: read the rate now
+                    measured = p.publish().streams["probe-a"].received_rate_hz
+        thread.join(10)
+        assert messages == 72, f"received {messages} of 72 messages within 30 s"
+        # what the publisher achieved over the last window before its last samples message
+        recent = [t for t in sent_at if t >= sent_at[-1] - WINDOW_S]
+        achieved = 500 * (len(recent) - 1) / (recent[-1] - recent[0])
+        assert measured == pytest.approx(achieved, rel=0.15)
+        assert measured == pytest.approx(10_000.0, rel=0.25)
+    finally:
+        pull.close(linger=0)
+        ctx.term()
