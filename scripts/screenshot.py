@@ -89,20 +89,25 @@ def main() -> int:
         time.sleep(4.0)  # let the trace and the history fill in
         # the shot must show the status board in step with the banner: the rendered cells
         # (shadow DOM) equal the server's rows of the same instant
-        # (and a moment well into a point, when the banner has a story to tell)
-        for _ in range(300):
+        # (and a moment well into a point, when the banner has a story to tell); the check is
+        # repeated after the shot, which is kept only if nothing moved meanwhile
+        Path(args.out).parent.mkdir(parents=True, exist_ok=True)
+        for _ in range(600):
             got = driver.execute_script(_IN_STEP)
             if (got["rendered"] and got["rendered"] == got["model"]
                     and "KEEP ACQUIRING" in got["banner"] and "targets met" in got["banner"]
                     and not got["banner"].split("targets met")[0].endswith(" 0/10 ")):
-                break
+                driver.save_screenshot(args.out)
+                after = driver.execute_script(_IN_STEP)
+                if (after["rendered"] == after["model"]
+                        and after["banner"].split(":")[0] == got["banner"].split(":")[0]):
+                    break  # same verdict and point before and after the shot
             time.sleep(0.2)
         else:
+            print(f"last seen: {got}", file=sys.stderr)
             print("the rendered status board is not in step with the data", file=sys.stderr)
             return 1
         print(f"status board in step with the banner: {got['banner']!r}")
-        Path(args.out).parent.mkdir(parents=True, exist_ok=True)
-        driver.save_screenshot(args.out)
         print(f"wrote {args.out} ({Path(args.out).stat().st_size} bytes)")
     finally:
         if driver is not None:

@@ -298,9 +298,19 @@ def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
             cols["target"].append(f"± {format_value(e.target, 2)}")
             state = display_state(e)
             cols["state"].append(state_words(state))
-            cols["eta"].append("done" if e.converged else format_duration(e.eta_s))
+            cols["eta"].append("done" if e.converged else _eta(e.eta_s))
             cols["colour"].append(STATE_COLOURS.get(state, GREY))
     return cols
+
+
+def _eta(seconds) -> str:
+    """An open statistic's ETA: never "0 s" while it is not done.
+
+    >>> _eta(0.3), _eta(12.4), _eta(None)
+    ('< 1 s', '12 s', '–')
+    """
+    s = _num(seconds)
+    return "< 1 s" if 0 <= s < 0.5 else format_duration(s)
 
 
 # ---------------------------------------------------------------------------- time series
@@ -461,7 +471,8 @@ def flow_html(snapshot: RunSnapshot) -> str:
                               if not math.isnan(val(c.upper()))))
         ti = math.sqrt(val("uu")) / speed if val("uu") >= 0 and speed > 0 else math.nan
         tint = " / ".join(format_value(val(f"Tint_{c}") * 1e3, 3) for c in s.columns)
-        neff = " / ".join(format_value(val(f"Neff_{c}"), 3) for c in s.columns)
+        neff = " / ".join("–" if math.isnan(val(f"Neff_{c}")) else f"{val(f'Neff_{c}'):.0f}"
+                          for c in s.columns)
         comps = "/".join(s.columns)
         ti_text = "–" if math.isnan(ti) else f"{100 * ti:.1f} %"
         rows.append(f"<tr><td>{html.escape(name)}</td><td>{ti_text}</td>"
