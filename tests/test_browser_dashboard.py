@@ -176,7 +176,7 @@ def test_dashboard_updates_live_in_a_real_browser(tmp_path):
         assert n_lines == 4  # the four of the preview's six targets furthest from target
         driver.execute_script(f"{model}('show_all').active = true")  # the rest on demand
         _wait_for(driver, f"return {model}('halfwidth_source').data.xs.length == 6",
-                  what="all six half-width lines")
+                  timeout_s=90, what="all six half-width lines")  # slow when loaded
         health = driver.execute_script(f"return {model}('health').text")
         assert "non_finite 2" in health and "! " in health  # non-zero rejections are flagged
 

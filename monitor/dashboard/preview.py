@@ -109,7 +109,8 @@ class PreviewRun:
             amp = math.sqrt(truth[c + c])
             trace[c] = (truth[c.upper()] + amp * np.sin(23.0 * tt + phase[j])
                         * np.cos(5.0 * tt + 2 * phase[j]))
-        hist_t = np.linspace(0.25, max(t, 0.25), max(2, int(t * 4)))
+        # four rows a second, at most 400 (a pipeline thins its history the same way)
+        hist_t = np.linspace(0.25, max(t, 0.25), max(2, min(int(t * 4), 400)))
         history = {"duration_s": hist_t}
         for e in targeted:
             rel, at1 = next((r, a) for n, r, a in _TARGETED if n == e.name)
