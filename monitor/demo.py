@@ -125,8 +125,9 @@ def _listen_control(endpoint: str, stop: threading.Event) -> None:
             try:
                 msg = json.loads(frames[-1])
                 pid = msg.get("point", {}).get("id", "?")
+                said = "withdrawn" if msg.get("kind") == "withdrawn" else "converged"
                 print(f"eddyvigil demo: {frames[0].decode(errors='replace')} point {pid} "
-                      f"converged after {float(msg.get('at_s', float('nan'))):.1f} s of data",
+                      f"{said} after {float(msg.get('at_s', float('nan'))):.1f} s of data",
                       flush=True)
             except (ValueError, AttributeError, TypeError):
                 print("eddyvigil demo: unreadable control message ignored", flush=True)

@@ -48,6 +48,7 @@ from collections.abc import Callable, Mapping, Sequence
 import numpy as np
 
 from eddyvigil.monitor import wire
+from eddyvigil.monitor.rate import ReceiveRate
 from eddyvigil.monitor.state import RunSnapshot, StreamView
 from eddyvigil.monitor.summary import SummaryWriter
 
@@ -103,7 +104,11 @@ class _PointRun:
         self.t0: float | None = None  # t of the point's first row (uniform sampling)
         self.held_s = 0.0  # duration of rows the quality checks hold back (random sampling)
         self.stale = False  # data arrived since the last statistics snapshot
-        self.converged_signalled = False
+        # the control signals: "converged" when the verdict says move on, "withdrawn" when a
+        # signalled point turns suspect while data keep coming (at most one of each pending)
+        self.signalled = False
+        self.signalled_at_s: float | None = None
+        self.withdrawn_at_s: float | None = None
         self.converged_clock: float | None = None
         self.history: dict[str, list[float]] = {"duration_s": []}
 
@@ -135,12 +140,12 @@ class _StreamState:
         self.point: _PointRun | None = None
         self.points_started = 0
         self.finished: list[dict] = []
+        self.last_history: dict[str, list[float]] = {}  # of the last finished point (display)
         self.rate_hz: float | None = None
         self.trace = np.zeros((TRACE_ROWS, 0))
         self.trace_columns: tuple[str, ...] = ()
         self.trace_fill = 0
-        self.rate_mark: tuple[float, int] | None = None
-        self.ingest_rate_hz = 0.0
+        self.receive = ReceiveRate()
 
 
 class Pipeline:
@@ -153,8 +158,16 @@ class Pipeline:
     summary : path, text file, list of those, or SummaryWriter, optional
         Where the DESIGN §4 JSON lines go (each line flushed as written).
     on_converged : callable, optional
-        ``on_converged(stream, point, at_s, summary_line)``, called once per point as soon as
-        every target of the point is met (the control socket hangs here).
+        ``on_converged(stream, point, at_s, summary_line)``, called when the point's verdict
+        (:mod:`eddyvigil.stats.verdict`) first says move on: every target met and the record
+        long enough for the drift check (the control socket hangs here). Decided at the
+        statistics' checkpoints only, so a replay signals at the same samples.
+    on_withdrawn : callable, optional
+        ``on_withdrawn(stream, point, at_s, summary_line)``, called when a point that was
+        signalled converged turns suspect at a later checkpoint (a statistic held by the
+        stationarity guard) while data keep coming; after that the point may be signalled
+        converged again. Default: ``on_converged.withdrawn`` when it has one (a
+        :class:`~eddyvigil.monitor.control.ControlPublisher` sends both).
     recorder : monitor.recorder.Recorder, optional
         Receives every frame list exactly as received, with the rejection reason if any.
     snapshot_interval_s : float
@@ -172,6 +185,7 @@ class Pipeline:
         *,
         summary=None,
         on_converged: Callable | None = None,
+        on_withdrawn: Callable | None = None,
         recorder=None,
         snapshot_interval_s: float = 0.25,
         clock: Callable[[], float] = time.monotonic,
@@ -179,6 +193,7 @@ class Pipeline:
         quality: str = "flag",
     ):
         from eddyvigil import stats  # the numba-compiled core is loaded only when a pipeline is built
+        from eddyvigil.stats.verdict import point_verdict
 
         self._stats = stats
         from eddyvigil.stats import point_spectra  # Welch spectra and eps beside the moments
@@ -189,6 +204,10 @@ class Pipeline:
         self.targets = targets if targets is not None else stats.Targets.defaults()
         self._writer = summary if isinstance(summary, SummaryWriter) else SummaryWriter(summary)
         self._on_converged = on_converged
+        if on_withdrawn is None:
+            on_withdrawn = getattr(on_converged, "withdrawn", None)
+        self._on_withdrawn = on_withdrawn
+        self._point_verdict = point_verdict
         self._recorder = recorder
         self._interval = float(snapshot_interval_s)
         self._clock = clock
@@ -429,6 +448,7 @@ class Pipeline:
             self._finish_point(st, complete=True)
         st.ended = True
         st.active = True
+        self._maybe_publish(force=True)  # readers see the end at once
 
     def _feed_block(self, st, velocity, columns, rate_hz, times, t0, units="m/s") -> str | None:
         run = st.point if st.point is not None else self._start_point(st, None)
@@ -464,6 +484,7 @@ class Pipeline:
         if run.spectra is not None and cleaned.shape[0]:
             run.spectra.update(cleaned)  # the rows the statistics see: a continuous series
         st.samples += n
+        st.receive.add(self._clock(), n)
         st.rate_hz = rate_hz
         self._trace(st, velocity, columns, rate_hz, times, t0)
         # Convergence is decided at the statistics' own checkpoints (inside update, from the
@@ -480,13 +501,40 @@ class Pipeline:
         return None
 
     def _on_checkpoint(self, st: _StreamState, run: _PointRun) -> None:
+        """The control signals are decided here only (sample-count checkpoints: replay = live).
+
+        ``converged`` once the full snapshot's verdict says move on (the record-length rule
+        needs the integral times, which only the full snapshot has); ``withdrawn`` when a
+        signalled point has a suspect targeted statistic at a later checkpoint.
+        """
         snap = run.stats.targeted_snapshot()
         snap = self._quality.hold_suspect(snap, run.quality.suspect_reasons())
         self._add_history(run, snap)
-        if snap.converged and not run.converged_signalled:
+        if not run.signalled and snap.converged:
             self._take_stats_snapshot(st, run, history=False)  # the summary line needs all
+            if self._point_verdict(run.snapshot).move_on:
+                self._signal(st, run, converged=True)
+        elif run.signalled and any(e.state == "suspect" for e in snap.targeted()):
+            self._take_stats_snapshot(st, run, history=False)
+            self._signal(st, run, converged=False)
         else:
             run.stale = True
+            if run.snapshot is None:
+                self._take_stats_snapshot(st, run, history=False)
+
+    def _signal(self, st: _StreamState, run: _PointRun, converged: bool) -> None:
+        at_s = float(run.snapshot.duration_s)
+        run.signalled = converged
+        if converged:
+            run.signalled_at_s, run.converged_clock = at_s, self._clock()
+        else:
+            run.withdrawn_at_s, run.converged_clock = at_s, None
+        callback = self._on_converged if converged else self._on_withdrawn
+        if callback is not None:
+            try:
+                callback(st.name, dict(run.point), at_s, self._point_line(st, run, False))
+            except Exception:
+                self._internal_error()
 
     def _take_stats_snapshot(self, st: _StreamState, run: _PointRun, history=True) -> None:
         run.stale = False
@@ -494,17 +542,6 @@ class Pipeline:
         run.snapshot = snap
         if history:
             self._add_history(run, snap)
-        if snap.converged and not run.converged_signalled:
-            run.converged_signalled = True
-            run.converged_clock = self._clock()
-            if self._on_converged is not None:
-                at_s = snap.converged_at_s if snap.converged_at_s is not None else snap.duration_s
-                try:
-                    self._on_converged(
-                        st.name, dict(run.point), float(at_s), self._point_line(st, run, False)
-                    )
-                except Exception:
-                    self._internal_error()
 
     @staticmethod
     def _add_history(run: _PointRun, snap) -> None:
@@ -530,6 +567,7 @@ class Pipeline:
         line = self._point_line(st, run, complete)
         self._writer.write(line)
         st.finished.append(line)
+        st.last_history = run.history
         st.point = None
         self._points_finished += 1
         self._maybe_publish(force=True)
@@ -560,6 +598,9 @@ class Pipeline:
             "converged_at_s": None,
             "k_method": None,
             "suspect": {},
+            "verdict": self._point_verdict(snap).to_json(),
+            "signalled_at_s": run.signalled_at_s,
+            "withdrawn_at_s": run.withdrawn_at_s,
             "columns": list(run.columns) if run.columns else [],
             "rate_hz": run.rate_hz,
             "units": run.units,
@@ -657,10 +698,6 @@ class Pipeline:
         self._sequence += 1
         views = {}
         for name, st in self._streams.items():
-            if st.rate_mark is not None and now > st.rate_mark[0]:
-                dt = now - st.rate_mark[0]
-                st.ingest_rate_hz = (st.samples - st.rate_mark[1]) / dt
-            st.rate_mark = (now, st.samples)
             run = st.point
             if run is not None and run.stale:
                 self._take_stats_snapshot(st, run)
@@ -671,7 +708,9 @@ class Pipeline:
                 trace["t"] = window[:, 0]
                 for j, c in enumerate(st.trace_columns):
                     trace[c] = window[:, j + 1]
-            history = {k: np.asarray(v) for k, v in run.history.items()} if run else {}
+            # after a point ends its running estimates stay on screen until the next begins
+            shown = run.history if run else st.last_history
+            history = {k: np.asarray(v) for k, v in shown.items()}
             views[name] = StreamView(
                 stream=name,
                 session=st.session,
@@ -679,7 +718,7 @@ class Pipeline:
                 point_index=run.index if run else st.points_started - 1,
                 stats=run.snapshot if run else None,
                 rate_hz=st.rate_hz,
-                ingest_rate_hz=float(st.ingest_rate_hz),
+                received_rate_hz=st.receive.rate_hz(now),
                 messages=st.messages,
                 lost_messages=st.lost,
                 gaps=st.gaps,

@@ -36,6 +36,9 @@ class StreamView:
     estimates, key ``"duration_s"`` plus, for every targeted statistic NAME, ``NAME`` (value)
     and ``NAME_hw`` (half-width), and ``NAME_target`` (resolved target half-width).
     ``finished``: DESIGN §4 point summaries of this stream's finished points, oldest first.
+    ``rate_hz``: the nominal sampling rate the publisher states (None: random sampling or no
+    samples yet); ``received_rate_hz``: samples accepted per second of wall clock over the
+    last ``monitor.rate.WINDOW_S`` seconds (None while unknown; see :mod:`monitor.rate`).
     """
 
     stream: str
@@ -44,7 +47,7 @@ class StreamView:
     point_index: int
     stats: PointSnapshot | None
     rate_hz: float | None
-    ingest_rate_hz: float
+    received_rate_hz: float | None
     messages: int
     lost_messages: int
     gaps: int

@@ -16,6 +16,7 @@ from typing import IO, Any
 
 __all__ = [
     "POINT_FIELDS",
+    "POINT_SIGNAL_FIELDS",
     "RUN_FIELDS",
     "STATISTIC_FIELDS",
     "SummaryWriter",
@@ -45,6 +46,11 @@ POINT_FIELDS = (
     "converged_at_s",
     "statistics",
 )
+#: Fields the monitor adds to every ``point`` line beyond DESIGN §4: the point's verdict
+#: (``stats.verdict.Verdict.to_json``, the same value the dashboard, the terminal status and
+#: the control socket show) and the acquisition times of the last ``converged`` and
+#: ``withdrawn`` control signals (null when none was sent).
+POINT_SIGNAL_FIELDS = ("verdict", "signalled_at_s", "withdrawn_at_s")
 #: Fields of one entry of ``statistics``.
 STATISTIC_FIELDS = (
     "name",

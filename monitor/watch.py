@@ -200,63 +200,90 @@ def _fmt_count(n: float) -> str:
 
 
 def status_line(snapshot) -> str:
-    """One line per run: stream, point, samples, rate, lost, rejected, slowest statistic + ETA."""
+    """One line per run: per stream its point, samples, received rate (``monitor.rate``),
+    lost and rejected messages, and the point's verdict (``stats.verdict``: the same words as
+    the dashboard's banner and the summary's ``"verdict"``)."""
+    from eddyvigil.monitor.rate import format_rate
+    from eddyvigil.stats.verdict import point_verdict
+
     parts = []
     for name, sv in snapshot.streams.items():
+        if sv.ended and sv.stats is None:
+            n = len(sv.finished)
+            parts.append(f"{name}: finished, {n} point{'s' * (n != 1)} (the publisher sent end)")
+            continue
         pid = sv.point.get("id") if sv.point else None
         samples = sv.stats.samples if sv.stats is not None else 0
+        label = f"{name} {pid}" if pid is not None else f"{name} -"
         text = (
-            f"{name} {pid if pid is not None else '-'}: {_fmt_count(samples)} samples "
-            f"{_fmt_count(sv.ingest_rate_hz)}/s lost {sv.lost_messages} "
-            f"rej {sum(sv.rejected.values())}"
+            f"{label}: {_fmt_count(samples)} samples {format_rate(sv.received_rate_hz)} "
+            f"lost {sv.lost_messages} rej {sum(sv.rejected.values())}"
         )
         from eddyvigil.monitor.pipeline import quality_note  # quality counts, if any
 
         text += quality_note(getattr(sv, "quality", None))
-        if sv.ended:
-            text += " [ended]"
-        elif sv.stats is not None:
-            if sv.stats.converged:
-                text += " converged"
-            else:
-                slow = sv.stats.slowest()
-                if slow is not None:
-                    eta = "?" if slow.eta_s is None else f"{slow.eta_s:.0f}s"
-                    text += f" slowest {slow.name} ETA {eta}"
+        if sv.point is not None and pid is None and samples:
+            text += " [data before any point message: counted under point null]"
+        if sv.stats is not None:
+            text += " " + point_verdict(sv.stats).text()
         parts.append(text)
     return " | ".join(parts) or "waiting for data"
 
 
-class StatusPrinter:
-    """Rewrites one status line on a terminal, or prints one every ``plain_interval_s``."""
+#: Transport events that, once every stream has sent ``end``, are the normal ending.
+_AFTER_END = ("closed", "disconnect")
 
-    def __init__(self, stream=sys.stderr, quiet: bool = False, plain_interval_s: float = 10.0):
+
+class StatusPrinter:
+    """Rewrites one status line on a terminal, or prints one every ``plain_interval_s``
+    when it changed (a finished run is not repeated).
+
+    ``ended()``, when given, says whether every stream seen has sent ``end``; a peer closing
+    its connection after that is the normal ending and is not printed as a transport alarm.
+    """
+
+    def __init__(self, stream=sys.stderr, quiet: bool = False, plain_interval_s: float = 10.0,
+                 ended=None):
         self._stream = stream
         self._quiet = quiet
         self._tty = bool(getattr(stream, "isatty", lambda: False)())
         self._plain_interval = plain_interval_s
         self._last = -float("inf")
+        self._last_line = None
+        self._pending = None
+        self._ended = ended if ended is not None else (lambda: False)
 
     def tick(self, snapshot) -> None:
         if self._quiet:
             return
         line = status_line(snapshot)
+        self._pending = line
         if self._tty:
             self._stream.write("\r" + line[:200] + "\x1b[K")
             self._stream.flush()
-        elif time.monotonic() - self._last >= self._plain_interval:
+        elif line != self._last_line and time.monotonic() - self._last >= self._plain_interval:
             self._last = time.monotonic()
+            self._last_line = line
             print(line, file=self._stream, flush=True)
 
     def event(self, text: str) -> None:
-        if not self._quiet:
-            prefix = "\r\x1b[K" if self._tty else ""
-            print(f"{prefix}eddyvigil: transport: {text}", file=self._stream, flush=True)
+        if self._quiet:
+            return
+        if any(word in text.lower() for word in _AFTER_END) and self._ended():
+            return  # the run has ended: the status line already says so, calmly
+        prefix = "\r\x1b[K" if self._tty else ""
+        print(f"{prefix}eddyvigil: transport: {text}", file=self._stream, flush=True)
 
     def done(self) -> None:
-        if self._tty and not self._quiet:
+        """The end of the run: a terminal gets its newline, a log the latest line once."""
+        if self._quiet:
+            return
+        if self._tty:
             self._stream.write("\n")
             self._stream.flush()
+        elif self._pending is not None and self._pending != self._last_line:
+            self._last_line = self._pending
+            print(self._pending, file=self._stream, flush=True)
 
 
 def prepare_kernels(quiet: bool = False, notice_after_s: float = 5.0) -> float:
@@ -417,7 +444,7 @@ def run(args: argparse.Namespace) -> int:
             max_message_bytes=max_bytes,
             quality=args.quality,
         )
-        status = StatusPrinter(quiet=args.quiet)
+        status = StatusPrinter(quiet=args.quiet, ended=lambda: pipeline.all_ended)
         started = time.monotonic()
         silence = {"said": False}
         if not args.quiet:

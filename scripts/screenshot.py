@@ -23,6 +23,26 @@ from pathlib import Path
 from eddyvigil.monitor.demo import free_port
 
 
+_IN_STEP = """
+const cells = [];
+function walk(root) {
+  for (const el of root.querySelectorAll('*')) {
+    if (el.shadowRoot) walk(el.shadowRoot);
+    if (el.classList && el.classList.contains('slick-row')) {
+      const c = Array.from(el.querySelectorAll('.slick-cell')).map(x => x.textContent);
+      if (c.length === 7 && c[3].includes('±')) cells.push(c[3]);
+    }
+  }
+}
+walk(document);
+const doc = Bokeh.documents[0];
+const div = document.createElement('div');
+div.innerHTML = doc.get_model_by_name('verdict').text;
+return {rendered: cells, model: Array.from(doc.get_model_by_name('status_source').data.value),
+        banner: div.textContent};
+"""
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--out", default=str(Path(__file__).resolve().parent.parent / "docs"
@@ -67,8 +87,27 @@ def main() -> int:
                 break
             time.sleep(0.1)
         time.sleep(4.0)  # let the trace and the history fill in
+        # the shot must show the status board in step with the banner: the rendered cells
+        # (shadow DOM) equal the server's rows of the same instant
+        # (and a moment well into a point, when the banner has a story to tell); the check is
+        # repeated after the shot, which is kept only if nothing moved meanwhile
         Path(args.out).parent.mkdir(parents=True, exist_ok=True)
-        driver.save_screenshot(args.out)
+        for _ in range(600):
+            got = driver.execute_script(_IN_STEP)
+            if (got["rendered"] and got["rendered"] == got["model"]
+                    and "KEEP ACQUIRING" in got["banner"] and "targets met" in got["banner"]
+                    and not got["banner"].split("targets met")[0].endswith(" 0/10 ")):
+                driver.save_screenshot(args.out)
+                after = driver.execute_script(_IN_STEP)
+                if (after["rendered"] == after["model"]
+                        and after["banner"].split(":")[0] == got["banner"].split(":")[0]):
+                    break  # same verdict and point before and after the shot
+            time.sleep(0.2)
+        else:
+            print(f"last seen: {got}", file=sys.stderr)
+            print("the rendered status board is not in step with the data", file=sys.stderr)
+            return 1
+        print(f"status board in step with the banner: {got['banner']!r}")
         print(f"wrote {args.out} ({Path(args.out).stat().st_size} bytes)")
     finally:
         if driver is not None:

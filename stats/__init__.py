@@ -20,7 +20,9 @@ __all__ = [
     "Target",
     "Targets",
     "TargetsError",
+    "Verdict",
     "assess",
+    "point_verdict",
     "statistic_names",
 ]
 
@@ -38,6 +40,8 @@ _WHERE = {
     "Target": "eddyvigil.stats.targets",
     "Targets": "eddyvigil.stats.targets",
     "TargetsError": "eddyvigil.stats.targets",
+    "Verdict": "eddyvigil.stats.verdict",
+    "point_verdict": "eddyvigil.stats.verdict",
     "assess": "eddyvigil.stats.stationarity",
     "statistic_names": "eddyvigil.stats.names",
 }

@@ -7,6 +7,7 @@ BROWSER.md (explicit chromedriver, SE_OFFLINE, fresh profile).
 
 from __future__ import annotations
 
+import logging
 import os
 import shutil
 import struct
@@ -172,7 +173,10 @@ def test_dashboard_updates_live_in_a_real_browser(tmp_path):
                   what="the verdict to change")
         assert "point P" in driver.execute_script(f"return {model}('verdict').text")
         n_lines = driver.execute_script(f"return {model}('halfwidth_source').data.xs.length")
-        assert n_lines == 6  # the six targeted statistics of the preview run
+        assert n_lines == 4  # the four of the preview's six targets furthest from target
+        driver.execute_script(f"{model}('show_all').active = true")  # the rest on demand
+        _wait_for(driver, f"return {model}('halfwidth_source').data.xs.length == 6",
+                  timeout_s=90, what="all six half-width lines")  # slow when loaded
         health = driver.execute_script(f"return {model}('health').text")
         assert "non_finite 2" in health and "! " in health  # non-zero rejections are flagged
 
@@ -197,3 +201,106 @@ def test_dashboard_updates_live_in_a_real_browser(tmp_path):
         shutil.rmtree(profile, ignore_errors=True)
         srv.stop()
     assert hooks == ["start", "stop"], "on_start/on_stop must run exactly once per server"
+
+
+#: Every rendered row of the status board, read through the shadow DOM (Bokeh 3 draws widgets
+#: inside shadow roots), with the banner text of the same instant.
+_RENDERED = """
+const rows = [];
+function walk(root) {
+  for (const el of root.querySelectorAll('*')) {
+    if (el.shadowRoot) walk(el.shadowRoot);
+    if (el.classList && el.classList.contains('slick-row')) {
+      rows.push(Array.from(el.querySelectorAll('.slick-cell')).map(c => c.textContent));
+    }
+  }
+}
+walk(document);
+const doc = Bokeh.documents[0];
+return {rows: rows, banner: doc.get_model_by_name('verdict').text,
+        model: Array.from(doc.get_model_by_name('status_source').data.value)};
+"""
+
+
+def _rendered(driver):
+    got = driver.execute_script(_RENDERED)
+    # the status board is the table whose rows carry a ± in their value column
+    got["rows"] = [r for r in got["rows"] if len(r) == 7 and "±" in r[3]]
+    return got
+
+
+def _in_step(got):
+    """The rendered rows are the server's current rows and tell the banner's story."""
+    assert [r[3] for r in got["rows"]] == got["model"], "rendered cells differ from the data"
+    banner = got["banner"]
+    points = {r[1] for r in got["rows"]}
+    assert len(points) == 1 and f"point {points.pop()}" in banner
+    converged = sum(1 for r in got["rows"] if r[5] == "converged")
+    if "MOVE ON" in banner:
+        assert converged == len(got["rows"])
+    elif "targets met" in banner:
+        assert f"{converged}/{len(got['rows'])} targets met" in banner
+
+
+def test_rendered_table_follows_the_banner_and_a_late_tab_and_closing_a_tab(caplog):
+    """Must-fix 1 of the first-hour report: the rendered status cells froze within a point.
+
+    The run's clock is set by the test (P00 covers 0-7 s), so the moments are exact whatever
+    the machine's load; each moment waits (bounded) until the page shows it.
+    """
+    driver, profile = _browser_or_skip()
+    run = PreviewRun(point_s=7.0, points=4)
+    now = {"t": 2.0}
+    srv = _ServerThread(lambda: run.snapshot(now["t"]))
+
+    def at(t_s, what):
+        now["t"] = t_s
+        _wait_for(driver, "return Bokeh.documents[0].get_model_by_name('halfwidth_source')"
+                          f".data.xs.length > 0 && {_LAST_D} >= {min(t_s % 7.0, 6.9) - 0.3}",
+                  what=what)
+        time.sleep(0.6)  # a couple of ticks at the same moment
+        got = _rendered(driver)
+        _in_step(got)
+        return got
+
+    try:
+        driver.set_page_load_timeout(30)
+        driver.get(srv.server.url)
+        _wait_for(driver, "return window.Bokeh !== undefined && Bokeh.documents.length > 0",
+                  what="the Bokeh document")
+        first = at(2.0, "t = 2 s")
+        second = at(5.0, "t = 5 s")  # same point, later: values and states move on
+        assert first["rows"][0][1] == second["rows"][0][1] == "P00"
+        assert [r[3] for r in first["rows"]] != [r[3] for r in second["rows"]]
+        assert [r[5] for r in first["rows"]] != [r[5] for r in second["rows"]]
+        home = driver.current_window_handle
+        # a second tab opened mid-point shows this point's rows, and the next point's later
+        driver.switch_to.new_window("tab")
+        driver.get(srv.server.url)
+        _wait_for(driver, "return window.Bokeh !== undefined && Bokeh.documents.length > 0",
+                  what="the second tab")
+        assert at(5.5, "t = 5.5 s in the second tab")["rows"][0][1] == "P00"
+        late = at(10.0, "t = 10 s (P01) in the second tab")
+        assert late["rows"][0][1] == "P01"
+        assert srv.server.session_count == 2
+        caplog.set_level(logging.INFO, logger="bokeh")
+        driver.close()  # the second tab goes away
+        driver.switch_to.window(home)
+        deadline = time.monotonic() + 15
+        while srv.server.session_count > 1 and time.monotonic() < deadline:
+            time.sleep(0.2)
+        assert srv.server.session_count == 1, "the closed tab's session was not released"
+        assert at(12.0, "t = 12 s in the first tab")["rows"][0][1] == "P01"
+        driver.save_screenshot(str(Path(os.environ.get("EDDYVIGIL_SCREENSHOT_DIR", profile))
+                                   / "table_in_step.png"))
+    finally:
+        driver.quit()
+        shutil.rmtree(profile, ignore_errors=True)
+        srv.stop()
+    noisy = [r.getMessage() for r in caplog.records if r.levelno >= logging.WARNING]
+    assert not noisy, f"the server complained when a tab closed: {noisy[:3]}"
+
+
+#: The acquisition time of the newest running-estimate row the page holds.
+_LAST_D = ("(() => { const d = Bokeh.documents[0].get_model_by_name('history_source')"
+           ".data.duration_s; return d.length ? d[d.length - 1] : -1; })()")

@@ -39,6 +39,7 @@ def test_converged_signal_has_the_documented_frames_and_fields():
             "stream": "probe-a",
             "point": {"id": "P3", "y": 0.004},
             "at_s": 12.5,
+            "verdict": None,
             "summary": {"v": 1, "kind": "point", "converged_at_s": 12.5, "x": None},
         }
     finally:

@@ -22,7 +22,7 @@ def _view(estimates, *, converged=False, name="probe-a", point=None, history=Non
           finished=(), suspect=None, **health):
     stats = PointSnapshot(("u", "v"), 40_000, 2.0, 0.95, tuple(estimates), converged,
                           1.5 if converged else None, "two-component", suspect or {})
-    kw = dict(rate_hz=20_000.0, ingest_rate_hz=19_800.0, messages=40, lost_messages=0, gaps=0,
+    kw = dict(rate_hz=20_000.0, received_rate_hz=19_800.0, messages=40, lost_messages=0, gaps=0,
               restarts=0, rejected={})
     kw.update(health)
     return StreamView(stream=name, session="s1", point=point or {"id": "P03", "y": 0.01},
@@ -39,25 +39,33 @@ OPEN = [_est("U", 8.2, 0.05, 0.08, "converged", 0.0), _est("uv", -0.5, 0.03, 0.0
                                                           12.0)]
 
 
-def test_verdict_keeps_acquiring_until_every_target_is_met():
-    v = views.verdict(_view(OPEN))
+TINTS = [_est(f"Tint_{c}", 0.005, 0.001, None, "untargeted") for c in ("u", "v")]
+
+
+def test_banner_keeps_acquiring_until_every_target_is_met():
+    v = views.banner(_view(OPEN))
     assert v.headline == "KEEP ACQUIRING"
     assert "1/2 targets met" in v.detail and "slowest uv" in v.detail and "12 s" in v.detail
-    done = views.verdict(_view([_est("U", 8.2, 0.05, 0.08, "converged", 0.0)], converged=True))
+    # 2 s of record over T_int 5 ms = 400 integral times: past the 200 the drift check needs
+    done = views.banner(_view([_est("U", 8.2, 0.05, 0.08, "converged", 0.0)] + TINTS,
+                              converged=True))
     assert done.headline == "MOVE ON" and "4 s ago" in done.detail
     assert done.colour == views.STATE_COLOURS["converged"]
 
 
-def test_verdict_flags_suspect_and_warming_up_and_no_data():
+def test_banner_flags_suspect_and_warming_up_and_no_data():
     suspect = [_est("U", 8.2, 0.05, 0.08, "suspect")]
-    assert views.verdict(_view(suspect)).headline == "CHECK SIGNAL"
+    drift = {"u": "trend: mean drifts by +8.8 standard errors over the record (slope t = 5.0)"}
+    flagged = views.banner(_view(suspect, suspect=drift))
+    assert flagged.headline == "CHECK SIGNAL" and "u: mean drifts +8.8 standard errors" in (
+        flagged.detail)
     # the guard fires now and then on stationary data while it is re-tested at every update:
     # while the error bars are not there anyway, the banner keeps acquiring and names the flag
     early = [_est("U", 8.2, 0.05, 0.08, "suspect"), _est("uv", -0.5, 0.03, 0.02, "converging")]
-    v = views.verdict(_view(early, suspect={"u": "trend"}))
-    assert v.headline == "KEEP ACQUIRING" and "flagged not stationary so far: u" in v.detail
+    v = views.banner(_view(early, suspect={"u": "halves differ by 4.0 standard errors"}))
+    assert v.headline == "KEEP ACQUIRING" and "flagged so far: u: mean steps by 4.0" in v.detail
     warm = [_est("U", 8.2, 0.5, 0.08, "warming-up")]
-    assert views.verdict(_view(warm)).headline == "WARMING UP"
+    assert views.banner(_view(warm)).headline == "WARMING UP"
     assert "WAITING FOR DATA" in views.verdict_html(RunSnapshot(0, 0.0))
 
 
@@ -155,3 +163,57 @@ def test_transport_trouble_is_flagged_but_a_connection_is_news():
     text = views.health_html(snap)
     assert "! transport: 10:00:09 connection closed" in text
     assert "! transport: 10:00:01" not in text and "transport: 10:00:01 connected" in text
+
+
+def test_statistics_sharing_a_hue_differ_in_line_style():
+    for a, b in (("U", "uu"), ("V", "vv"), ("W", "ww")):
+        assert views.statistic_colour(a) == views.statistic_colour(b)
+        assert views.statistic_dash(a) != views.statistic_dash(b)
+    assert "dashed" in views.STYLE_NOTE and "solid" in views.STYLE_NOTE
+
+
+def test_flow_facts_turbulence_intensity_and_integral_times():
+    # TI = sqrt(uu)/|U| with |U| = sqrt(U^2 + V^2): sqrt(0.25)/sqrt(8^2 + 6^2) = 0.5/10 = 5 %
+    # (definition, e.g. Tennekes & Lumley 1972; arithmetic)
+    est = [_est("U", 8.0, 0.1, None, "untargeted"), _est("V", 6.0, 0.1, None, "untargeted"),
+           _est("uu", 0.25, 0.01, None, "untargeted"),
+           _est("Tint_u", 0.0042, 0.001, None, "untargeted"),
+           _est("Tint_v", 0.0031, 0.001, None, "untargeted"),
+           _est("Neff_u", 476.0, 50, None, "untargeted"),
+           _est("Neff_v", 645.0, 50, None, "untargeted")]
+    text = views.flow_html(_run(_view(est)))
+    assert "5.0 %" in text and "4.2 / 3.1" in text and "476 / 645" in text
+
+
+def test_rates_never_say_varies_before_data_and_name_random_sampling():
+    none_yet = StreamView(stream="a", session="s", point={"id": "P"}, point_index=0, stats=None,
+                          rate_hz=None, received_rate_hz=None, messages=0, lost_messages=0,
+                          gaps=0, restarts=0, rejected={})
+    text = views.health_html(_run(none_yet))
+    assert "varies" not in text and "–" in text
+    random = _view(OPEN, rate_hz=None)
+    assert "random sampling" in views.health_html(_run(random))
+
+
+def test_a_normal_end_looks_finished():
+    """Must-fix 8: after ``end`` the last point's running plots stay, the ending is said once
+    and calmly, and the publisher closing its connection then is not flagged."""
+    import io
+
+    from eddyvigil.monitor.pipeline import Pipeline
+
+    p = Pipeline(summary=io.StringIO(), snapshot_interval_s=0.0)
+    p.begin_point("probe-a", {"id": "P1"})
+    rng = np.random.default_rng(4)
+    for _ in range(12):
+        p.feed("probe-a", 5.0 + rng.standard_normal((4096, 3)), rate_hz=4096.0)
+    p.end("probe-a")
+    p.transport_event("peer disconnected from tcp://127.0.0.1:5555")
+    snap = p.snapshot
+    view = snap.streams["probe-a"]
+    assert len(view.history["duration_s"]) > 0  # the plots keep the last point
+    badge = views.banner(view)
+    assert badge.headline == "RUN ENDED" and "1 point finished" in badge.detail
+    health = views.health_html(snap)
+    assert "! transport" not in health and "after end (normal)" in health
+    p.close()

@@ -71,6 +71,12 @@ class PreviewRun:
             hw = 0.02 * truth["k"] / math.sqrt(max(t, 1e-3))
             out.append(Estimate(name, truth[name], hw / 1.96, truth[name] - hw, truth[name] + hw,
                                 hw, None, None, None, "untargeted"))
+        for c in _COLUMNS:  # integral time scales of an invented 5 ms, as the monitor names them
+            tint = 0.005
+            for name, value in ((f"Tint_{c}", tint), (f"Neff_{c}", t / (2 * tint)),
+                                (f"L_{c}", tint * truth["U"])):
+                out.append(Estimate(name, value, 0.1 * value, 0.8 * value, 1.2 * value,
+                                    0.2 * value, None, None, None, "untargeted"))
         return tuple(out)
 
     def _summary(self, index: int, y: float) -> dict:
@@ -103,7 +109,8 @@ class PreviewRun:
             amp = math.sqrt(truth[c + c])
             trace[c] = (truth[c.upper()] + amp * np.sin(23.0 * tt + phase[j])
                         * np.cos(5.0 * tt + 2 * phase[j]))
-        hist_t = np.linspace(0.25, max(t, 0.25), max(2, int(t * 4)))
+        # four rows a second, at most 400 (a pipeline thins its history the same way)
+        hist_t = np.linspace(0.25, max(t, 0.25), max(2, min(int(t * 4), 400)))
         history = {"duration_s": hist_t}
         for e in targeted:
             rel, at1 = next((r, a) for n, r, a in _TARGETED if n == e.name)
@@ -114,7 +121,7 @@ class PreviewRun:
         view = StreamView(
             stream="probe-a", session="pv", point={"id": f"P{index:02d}", "x": 0.3, "y": y,
                                                    "z": 0.0},
-            point_index=index, stats=stats, rate_hz=20_000.0, ingest_rate_hz=20_000.0,
+            point_index=index, stats=stats, rate_hz=20_000.0, received_rate_hz=20_000.0,
             messages=int(10 * t_s), lost_messages=0, gaps=0, restarts=0,
             rejected={"non_finite": 2} if t_s > 5 else {}, trace=trace, history=history,
             finished=tuple(self._summary(i, float(self.ys[i])) for i in range(index)),

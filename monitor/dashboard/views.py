@@ -15,15 +15,18 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from eddyvigil.monitor.rate import WINDOW_S, format_rate
 from eddyvigil.monitor.state import RunSnapshot, StreamView
-from eddyvigil.stats.convergence import STOP_MARGIN
+from eddyvigil.stats.names import family
+from eddyvigil.stats.verdict import display_state, point_verdict, state_words
 
 __all__ = [
     "OKABE_ITO", "STATE_COLOURS", "MEAN_NAMES", "STRESS_NAMES", "statistic_colour", "pick_stream",
-    "Verdict", "verdict", "verdict_html", "health_html", "status_columns", "rows_after",
+    "KIND_COLOURS", "Banner", "banner", "verdict_html", "health_html", "status_columns", "rows_after",
     "trace_columns", "history_columns", "halfwidth_columns", "guide_columns",
     "profile_axis", "profile_columns", "current_profile_columns", "finished_columns",
-    "format_value", "format_duration", "GREY", "targeted_names",
+    "format_value", "format_duration", "GREY", "targeted_names", "statistic_dash",
+    "STYLE_NOTE", "flow_html", "slowest_first",
 ]
 
 #: Okabe & Ito (2008, "Color universal design") palette: distinguishable with every common
@@ -39,7 +42,9 @@ STATE_COLOURS = {
     "warming-up": GREY,
     "converging": OKABE_ITO["orange"],
     "converged": OKABE_ITO["green"],
+    "confirming": OKABE_ITO["blue"],
     "suspect": OKABE_ITO["vermillion"],
+    "no-interval": OKABE_ITO["purple"],
     "untargeted": OKABE_ITO["sky"],
 }
 
@@ -67,6 +72,22 @@ def statistic_colour(name: str) -> str:
     if name in _FIXED_COLOURS:
         return _FIXED_COLOURS[name]
     return OKABE_ITO[_CYCLE[sum(name.encode()) % len(_CYCLE)]]
+
+
+#: Line style by family, so statistics that share a component's hue (U and uu, V and vv...)
+#: stay apart: means solid, second moments dashed, everything else dotted.
+_FAMILY_DASH = {"mean": "solid", "second": "dashed"}
+#: Said beside every plot where hues are shared.
+STYLE_NOTE = "colour = velocity component; line: solid = mean, dashed = stress/k, dotted = other"
+
+
+def statistic_dash(name: str) -> str:
+    """The line style of a statistic in every plot (by family: see :data:`STYLE_NOTE`).
+
+    >>> statistic_dash("U"), statistic_dash("uu"), statistic_dash("k"), statistic_dash("uuv")
+    ('solid', 'dashed', 'dashed', 'dotted')
+    """
+    return _FAMILY_DASH.get(family(name), "dotted")
 
 
 def _num(x) -> float:
@@ -116,9 +137,20 @@ def pick_stream(snapshot: RunSnapshot, wanted: str | None) -> str | None:
 # ---------------------------------------------------------------------------- verdict
 
 
+#: Badge colour per verdict kind (``stats.verdict.KINDS``): (background, text).
+KIND_COLOURS = {
+    "waiting": (GREY, "#FFFFFF"),
+    "no-targets": (OKABE_ITO["sky"], "#000000"),
+    "warming-up": (GREY, "#FFFFFF"),
+    "keep-acquiring": (OKABE_ITO["orange"], "#000000"),
+    "check-signal": (OKABE_ITO["vermillion"], "#FFFFFF"),
+    "move-on": (OKABE_ITO["green"], "#FFFFFF"),
+}
+
+
 @dataclass(frozen=True)
-class Verdict:
-    """What to do at a stream's current point, in words a person acts on."""
+class Banner:
+    """One stream's badge: the verdict's headline and reason, with the stream facts around it."""
 
     headline: str
     detail: str
@@ -126,64 +158,34 @@ class Verdict:
     text_colour: str
 
 
-def verdict(view: StreamView) -> Verdict:
-    """The point's overall verdict: move on, keep acquiring, or look at the signal.
-
-    ``MOVE ON`` only when every target of the current point is met. A suspect statistic
-    (stationarity guard) says ``CHECK SIGNAL`` once the error bars are otherwise good enough,
-    i.e. when the guard is what stands between the user and moving on; before that the guard,
-    re-tested at every update, fires now and then on stationary data (a few per cent of
-    looks), so the banner says ``KEEP ACQUIRING`` and names what was flagged so far.
-    """
+def banner(view: StreamView) -> Banner:
+    """The badge of one stream: the point verdict of :mod:`eddyvigil.stats.verdict`, worded
+    with the point's name; a calm RUN ENDED once the stream has sent ``end``."""
     point = _point_label(view)
-    snap = view.stats
-    if view.ended and snap is None:
-        return Verdict("RUN ENDED", f"{len(view.finished)} points finished", GREY, "#FFFFFF")
-    if snap is None or snap.samples == 0:
-        return Verdict("WAITING FOR DATA", point, GREY, "#FFFFFF")
-    suspect = [e for e in snap.estimates if e.state == "suspect"]
-    flagged = ""
-    if suspect or snap.suspect:
-        names = ", ".join(sorted({e.name for e in suspect} | set(snap.suspect)))[:80]
-        if _precise_enough(snap):
-            return Verdict("CHECK SIGNAL", f"{point}: not stationary ({names})",
-                           STATE_COLOURS["suspect"], "#FFFFFF")
-        flagged = f"; flagged not stationary so far: {html.escape(', '.join(sorted(snap.suspect)))}"
-    if snap.converged:
-        at = format_duration(snap.converged_at_s)
-        age = format_duration(view.converged_wall_age_s)
-        return Verdict("MOVE ON", f"{point}: all targets met after {at} of data, {age} ago",
-                       STATE_COLOURS["converged"], "#FFFFFF")
-    targeted = snap.targeted()
-    if not targeted:
-        return Verdict("NO TARGETS", f"{point}: nothing to converge", STATE_COLOURS["untargeted"],
-                       "#000000")
-    if all(e.state in ("warming-up", "suspect") for e in targeted) and not all(
-        e.state == "suspect" for e in targeted
-    ):
-        return Verdict("WARMING UP", f"{point}: too few blocks for an honest error bar yet"
-                       + flagged, GREY, "#FFFFFF")
-    slow = snap.slowest()
-    eta = "unknown" if slow is None or slow.eta_s is None else f"≈ {format_duration(slow.eta_s)}"
-    met = sum(1 for e in targeted if e.converged)
-    name = html.escape(slow.name) if slow is not None else "–"
-    return Verdict("KEEP ACQUIRING",
-                   f"{point}: {met}/{len(targeted)} targets met; slowest {name}, {eta} more"
-                   + flagged, STATE_COLOURS["converging"], "#000000")
-
-
-def _precise_enough(snap) -> bool:
-    """Every targeted half-width (with the stopping margin) within its target."""
-    for e in snap.targeted():
-        if not (math.isfinite(e.half_width) and e.target is not None and math.isfinite(e.target)):
-            return False
-        if STOP_MARGIN * e.half_width > e.target:
-            return False
-    return True
+    if view.ended and view.stats is None:
+        last = view.finished[-1] if view.finished else None
+        tail = ""
+        if last is not None:
+            pid = html.escape(str((last.get("point") or {}).get("id", "–")))
+            verdict = last.get("verdict") or {}
+            tail = f"; last point {pid}: {html.escape(str(verdict.get('reason', '')))}"
+        n = len(view.finished)
+        return Banner("RUN ENDED", f"the publisher sent end: {n} point{'s' * (n != 1)} "
+                      f"finished{tail}", GREY, "#FFFFFF")
+    v = point_verdict(view.stats)
+    colour, text_colour = KIND_COLOURS[v.kind]
+    detail = f"{point}: {html.escape(v.reason)}"
+    if v.move_on and view.converged_wall_age_s is not None:
+        detail += f", {format_duration(view.converged_wall_age_s)} ago"
+    if view.stats is not None and view.point is not None and view.point.get("id") is None:
+        detail += " (data arrived before any point message: counted under point null)"
+    return Banner(v.headline, detail, colour, text_colour)
 
 
 def _point_label(view: StreamView) -> str:
     p = view.point or {}
+    if view.point and p.get("id") is None:
+        return "no point message yet"
     pid = html.escape(str(p.get("id", "no point yet")))
     return f"point {pid}" if view.point else pid
 
@@ -191,12 +193,12 @@ def _point_label(view: StreamView) -> str:
 def verdict_html(snapshot: RunSnapshot) -> str:
     """One large, unmistakable badge per stream (headline words, not just a colour)."""
     if not snapshot.streams:
-        return _badge("", Verdict("WAITING FOR DATA", "no stream has been heard yet", GREY,
-                                  "#FFFFFF"))
-    return "".join(_badge(html.escape(name), verdict(v)) for name, v in snapshot.streams.items())
+        return _badge("", Banner("WAITING FOR DATA", "no stream has been heard yet", GREY,
+                                 "#FFFFFF"))
+    return "".join(_badge(html.escape(name), banner(v)) for name, v in snapshot.streams.items())
 
 
-def _badge(stream: str, v: Verdict) -> str:
+def _badge(stream: str, v: Banner) -> str:
     return (
         f'<div style="display:inline-block;margin:4px 8px 4px 0;padding:10px 18px;'
         f'border-radius:6px;background:{v.colour};color:{v.text_colour};min-width:380px">'
@@ -214,7 +216,8 @@ def health_html(snapshot: RunSnapshot) -> str:
 
     A flagged cell carries a "!" as well as a colour, so it does not depend on colour vision.
     """
-    head = ("<tr><th>stream</th><th>rate (Hz)</th><th>received (Hz)</th><th>messages</th>"
+    head = ("<tr><th>stream</th><th>sampling rate</th>"
+            f"<th>received (last {WINDOW_S:.0f} s)</th><th>messages</th>"
             "<th>lost</th><th>gaps</th><th>restarts</th><th>rejected</th></tr>")
     rows = []
     for name, v in snapshot.streams.items():
@@ -222,8 +225,8 @@ def health_html(snapshot: RunSnapshot) -> str:
         rej = ", ".join(f"{html.escape(str(k))} {n}" for k, n in sorted(rejected.items()))
         cells = [
             _cell(html.escape(name)),
-            _cell(format_value(v.rate_hz, 6) if v.rate_hz else "varies"),
-            _cell(format_value(v.ingest_rate_hz, 4)),
+            _cell(_nominal_rate(v)),
+            _cell(format_rate(v.received_rate_hz)),
             _cell(str(v.messages)),
             _cell(str(v.lost_messages), flag=v.lost_messages > 0),
             _cell(str(v.gaps), flag=v.gaps > 0),
@@ -236,9 +239,13 @@ def health_html(snapshot: RunSnapshot) -> str:
     if other:
         listed = ", ".join(f"{html.escape(str(k))} {n}" for k, n in sorted(other.items()))
         extra += f'<div style="{_FLAG}">! rejected in this run: {listed}</div>'
+    ended = bool(snapshot.streams) and all(v.ended for v in snapshot.streams.values())
     for event in snapshot.transport_events[-3:]:
         text = html.escape(str(event))
-        if any(word in text.lower() for word in _TROUBLE):
+        if ended and any(word in text.lower() for word in _AFTER_END):
+            extra += (f'<div style="font-size:12px;padding:2px 6px">the publisher closed its '
+                      f"connection after end (normal): {text}</div>")
+        elif any(word in text.lower() for word in _TROUBLE):
             extra += f'<div style="{_FLAG}">! transport: {text}</div>'
         else:
             extra += f'<div style="font-size:12px;padding:2px 6px">transport: {text}</div>'
@@ -247,6 +254,17 @@ def health_html(snapshot: RunSnapshot) -> str:
     return table + extra
 
 
+def _nominal_rate(v: StreamView) -> str:
+    """The rate the publisher states; random sampling says so; en dash before any sample."""
+    if v.rate_hz:
+        return format_rate(v.rate_hz)
+    if v.stats is not None and v.stats.samples > 0:
+        return "random sampling"
+    return "–"
+
+
+#: A peer going away after every stream sent ``end`` is the normal ending, not trouble.
+_AFTER_END = ("closed", "disconnect")
 #: Words that make a transport event a problem rather than news (e.g. "connected").
 _TROUBLE = ("closed", "disconnect", "drop", "lost", "fail", "error", "refused", "limit")
 
@@ -277,10 +295,21 @@ def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
             cols["name"].append(e.name)
             cols["value"].append(f"{format_value(e.value)} ± {format_value(e.half_width, 2)}")
             cols["target"].append(f"± {format_value(e.target, 2)}")
-            cols["state"].append(e.state)
-            cols["eta"].append("done" if e.converged else format_duration(e.eta_s))
-            cols["colour"].append(STATE_COLOURS.get(e.state, GREY))
+            state = display_state(e)
+            cols["state"].append(state_words(state))
+            cols["eta"].append("done" if e.converged else _eta(e.eta_s))
+            cols["colour"].append(STATE_COLOURS.get(state, GREY))
     return cols
+
+
+def _eta(seconds) -> str:
+    """An open statistic's ETA: never "0 s" while it is not done.
+
+    >>> _eta(0.3), _eta(12.4), _eta(None)
+    ('< 1 s', '12 s', '–')
+    """
+    s = _num(seconds)
+    return "< 1 s" if 0 <= s < 0.5 else format_duration(s)
 
 
 # ---------------------------------------------------------------------------- time series
@@ -310,12 +339,27 @@ def rows_after(columns: Mapping[str, np.ndarray], key: str, last: float | None
 
 def trace_columns(view: StreamView | None, components: Sequence[str] = ("u", "v", "w")
                   ) -> dict[str, np.ndarray]:
-    """The decimated live trace, one column per velocity component (NaN where absent)."""
+    """The decimated live trace, one column per velocity component (NaN where absent).
+
+    Where time jumps by more than three typical steps (a rejected or lost block, a pause of
+    the publisher) a NaN row is put in, so the line breaks there instead of bridging the gap.
+
+    >>> cols = trace_columns(StreamView("a", None, None, 0, None, None, None, 0, 0, 0, 0, {},
+    ...     trace={"t": np.array([0.0, 0.1, 0.2, 1.0, 1.1]), "u": np.arange(5.0)}), ("u",))
+    >>> cols["t"].tolist()[:4], bool(np.isnan(cols["u"][3]))
+    ([0.0, 0.1, 0.2, 0.6], True)
+    """
     t = np.asarray(view.trace.get("t", np.empty(0)) if view else np.empty(0), dtype=float)
     out = {"t": t}
     for c in components:
         col = view.trace.get(c) if view else None
         out[c] = np.asarray(col, dtype=float) if col is not None else np.full(t.shape, np.nan)
+    if len(t) > 2:
+        dt = np.diff(t)
+        gaps = np.flatnonzero(dt > 3.0 * np.median(dt))
+        if len(gaps):
+            mid = 0.5 * (t[gaps] + t[gaps + 1])
+            out = {k: np.insert(v, gaps + 1, mid if k == "t" else np.nan) for k, v in out.items()}
     return out
 
 
@@ -363,6 +407,21 @@ def halfwidth_columns(view: StreamView | None, names: Sequence[str]) -> dict[str
     return out
 
 
+def slowest_first(hw: Mapping[str, np.ndarray]) -> list[str]:
+    """Names of half-width columns, furthest from their target now first (NaN last).
+
+    >>> slowest_first({"duration_s": np.array([1.0, 2.0]), "U": np.array([3.0, 0.5]),
+    ...                "uv": np.array([4.0, 2.0]), "k": np.array([np.nan, np.nan])})
+    ['uv', 'U', 'k']
+    """
+    def last(n):
+        r = np.asarray(hw[n], dtype=float)
+        r = r[np.isfinite(r)]
+        return -r[-1] if len(r) else math.inf
+
+    return sorted((n for n in hw if n != "duration_s"), key=last)
+
+
 def guide_columns(view: StreamView | None, span: float = 1e4) -> dict[str, list]:
     """T^(-1/2) guides through the current half-width of every open targeted statistic.
 
@@ -387,6 +446,42 @@ def guide_columns(view: StreamView | None, span: float = 1e4) -> dict[str, list]
         out["name"].append(e.name)
         out["colour"].append(statistic_colour(e.name))
     return out
+
+
+# ---------------------------------------------------------------------------- flow facts
+
+
+def flow_html(snapshot: RunSnapshot) -> str:
+    """Turbulence intensity √uu/|U|, integral time scales and effective sample counts.
+
+    |U| is the local mean speed over the components present (DESIGN's relative scale).
+    """
+    rows = []
+    for name, v in snapshot.streams.items():
+        s = v.stats
+        if s is None or s.samples == 0:
+            continue
+        have = set(s.names)
+
+        def val(n, have=have, s=s):
+            return _num(s.estimate(n).value) if n in have else math.nan
+
+        speed = math.sqrt(sum(val(c.upper()) ** 2 for c in s.columns
+                              if not math.isnan(val(c.upper()))))
+        ti = math.sqrt(val("uu")) / speed if val("uu") >= 0 and speed > 0 else math.nan
+        tint = " / ".join(format_value(val(f"Tint_{c}") * 1e3, 3) for c in s.columns)
+        neff = " / ".join("–" if math.isnan(val(f"Neff_{c}")) else f"{val(f'Neff_{c}'):.0f}"
+                          for c in s.columns)
+        comps = "/".join(s.columns)
+        ti_text = "–" if math.isnan(ti) else f"{100 * ti:.1f} %"
+        rows.append(f"<tr><td>{html.escape(name)}</td><td>{ti_text}</td>"
+                    f"<td>{tint}</td><td>{neff}</td><td>{comps}</td></tr>")
+    if not rows:
+        return ""
+    head = ("<tr><th>stream</th><th>turbulence intensity √uu/|U|</th>"
+            "<th>T<sub>int</sub> (ms)</th><th>N<sub>eff</sub></th><th>components</th></tr>")
+    return (f'<table style="border-collapse:collapse;font-size:13px;margin-top:8px" '
+            f'cellpadding="4">{head}{"".join(rows)}</table>')
 
 
 # ---------------------------------------------------------------------------- traverse
