@@ -21,6 +21,7 @@ COMMANDS = {
     "watch": ("eddyvigil.monitor.watch", "monitor a live stream"),
     "replay": ("eddyvigil.monitor.replay", "feed a recording through the same path as live data"),
     "export": ("eddyvigil.monitor.export", "write recorded samples and summaries to open formats"),
+    "budget": ("eddyvigil.monitor.budget_cmd", "k budget across a traverse, with uncertainty"),
 }
 
 

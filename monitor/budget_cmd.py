@@ -1,0 +1,221 @@
+"""``eddyvigil budget SUMMARY``: the k budget across a traverse, with uncertainty (DESIGN §11).
+
+Reads the ``point`` lines of a summary file, keeps one stream's points at one station (the
+coordinates off the traverse axis that most points share), orders them along the axis and
+computes production, turbulent transport, dissipation (where the points carry ``eps``) and the
+residual with :func:`eddyvigil.stats.budget.tke_budget`. The same computation makes the
+``budget`` line the monitor appends to the summary whenever a point of a stream finishes
+(:func:`budget_line`).
+
+The velocity component along the traverse axis plays the part of ``v`` (x: u, y: v, z: w);
+``u`` is always the streamwise component.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import sys
+from collections import Counter
+from collections.abc import Iterable, Mapping
+
+from eddyvigil.monitor.exitcodes import ExitCode, epilog, fail
+
+__all__ = ["add_arguments", "run", "read_summary", "traverse", "budget_line", "budget_table"]
+
+EPILOG = epilog("budget")
+
+AXES = ("x", "y", "z")
+_COMPONENT = {"x": "u", "y": "v", "z": "w"}
+
+
+def add_arguments(p) -> None:
+    p.add_argument("summary", metavar="SUMMARY", help="summary file (JSON lines) of a run")
+    p.add_argument("--stream", help="stream to use (default: the one with the most points)")
+    p.add_argument("--axis", choices=AXES, default="y", help="traverse axis (default y)")
+    p.add_argument("--wwv", choices=("vvv", "half"), default="vvv",
+                   help="when w is not measured: <wwv> = <vvv> (default) or (<uuv>+<vvv>)/2")
+    p.add_argument("--json", action="store_true", help="print the budget line as JSON")
+
+
+def read_summary(path) -> list[dict]:
+    """The JSON objects of a summary file; raises OSError or ValueError (with the line number)."""
+    lines = []
+    with open(path, encoding="utf-8") as f:
+        for number, text in enumerate(f, 1):
+            if not text.strip():
+                continue
+            try:
+                obj = json.loads(text)
+            except ValueError as e:
+                raise ValueError(f"line {number} is not JSON ({e.msg})") from None
+            if isinstance(obj, dict):
+                lines.append(obj)
+    return lines
+
+
+def _name(letters: str) -> str:
+    """Canonical statistic name (components in u, v, w order, DESIGN §3)."""
+    return "".join(sorted(letters, key="uvw".index))
+
+
+def traverse(lines: Iterable[Mapping], stream: str, axis: str = "y"):
+    """(point lines sorted along ``axis``, notes) of one stream at its main station.
+
+    The latest line of a point id wins; points without a position on the axis, or at another
+    station (other coordinates), or repeating a position are left out and named in the notes.
+    """
+    latest: dict = {}
+    for line in lines:
+        if line.get("kind") != "point" or line.get("stream") != stream:
+            continue
+        pid = (line.get("point") or {}).get("id")
+        latest[pid if pid is not None else f"#{line.get('point_index')}"] = line
+    notes = []
+    others = [a for a in AXES if a != axis]
+
+    def coord(line, a):
+        v = (line.get("point") or {}).get(a)
+        return float(v) if isinstance(v, int | float) and math.isfinite(v) else None
+
+    placed = [ln for ln in latest.values() if coord(ln, axis) is not None]
+    if len(placed) < len(latest):
+        notes.append(f"{len(latest) - len(placed)} point(s) without a {axis} position left out")
+    if not placed:
+        return [], notes
+    station = Counter(tuple(coord(ln, a) for a in others) for ln in placed).most_common(1)[0][0]
+    kept = [ln for ln in placed if tuple(coord(ln, a) for a in others) == station]
+    if len(kept) < len(placed):
+        notes.append(f"{len(placed) - len(kept)} point(s) at another station left out "
+                     f"(kept {others[0]}={station[0]}, {others[1]}={station[1]})")
+    by_pos: dict = {}
+    for ln in kept:  # later lines win a repeated position
+        by_pos[coord(ln, axis)] = ln
+    if len(by_pos) < len(kept):
+        notes.append(f"{len(kept) - len(by_pos)} repeated position(s): the later point kept")
+    return [by_pos[p] for p in sorted(by_pos)], notes
+
+
+def _statistics(points: list[Mapping], axis: str) -> dict:
+    """``name -> (values, stderrs)`` under the names tke_budget expects (v = axis component)."""
+    a = _COMPONENT[axis]
+    o = next(c for c in "vw" if c != a) if a != "u" else "v"
+    wanted = {"U": "U", "uv": _name("u" + a), "uuv": _name("uu" + a), "vvv": a * 3,
+              "vww": _name(a + o + o), "eps": "eps"}
+    per_point = []
+    for line in points:
+        table = {}
+        for s in line.get("statistics") or ():
+            if isinstance(s, Mapping) and "name" in s:
+                table[s["name"]] = s
+        per_point.append(table)
+    out = {}
+    for key, name in wanted.items():
+        rows = [t.get(name) for t in per_point]
+        if any(r is None for r in rows):
+            continue
+        out[key] = ([_num(r.get("value")) for r in rows], [_num(r.get("stderr")) for r in rows])
+    return out
+
+
+def _num(v) -> float:
+    return float(v) if isinstance(v, int | float) and not isinstance(v, bool) else math.nan
+
+
+def budget_line(stream: str, lines: Iterable[Mapping], confidence: float = 0.95,
+                axis: str = "y", wwv: str = "vvv", minimum_points: int = 0) -> dict | None:
+    """The ``budget`` summary line of DESIGN §11 for ``stream`` (None when fewer than
+    ``minimum_points`` distinct positions)."""
+    from eddyvigil.stats.budget import TERMS, tke_budget
+
+    points, notes = traverse(lines, stream, axis)
+    if len(points) < minimum_points:
+        return None
+    position = [float(p["point"][axis]) for p in points]
+    ids = [p["point"].get("id") for p in points]
+    b = tke_budget(position, _statistics(points, axis), wwv=wwv)
+    out = {"v": 1, "kind": "budget", "stream": stream, "axis": axis, "points": ids,
+           "position": position, "confidence": confidence}
+
+    def term(t):
+        if t is None:
+            return None
+        lo, hi = t.interval(confidence)
+        return {"value": t.value.tolist(), "stderr": t.stderr.tolist(), "ci_low": lo.tolist(),
+                "ci_high": hi.tolist(), "noise_stderr": t.noise_stderr.tolist(),
+                "discretisation": t.discretisation.tolist(),
+                "limiting_point": [ids[int(i)] for i in t.limiting_point]}
+
+    for name in TERMS:
+        out[name] = term(b.terms[name])
+    out["pressure_lumley"] = term(b.pressure_lumley)
+    out["assumptions"] = list(notes) + list(b.assumptions)
+    return out
+
+
+def _fmt(v, se) -> str:
+    if v is None or not math.isfinite(v):
+        return f"{'-':>19}"
+    if se is None or not math.isfinite(se):
+        return f"{v:>9.3g} {'(no SE)':>9}"
+    return f"{v:>9.3g} ±{se:<8.2g}"
+
+
+def budget_table(line: Mapping) -> str:
+    """A text table of a budget line: one row per point, value ± SE of each term."""
+    from eddyvigil.stats.budget import TERMS
+
+    names = [t for t in TERMS if line.get(t) is not None]
+    z = 1.959963984540054 if line.get("confidence") == 0.95 else None
+    head = [f"k budget of stream {line['stream']} along {line['axis']} (m^2/s^3, value ± SE"
+            + (f"; interval value ± {z:.2f} SE)" if z else ")"),
+            f"{'point':<8}{line['axis'] + ' (m)':>10}  " + "".join(f"{n[:19]:>20}" for n in names)]
+    rows = []
+    for i, (pid, pos) in enumerate(zip(line["points"], line["position"], strict=True)):
+        cells = "".join(" " + _fmt(_none(line[n]["value"][i]), _none(line[n]["stderr"][i]))
+                        for n in names)
+        rows.append(f"{str(pid):<8}{pos:>10.4g}  {cells}")
+    missing = [t for t in TERMS if line.get(t) is None]
+    tail = []
+    if missing:
+        tail.append("not available: " + ", ".join(missing))
+    lum = line.get("pressure_lumley")
+    if lum is not None:
+        tail.append("cross-check, Lumley (1978) pressure transport = -0.4 x transport: "
+                    + ", ".join(f"{v:.3g}" for v in map(_none, lum["value"]) if v is not None))
+    tail.append("assumptions:")
+    tail += [f"  - {a}" for a in line.get("assumptions", [])]
+    return "\n".join(head + rows + tail)
+
+
+def _none(v):
+    return float(v) if isinstance(v, int | float) and math.isfinite(v) else None
+
+
+def run(args) -> int:
+    try:
+        lines = read_summary(args.summary)
+    except OSError as e:
+        return fail("budget", ExitCode.INPUT_FILE, f"cannot read {args.summary}: {e.strerror}")
+    except ValueError as e:
+        return fail("budget", ExitCode.INPUT_FILE, f"{args.summary}: {e}")
+    counts = Counter(ln.get("stream") for ln in lines if ln.get("kind") == "point")
+    if not counts:
+        return fail("budget", ExitCode.INPUT_FILE, f"{args.summary} holds no point lines")
+    stream = args.stream if args.stream is not None else counts.most_common(1)[0][0]
+    if stream not in counts:
+        return fail("budget", ExitCode.USAGE, f"no stream {stream!r} in {args.summary} "
+                    f"(streams: {', '.join(map(str, counts))})")
+    line = budget_line(stream, lines, _confidence(lines), args.axis, args.wwv)
+    from eddyvigil.monitor.summary import dumps_line
+
+    sys.stdout.write((dumps_line(line) if args.json else budget_table(line)) + "\n")
+    return int(ExitCode.OK)
+
+
+def _confidence(lines) -> float:
+    for ln in lines:
+        c = ln.get("confidence")
+        if ln.get("kind") == "point" and isinstance(c, int | float) and 0 < c < 1:
+            return float(c)
+    return 0.95

@@ -1,0 +1,350 @@
+"""Turbulent-kinetic-energy budget across a traverse, each term with a standard error.
+
+Thin shear layer, one station (Pope 2000, *Turbulent Flows*, CUP, §5/§7; REFERENCES §8)::
+
+    0 = advection + production + turbulent_transport - dissipation + residual
+    production          P = -<uv> dU/dy   (- (<uu> - <vv>) dU/dx where dU/dx is known)
+    turbulent_transport T = -d/dy [ 1/2 (<uuv> + <vvv> + <wwv>) ]
+    dissipation         eps, from an ``eps`` statistic of the points when present
+    residual            R = eps - P - T - advection: pressure transport, viscous diffusion,
+                        every unmeasured term and every error of the others.
+
+Derivatives across the traverse
+-------------------------------
+Positions may be unevenly spaced. The derivative at point ``i`` is that of the Lagrange
+parabola through three neighbouring points (``i-1, i, i+1``; one-sided ``0, 1, 2`` and
+``n-3, n-2, n-1`` at the ends). Its weights come from Fornberg (1988, "Generation of finite
+difference formulas on arbitrarily spaced grids", Math. Comp. 51:699), computed here by
+solving the small moment (Vandermonde) system, which gives the same weights; the formula is
+exact for quadratics on any grid (``tests/test_budget.py``).
+
+Two uncertainties are kept apart and then combined:
+
+* **noise**: the derivative is linear in the point values, ``D = sum_j w_j f_j``; the points
+  are independent records, so ``Var(D) = sum_j w_j^2 SE_j^2`` (REFERENCES §8, the central
+  difference case ``[Var(U+) + Var(U-)] / (2 dy)^2``). Exact for a linear estimator; a Monte
+  Carlo check is in the tests.
+* **discretisation**: the three-point formula misses the curvature of the profile between
+  points. Its error is estimated as the difference between the four-point (cubic) derivative,
+  one order more accurate, and the three-point one; the four points are the three of the
+  stencil and the next one on either side, and the larger of the two differences is kept (a
+  profile resolved by only a few points per half-width is not trusted to one side). This estimate is treated as a standard uncertainty
+  (the type-B uncertainty of JCGM 100:2008, *Guide to the expression of uncertainty in
+  measurement*, combined in quadrature with the type-A noise). It is itself noisy; with fewer
+  than four points it is not available and no interval is given.
+
+Within one point, the covariances between different statistics are not in the summary. We
+assume ``U`` and ``<uv>`` (and ``eps``) uncorrelated within a point (their correlation comes
+from third moments and is small for a mean over many integral times), but for the triple
+moments summed in the transport flux, which are strongly correlated with each other, we take
+the bound of perfect positive correlation: ``SE(a + b) <= SE(a) + SE(b)``.
+
+Products use the first-order delta method: ``Var(ab) = b^2 Var(a) + a^2 Var(b)`` (REFERENCES
+§8 check: ``<uv> = -0.01 +- 0.0005``, ``dU/dy = 50 +- 2`` give ``P = 0.5``, ``SE = 0.0320``).
+
+>>> round(production_check(-0.01, 0.0005, 50.0, 2.0)[1], 4)
+0.032
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+
+import numpy as np
+
+__all__ = [
+    "LUMLEY_PRESSURE_FACTOR",
+    "TERMS",
+    "WWV_ASSUMPTIONS",
+    "Budget",
+    "Derivative",
+    "Term",
+    "derivative",
+    "derivative_weights",
+    "k_from_two_components",
+    "log_layer_production",
+    "production_check",
+    "tke_budget",
+]
+
+#: Names of the budget terms (DESIGN §11), in table order.
+TERMS = ("production", "turbulent_transport", "dissipation", "advection", "residual")
+
+#: How ``<wwv>`` is taken when ``w`` is not measured (REFERENCES §8, common practice).
+WWV_ASSUMPTIONS = {
+    "vvv": "<wwv> taken equal to <vvv> (w not measured; common practice, REFERENCES §8)",
+    "half": "<wwv> taken as (<uuv> + <vvv>)/2 (w not measured; common practice, REFERENCES §8)",
+}
+
+#: Lumley (1978): -<p u_i>/rho = (1/5) <u_i u_k u_k>, so the pressure transport is -2/5 of
+#: the turbulent transport (REFERENCES §8; Pope 2000 §7, from memory of the original).
+LUMLEY_PRESSURE_FACTOR = -0.4
+
+
+# --------------------------------------------------------------------------- small checks
+
+
+def production_check(uv: float, se_uv: float, dudy: float, se_dudy: float) -> tuple[float, float]:
+    """``P = -uv dU/dy`` and its first-order SE for independent ``uv`` and ``dU/dy``."""
+    p = -uv * dudy
+    return p, math.hypot(dudy * se_uv, uv * se_dudy)
+
+
+def log_layer_production(u_tau: float, y: float, kappa: float = 0.41) -> float:
+    """Production in the log layer, ``u_tau^3 / (kappa y)`` (Pope 2000, §7.1).
+
+    >>> round(log_layer_production(0.5, 0.01), 2)  # REFERENCES §8 check value
+    30.49
+    """
+    return u_tau**3 / (kappa * y)
+
+
+def k_from_two_components(uu, vv, assume: str = "ww=(uu+vv)/2"):
+    """k from two measured normal stresses (REFERENCES §8).
+
+    ``assume="ww=(uu+vv)/2"``: ``k = 3/4 (uu + vv)``; ``assume="ww=vv"`` (jets and wakes):
+    ``k = 1/2 (uu + 2 vv)``.
+
+    >>> k_from_two_components(1.0, 0.5), k_from_two_components(1.0, 0.5, "ww=vv")
+    (1.125, 1.0)
+    """
+    if assume == "ww=(uu+vv)/2":
+        return 0.75 * (uu + vv)
+    if assume == "ww=vv":
+        return 0.5 * (uu + 2.0 * vv)
+    raise ValueError(f"unknown assumption {assume!r}: 'ww=(uu+vv)/2' or 'ww=vv'")
+
+
+# --------------------------------------------------------------------------- derivatives
+
+
+def derivative_weights(nodes, at: float) -> np.ndarray:
+    """Weights ``w`` with ``f'(at) ~ sum_j w_j f(nodes_j)``, exact for polynomials of degree
+    ``len(nodes) - 1`` (Fornberg 1988). Nodes must be distinct.
+
+    >>> derivative_weights([-1.0, 0.0, 1.0], 0.0).round(12).tolist()
+    [-0.5, 0.0, 0.5]
+    """
+    x = np.asarray(nodes, dtype=np.float64)
+    scale = float(np.max(np.abs(x - at))) or 1.0
+    s = (x - at) / scale
+    m = len(x)
+    # sum_j w_j s_j^p = [p == 1] for p = 0..m-1 (moments of the derivative at s = 0)
+    a = np.vander(s, m, increasing=True).T
+    rhs = np.zeros(m)
+    rhs[1] = 1.0
+    return np.linalg.solve(a, rhs) / scale
+
+
+def _stencils(n: int, i: int) -> tuple[list[int], list[list[int]]]:
+    """The three-point stencil of point ``i`` and the four-point ones (one more point on
+    either side, where it exists) for its error estimate."""
+    lo = min(max(i - 1, 0), n - 3)
+    three = [lo, lo + 1, lo + 2]
+    fours = [sorted(three + [j]) for j in (lo - 1, lo + 3) if 0 <= j < n]
+    return three, fours
+
+
+@dataclass(frozen=True)
+class Derivative:
+    """A derivative profile: value, noise SE, discretisation estimate, and the point that
+    contributes most to the noise variance at each position (index into the profile)."""
+
+    value: np.ndarray
+    noise_stderr: np.ndarray
+    discretisation: np.ndarray
+    limiting_point: np.ndarray
+
+    @property
+    def stderr(self) -> np.ndarray:
+        return np.hypot(self.noise_stderr, self.discretisation)
+
+
+def derivative(x, f, se) -> Derivative:
+    """d f / d x at every position (module docstring: scheme, noise and discretisation).
+
+    ``x`` strictly increasing, at least three points; ``se`` the standard errors of ``f``
+    (NaN where a point has none: the derivatives that use it get a NaN SE).
+    """
+    x = np.asarray(x, dtype=np.float64)
+    f = np.asarray(f, dtype=np.float64)
+    se = np.asarray(se, dtype=np.float64)
+    n = len(x)
+    if n < 3:
+        raise ValueError("a derivative across the traverse needs at least three points")
+    if not np.all(np.diff(x) > 0):
+        raise ValueError("positions must be strictly increasing")
+    value = np.empty(n)
+    noise = np.empty(n)
+    disc = np.full(n, np.nan)
+    limiting = np.zeros(n, dtype=np.int64)
+    for i in range(n):
+        three, fours = _stencils(n, i)
+        w = derivative_weights(x[three], x[i])
+        value[i] = w @ f[three]
+        contrib = (w * se[three]) ** 2
+        noise[i] = math.sqrt(contrib.sum())
+        limiting[i] = three[int(np.nanargmax(contrib))] if np.any(np.isfinite(contrib)) else i
+        if fours:
+            disc[i] = max(abs(derivative_weights(x[s], x[i]) @ f[s] - value[i]) for s in fours)
+    return Derivative(value, noise, disc, limiting)
+
+
+# --------------------------------------------------------------------------- the budget
+
+
+@dataclass(frozen=True)
+class Term:
+    """One budget term across the traverse (m^2/s^3).
+
+    ``stderr`` combines ``noise_stderr`` and ``discretisation`` in quadrature; it is NaN where
+    no honest error exists (a point without an SE, or no discretisation estimate).
+    ``limiting_point`` is the index of the point whose noise limits the term most.
+    """
+
+    value: np.ndarray
+    noise_stderr: np.ndarray
+    discretisation: np.ndarray
+    limiting_point: np.ndarray
+
+    @property
+    def stderr(self) -> np.ndarray:
+        return np.hypot(self.noise_stderr, self.discretisation)
+
+    def interval(self, confidence: float) -> tuple[np.ndarray, np.ndarray]:
+        """Normal interval ``value -+ z SE`` (NaN bounds where SE is NaN)."""
+        from scipy.stats import norm
+
+        z = float(norm.ppf(0.5 + confidence / 2))
+        se = self.stderr
+        return self.value - z * se, self.value + z * se
+
+
+@dataclass(frozen=True)
+class Budget:
+    """The k budget of one traverse; ``terms[name]`` is a :class:`Term` or None."""
+
+    position: np.ndarray
+    terms: dict
+    assumptions: tuple[str, ...]
+    pressure_lumley: Term | None = None
+    extras: dict = field(default_factory=dict)
+
+
+def _nan(n):
+    return np.full(n, np.nan)
+
+
+def _stat(stats: Mapping, name: str, n: int):
+    """(values, stderrs) of a statistic, or None when any point lacks its value."""
+    pair = stats.get(name)
+    if pair is None:
+        return None
+    v = np.asarray(pair[0], dtype=np.float64)
+    s = np.asarray(pair[1], dtype=np.float64)
+    if v.shape != (n,) or not np.all(np.isfinite(v)):
+        return None
+    return v, s
+
+
+def tke_budget(
+    position: Sequence[float],
+    stats: Mapping[str, tuple[Sequence[float], Sequence[float]]],
+    *,
+    wwv: str = "vvv",
+) -> Budget:
+    """The k budget across one traverse.
+
+    Parameters
+    ----------
+    position : strictly increasing positions (m) along the traverse axis.
+    stats : ``name -> (values, stderrs)`` per point, names of DESIGN §3 with ``u`` the
+        streamwise and ``v`` the traverse-axis component (``U``, ``uv``, ``uuv``, ``vvv``,
+        ``vww``, optional ``V``, ``k``, ``eps``). An SE may be NaN (no interval at that point).
+    wwv : how ``<wwv>`` is taken when ``vww`` is absent (:data:`WWV_ASSUMPTIONS`).
+    """
+    y = np.asarray(position, dtype=np.float64)
+    n = len(y)
+    notes: list[str] = [
+        "thin shear layer at one station (Pope 2000 §5/§7): streamwise derivatives of the "
+        "stresses neglected",
+        "points are independent records; within a point U, <uv> and eps are taken "
+        "uncorrelated, the triple moments of the flux perfectly correlated (an upper bound)",
+        "derivatives: three-point Lagrange differences on the uneven grid (Fornberg 1988); "
+        "discretisation error estimated by the four-point formula, added in quadrature",
+    ]
+    terms: dict[str, Term | None] = dict.fromkeys(TERMS)
+    if n < 3:
+        notes.append(f"only {n} point(s): derivatives need at least three, no budget yet")
+        return Budget(y, terms, tuple(notes))
+    if n < 4:
+        notes.append("three points: no discretisation estimate, so no interval for derived terms")
+
+    # production
+    mean_u, uv = _stat(stats, "U", n), _stat(stats, "uv", n)
+    if mean_u is not None and uv is not None:
+        d = derivative(y, *mean_u)
+        value = -uv[0] * d.value
+        noise = np.hypot(d.value * uv[1], uv[0] * d.noise_stderr)
+        disc = np.abs(uv[0]) * d.discretisation
+        terms["production"] = Term(value, noise, disc, d.limiting_point)
+        notes.append("production: -<uv> dU/dy; the normal-stress term -(<uu>-<vv>) dU/dx "
+                     "needs a second station and is left in the residual")
+    else:
+        notes.append("production: needs U and uv at every point")
+
+    # turbulent transport
+    uuv, vvv, vww = _stat(stats, "uuv", n), _stat(stats, "vvv", n), _stat(stats, "vww", n)
+    if uuv is not None and vvv is not None:
+        if vww is not None:
+            third, se_third = vww
+            notes.append("turbulent transport: <wwv> measured")
+        elif wwv in WWV_ASSUMPTIONS:
+            if wwv == "vvv":
+                third, se_third = vvv
+            else:
+                third = 0.5 * (uuv[0] + vvv[0])
+                se_third = 0.5 * (uuv[1] + vvv[1])
+            notes.append("turbulent transport: " + WWV_ASSUMPTIONS[wwv])
+        else:
+            raise ValueError(f"wwv must be one of {sorted(WWV_ASSUMPTIONS)}, not {wwv!r}")
+        flux = 0.5 * (uuv[0] + vvv[0] + third)
+        # perfect positive correlation within a point: SEs add (module docstring)
+        se_flux = 0.5 * (uuv[1] + vvv[1] + se_third)
+        d = derivative(y, flux, se_flux)
+        terms["turbulent_transport"] = Term(-d.value, d.noise_stderr, d.discretisation,
+                                            d.limiting_point)
+    else:
+        notes.append("turbulent transport: needs uuv and vvv at every point")
+
+    # dissipation
+    eps = _stat(stats, "eps", n)
+    if eps is not None:
+        terms["dissipation"] = Term(eps[0], eps[1], np.zeros(n), np.arange(n))
+        notes.append("dissipation: the points' eps (from their spectra)")
+    else:
+        notes.append("dissipation: no eps at every point, so no residual")
+
+    notes.append("advection: -U dk/dx - V dk/dy needs dk/dx from a second station; "
+                 "left in the residual")
+
+    # residual = eps - P - T (- advection when known): each term's errors add in quadrature
+    parts = [terms[t] for t in ("dissipation", "production", "turbulent_transport")]
+    if all(p is not None for p in parts):
+        e, p, t = parts
+        value = e.value - p.value - t.value
+        noise = np.sqrt(e.noise_stderr**2 + p.noise_stderr**2 + t.noise_stderr**2)
+        disc = np.hypot(p.discretisation, t.discretisation)
+        terms["residual"] = Term(value, noise, disc, t.limiting_point)
+        notes.append("residual = dissipation - production - transport: pressure transport, "
+                     "viscous diffusion, advection and every error of the other terms")
+
+    lumley = None
+    t = terms["turbulent_transport"]
+    if t is not None:
+        f = abs(LUMLEY_PRESSURE_FACTOR)
+        lumley = Term(LUMLEY_PRESSURE_FACTOR * t.value, f * t.noise_stderr,
+                      f * t.discretisation, t.limiting_point)
+    return Budget(y, terms, tuple(notes), lumley)
