@@ -144,6 +144,10 @@ class TerminalSummary:
         ...     "streams": ["probe-a"], "lost": 0, "rejected": {"non_finite": 2}})
         'run: 1.2M samples, 3 point(s) of 1 stream(s) (probe-a), 0 messages lost, 2 rejected'
         """
+        if line.get("kind") == "budget":  # DESIGN §11
+            return (f"budget of {line.get('stream')} along {line.get('axis')}: "
+                    f"{len(line.get('points') or [])} points (eddyvigil budget SUMMARY "
+                    "prints the table)")
         if line.get("kind") == "run":
             rejected = sum((line.get("rejected") or {}).values())
             streams = line.get("streams") or []

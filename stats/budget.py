@@ -39,8 +39,11 @@ from third moments and is small for a mean over many integral times), but for th
 moments summed in the transport flux, which are strongly correlated with each other, we take
 the bound of perfect positive correlation: ``SE(a + b) <= SE(a) + SE(b)``.
 
-Products use the first-order delta method: ``Var(ab) = b^2 Var(a) + a^2 Var(b)`` (REFERENCES
-§8 check: ``<uv> = -0.01 +- 0.0005``, ``dU/dy = 50 +- 2`` give ``P = 0.5``, ``SE = 0.0320``).
+Products of independent factors use the exact variance ``Var(ab) = b^2 Var(a) + a^2 Var(b) +
+Var(a) Var(b)`` (Goodman 1960, "On the exact variance of products", JASA 55:708); its first two
+terms are the delta method of REFERENCES §8 (check: ``<uv> = -0.01 +- 0.0005``, ``dU/dy = 50 +-
+2`` give ``P = 0.5``, ``SE = 0.0320``); the third matters where both factors cross zero (the
+centre of a wake).
 
 >>> round(production_check(-0.01, 0.0005, 50.0, 2.0)[1], 4)
 0.032
@@ -87,9 +90,13 @@ LUMLEY_PRESSURE_FACTOR = -0.4
 
 
 def production_check(uv: float, se_uv: float, dudy: float, se_dudy: float) -> tuple[float, float]:
-    """``P = -uv dU/dy`` and its first-order SE for independent ``uv`` and ``dU/dy``."""
-    p = -uv * dudy
-    return p, math.hypot(dudy * se_uv, uv * se_dudy)
+    """``P = -uv dU/dy`` and its SE for independent ``uv`` and ``dU/dy`` (Goodman 1960)."""
+    return -uv * dudy, float(_product_se(uv, se_uv, dudy, se_dudy))
+
+
+def _product_se(a, se_a, b, se_b):
+    """SE of ``a b`` for independent factors (Goodman 1960, exact)."""
+    return np.sqrt((b * se_a) ** 2 + (a * se_b) ** 2 + (se_a * se_b) ** 2)
 
 
 def log_layer_production(u_tau: float, y: float, kappa: float = 0.41) -> float:
@@ -287,7 +294,7 @@ def tke_budget(
     if mean_u is not None and uv is not None:
         d = derivative(y, *mean_u)
         value = -uv[0] * d.value
-        noise = np.hypot(d.value * uv[1], uv[0] * d.noise_stderr)
+        noise = _product_se(uv[0], uv[1], d.value, d.noise_stderr)
         disc = np.abs(uv[0]) * d.discretisation
         terms["production"] = Term(value, noise, disc, d.limiting_point)
         notes.append("production: -<uv> dU/dy; the normal-stress term -(<uu>-<vv>) dU/dx "
