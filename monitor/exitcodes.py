@@ -58,6 +58,7 @@ COMMAND_CODES = {
     "simulate": (0, 1, 2, 3, 4, 6, 8, 130),
     "demo": (0, 1, 2, 4, 5, 6, 8),
     "budget": (0, 1, 2, 4),
+    "report": (0, 1, 2, 4, 8),
 }
 
 #: Remarks shown under a command's list where a code needs its context.
