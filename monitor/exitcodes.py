@@ -59,6 +59,7 @@ COMMAND_CODES = {
     "demo": (0, 1, 2, 4, 5, 6, 8),
     "budget": (0, 1, 2, 4),
     "report": (0, 1, 2, 4, 8),
+    "plan": (0, 1, 2, 4, 8),
 }
 
 #: Remarks shown under a command's list where a code needs its context.
