@@ -110,12 +110,19 @@ def _statistics(points: list[Mapping], axis: str) -> dict:
                 table[s["name"]] = s
         per_point.append(table)
     out = {}
+    doubtful = []
     for key, name in wanted.items():
         rows = [t.get(name) for t in per_point]
         if any(r is None for r in rows):
             continue
         out[key] = ([_num(r.get("value")) for r in rows], [_num(r.get("stderr")) for r in rows])
-    return out
+        doubtful += [f"{(p.get('point') or {}).get('id')} {name} {r.get('state')}"
+                     for p, r in zip(points, rows, strict=True) if r.get("state") in DOUBTFUL]
+    return out, doubtful
+
+
+#: statistic states whose error bar the budget uses but the user should know about
+DOUBTFUL = ("warming-up", "suspect", "no-interval")
 
 
 def _num(v) -> float:
@@ -133,7 +140,11 @@ def budget_line(stream: str, lines: Iterable[Mapping], confidence: float = 0.95,
         return None
     position = [float(p["point"][axis]) for p in points]
     ids = [p["point"].get("id") for p in points]
-    b = tke_budget(position, _statistics(points, axis), wwv=wwv)
+    stats, doubtful = _statistics(points, axis)
+    b = tke_budget(position, stats, wwv=wwv)
+    if doubtful:
+        notes.append("inputs whose error bar is not yet trustworthy (state): "
+                     + ", ".join(doubtful))
     out = {"v": 1, "kind": "budget", "stream": stream, "axis": axis, "points": ids,
            "position": position, "confidence": confidence}
 
