@@ -23,7 +23,7 @@ COMMANDS = {
     "export": ("eddyvigil.monitor.export", "write recorded samples and summaries to open formats"),
     "budget": ("eddyvigil.monitor.budget_cmd", "k budget across a traverse, with uncertainty"),
     "report": ("eddyvigil.monitor.report", "one offline HTML report of a run"),
-    "plan": ("eddyvigil.monitor.plan_cmd", "share the facility time left among the remaining points"),
+    "plan": ("eddyvigil.monitor.plan_cmd", "share the facility time left among remaining points"),
 }
 
 

@@ -48,8 +48,8 @@ from collections.abc import Callable, Mapping, Sequence
 import numpy as np
 
 from eddyvigil.monitor import wire
-from eddyvigil.monitor.state import RunSnapshot, StreamView
 from eddyvigil.monitor.budget_cmd import budget_line
+from eddyvigil.monitor.state import RunSnapshot, StreamView
 from eddyvigil.monitor.summary import SummaryWriter
 
 __all__ = ["Pipeline", "PIPELINE_REJECTION_REASONS", "TRACE_ROWS", "HISTORY_ROWS"]

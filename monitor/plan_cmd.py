@@ -132,9 +132,10 @@ def plan_toml(plan: dict) -> str:
     for r in plan["points"]:
         out += ["", "[[points]]", f"id = {_q(r['id'])}", f"{axis} = {r[axis]!r}"]
         if "seconds" in r:
-            out += [f"seconds = {r['seconds']:.1f}", f"predicted_ratio = {r['predicted_ratio']:.4f}"]
-        out += [f"seconds_to_target = {r['need_s']:.1f}", f"already_measured_s = {r['done_s']:.1f}",
-                f"source = {_q(r['source'])}"]
+            out += [f"seconds = {r['seconds']:.1f}",
+                    f"predicted_ratio = {r['predicted_ratio']:.4f}"]
+        out += [f"seconds_to_target = {r['need_s']:.1f}",
+                f"already_measured_s = {r['done_s']:.1f}", f"source = {_q(r['source'])}"]
     return "\n".join(out) + "\n"
 
 

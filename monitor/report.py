@@ -68,7 +68,8 @@ def _stat(line, name):
 
 
 def _point_table(points, axis) -> str:
-    names = [n for n in ("U", "uu", "vv", "uv", "k", "uuv", "vvv") if any(_stat(p, n) for p in points)]
+    names = [n for n in ("U", "uu", "vv", "uv", "k", "uuv", "vvv")
+             if any(_stat(p, n) for p in points)]
     head = ["point", f"{axis} (m)", "samples", "duration (s)", "complete", "converged"]
     head += [f"{n} ± SE" for n in names]
     rows = []

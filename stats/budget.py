@@ -28,10 +28,13 @@ Two uncertainties are kept apart and then combined:
   points. Its error is estimated as the difference between the four-point (cubic) derivative,
   one order more accurate, and the three-point one; the four points are the three of the
   stencil and the next one on either side, and the larger of the two differences is kept (a
-  profile resolved by only a few points per half-width is not trusted to one side). This estimate is treated as a standard uncertainty
-  (the type-B uncertainty of JCGM 100:2008, *Guide to the expression of uncertainty in
-  measurement*, combined in quadrature with the type-A noise). It is itself noisy; with fewer
+  profile resolved by only a few points per half-width is not trusted to one side). This
+  estimate is treated as a standard uncertainty (the type-B uncertainty of JCGM 100:2008,
+  *Guide to the expression of uncertainty in measurement*, combined in quadrature with the
+  type-A noise). It is itself noisy; with fewer
   than four points it is not available and no interval is given.
+
+Citations of Fornberg (1988), Goodman (1960) and JCGM 100:2008 are from memory.
 
 Within one point, the covariances between different statistics are not in the summary. We
 assume ``U`` and ``<uv>`` (and ``eps``) uncorrelated within a point (their correlation comes

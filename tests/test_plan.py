@@ -40,7 +40,8 @@ def test_share_time_with_floors_and_not_enough_time():
 
 
 def _line(pid, y, hw, duration, target, tint=0.01, converged=False):
-    return {"v": 1, "kind": "point", "stream": "s", "point": {"id": pid, "x": 0.0, "y": y, "z": 0.0},
+    return {"v": 1, "kind": "point", "stream": "s",
+            "point": {"id": pid, "x": 0.0, "y": y, "z": 0.0},
             "duration_s": duration, "converged": converged, "complete": True,
             "statistics": [{"name": "U", "value": 5.0, "ci_low": 5.0 - hw, "ci_high": 5.0 + hw,
                             "target": target},

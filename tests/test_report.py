@@ -1,6 +1,6 @@
 """``eddyvigil report``: one self-contained HTML file, opened offline in headless Chromium
-(BROWSER.md setup: explicit chromedriver, SE_OFFLINE, fresh profile, plus a dead proxy so any
-request that tried to leave would fail and show up)."""
+(BROWSER.md setup: explicit chromedriver, SE_OFFLINE, fresh profile); every resource the page
+loaded is listed by the browser and must come from the file itself."""
 
 from __future__ import annotations
 
