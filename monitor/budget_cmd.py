@@ -96,12 +96,63 @@ def traverse(lines: Iterable[Mapping], stream: str, axis: str = "y"):
     return [by_pos[p] for p in sorted(by_pos)], notes
 
 
+def _latest(lines, stream) -> dict:
+    latest: dict = {}
+    for line in lines:
+        if line.get("kind") == "point" and line.get("stream") == stream:
+            pid = (line.get("point") or {}).get("id")
+            latest[pid if pid is not None else f"#{line.get('point_index')}"] = line
+    return latest
+
+
+def _coord(line, a):
+    v = (line.get("point") or {}).get(a)
+    return float(v) if isinstance(v, int | float) and math.isfinite(v) else None
+
+
+def _streamwise(lines, stream, axis, points, notes) -> dict:
+    """dU/dx and dk/dx at the main station's points from the stream's other x stations (same
+    positions along the axis, same third coordinate); {} when there is no other station."""
+    from eddyvigil.stats.budget import station_derivative
+
+    if axis == "x" or not points:
+        return {}
+    third = next(a for a in ("y", "z") if a != axis)
+    x0, c0 = _coord(points[0], "x"), _coord(points[0], third)
+    pos = [_coord(p, axis) for p in points]
+    stations: dict = {x0: {round(q, 9): p for q, p in zip(pos, points, strict=True)}}
+    for line in _latest(lines, stream).values():
+        x, q = _coord(line, "x"), _coord(line, axis)
+        if x is None or q is None or x == x0 or _coord(line, third) != c0:
+            continue
+        stations.setdefault(x, {})[round(q, 9)] = line
+    if len(stations) < 2:
+        return {}
+    xs = sorted(stations)
+    out = {}
+    for key in ("U", "k"):
+        f = [[math.nan] * len(points) for _ in xs]
+        se = [[math.nan] * len(points) for _ in xs]
+        for i, x in enumerate(xs):
+            for j, q in enumerate(pos):
+                line = stations[x].get(round(q, 9))
+                row = next((r for r in (line or {}).get("statistics") or ()
+                            if isinstance(r, Mapping) and r.get("name") == key), None)
+                if row is not None:
+                    f[i][j], se[i][j] = _num(row.get("value")), _num(row.get("stderr"))
+        out[key] = station_derivative(xs, f, se, xs.index(x0))
+    notes.append(f"streamwise derivatives from {len(xs)} stations at x = "
+                 + ", ".join(f"{x:g}" for x in xs) + " (same positions along the axis)")
+    return out
+
+
 def _statistics(points: list[Mapping], axis: str) -> dict:
     """``name -> (values, stderrs)`` under the names tke_budget expects (v = axis component)."""
     a = _COMPONENT[axis]
     o = next(c for c in "vw" if c != a) if a != "u" else "v"
-    wanted = {"U": "U", "uv": _name("u" + a), "uuv": _name("uu" + a), "vvv": a * 3,
-              "vww": _name(a + o + o), "eps": "eps"}
+    wanted = {"U": "U", "V": a.upper(), "uv": _name("u" + a), "uuv": _name("uu" + a),
+              "vvv": a * 3, "vww": _name(a + o + o), "eps": "eps", "uu": "uu", "vv": a * 2,
+              "k": "k"}
     per_point = []
     for line in points:
         table = {}
@@ -135,13 +186,15 @@ def budget_line(stream: str, lines: Iterable[Mapping], confidence: float = 0.95,
     ``minimum_points`` distinct positions)."""
     from eddyvigil.stats.budget import TERMS, tke_budget
 
+    lines = list(lines)
     points, notes = traverse(lines, stream, axis)
     if len(points) < minimum_points:
         return None
     position = [float(p["point"][axis]) for p in points]
     ids = [p["point"].get("id") for p in points]
     stats, doubtful = _statistics(points, axis)
-    b = tke_budget(position, stats, wwv=wwv)
+    b = tke_budget(position, stats, wwv=wwv,
+                   streamwise=_streamwise(lines, stream, axis, points, notes))
     if doubtful:
         notes.append("inputs whose error bar is not yet trustworthy (state): "
                      + ", ".join(doubtful))
@@ -161,7 +214,9 @@ def budget_line(stream: str, lines: Iterable[Mapping], confidence: float = 0.95,
         out[name] = term(b.terms[name])
     out["pressure_lumley"] = term(b.pressure_lumley)
     out["assumptions"] = list(notes) + list(b.assumptions)
-    return out
+    from eddyvigil.monitor.summary import json_safe
+
+    return json_safe(out)  # non-finite numbers as null, as they are written
 
 
 def _fmt(v, se) -> str:

@@ -69,6 +69,7 @@ __all__ = [
     "Term",
     "derivative",
     "derivative_weights",
+    "station_derivative",
     "k_from_two_components",
     "log_layer_production",
     "production_check",
@@ -259,11 +260,41 @@ def _stat(stats: Mapping, name: str, n: int):
     return v, s
 
 
+def station_derivative(x_stations, f, se, at: int) -> Derivative:
+    """d f / d x at station ``at`` from measurements at several streamwise stations.
+
+    ``f``, ``se``: shape ``(stations, points)``, the same traverse positions at every
+    station (NaN where a station lacks a position: the result is NaN there). Two stations
+    give the two-point difference, whose error cannot be estimated from two stations (NaN
+    discretisation: no interval); three or more, the three-point Lagrange formula as across
+    the traverse (:func:`derivative`).
+    """
+    x = np.asarray(x_stations, dtype=np.float64)
+    f = np.asarray(f, dtype=np.float64)
+    se = np.asarray(se, dtype=np.float64)
+    n_points = f.shape[1]
+    value, noise, disc = _nan(n_points), _nan(n_points), _nan(n_points)
+    limiting = np.full(n_points, -1, dtype=np.int64)  # -1: another station's point
+    for j in range(n_points):
+        if not np.all(np.isfinite(f[:, j])):
+            continue
+        if len(x) == 2:
+            dx = x[1] - x[0]
+            value[j] = (f[1, j] - f[0, j]) / dx
+            noise[j] = math.hypot(se[0, j], se[1, j]) / abs(dx)
+        else:
+            d = derivative(x, f[:, j], se[:, j])
+            value[j], noise[j], disc[j] = d.value[at], d.noise_stderr[at], d.discretisation[at]
+        limiting[j] = j
+    return Derivative(value, noise, disc, limiting)
+
+
 def tke_budget(
     position: Sequence[float],
     stats: Mapping[str, tuple[Sequence[float], Sequence[float]]],
     *,
     wwv: str = "vvv",
+    streamwise: Mapping[str, Derivative] | None = None,
 ) -> Budget:
     """The k budget across one traverse.
 
@@ -274,7 +305,11 @@ def tke_budget(
         streamwise and ``v`` the traverse-axis component (``U``, ``uv``, ``uuv``, ``vvv``,
         ``vww``, optional ``V``, ``k``, ``eps``). An SE may be NaN (no interval at that point).
     wwv : how ``<wwv>`` is taken when ``vww`` is absent (:data:`WWV_ASSUMPTIONS`).
+    streamwise : optional ``{"U": dU/dx, "k": dk/dx}`` at these points from other stations
+        (:func:`station_derivative`): they add the normal-stress production
+        ``-(<uu> - <vv>) dU/dx`` and the advection ``-(U dk/dx + V dk/dy)``.
     """
+    streamwise = dict(streamwise or {})
     y = np.asarray(position, dtype=np.float64)
     n = len(y)
     notes: list[str] = [
@@ -299,9 +334,18 @@ def tke_budget(
         value = -uv[0] * d.value
         noise = _product_se(uv[0], uv[1], d.value, d.noise_stderr)
         disc = np.abs(uv[0]) * d.discretisation
+        uu, vv, dudx = _stat(stats, "uu", n), _stat(stats, "vv", n), streamwise.get("U")
+        if uu is not None and vv is not None and dudx is not None:
+            diff, se_diff = uu[0] - vv[0], uu[1] + vv[1]  # SEs add: an upper bound
+            value = value - diff * dudx.value
+            noise = np.hypot(noise, _product_se(diff, se_diff, dudx.value, dudx.noise_stderr))
+            disc = np.hypot(disc, np.abs(diff) * dudx.discretisation)
+            notes.append("production: -<uv> dU/dy - (<uu>-<vv>) dU/dx, dU/dx from the other "
+                         "stations")
+        else:
+            notes.append("production: -<uv> dU/dy; the normal-stress term -(<uu>-<vv>) dU/dx "
+                         "needs a second station and is left in the residual")
         terms["production"] = Term(value, noise, disc, d.limiting_point)
-        notes.append("production: -<uv> dU/dy; the normal-stress term -(<uu>-<vv>) dU/dx "
-                     "needs a second station and is left in the residual")
     else:
         notes.append("production: needs U and uv at every point")
 
@@ -337,8 +381,28 @@ def tke_budget(
     else:
         notes.append("dissipation: no eps at every point, so no residual")
 
-    notes.append("advection: -U dk/dx - V dk/dy needs dk/dx from a second station; "
-                 "left in the residual")
+    k, dkdx = _stat(stats, "k", n), streamwise.get("k")
+    if k is not None and dkdx is not None and mean_u is not None:
+        value = -mean_u[0] * dkdx.value
+        noise = _product_se(mean_u[0], mean_u[1], dkdx.value, dkdx.noise_stderr)
+        disc = np.abs(mean_u[0]) * dkdx.discretisation
+        mean_v = _stat(stats, "V", n)
+        if mean_v is not None:
+            dk = derivative(y, *k)
+            value = value - mean_v[0] * dk.value
+            noise = np.hypot(noise, _product_se(mean_v[0], mean_v[1], dk.value,
+                                                dk.noise_stderr))
+            disc = np.hypot(disc, np.abs(mean_v[0]) * dk.discretisation)
+            notes.append("advection: -U dk/dx - V dk/dy, dk/dx from the other stations")
+        else:
+            notes.append("advection: -U dk/dx (V not measured, taken as 0)")
+        if np.all(np.isnan(dkdx.discretisation)):
+            notes.append("streamwise derivatives from fewer than four stations: their error "
+                         "cannot be estimated, so terms using them carry no interval")
+        terms["advection"] = Term(value, noise, disc, np.arange(n))
+    else:
+        notes.append("advection: -U dk/dx - V dk/dy needs dk/dx from a second station; "
+                     "left in the residual")
 
     # residual = eps - P - T (- advection when known): each term's errors add in quadrature
     parts = [terms[t] for t in ("dissipation", "production", "turbulent_transport")]
@@ -347,9 +411,17 @@ def tke_budget(
         value = e.value - p.value - t.value
         noise = np.sqrt(e.noise_stderr**2 + p.noise_stderr**2 + t.noise_stderr**2)
         disc = np.hypot(p.discretisation, t.discretisation)
+        a = terms["advection"]
+        if a is not None:
+            value = value - a.value
+            noise = np.hypot(noise, a.noise_stderr)
+            disc = np.hypot(disc, a.discretisation)
         terms["residual"] = Term(value, noise, disc, t.limiting_point)
-        notes.append("residual = dissipation - production - transport: pressure transport, "
-                     "viscous diffusion, advection and every error of the other terms")
+        notes.append("residual = dissipation - production - transport"
+                     + (" - advection" if a is not None else "")
+                     + ": pressure transport, viscous diffusion"
+                     + ("" if a is not None else ", advection")
+                     + " and every error of the other terms")
 
     lumley = None
     t = terms["turbulent_transport"]

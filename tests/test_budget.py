@@ -253,3 +253,46 @@ def test_pipeline_appends_a_budget_line_after_each_point_of_a_traverse():
     last = lines[-2]
     assert missing_fields(last) == [] and last["points"] == ["P0", "P1", "P2", "P3"]
     assert len(last["production"]["value"]) == 4
+
+
+def _field_lines(xs, main_x):
+    """Points on stations ``xs`` at the positions Y: U = 5 + 20 y + 3 x + 0.5 x^2 (quadratic in
+    x), k = 0.3 + x y, V = 0.1, uu - vv = 0.05; the main station has the most points."""
+    out = []
+    for x in xs:
+        ys = Y if x == main_x else Y[::2]  # other stations measure every second position
+        for i, y in enumerate(ys):
+            stats = {"U": (5 + 20 * y + 3 * x + 0.5 * x * x, 0.01), "V": (0.1, 0.005),
+                     "uv": (-0.01, 0.0005), "uu": (0.2, 0.002), "vv": (0.15, 0.002),
+                     "k": (0.3 + x * y, 0.003), "uuv": (0.0, 1e-4), "vvv": (0.0, 1e-4),
+                     "eps": (0.4, 0.01)}
+            out.append(_point_line(f"x{x}-{i}", float(y), stats, x=float(x)))
+    return out
+
+
+def test_streamwise_terms_from_other_stations():
+    """Normal-stress production -(uu - vv) dU/dx and advection -(U dk/dx + V dk/dy) (Pope
+    2000 §5) from stations at other x: exact for a quadratic in x with three stations."""
+    line = budget_line("probe-a", _field_lines([0.8, 1.0, 1.3], main_x=1.0))
+    dudx = 3 + 1.0  # d/dx (3 x + 0.5 x^2) at x = 1
+    kept = np.array([y in set(Y[::2]) for y in Y])
+    prod = np.array([np.nan if v is None else v for v in line["production"]["value"]])
+    np.testing.assert_allclose(prod[kept], 0.2 - 0.05 * dudx, atol=1e-12)
+    assert np.isnan(prod[~kept]).all()  # no other-station data there: not half a term
+    adv = np.array([np.nan if v is None else v for v in line["advection"]["value"]])
+    u = 5 + 20 * Y + 3 + 0.5
+    np.testing.assert_allclose(adv[kept], -(u * Y + 0.1 * 1.0)[kept], rtol=1e-9)
+    assert np.isnan(adv[~kept]).all()
+    # three stations: no discretisation estimate along x, so no interval (said so)
+    assert all(v is None for v in line["advection"]["ci_low"])
+    assert any("fewer than four stations" in a for a in line["assumptions"])
+    assert line["residual"] is not None
+
+
+def test_two_stations_give_the_two_point_difference():
+    line = budget_line("probe-a", _field_lines([1.0, 1.2], main_x=1.0))
+    kept = np.array([y in set(Y[::2]) for y in Y])
+    dudx = (3 * 0.2 + 0.5 * (1.44 - 1.0)) / 0.2
+    prod = np.array([np.nan if v is None else v for v in line["production"]["value"]])
+    np.testing.assert_allclose(prod[kept], 0.2 - 0.05 * dudx, rtol=1e-9)
+    assert any("2 stations" in a for a in line["assumptions"])

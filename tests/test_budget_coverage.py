@@ -67,7 +67,8 @@ def test_budget_intervals_cover_the_wake_truth(tmp_path):
                                        "stderr": 0.0})
         b = budget_line("probe-a", lines)
         for name, h in hits.items():
-            lo, hi = np.array(b[name]["ci_low"]), np.array(b[name]["ci_high"])
+            lo = np.array(b[name]["ci_low"], dtype=float)
+            hi = np.array(b[name]["ci_high"], dtype=float)
             true = np.array([t["budget"][name] for t in truth])
             h.extend(((lo <= true) & (true <= hi)).tolist())
     rates = {k: float(np.mean(v)) for k, v in hits.items()}
