@@ -36,11 +36,12 @@ def add_arguments(p) -> None:
     p.add_argument("-o", "--output", metavar="FILE", help="write the plan here (TOML)")
 
 
-def _need_s(line) -> tuple[float, float]:
-    """(time to meet every target counted from the start of the point, largest T_int)."""
-    from eddyvigil.stats.planner import seconds_to_target
+def _need_s(line) -> tuple[float, float, float, float]:
+    """(time to meet every target counted from the start of the point, its 95 % range low and
+    high, largest T_int)."""
+    from eddyvigil.stats.planner import need_range, seconds_to_target
 
-    need, tint = math.nan, math.nan
+    need, tint, blocks = math.nan, math.nan, None
     duration = line.get("duration_s")
     for s in line.get("statistics") or ():
         name = str(s.get("name", ""))
@@ -50,9 +51,10 @@ def _need_s(line) -> tuple[float, float]:
         if not all(isinstance(v, int | float) for v in (lo, hi, target, duration)):
             continue
         t = seconds_to_target((hi - lo) / 2, duration, target)
-        if math.isfinite(t):
-            need = t if math.isnan(need) else max(need, t)
-    return need, tint
+        if math.isfinite(t) and (math.isnan(need) or t > need):
+            need, blocks = t, s.get("blocks")
+    low, high = need_range(need, blocks)
+    return need, low, high, tint
 
 
 def make_plan(lines, hours: float, wanted=None, stream=None, axis="y") -> dict:
@@ -65,12 +67,13 @@ def make_plan(lines, hours: float, wanted=None, stream=None, axis="y") -> dict:
     points, _ = traverse(lines, stream, axis)
     measured = {}
     for p in points:
-        need, tint = _need_s(p)
+        need, low, high, tint = _need_s(p)
         measured[p["point"].get("id")] = {"pos": float(p["point"][axis]), "need": need,
+                                          "low": low, "high": high,
                                           "tint": tint, "done": float(p.get("duration_s") or 0),
                                           "converged": bool(p.get("converged"))}
-    known = sorted((m["pos"], m["need"], m["tint"]) for m in measured.values()
-                   if math.isfinite(m["need"]))
+    known = sorted((m["pos"], m["need"], m["tint"], m["low"], m["high"])
+                   for m in measured.values() if math.isfinite(m["need"]))
     if wanted is None:
         wanted = [{"id": pid, axis: m["pos"]} for pid, m in measured.items()
                   if not m["converged"]]
@@ -82,11 +85,17 @@ def make_plan(lines, hours: float, wanted=None, stream=None, axis="y") -> dict:
             continue
         if m is not None and math.isfinite(m["need"]):
             rows.append({"id": pid, axis: pos, "need_s": m["need"], "done_s": m["done"],
+                         "need_low_s": m["low"], "need_high_s": m["high"],
                          "tint_s": m["tint"], "source": "its own record"})
         elif known:
             xs = [k[0] for k in known]
+            # the range spans both neighbours' ranges (the profile between them is unknown)
+            right = min(int(np.searchsorted(xs, pos)), len(xs) - 1)
+            left = max(right - 1, 0) if xs[right] > pos else right
             rows.append({"id": pid, axis: pos, "need_s": float(np.interp(pos, xs,
                                                                           [k[1] for k in known])),
+                         "need_low_s": min(known[left][3], known[right][3]),
+                         "need_high_s": max(known[left][4], known[right][4]),
                          "done_s": 0.0, "tint_s": float(np.nanmax([k[2] for k in known])),
                          "source": "interpolated from measured points"})
         else:
@@ -95,7 +104,8 @@ def make_plan(lines, hours: float, wanted=None, stream=None, axis="y") -> dict:
     total = hours * 3600.0
     plan = {"hours": hours, "axis": axis, "stream": stream, "points": rows}
     if not rows:
-        plan.update(enough=True, worst_ratio=0.0, seconds_to_meet_targets=0.0)
+        plan.update(enough=True, worst_ratio=0.0, seconds_to_meet_targets=0.0,
+                    eta_range_s=[0.0, 0.0])
         return plan
     need = np.array([r["need_s"] for r in rows])
     done = np.array([r["done_s"] for r in rows])
@@ -104,6 +114,10 @@ def make_plan(lines, hours: float, wanted=None, stream=None, axis="y") -> dict:
     # a point already measured for done_s needs need - done more; the ratio depends on the total
     extra_needed = np.maximum(need - done, 0.0)
     plan["seconds_to_meet_targets"] = float(np.maximum(extra_needed, floor).sum())
+    # campaign ETA: the time to meet every target, with the range of the needs
+    plan["eta_range_s"] = [
+        float(np.maximum(np.array([r[k] for r in rows]) - done, floor).sum())
+        for k in ("need_low_s", "need_high_s")]
     try:
         # share the record lengths (done + extra) with floors of at least what is done
         totals, ratio = share_time(need, total + done.sum(), floor + done)
@@ -123,7 +137,9 @@ def plan_toml(plan: dict) -> str:
     out = ["# eddyvigil plan: time per point so the worst half-width/target ratio is smallest",
            f"hours = {plan['hours']!r}",
            f"enough = {'true' if plan['enough'] else 'false'}",
-           f"seconds_to_meet_targets = {plan['seconds_to_meet_targets']:.1f}"]
+           f"seconds_to_meet_targets = {plan['seconds_to_meet_targets']:.1f}",
+           "seconds_to_meet_targets_range = ["
+           + ", ".join(f"{v:.1f}" for v in plan["eta_range_s"]) + "]"]
     if plan.get("worst_ratio") is not None:
         out.append(f"worst_ratio = {plan['worst_ratio']:.4f}")
     if plan.get("reason"):
@@ -137,6 +153,13 @@ def plan_toml(plan: dict) -> str:
         out += [f"seconds_to_target = {r['need_s']:.1f}",
                 f"already_measured_s = {r['done_s']:.1f}", f"source = {_q(r['source'])}"]
     return "\n".join(out) + "\n"
+
+
+def _duration(seconds: float) -> str:
+    """``42 s``, ``12.5 min`` or ``3.20 h``."""
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    return f"{seconds / 60:.1f} min" if seconds < 7200 else f"{seconds / 3600:.2f} h"
 
 
 def _q(s) -> str:
@@ -196,12 +219,14 @@ def run(args) -> int:
     else:
         sys.stdout.write(text)
     if plan["enough"]:
+        lo, hi = plan["eta_range_s"]
         print(f"plan: {len(plan['points'])} point(s); worst ratio {plan['worst_ratio']:.2f} "
-              f"(targets need {plan['seconds_to_meet_targets'] / 3600:.2f} h)", file=sys.stderr)
+              f"(targets need {_duration(plan['seconds_to_meet_targets'])}, 95 % range "
+              f"{_duration(lo)} to {_duration(hi)})", file=sys.stderr)
     else:
         reach = plan.get("worst_ratio")
         print(f"plan: {args.hours} h is not enough: the targets need "
-              f"{plan['seconds_to_meet_targets'] / 3600:.2f} h; "
+              f"{_duration(plan['seconds_to_meet_targets'])}; "
               + (f"reachable: half-widths {reach:.2f} x target" if reach else plan.get("reason")),
               file=sys.stderr)
     return int(ExitCode.OK)

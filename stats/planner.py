@@ -24,7 +24,7 @@ import math
 
 import numpy as np
 
-__all__ = ["seconds_to_target", "share_time", "predicted_ratio"]
+__all__ = ["need_range", "seconds_to_target", "share_time", "predicted_ratio"]
 
 
 def seconds_to_target(half_width, duration_s, target) -> float:
@@ -38,6 +38,28 @@ def seconds_to_target(half_width, duration_s, target) -> float:
     if not (h > 0 and d > 0 and t > 0) or not all(map(math.isfinite, (h, d, t))):
         return math.nan
     return h * h * d / (t * t)
+
+
+def need_range(need_s, blocks, confidence: float = 0.95) -> tuple[float, float]:
+    """Range of a time-to-target ``need_s`` whose half-width came from ``blocks`` blocks.
+
+    The blocking variance estimate from ``B`` blocks is ``sigma^2 chi^2_{B-1} / (B - 1)``
+    (Flyvbjerg & Petersen 1989; REFERENCES §2), and ``need_s`` is proportional to it, so
+    ``need_s (B-1) / chi^2_{B-1}(1 -+ alpha/2)`` bounds the true need. Without ``blocks``
+    the range is the value itself (unknown spread, not invented).
+
+    >>> low, high = need_range(100.0, 101)
+    >>> round(low, 1), round(high, 1)
+    (77.2, 134.7)
+    """
+    need = float(need_s)
+    if not isinstance(blocks, int | float) or blocks < 3 or not math.isfinite(need):
+        return need, need
+    from scipy.stats import chi2
+
+    dof = float(blocks) - 1.0
+    a = 1.0 - confidence
+    return float(need * dof / chi2.ppf(1 - a / 2, dof)), float(need * dof / chi2.ppf(a / 2, dof))
 
 
 def predicted_ratio(need_s, seconds) -> np.ndarray:

@@ -148,3 +148,28 @@ def test_plan_run_through_the_simulator(tmp_path):
     assert abs(np.exp(np.mean(np.log(ratios))) - 1.0) < 0.15, ratios
     assert all(0.6 < r < 1.4 for r in ratios), ratios
     assert all(wins), wins
+
+
+def test_campaign_eta_range_from_the_blocking_chi_square():
+    """The time still needed, with the 95 % range of a blocking variance from B blocks
+    (Flyvbjerg & Petersen 1989: B - 1 degrees of freedom; quantiles from scipy)."""
+    from scipy.stats import chi2
+
+    from eddyvigil.stats.planner import need_range
+
+    low, high = need_range(100.0, 41)
+    assert low == pytest.approx(100.0 * 40 / chi2.ppf(0.975, 40))
+    assert high == pytest.approx(100.0 * 40 / chi2.ppf(0.025, 40))
+    assert need_range(100.0, None) == (100.0, 100.0)
+    a = _line("A", 0.0, 0.2, 10.0, 0.1)  # needs 40 s, has 10
+    b = _line("B", 0.02, 0.2, 10.0, 0.05)  # needs 160 s, has 10
+    for line in (a, b):
+        line["statistics"][0]["blocks"] = 41
+    plan = make_plan([a, b], 1.0, [{"id": "A", "y": 0.0}, {"id": "B", "y": 0.02},
+                                   {"id": "C", "y": 0.01}], "s")
+    assert plan["seconds_to_meet_targets"] == pytest.approx(30.0 + 150.0 + 100.0)
+    lo, hi = plan["eta_range_s"]
+    # C's range spans both neighbours' ranges
+    assert lo == pytest.approx(40 * low / 100 - 10 + 160 * low / 100 - 10 + 40 * low / 100)
+    assert hi == pytest.approx(40 * high / 100 - 10 + 160 * high / 100 - 10 + 160 * high / 100)
+    assert "seconds_to_meet_targets_range" in tomllib.loads(plan_toml(plan))
