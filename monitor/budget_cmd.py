@@ -65,18 +65,11 @@ def traverse(lines: Iterable[Mapping], stream: str, axis: str = "y"):
     The latest line of a point id wins; points without a position on the axis, or at another
     station (other coordinates), or repeating a position are left out and named in the notes.
     """
-    latest: dict = {}
-    for line in lines:
-        if line.get("kind") != "point" or line.get("stream") != stream:
-            continue
-        pid = (line.get("point") or {}).get("id")
-        latest[pid if pid is not None else f"#{line.get('point_index')}"] = line
+    latest = _latest(lines, stream)
     notes = []
     others = [a for a in AXES if a != axis]
 
-    def coord(line, a):
-        v = (line.get("point") or {}).get(a)
-        return float(v) if isinstance(v, int | float) and math.isfinite(v) else None
+    coord = _coord
 
     placed = [ln for ln in latest.values() if coord(ln, axis) is not None]
     if len(placed) < len(latest):
@@ -89,8 +82,8 @@ def traverse(lines: Iterable[Mapping], stream: str, axis: str = "y"):
         notes.append(f"{len(placed) - len(kept)} point(s) at another station left out "
                      f"(kept {others[0]}={station[0]}, {others[1]}={station[1]})")
     by_pos: dict = {}
-    for ln in kept:  # later lines win a repeated position
-        by_pos[coord(ln, axis)] = ln
+    for ln in kept:  # later lines win a repeated position (within a nanometre)
+        by_pos[round(coord(ln, axis), 9)] = ln
     if len(by_pos) < len(kept):
         notes.append(f"{len(kept) - len(by_pos)} repeated position(s): the later point kept")
     return [by_pos[p] for p in sorted(by_pos)], notes
@@ -99,15 +92,19 @@ def traverse(lines: Iterable[Mapping], stream: str, axis: str = "y"):
 def _latest(lines, stream) -> dict:
     latest: dict = {}
     for line in lines:
-        if line.get("kind") == "point" and line.get("stream") == stream:
-            pid = (line.get("point") or {}).get("id")
+        if isinstance(line, Mapping) and line.get("kind") == "point" \
+                and line.get("stream") == stream:
+            point = line.get("point")
+            pid = point.get("id") if isinstance(point, Mapping) else None
             latest[pid if pid is not None else f"#{line.get('point_index')}"] = line
     return latest
 
 
 def _coord(line, a):
-    v = (line.get("point") or {}).get(a)
-    return float(v) if isinstance(v, int | float) and math.isfinite(v) else None
+    point = line.get("point")
+    v = point.get(a) if isinstance(point, Mapping) else None
+    ok = isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v)
+    return float(v) if ok else None
 
 
 def _streamwise(lines, stream, axis, points, notes) -> dict:
@@ -162,13 +159,19 @@ def _statistics(points: list[Mapping], axis: str) -> dict:
         per_point.append(table)
     out = {}
     doubtful = []
+    missing = []
     for key, name in wanted.items():
-        rows = [t.get(name) for t in per_point]
-        if any(r is None for r in rows):
+        rows = [t.get(name) or {} for t in per_point]
+        values = [_num(r.get("value")) for r in rows]
+        if all(math.isnan(v) for v in values):
             continue
-        out[key] = ([_num(r.get("value")) for r in rows], [_num(r.get("stderr")) for r in rows])
-        doubtful += [f"{(p.get('point') or {}).get('id')} {name} {r.get('state')}"
-                     for p, r in zip(points, rows, strict=True) if r.get("state") in DOUBTFUL]
+        out[key] = (values, [_num(r.get("stderr")) for r in rows])
+        ids = [p["point"].get("id") for p in points]
+        missing += [f"{i} {name}" for i, v in zip(ids, values, strict=True) if math.isnan(v)]
+        doubtful += [f"{i} {name} {r.get('state')}"
+                     for i, r in zip(ids, rows, strict=True) if r.get("state") in DOUBTFUL]
+    if missing:
+        doubtful.append("no value (terms using them are null): " + ", ".join(missing))
     return out, doubtful
 
 
@@ -184,7 +187,9 @@ def budget_line(stream: str, lines: Iterable[Mapping], confidence: float = 0.95,
                 axis: str = "y", wwv: str = "vvv", minimum_points: int = 0) -> dict | None:
     """The ``budget`` summary line of DESIGN §11 for ``stream`` (None when fewer than
     ``minimum_points`` distinct positions)."""
-    from eddyvigil.stats.budget import TERMS, tke_budget
+    import numpy as np
+
+    from eddyvigil.stats.budget import TERMS, Budget, tke_budget
 
     lines = list(lines)
     points, notes = traverse(lines, stream, axis)
@@ -193,11 +198,15 @@ def budget_line(stream: str, lines: Iterable[Mapping], confidence: float = 0.95,
     position = [float(p["point"][axis]) for p in points]
     ids = [p["point"].get("id") for p in points]
     stats, doubtful = _statistics(points, axis)
-    b = tke_budget(position, stats, wwv=wwv,
-                   streamwise=_streamwise(lines, stream, axis, points, notes))
+    try:
+        with np.errstate(all="ignore"):  # non-finite inputs give null terms, said below
+            b = tke_budget(position, stats, wwv=wwv,
+                           streamwise=_streamwise(lines, stream, axis, points, notes))
+    except (ValueError, ArithmeticError, np.linalg.LinAlgError) as e:
+        # e.g. positions a rounding error apart: no budget rather than a crashed monitor
+        b = Budget(np.asarray(position), dict.fromkeys(TERMS), (f"budget not computed: {e}",))
     if doubtful:
-        notes.append("inputs whose error bar is not yet trustworthy (state): "
-                     + ", ".join(doubtful))
+        notes.append("inputs to check (state): " + ", ".join(doubtful))
     out = {"v": 1, "kind": "budget", "stream": stream, "axis": axis, "points": ids,
            "position": position, "confidence": confidence}
 

@@ -199,7 +199,9 @@ def derivative(x, f, se) -> Derivative:
         noise[i] = math.sqrt(contrib.sum())
         limiting[i] = three[int(np.nanargmax(contrib))] if np.any(np.isfinite(contrib)) else i
         if fours:
-            disc[i] = max(abs(derivative_weights(x[s], x[i]) @ f[s] - value[i]) for s in fours)
+            # np.max, not max(): a NaN (a point without a value) must give NaN
+            disc[i] = np.max([abs(derivative_weights(x[s], x[i]) @ f[s] - value[i])
+                              for s in fours])
     return Derivative(value, noise, disc, limiting)
 
 
@@ -249,13 +251,14 @@ def _nan(n):
 
 
 def _stat(stats: Mapping, name: str, n: int):
-    """(values, stderrs) of a statistic, or None when any point lacks its value."""
+    """(values, stderrs) of a statistic, or None when no point has its value. A point without
+    one has NaN: the terms whose stencils use that point are NaN, the others stand."""
     pair = stats.get(name)
     if pair is None:
         return None
     v = np.asarray(pair[0], dtype=np.float64)
     s = np.asarray(pair[1], dtype=np.float64)
-    if v.shape != (n,) or not np.all(np.isfinite(v)):
+    if v.shape != (n,) or s.shape != (n,) or not np.any(np.isfinite(v)):
         return None
     return v, s
 
@@ -347,7 +350,7 @@ def tke_budget(
                          "needs a second station and is left in the residual")
         terms["production"] = Term(value, noise, disc, d.limiting_point)
     else:
-        notes.append("production: needs U and uv at every point")
+        notes.append("production: needs U and uv")
 
     # turbulent transport
     uuv, vvv, vww = _stat(stats, "uuv", n), _stat(stats, "vvv", n), _stat(stats, "vww", n)
@@ -371,7 +374,7 @@ def tke_budget(
         terms["turbulent_transport"] = Term(-d.value, d.noise_stderr, d.discretisation,
                                             d.limiting_point)
     else:
-        notes.append("turbulent transport: needs uuv and vvv at every point")
+        notes.append("turbulent transport: needs uuv and vvv")
 
     # dissipation
     eps = _stat(stats, "eps", n)
@@ -379,7 +382,7 @@ def tke_budget(
         terms["dissipation"] = Term(eps[0], eps[1], np.zeros(n), np.arange(n))
         notes.append("dissipation: the points' eps (from their spectra)")
     else:
-        notes.append("dissipation: no eps at every point, so no residual")
+        notes.append("dissipation: the points carry no eps, so no residual")
 
     k, dkdx = _stat(stats, "k", n), streamwise.get("k")
     if k is not None and dkdx is not None and mean_u is not None:

@@ -296,3 +296,22 @@ def test_two_stations_give_the_two_point_difference():
     prod = np.array([np.nan if v is None else v for v in line["production"]["value"]])
     np.testing.assert_allclose(prod[kept], 0.2 - 0.05 * dudx, rtol=1e-9)
     assert any("2 stations" in a for a in line["assumptions"])
+
+
+def test_malformed_summary_lines_never_crash_the_budget(tmp_path, capsys):
+    """Bad input is reported, not raised: odd fields, missing statistics, positions a
+    rounding error apart, non-numeric values."""
+    lines = _lines()
+    lines[0]["statistics"] = "not a list"
+    lines[1]["statistics"][0]["value"] = "fast"
+    lines[2]["point"]["y"] = True
+    lines[3]["statistics"][1]["stderr"] = None
+    lines.append({"kind": "point", "stream": "probe-a", "point": None})
+    lines.append(_point_line("Z", float(Y[-1]) * (1 + 1e-15), {"U": (1.0, 0.1)}))
+    lines.append(["not", "an", "object"])
+    path = tmp_path / "odd.jsonl"
+    path.write_text("".join(json.dumps(x) + "\n" for x in lines), encoding="utf-8")
+    assert cli.main(["budget", str(path), "--json"]) == 0
+    line = json.loads(capsys.readouterr().out)
+    assert missing_fields(line) == []
+    json.dumps(line, allow_nan=False)
