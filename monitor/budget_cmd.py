@@ -36,6 +36,11 @@ def add_arguments(p) -> None:
     p.add_argument("--wwv", choices=("vvv", "half"), default="vvv",
                    help="when w is not measured: <wwv> = <vvv> (default) or (<uuv>+<vvv>)/2")
     p.add_argument("--json", action="store_true", help="print the budget line as JSON")
+    p.add_argument("--target", action="append", default=[], metavar="TERM=TOL",
+                   help="derive per-point tolerances on the statistics feeding TERM "
+                   "(production or turbulent_transport) so its half-width is TOL: a number "
+                   "in m^2/s^3, or a percentage of the term's largest magnitude across the "
+                   "traverse (e.g. production=10%%); repeatable")
 
 
 def read_summary(path) -> list[dict]:
@@ -285,7 +290,73 @@ def run(args) -> int:
     from eddyvigil.monitor.summary import dumps_line
 
     sys.stdout.write((dumps_line(line) if args.json else budget_table(line)) + "\n")
+    for spec in args.target:
+        try:
+            text = tolerance_table(lines, stream, args.axis, spec, line)
+        except ValueError as e:
+            return fail("budget", ExitCode.USAGE, f"--target {spec}: {e}")
+        sys.stdout.write(text + "\n")
     return int(ExitCode.OK)
+
+
+def tolerance_table(lines, stream, axis, spec: str, line) -> str:
+    """Per-point tolerances derived from ``--target TERM=TOL`` (stats.budget.derived_tolerances)
+    beside each statistic's present half-width and the time it needs at that rate."""
+    import numpy as np
+
+    from eddyvigil.stats.budget import derived_tolerances
+    from eddyvigil.stats.planner import seconds_to_target
+
+    term, _, tol = spec.partition("=")
+    if term not in ("production", "turbulent_transport") or not tol:
+        raise ValueError("say production=TOL or turbulent_transport=TOL")
+    if line.get(term) is None:
+        raise ValueError(f"the summary gives no {term}")
+    values = np.array([np.nan if v is None else v for v in line[term]["value"]])
+    try:
+        h = (float(tol[:-1]) / 100 * np.nanmax(np.abs(values)) if tol.endswith("%")
+             else float(tol))
+    except ValueError:
+        raise ValueError(f"{tol!r} is not a number or a percentage") from None
+    if not (math.isfinite(h) and h > 0):
+        raise ValueError("the tolerance must be positive")
+    points, _ = traverse(lines, stream, axis)
+    stats, _ = _statistics(points, axis)
+    position = [float(p["point"][axis]) for p in points]
+    with np.errstate(all="ignore"):
+        tolerances, unreachable = derived_tolerances(position, stats, term, h,
+                                                     float(line.get("confidence", 0.95)))
+    a = _COMPONENT[axis]
+    o = next(c for c in "vw" if c != a) if a != "u" else "v"
+    real = {"U": "U", "uv": _name("u" + a), "uuv": _name("uu" + a), "vvv": a * 3,
+            "vww": _name(a + o + o)}
+    out = [f"{term} within ±{h:.3g} m^2/s^3 at every point needs, per point, half-widths "
+           "(present -> needed; 'met', or the record length that meets it at the present "
+           "rate; '-' where no tolerance follows):"]
+    for key, tol_arr in tolerances.items():
+        name = real[key]
+        cells = []
+        for p, t in zip(points, tol_arr, strict=True):
+            row = next((r for r in p.get("statistics") or ()
+                        if isinstance(r, Mapping) and r.get("name") == name), {})
+            lo, hi = _num(row.get("ci_low")), _num(row.get("ci_high"))
+            hw = (hi - lo) / 2
+            need = seconds_to_target(hw, _num(p.get("duration_s")), t)
+            pid = p["point"].get("id")
+            if not math.isfinite(t):
+                cells.append(f"{pid}: -")
+            elif hw <= t:
+                cells.append(f"{pid}: {hw:.2g} -> {t:.2g} met")
+            else:
+                cells.append(f"{pid}: {hw:.2g} -> {t:.2g}"
+                             + (f" ({need:.0f} s in all)" if math.isfinite(need) else ""))
+        out.append(f"  {name}: " + "; ".join(cells))
+    if np.any(unreachable):
+        ids = [p["point"].get("id") for p, u in zip(points, unreachable, strict=True) if u]
+        out.append("  not reachable by time at " + ", ".join(map(str, ids)) + ": the "
+                   "discretisation estimate alone exceeds the tolerance (measure more points "
+                   "there)")
+    return "\n".join(out)
 
 
 def _confidence(lines) -> float:

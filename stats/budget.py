@@ -69,6 +69,7 @@ __all__ = [
     "Term",
     "derivative",
     "derivative_weights",
+    "derived_tolerances",
     "station_derivative",
     "k_from_two_components",
     "log_layer_production",
@@ -433,3 +434,71 @@ def tke_budget(
         lumley = Term(LUMLEY_PRESSURE_FACTOR * t.value, f * t.noise_stderr,
                       f * t.discretisation, t.limiting_point)
     return Budget(y, terms, tuple(notes), lumley)
+
+
+# --------------------------------------------------------------------------- term tolerances
+
+
+def derived_tolerances(position, stats, term: str, half_width, confidence: float = 0.95):
+    """Per-point half-widths on the statistics feeding ``term`` that give ``term`` an interval
+    of half-width ``half_width`` (scalar or per point, m^2/s^3) at every point.
+
+    The noise budget at point ``i`` is what the discretisation estimate leaves,
+    ``(H/z)^2 - disc_i^2`` (nothing: time cannot help there, more points can), shared
+    equally among the contributions (first-order variance of :func:`tke_budget`):
+
+    * production ``-<uv>_i D_i``: half to ``<uv>_i`` (``|D_i| SE <= s/sqrt(2)``), half to the
+      three ``U_j`` of the stencil (``|<uv>_i w_ij| SE_j <= s/sqrt(6)``);
+    * turbulent transport ``-sum_j w_ij F_j``: a third to each flux ``F_j`` of the stencil,
+      and ``SE(F) = (SE(uuv) + SE(vvv) + SE(vww))/2`` split equally (each ``<= 2 SE(F)/3``).
+
+    A statistic in several stencils takes the smallest tolerance. Returns ``(tolerances,
+    unreachable)``: ``{name: half-widths per point}`` (NaN where no tolerance follows) and a
+    boolean mask of the points where the discretisation estimate alone exceeds ``H/z``.
+    """
+    from scipy.stats import norm
+
+    z = float(norm.ppf(0.5 + confidence / 2))
+    y = np.asarray(position, dtype=np.float64)
+    n = len(y)
+    b = tke_budget(y, stats)
+    t = b.terms.get(term)
+    if term not in ("production", "turbulent_transport") or t is None:
+        raise ValueError(f"no tolerances for {term!r} from these statistics")
+    h = np.broadcast_to(np.asarray(half_width, dtype=np.float64), (n,))
+    disc = np.nan_to_num(t.discretisation, nan=0.0)
+    room = (h / z) ** 2 - disc**2
+    unreachable = room <= 0
+    s = np.sqrt(np.where(unreachable, np.nan, room))  # noise SE allowed at each point
+    weights = []
+    for i in range(n):
+        idx = _stencils(n, i)[0]
+        w = derivative_weights(y[idx], y[i])
+        w[np.abs(w) < 1e-9 * np.abs(w).max()] = 0.0  # a centre weight that is 0 up to rounding
+        weights.append((idx, w))
+    out: dict[str, np.ndarray] = {}
+    if term == "production":
+        mean_u, uv = _stat(stats, "U", n), _stat(stats, "uv", n)
+        d = derivative(y, *mean_u)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out["uv"] = z * s / (np.sqrt(2.0) * np.abs(d.value))
+            tol_u = np.full(n, np.inf)
+            for i, (idx, w) in enumerate(weights):
+                for j, wj in zip(idx, w, strict=True):
+                    tol_u[j] = min(tol_u[j], z * s[i] / (np.sqrt(6.0) * abs(uv[0][i] * wj)))
+    else:
+        tol_u = None
+        tol_f = np.full(n, np.inf)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            for i, (idx, w) in enumerate(weights):
+                for j, wj in zip(idx, w, strict=True):
+                    tol_f[j] = min(tol_f[j], z * s[i] / (np.sqrt(3.0) * abs(wj)))
+        each = 2.0 * tol_f / 3.0
+        for name in ("uuv", "vvv", "vww"):
+            if name in stats:
+                out[name] = each.copy()
+    if tol_u is not None:
+        out["U"] = tol_u
+    for k, v in out.items():
+        out[k] = np.where(np.isfinite(v), v, np.nan)
+    return out, unreachable

@@ -315,3 +315,54 @@ def test_malformed_summary_lines_never_crash_the_budget(tmp_path, capsys):
     line = json.loads(capsys.readouterr().out)
     assert missing_fields(line) == []
     json.dumps(line, allow_nan=False)
+
+
+@pytest.mark.parametrize("term", ["production", "turbulent_transport"])
+def test_derived_tolerances_give_the_term_its_half_width(term):
+    """Statistics drawn with SE = derived tolerance / z give the term a Monte Carlo spread
+    within H / z at every point (5 % tolerance), and the binding point sits at H / z:
+    the tolerances are neither loose nor wasteful (seeded draws against the propagation
+    formula of stats/budget.py)."""
+    from eddyvigil.stats.budget import derived_tolerances
+
+    z = 1.959963984540054
+    H = 0.05
+    # quadratic profiles: the discretisation estimate is zero, all of H goes to noise
+    U = 8.0 + 30.0 * Y + 200.0 * Y**2
+    uv = -0.02 - 0.5 * Y
+    flux = 0.01 + 0.2 * Y + 3.0 * Y**2
+    stats = {"U": (U, np.full(Y.size, 0.01)), "uv": (uv, np.full(Y.size, 0.001)),
+             "uuv": (flux / 3, np.full(Y.size, 1e-4)), "vvv": (flux / 3, np.full(Y.size, 1e-4)),
+             "vww": (flux / 3, np.full(Y.size, 1e-4))}
+    tol, unreachable = derived_tolerances(Y, stats, term, H)
+    assert not unreachable.any()
+    rng = np.random.default_rng(21)
+    n = 20_000
+    weights = np.array([derivative(Y, e, np.zeros(Y.size)).value for e in np.eye(Y.size)]).T
+    if term == "production":
+        du = U + tol["U"] / z * rng.standard_normal((n, Y.size))
+        duv = uv + tol["uv"] / z * rng.standard_normal((n, Y.size))
+        spread = (-duv * (du @ weights.T)).std(axis=0)
+    else:
+        # the three triple moments perfectly correlated (the bound the budget assumes)
+        e = rng.standard_normal((n, Y.size))
+        f = 1.5 * (flux / 3 + tol["uuv"] / z * e)
+        spread = (f @ weights.T).std(axis=0)
+    assert np.all(spread <= 1.05 * H / z), spread * z / H
+    assert spread.max() >= 0.9 * H / z, spread * z / H
+
+
+def test_budget_target_option(tmp_path, capsys):
+    path = tmp_path / "summary.jsonl"
+    lines = _lines()
+    for x in lines:
+        for s in x["statistics"]:
+            half = 1.96 * s["stderr"]
+            s["ci_low"], s["ci_high"] = s["value"] - half, s["value"] + half
+        x["duration_s"] = 10.0
+    path.write_text("".join(json.dumps(x) + "\n" for x in lines), encoding="utf-8")
+    assert cli.main(["budget", str(path), "--target", "production=10%"]) == 0
+    out = capsys.readouterr().out
+    assert "production within ±0.02 m^2/s^3" in out and "  uv: P0:" in out
+    assert cli.main(["budget", str(path), "--target", "dissipation=1"]) == 2
+    assert cli.main(["budget", str(path), "--target", "production=abc"]) == 2
