@@ -109,9 +109,14 @@ def _budget_table(line) -> str:
     names = [t for t in TERMS if line.get(t) is not None]
     rows = []
     for i, (pid, pos) in enumerate(zip(line["points"], line["position"], strict=True)):
+        limits = ", ".join(f"{n.split('_')[-1]}: {line[n]['limiting_point'][i]}"
+                           for n in ("production", "turbulent_transport")
+                           if line.get(n) is not None)
         rows.append([pid, _num(pos)] + [
-            f"{_num(line[n]['value'][i], 3)} ± {_num(line[n]['stderr'][i], 2)}" for n in names])
-    return _table(["point", f"{line['axis']} (m)"] + [f"{n} (m²/s³)" for n in names], rows)
+            f"{_num(line[n]['value'][i], 3)} ± {_num(line[n]['stderr'][i], 2)}" for n in names]
+            + [limits])
+    return _table(["point", f"{line['axis']} (m)"] + [f"{n} (m²/s³)" for n in names]
+                  + ["noise mostly from point"], rows)
 
 
 def report_html(lines, axis: str = "y", source: str = "") -> str:

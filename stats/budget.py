@@ -37,10 +37,11 @@ Two uncertainties are kept apart and then combined:
 Citations of Fornberg (1988), Goodman (1960) and JCGM 100:2008 are from memory.
 
 Within one point, the covariances between different statistics are not in the summary. We
-assume ``U`` and ``<uv>`` (and ``eps``) uncorrelated within a point (their correlation comes
-from third moments and is small for a mean over many integral times), but for the triple
-moments summed in the transport flux, which are strongly correlated with each other, we take
-the bound of perfect positive correlation: ``SE(a + b) <= SE(a) + SE(b)``.
+assume ``U``, ``<uv>``, ``eps`` and the transport flux uncorrelated within a point, so the
+errors of different terms add in quadrature in the residual (an assumption, not a bound: the
+coverage test on the plane wake is its check). For the triple moments summed in the
+transport flux, which are strongly correlated with each other, we take the bound of perfect
+positive correlation: ``SE(a + b) <= SE(a) + SE(b)``.
 
 Products of independent factors use the exact variance ``Var(ab) = b^2 Var(a) + a^2 Var(b) +
 Var(a) Var(b)`` (Goodman 1960, "On the exact variance of products", JASA 55:708); its first two
@@ -215,7 +216,8 @@ class Term:
 
     ``stderr`` combines ``noise_stderr`` and ``discretisation`` in quadrature; it is NaN where
     no honest error exists (a point without an SE, or no discretisation estimate).
-    ``limiting_point`` is the index of the point whose noise limits the term most.
+    ``limiting_point`` is the index of the point contributing most to the noise of the
+    term's derivative across the traverse (dU/dy for production, the flux's for transport).
     """
 
     value: np.ndarray
@@ -319,8 +321,9 @@ def tke_budget(
     notes: list[str] = [
         "thin shear layer at one station (Pope 2000 §5/§7): streamwise derivatives of the "
         "stresses neglected",
-        "points are independent records; within a point U, <uv> and eps are taken "
-        "uncorrelated, the triple moments of the flux perfectly correlated (an upper bound)",
+        "points are independent records; within a point U, <uv>, eps and the transport flux "
+        "are taken uncorrelated, the triple moments in the flux perfectly correlated (an "
+        "upper bound)",
         "derivatives: three-point Lagrange differences on the uneven grid (Fornberg 1988); "
         "discretisation error estimated by the four-point formula, added in quadrature",
     ]
