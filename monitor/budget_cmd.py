@@ -1,4 +1,4 @@
-"""``eddyvigil budget SUMMARY``: the k budget across a traverse, with uncertainty (DESIGN §11).
+"""The k budget across a traverse, with uncertainty, from a summary file (DESIGN §11).
 
 Reads the ``point`` lines of a summary file, keeps one stream's points at one station (the
 coordinates off the traverse axis that most points share), orders them along the axis and

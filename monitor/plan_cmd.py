@@ -1,4 +1,4 @@
-"""``eddyvigil plan SUMMARY --hours H [--points FILE]``: share the facility time left.
+"""Share the facility time left among the points still to measure (a TOML plan).
 
 The points still to measure are the points of ``--points`` (a TOML file of ``[[points]]``
 tables with ``id`` and a position, e.g. ``y``) that the summary does not hold converged, or,

@@ -1,4 +1,4 @@
-"""``eddyvigil report SUMMARY -o FILE.html``: one self-contained HTML report of a run.
+"""One self-contained HTML report of a run, from its summary file (opens offline).
 
 Profiles across each stream's traverse with their intervals, the k budget (as ``eddyvigil
 budget``), spectra and signal quality where the points carry them, the per-point table, the
