@@ -26,6 +26,7 @@ from bokeh.models import (
 from bokeh.plotting import figure
 
 from eddyvigil.monitor.dashboard import views
+from eddyvigil.monitor.dashboard.budget_panel import BudgetPanel
 from eddyvigil.monitor.state import RunSnapshot
 
 __all__ = ["build_document", "TICK_MS", "TRACE_ROLLOVER", "HISTORY_ROLLOVER"]
@@ -140,6 +141,7 @@ class _Page:
                 ("samples", "samples"), ("duration", "duration"), ("converged", "converged"),
                 ("lost", "lost msgs"), ("U", "U ± hw"), ("k", "k ± hw"))])
 
+        self.budget = BudgetPanel(**_PLOT)  # k budget across the traverse (issue 15)
         doc.title = title
         doc.add_root(column(
             row(self.header, self.select),
@@ -148,6 +150,7 @@ class _Page:
             row(self.trace, self.halfwidth, sizing_mode="stretch_width"),
             row(self.running_mean, self.running_stresses, sizing_mode="stretch_width"),
             row(self.profile_mean, self.profile_stresses, sizing_mode="stretch_width"),
+            self.budget.figure,
             self.finished,
             name="root", sizing_mode="stretch_width"))
 
@@ -223,6 +226,7 @@ class _Page:
             self.profile_source.data = profile
             self.finished_source.data = views.finished_columns(view)
         self.current_source.data = views.current_profile_columns(view, axis)
+        self.budget.update(view, axis)
 
     def _update_trace(self, view, reset: bool) -> None:
         cols = views.trace_columns(view)
