@@ -19,7 +19,7 @@ import tomllib
 
 from eddyvigil.monitor.exitcodes import ExitCode, epilog, fail
 
-__all__ = ["add_arguments", "run", "make_plan", "plan_toml"]
+__all__ = ["add_arguments", "run", "make_plan", "plan_toml", "read_plan_seconds"]
 
 EPILOG = epilog("plan")
 
@@ -160,6 +160,25 @@ def _duration(seconds: float) -> str:
     if seconds < 120:
         return f"{seconds:.0f} s"
     return f"{seconds / 60:.1f} min" if seconds < 7200 else f"{seconds / 3600:.2f} h"
+
+
+def read_plan_seconds(path) -> dict[str, float]:
+    """Point id -> record length (s) of a plan file: ``already_measured_s + seconds`` (a
+    simulation starts each point anew). Raises OSError, or ValueError with the reason."""
+    with open(path, "rb") as f:
+        try:
+            d = tomllib.load(f)
+        except tomllib.TOMLDecodeError as e:
+            raise ValueError(f"not valid TOML ({e})") from None
+    out = {}
+    for i, p in enumerate(d.get("points") or ()):
+        if not isinstance(p, dict) or "id" not in p:
+            raise ValueError(f"[[points]] #{i + 1} has no id")
+        total = p.get("seconds", 0.0) + p.get("already_measured_s", 0.0)
+        if not isinstance(total, int | float) or not math.isfinite(total) or total <= 0:
+            raise ValueError(f"[[points]] #{i + 1}: seconds must be numbers adding up to > 0")
+        out[str(p["id"])] = float(total)
+    return out
 
 
 def _q(s) -> str:

@@ -173,3 +173,54 @@ def test_campaign_eta_range_from_the_blocking_chi_square():
     assert lo == pytest.approx(40 * low / 100 - 10 + 160 * low / 100 - 10 + 40 * low / 100)
     assert hi == pytest.approx(40 * high / 100 - 10 + 160 * high / 100 - 10 + 160 * high / 100)
     assert "seconds_to_meet_targets_range" in tomllib.loads(plan_toml(plan))
+
+
+def test_simulate_follows_a_plan(tmp_path):
+    """`eddyvigil simulate --plan`: each named point lasts already_measured_s + seconds,
+    the others keep --point-seconds (a real publisher process on loopback, bounded waits)."""
+    import subprocess
+    import sys
+
+    import zmq
+
+    from eddyvigil.monitor import wire
+
+    (tmp_path / "c.toml").write_text(CAMPAIGN, encoding="utf-8")
+    plan = tmp_path / "plan.toml"
+    plan.write_text('[[points]]\nid = "A"\ny = 0.0\nseconds = 0.5\nalready_measured_s = 0.25\n'
+                    '[[points]]\nid = "C"\ny = 0.02\nseconds = 1.5\n', encoding="utf-8")
+    ctx = zmq.Context()
+    pull = ctx.socket(zmq.PULL)
+    pull.setsockopt(zmq.LINGER, 0)
+    port = pull.bind_to_random_port("tcp://127.0.0.1")
+    proc = subprocess.Popen([sys.executable, "-m", "eddyvigil.simulator.cli", "--quiet",
+                             "--connect", f"tcp://127.0.0.1:{port}", "--socket", "push",
+                             "--speed", "max", "--scenario", str(tmp_path / "c.toml"),
+                             "--point-seconds", "1.0", "--plan", str(plan)],
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    rows: dict = {}
+    current = None
+    try:
+        for _ in range(5000):  # bounded in count and (poll) time
+            if not pull.poll(30_000):
+                break
+            msg = wire.decode(pull.recv_multipart())
+            if isinstance(msg, wire.PointMessage):
+                current = msg.point["id"]
+            elif isinstance(msg, wire.SamplesMessage):
+                rows[current] = rows.get(current, 0) + msg.velocity.shape[0]
+            elif isinstance(msg, wire.EndMessage):
+                break
+    finally:
+        pull.close(linger=0)
+        ctx.term()
+        try:
+            proc.communicate(timeout=30)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.communicate(timeout=10)
+    assert proc.returncode == 0
+    assert rows == {"A": 1500, "B": 2000, "C": 3000}  # 2000 Hz x (0.75, 1.0, 1.5) s
+    bad = tmp_path / "bad.toml"
+    bad.write_text("[[points]]\nseconds = 1\n", encoding="utf-8")
+    assert cli.main(["simulate", "--connect", "tcp://127.0.0.1:1", "--plan", str(bad)]) == 4
