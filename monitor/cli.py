@@ -22,6 +22,9 @@ COMMANDS = {
     "replay": ("eddyvigil.monitor.replay", "feed a recording through the same path as live data"),
     "export": ("eddyvigil.monitor.export", "write recorded samples and summaries to open formats"),
     "combine": ("eddyvigil.monitor.combine", "merge repeats of a point (states, recordings)"),
+    "budget": ("eddyvigil.monitor.budget_cmd", "k budget across a traverse, with uncertainty"),
+    "report": ("eddyvigil.monitor.report", "one offline HTML report of a run"),
+    "plan": ("eddyvigil.monitor.plan_cmd", "share the facility time left among remaining points"),
 }
 
 

@@ -61,6 +61,9 @@ COMMAND_CODES = {
     "simulate": (0, 1, 2, 3, 4, 6, 8, 130),
     "demo": (0, 1, 2, 4, 5, 6, 8),
     "combine": (0, 1, 2, 4, 7, 8, 9),
+    "budget": (0, 1, 2, 4),
+    "report": (0, 1, 2, 4, 8),
+    "plan": (0, 1, 2, 4, 8),
 }
 
 #: Remarks shown under a command's list where a code needs its context.

@@ -137,6 +137,26 @@ class TerminalSummary:
         self._stream.flush()
 
     @staticmethod
+    def _budget(line: dict) -> str:
+        """The budget line as a sentence: its largest production with SE.
+
+        >>> TerminalSummary._budget({"stream": "a", "axis": "y", "points": ["P1", "P2", "P3"],
+        ...     "production": {"value": [0.1, 1.5, None], "stderr": [0.01, 0.2, None]}})
+        'budget of a along y, 3 points: largest production 1.5 ± 0.2 m²/s³ at P2'
+        """
+        head = f"budget of {line.get('stream')} along {line.get('axis')}, " \
+               f"{len(line.get('points') or [])} points: "
+        prod = line.get("production") or {}
+        rows = [(abs(v), v, se, pid) for v, se, pid in
+                zip(prod.get("value") or [], prod.get("stderr") or [], line.get("points") or [],
+                    strict=False) if isinstance(v, int | float)]
+        if not rows:
+            return head + "no production yet"
+        _, v, se, pid = max(rows, key=lambda r: r[0])
+        err = f" ± {se:.2g}" if isinstance(se, int | float) else " (no interval)"
+        return head + f"largest production {v:.3g}{err} m²/s³ at {pid}"
+
+    @staticmethod
     def describe(line: dict) -> str:
         """One sentence for a ``point`` or ``run`` summary line.
 
@@ -144,6 +164,8 @@ class TerminalSummary:
         ...     "streams": ["probe-a"], "lost": 0, "rejected": {"non_finite": 2}})
         'run: 1.2M samples, 3 point(s) of 1 stream(s) (probe-a), 0 messages lost, 2 rejected'
         """
+        if line.get("kind") == "budget":  # DESIGN §11
+            return TerminalSummary._budget(line)
         if line.get("kind") == "run":
             rejected = sum((line.get("rejected") or {}).values())
             streams = line.get("streams") or []

@@ -49,6 +49,7 @@ import numpy as np
 
 from eddyvigil.monitor import wire
 from eddyvigil.monitor.rate import ReceiveRate
+from eddyvigil.monitor.budget_cmd import budget_line
 from eddyvigil.monitor.state import RunSnapshot, StreamView
 from eddyvigil.monitor.summary import SummaryWriter
 
@@ -568,6 +569,11 @@ class Pipeline:
         self._writer.write(line)
         st.finished.append(line)
         st.last_history = run.history
+        # DESIGN §11: the stream's k budget so far, once three positions make a traverse
+        budget = budget_line(st.name, st.finished, float(self.targets.confidence),
+                             minimum_points=3)
+        if budget is not None:
+            self._writer.write(budget)
         st.point = None
         self._points_finished += 1
         self._maybe_publish(force=True)

@@ -15,6 +15,7 @@ from collections.abc import Iterable, Mapping
 from typing import IO, Any
 
 __all__ = [
+    "BUDGET_FIELDS",
     "POINT_FIELDS",
     "POINT_SIGNAL_FIELDS",
     "RUN_FIELDS",
@@ -62,6 +63,9 @@ STATISTIC_FIELDS = (
     "converged",
     "eta_s",
 )
+#: Fields of a ``budget`` line (DESIGN §11; a term is null where the traverse cannot give it).
+BUDGET_FIELDS = ("v", "kind", "stream", "axis", "points", "position", "production",
+                 "turbulent_transport", "dissipation", "advection", "residual", "assumptions")
 #: Fields of the closing ``run`` line.
 RUN_FIELDS = ("v", "kind", "samples", "messages", "lost", "rejected", "points", "streams")
 
@@ -108,6 +112,8 @@ def missing_fields(line: Mapping) -> list[str]:
         return missing
     if kind == "run":
         return [f for f in RUN_FIELDS if f not in line]
+    if kind == "budget":  # DESIGN §11
+        return [f for f in BUDGET_FIELDS if f not in line]
     return ["kind"]
 
 

@@ -112,6 +112,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="time per point, the cap with --follow-control (default: the scenario's)",
     )
     parser.add_argument(
+        "--plan", metavar="PLAN.toml",
+        help="record length per point from `eddyvigil plan` (already measured + planned "
+        "seconds; points the plan does not name keep --point-seconds)",
+    )
+    parser.add_argument(
         "--truth", metavar="FILE", help="write the truth of every point to FILE (JSON)"
     )
     parser.add_argument(
@@ -143,6 +148,14 @@ def run(args: argparse.Namespace) -> int:
         scenario = load_scenario(args.scenario).with_rate(args.rate)
     except ScenarioError as e:
         return _fail(ExitCode.INPUT_FILE, str(e))
+    plan_seconds = None
+    if getattr(args, "plan", None):
+        from eddyvigil.monitor.plan_cmd import read_plan_seconds
+
+        try:
+            plan_seconds = read_plan_seconds(args.plan)
+        except (OSError, ValueError) as e:
+            return _fail(ExitCode.INPUT_FILE, f"--plan {args.plan}: {e}")
     endpoint = args.bind or args.connect
     try:
         check_endpoint(endpoint, bind=args.bind is not None)
@@ -165,6 +178,7 @@ def run(args: argparse.Namespace) -> int:
         seed=args.seed,
         block=args.block,
         point_seconds=args.point_seconds,
+        plan_seconds=plan_seconds,
         follow_control=args.follow_control,
         truth_path=args.truth,
         settle_s=max(0.0, args.settle),

@@ -47,6 +47,7 @@ class PublisherOptions:
     seed: int = 0
     block: int | None = None
     point_seconds: float | None = None
+    plan_seconds: dict | None = None  # point id -> record length (s), from `eddyvigil plan`
     follow_control: str | None = None
     truth_path: str | None = None
     settle_s: float = 0.3
@@ -229,7 +230,8 @@ class Publisher:
                 break
             gen = sc.make_generator(point, int(seeds[i][0]))
             turb = gen.generator if isinstance(gen, RandomSampler) else gen
-            max_rows = int(math.ceil(self.point_seconds * rps))
+            seconds = (self.opt.plan_seconds or {}).get(point.id, self.point_seconds)
+            max_rows = int(math.ceil(seconds * rps))
             faults = SampleFaults(
                 sc.point_faults(point),
                 rps,

@@ -33,6 +33,7 @@ from bokeh.plotting import figure
 from eddyvigil.monitor.dashboard import views
 from eddyvigil.monitor.dashboard.quality_view import QualityPanel
 from eddyvigil.monitor.dashboard.spectrum import SpectrumPanel
+from eddyvigil.monitor.dashboard.budget_panel import BudgetPanel
 from eddyvigil.monitor.state import RunSnapshot
 
 __all__ = ["build_document", "TICK_MS", "TRACE_ROLLOVER", "HISTORY_ROLLOVER"]
@@ -174,6 +175,7 @@ class _Page:
         self.spectrum = SpectrumPanel()
         self.note = Div(name="style_note", text=f'<div style="font-size:12px;color:#444">'
                                                 f"{views.STYLE_NOTE}</div>")
+        self.budget = BudgetPanel(**_PLOT)  # k budget across the traverse (issue 15)
         doc.title = title
         doc.add_root(column(
             row(self.header, self.select),
@@ -185,6 +187,7 @@ class _Page:
             row(self.running_mean, self.running_stresses, sizing_mode="stretch_width"),
             row(self.profile_mean, self.profile_stresses, sizing_mode="stretch_width"),
             self.spectrum.layout,
+            self.budget.figure,
             self.finished,
             name="root", sizing_mode="stretch_width"))
 
@@ -271,6 +274,7 @@ class _Page:
             self.finished_source.data = views.finished_columns(view)
         self.current_source.data = views.current_profile_columns(view, axis)
         self.spectrum.update(view)
+        self.budget.update(view, axis)
 
     def _update_trace(self, view, reset: bool) -> None:
         cols = views.trace_columns(view)
