@@ -15,7 +15,7 @@ def _view(finished):
     return StreamView(stream="probe-a", session="s1", point={"id": "next", "y": 0.1},
                       point_index=len(finished), stats=None, trace={}, history={},
                       finished=tuple(finished), converged_wall_age_s=None, rate_hz=1000.0,
-                      ingest_rate_hz=1000.0, messages=1, lost_messages=0, gaps=0, restarts=0,
+                      received_rate_hz=1000.0, messages=1, lost_messages=0, gaps=0, restarts=0,
                       rejected={})
 
 
