@@ -56,7 +56,7 @@ class LevelChoice:
 
 
 #: false-alarm rate of the slow-content (rise) test, shared among the levels tested
-SLOW_ALPHA = 0.02
+SLOW_ALPHA = 0.01
 
 
 @lru_cache(maxsize=65536)

@@ -346,12 +346,7 @@ class PointStatistics:
             block_s = block_samples[i] * T / n
             need = max(need_user, (MIN_RECORD_TINTS * t_i) if ok_t else 0.0)
             need = max(need, (MIN_BLOCKS * MIN_BLOCK_TINTS * t_i) if ok_t else 0.0)
-            long_enough.append(
-                ok_t
-                and T >= need_user
-                and T >= MIN_RECORD_TINTS * t_i
-                and block_s >= MIN_BLOCK_TINTS * t_i
-            )
+            long_enough.append(ok_t and T >= need and block_s >= MIN_BLOCK_TINTS * t_i)
             min_total.append(need)
             reason = None
             if slow_samples[i] > 0:
