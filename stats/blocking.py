@@ -92,13 +92,16 @@ def _chi2_99_table(K: int) -> np.ndarray:
 
 
 @numba.njit(cache=True, error_model="numpy")
-def _jonsson_lugsail(c0, gamma, n, q, fq, base, var, level, blocks, block_samples, rel, top, slow):
+def _jonsson_lugsail(
+    c0, gamma, n, q, fq, min_level, base, var, level, blocks, block_samples, rel, top, slow
+):
     """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level),
     and the rise test of the levels above j (``top``: the largest significant V_k, else NaN;
     ``slow``: the highest level k with a significant rise, else -1).
 
     ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2); ``fq[j, k]`` is
-    the critical ratio V_k / V_j of the rise test.
+    the critical ratio V_k / V_j of the rise test; ``min_level`` (S,) the lowest level each row
+    may use (blocks long enough against the integral time; above K - 1: unknown).
     """
     S = c0.shape[0]
     K = q.shape[0]
@@ -117,7 +120,9 @@ def _jonsson_lugsail(c0, gamma, n, q, fq, base, var, level, blocks, block_sample
             if acc < q[jj]:
                 first_ok = jj
         j = min(max(first_ok, 1), K - 1)  # never level 0 alone
-        nj, nm = n[j], n[j - 1]
+        if min_level[s] > j:
+            j = min_level[s]
+        nj, nm = (n[j], n[j - 1]) if j < K else (0.0, 0.0)
         if first_ok < 0 or not (nj >= 2 and nm >= 2):
             var[s], level[s], blocks[s], block_samples[s], rel[s] = np.nan, -1, 0, 0, np.nan
             continue
@@ -147,13 +152,20 @@ def _jonsson_lugsail(c0, gamma, n, q, fq, base, var, level, blocks, block_sample
                     top[s] = vk
 
 
-def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) -> LevelChoice:
+def choose_level(
+    c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int, min_level=None
+) -> LevelChoice:
     """Jonsson's choice with the lugsail correction, for each row of ``c0``/``gamma`` (S, L).
 
     ``n`` (L,) is the number of blocks per level. Level 0 is never used on its own: the lugsail
     combination needs the level below, and it costs only a factor 2 in block count. Level j is
     the first whose M_j = sum_{k >= j} n_k (gamma_k / c0_k)^2 is below the chi2(K - j) 0.99
-    quantile, over the K levels with at least MIN_BLOCKS_PER_LEVEL blocks.
+    quantile, over the K levels with at least MIN_BLOCKS_PER_LEVEL blocks. ``min_level`` (S,)
+    raises the choice where blocks must be longer (the point's minimum block length in
+    integral times); a row whose minimum is above the top usable level has no estimate yet.
+
+    A rise of the curve above the chosen level is tested too (``top_variance``,
+    ``slow_block_samples``; see _rise_table).
     """
     S, L = c0.shape
     usable = np.flatnonzero(n >= MIN_BLOCKS_PER_LEVEL)
@@ -173,6 +185,9 @@ def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) ->
         np.ascontiguousarray(n, dtype=np.float64),
         _chi2_99_table(K),
         _rise_table(n, K),
+        np.zeros(S, dtype=np.int64)
+        if min_level is None
+        else np.ascontiguousarray(min_level, dtype=np.int64),
         int(base),
         var,
         level,
@@ -388,13 +403,14 @@ class BlockingAccumulator:
         self.seg_fill = 0
         self.seg_cur = np.zeros(self.m)
 
-    def analyse(self, grad: np.ndarray) -> LevelChoice:
-        """Blocking analysis of the series ``grad @ y`` for each row of ``grad`` (S, D)."""
+    def analyse(self, grad: np.ndarray, min_level=None) -> LevelChoice:
+        """Blocking analysis of the series ``grad @ y`` for each row of ``grad`` (S, D);
+        ``min_level``: see choose_level."""
         L = int(np.count_nonzero(self.count))
         n = self.count[:L].astype(np.float64)
         S = grad.shape[0]
         if L == 0:
-            return choose_level(np.zeros((S, 0)), np.zeros((S, 0)), n, self.base)
+            return choose_level(np.zeros((S, 0)), np.zeros((S, 0)), n, self.base, min_level)
         mu = self.S[0] / self.count[0]  # global means of the monomials (all base blocks)
         c0 = np.empty((S, L))
         gamma = np.empty((S, L))
@@ -410,4 +426,4 @@ class BlockingAccumulator:
             c0,
             gamma,
         )
-        return choose_level(c0, gamma, n, self.base)
+        return choose_level(c0, gamma, n, self.base, min_level)

@@ -57,7 +57,7 @@ ETA_CALIBRATION = 1.1
 #: its error bar counts as trustworthy (REFERENCES §11's safe rule)
 MIN_RECORD_TINTS = 100
 #: length of each block at the chosen blocking level, in the same integral times
-MIN_BLOCK_TINTS = 2
+MIN_BLOCK_TINTS = 4
 #: blocks needed before an ETA is offered at all (the SE is then known to about +-30 %)
 ETA_MIN_BLOCKS = 16
 

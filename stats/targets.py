@@ -27,8 +27,8 @@ needs about 1100 T_int. Statistics that are not named are still reported, untarg
 
 Three optional settings guard the verdict (REFERENCES §11, §12): ``min_record_s`` (no statistic
 is converged before this much record, seconds), ``slowest_period_s`` (the slowest period of
-the facility, e.g. a pump or the speed control hunting; a verdict then needs PERIODS_NEEDED = 20
-of them) and ``accept_modelled_k = true`` (give k measured with fewer than three components an
+the facility's unsteadiness, e.g. a pump or the speed control hunting; it is then treated as
+the longest integral time present: blocks of at least 4 and a record of at least 100 of it) and ``accept_modelled_k = true`` (give k measured with fewer than three components an
 interval; by default such a k is reported without one, as it rests on an isotropy model).
 
 A file replaces the default list as a whole: its ``[targets]`` table is the complete list of
@@ -154,8 +154,6 @@ _UNITS = {
 
 _TOP_KEYS = ("confidence", "targets", "min_record_s", "slowest_period_s", "accept_modelled_k")
 
-#: a stated slowest facility period asks for a record of this many periods before any verdict
-PERIODS_NEEDED = 20
 _TARGET_KEYS = ("relative", "absolute")
 
 
@@ -265,8 +263,9 @@ class Targets:
     targets: Mapping[str, Target] = field(default_factory=dict)
     #: no verdict before this much record (seconds); None: no minimum of the user's
     min_record_s: float | None = None
-    #: the slowest period of the facility (pump, speed control...), seconds; a verdict then
-    #: needs PERIODS_NEEDED of them
+    #: the slowest period (or correlation time) of the facility's unsteadiness (pump, speed
+    #: control hunting...), seconds: it counts as an integral time that every statistic's
+    #: minimum record and block length must respect (convergence.MIN_RECORD_TINTS, _BLOCK_)
     slowest_period_s: float | None = None
     #: give k from fewer than three components an interval (it rests on an isotropy model)
     accept_modelled_k: bool = False
@@ -274,12 +273,7 @@ class Targets:
     @property
     def required_record_s(self) -> float:
         """The least record, in seconds, that the user's settings ask for before a verdict."""
-        need = 0.0
-        if self.min_record_s is not None:
-            need = self.min_record_s
-        if self.slowest_period_s is not None:
-            need = max(need, PERIODS_NEEDED * self.slowest_period_s)
-        return need
+        return 0.0 if self.min_record_s is None else self.min_record_s
 
     def __post_init__(self):
         c = self.confidence
