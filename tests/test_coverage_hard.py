@@ -77,7 +77,9 @@ def test_heavy_tails_withhold_or_cover(kind):
         coverage = hit[n] / shown[n] if shown[n] else 1.0
         assert coverage >= 0.90 or withheld >= 0.90, (kind, n, coverage, withheld)
     for n in ("U", "uu"):
-        assert shown[n] == REPS, (kind, n, shown[n])  # their moments exist: never withheld
+        # their moments exist (2nd, 4th < 5): an interval in nearly every record, and it covers
+        assert shown[n] >= 0.95 * REPS, (kind, n, shown[n])
+        assert hit[n] / shown[n] >= 0.92, (kind, n, hit[n] / shown[n])
 
 
 def test_short_records_at_long_integral_times():
