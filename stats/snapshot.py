@@ -114,8 +114,9 @@ class PointSnapshot:
         return tuple(e for e in self.estimates if e.target is not None)
 
     def slowest(self) -> Estimate | None:
-        """The targeted statistic furthest from its target (largest ETA; unknown ETA first)."""
-        open_ = [e for e in self.targeted() if not e.converged]
+        """The targeted statistic furthest from its target (largest ETA; unknown ETA first);
+        rows without an honest interval do not count (the point's verdict does not wait)."""
+        open_ = [e for e in self.targeted() if not e.converged and e.state != "no-interval"]
         if not open_:
             return None
         return max(open_, key=lambda e: math.inf if e.eta_s is None else e.eta_s)

@@ -87,7 +87,7 @@ def test_short_records_at_long_integral_times():
     # a few tens of T_int would meet: the minimum record (100 T_int) and block length (4 T_int,
     # 64 blocks) must keep the stops honest (REFERENCES §11 safe rule).
     rho = np.exp(-1 / 2000)
-    targets = Targets.from_dict({"targets": {"U": {"absolute": 0.2}, "uu": {"relative": 0.3}}})
+    targets = Targets.from_dict({"targets": {"U": {"absolute": 0.3}, "uu": {"relative": 0.3}}})
     truth = {"U": 1.0, "uu": 1.0}
     runs = []
     for r in range(REPS):

@@ -86,6 +86,8 @@ def test_modelled_k_has_no_interval_unless_accepted():
     assert k.state == "no-interval" and math.isnan(k.ci_low) and k.to_json()["ci_low"] is None
     assert "no honest interval" in k.reason and "vv" in k.reason
     assert k.value == pytest.approx(0.75 * (STRESS[0, 0] + STRESS[1, 1]), rel=0.05)
+    assert k.target is not None and k.converged is False
+    assert snap.slowest() is None or snap.slowest().name != "k"  # the verdict does not wait
     opted = Targets.from_dict({"accept_modelled_k": True})
     snap = feed(PointStatistics(("u", "v"), 1000.0, targets=opted), x).snapshot()
     assert math.isfinite(snap.estimate("k").ci_low)
