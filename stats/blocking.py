@@ -20,6 +20,7 @@ from functools import lru_cache
 
 import numba
 import numpy as np
+from scipy import special
 from scipy import stats as sps
 
 from eddyvigil.stats.delta import influence_autocovariances
@@ -54,6 +55,38 @@ class LevelChoice:
     blocks: np.ndarray  # number of blocks at the chosen level
     block_samples: np.ndarray  # samples per block at the chosen level
     relative_error: np.ndarray  # relative standard error of sqrt(variance)
+    #: largest variance of a level above the chosen one that rose significantly (NaN: none)
+    top_variance: np.ndarray | None = None
+    #: samples per block at the highest level that rose significantly (0: none)
+    slow_block_samples: np.ndarray | None = None
+
+
+#: false-alarm rate of the slow-content (rise) test, shared among the levels tested
+SLOW_ALPHA = 0.01
+
+
+@lru_cache(maxsize=65536)
+def _rise_ratio(df_k: int, df_j: int, tests: int) -> float:
+    """Critical V_k / V_j: F(df_k, df_j) quantile at 1 - SLOW_ALPHA / tests (Bonferroni)."""
+    return float(special.fdtri(df_k, df_j, 1.0 - SLOW_ALPHA / tests))
+
+
+def _rise_table(n: np.ndarray, K: int) -> np.ndarray:
+    """fq[j, k] for levels j < k < K: the rise test of level k against the chosen level j.
+
+    With b blocks a level's variance estimate has b - 1 degrees of freedom (a chi-squared
+    variable on a plateau, Flyvbjerg & Petersen 1989), so V_k / V_j is F(n_k - 1, n_j - 1)
+    distributed while the curve is flat (treating the two as independent: V_j rests on many
+    more blocks); REFERENCES §12.
+    """
+    fq = np.full((K, K), np.inf)
+    nn = [int(x) for x in n[:K]]
+    for j in range(1, K):
+        tests = K - 1 - j
+        for k in range(j + 1, K):
+            if nn[k] >= 2 and nn[j] >= 2:
+                fq[j, k] = _rise_ratio(nn[k] - 1, nn[j] - 1, tests)
+    return fq
 
 
 @lru_cache(maxsize=64)
@@ -65,15 +98,23 @@ def _chi2_99_table(K: int) -> np.ndarray:
 
 
 @numba.njit(cache=True, error_model="numpy")
-def _jonsson_lugsail(c0, gamma, n, q, base, var, level, blocks, block_samples, rel):
-    """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level).
+def _jonsson_lugsail(
+    c0, gamma, n, q, fq, min_level, base, var, level, blocks, block_samples, rel, top, slow
+):
+    """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level),
+    and the rise test of the levels above j (``top``: the largest significant V_k, else NaN;
+    ``slow``: the highest level k with a significant rise, else -1).
 
-    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2).
+    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2); ``fq[j, k]`` is
+    the critical ratio V_k / V_j of the rise test; ``min_level`` (S,) the lowest level each row
+    may use (blocks long enough against the integral time; above K - 1: unknown).
     """
     S = c0.shape[0]
     K = q.shape[0]
     r2 = np.empty(K)
     for s in range(S):
+        top[s] = np.nan
+        slow[s] = -1
         for jj in range(K):
             r = n[jj] * (gamma[s, jj] / c0[s, jj]) ** 2
             r2[jj] = r if np.isfinite(r) else np.inf
@@ -85,7 +126,9 @@ def _jonsson_lugsail(c0, gamma, n, q, base, var, level, blocks, block_samples, r
             if acc < q[jj]:
                 first_ok = jj
         j = min(max(first_ok, 1), K - 1)  # never level 0 alone
-        nj, nm = n[j], n[j - 1]
+        if min_level[s] > j:
+            j = min_level[s]
+        nj, nm = (n[j], n[j - 1]) if j < K else (0.0, 0.0)
         if first_ok < 0 or not (nj >= 2 and nm >= 2):
             var[s], level[s], blocks[s], block_samples[s], rel[s] = np.nan, -1, 0, 0, np.nan
             continue
@@ -106,15 +149,29 @@ def _jonsson_lugsail(c0, gamma, n, q, base, var, level, blocks, block_samples, r
         # = 5/n for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
         # the standard error's relative error is half of its square root.
         rel[s] = 0.5 * np.sqrt(5.0 / max(nj - 1, 1.0))
+        # slow content: a level above j whose variance is significantly above the plateau
+        for kk in range(j + 1, K):
+            vk = c0[s, kk] / (n[kk] - 1)
+            if v > 0.0 and vk > fq[j, kk] * v:
+                slow[s] = kk
+                if not (vk <= top[s]):
+                    top[s] = vk
 
 
-def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) -> LevelChoice:
+def choose_level(
+    c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int, min_level=None
+) -> LevelChoice:
     """Jonsson's choice with the lugsail correction, for each row of ``c0``/``gamma`` (S, L).
 
     ``n`` (L,) is the number of blocks per level. Level 0 is never used on its own: the lugsail
     combination needs the level below, and it costs only a factor 2 in block count. Level j is
     the first whose M_j = sum_{k >= j} n_k (gamma_k / c0_k)^2 is below the chi2(K - j) 0.99
-    quantile, over the K levels with at least MIN_BLOCKS_PER_LEVEL blocks.
+    quantile, over the K levels with at least MIN_BLOCKS_PER_LEVEL blocks. ``min_level`` (S,)
+    raises the choice where blocks must be longer (the point's minimum block length in
+    integral times); a row whose minimum is above the top usable level has no estimate yet.
+
+    A rise of the curve above the chosen level is tested too (``top_variance``,
+    ``slow_block_samples``; see _rise_table).
     """
     S, L = c0.shape
     usable = np.flatnonzero(n >= MIN_BLOCKS_PER_LEVEL)
@@ -123,22 +180,31 @@ def choose_level(c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int) ->
     blocks = np.zeros(S, dtype=np.int64)
     block_samples = np.zeros(S, dtype=np.int64)
     rel = np.full(S, np.nan)
+    top = np.full(S, np.nan)
+    slow = np.full(S, -1, dtype=np.int64)
     if usable.size < 2:
-        return LevelChoice(var, level, blocks, block_samples, rel)
+        return LevelChoice(var, level, blocks, block_samples, rel, top, np.zeros(S, np.int64))
     K = int(usable[-1]) + 1
     _jonsson_lugsail(
         np.ascontiguousarray(c0, dtype=np.float64),
         np.ascontiguousarray(gamma, dtype=np.float64),
         np.ascontiguousarray(n, dtype=np.float64),
         _chi2_99_table(K),
+        _rise_table(n, K),
+        np.zeros(S, dtype=np.int64)
+        if min_level is None
+        else np.ascontiguousarray(min_level, dtype=np.int64),
         int(base),
         var,
         level,
         blocks,
         block_samples,
         rel,
+        top,
+        slow,
     )
-    return LevelChoice(var, level, blocks, block_samples, rel)
+    slow_samples = np.where(slow >= 0, int(base) * 2 ** np.maximum(slow, 0), 0)
+    return LevelChoice(var, level, blocks, block_samples, rel, top, slow_samples)
 
 
 @dataclass(frozen=True)
@@ -509,10 +575,11 @@ class BlockingAccumulator:
             gamma += (zm[:, None] * ze - seams[None, :] * zm[:, None] ** 2) / n[None, :]
         return c0, gamma, n
 
-    def analyse(self, grad: np.ndarray) -> LevelChoice:
-        """Blocking analysis of the series ``grad @ y`` for each row of ``grad`` (S, D)."""
+    def analyse(self, grad: np.ndarray, min_level=None) -> LevelChoice:
+        """Blocking analysis of the series ``grad @ y`` for each row of ``grad`` (S, D);
+        ``min_level``: see choose_level."""
         c0, gamma, n = self._autocovariances(grad)
-        return choose_level(c0, gamma, n, self.base)
+        return choose_level(c0, gamma, n, self.base, min_level)
 
     def snapshot(self) -> BlockingSnapshot:
         """The blocking curve and level choice of each component mean (read-only arrays)."""

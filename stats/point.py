@@ -17,17 +17,21 @@ from scipy import special
 
 from eddyvigil.stats.blocking import BlockingAccumulator
 from eddyvigil.stats.convergence import (
-    MAX_SE_RELATIVE_ERROR,
+    MIN_BLOCK_TINTS,
     MIN_BLOCKS,
+    MIN_RECORD_TINTS,
+    STOP_MARGIN,
     Checkpoints,
     eta_seconds,
     passes,
+    trustworthy,
 )
-from eddyvigil.stats.delta import K_METHODS, StatisticTable
+from eddyvigil.stats.delta import StatisticTable
 from eddyvigil.stats.moments import MomentAccumulator
-from eddyvigil.stats.names import components_of, statistic_names
+from eddyvigil.stats.names import components_of, family, statistic_names
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 from eddyvigil.stats.stationarity import assess_columns
+from eddyvigil.stats.tails import TAIL_MARGIN, TailAccumulator, needed_order
 from eddyvigil.stats.targets import Targets
 
 __all__ = ["PointStatistics", "DEFAULT_BASE_BLOCK"]
@@ -36,13 +40,50 @@ __all__ = ["PointStatistics", "DEFAULT_BASE_BLOCK"]
 DEFAULT_BASE_BLOCK = 64
 
 
+def k_method(columns) -> str:
+    """How k is formed from the components present, naming the assumption it rests on.
+
+    >>> k_method(("u", "w"))
+    'k = 3/4 (uu + ww): two components, assuming vv = (uu + ww)/2 (common practice)'
+    """
+    cols = tuple(columns)
+    if len(cols) >= 3:
+        return "k = (" + " + ".join(c + c for c in cols) + ")/2"
+    if len(cols) == 2:
+        a, b = cols
+        missing = [c for c in "uvw" if c not in cols]
+        other = missing[0] if len(missing) == 1 else "the third component"
+        other = other + other if len(missing) == 1 else other + "'s variance"
+        return (
+            f"k = 3/4 ({a}{a} + {b}{b}): two components, assuming {other} = "
+            f"({a}{a} + {b}{b})/2 (common practice)"
+        )
+    (a,) = cols
+    return f"k = 3/2 {a}{a}: one component, assuming isotropy (common practice)"
+
+
+#: reported half-width = INTERVAL_INFLATION x t x stderr: estimated errors at the moment a
+#: sequential rule stops are still a little low (REFERENCES §11 inflates by 1.1 for the same
+#: reason); without it the stops covered 0.935-0.955 per statistic (bench_stopping.py)
+INTERVAL_INFLATION = 1.05
+
+#: degrees of freedom of the lugsail variance per block: its relative variance is 5/(n - 1)
+#: where a plain blocking variance has 2/(n - 1) (blocking.choose_level), so by
+#: Satterthwaite's rule (Satterthwaite 1946, Biometrics Bull. 2:110, from memory) it carries
+#: 2 (n - 1) / 5 degrees of freedom, not n - 1
+LUGSAIL_DOF = 0.4
+
+
 @lru_cache(maxsize=4096)
 def _t_quantile(p: float, blocks: int) -> float:
-    return float(special.stdtrit(blocks - 1, p)) if blocks >= 2 else math.nan
+    if blocks < 2:
+        return math.nan
+    return float(special.stdtrit(LUGSAIL_DOF * (blocks - 1), p))
 
 
 def _t_quantiles(p: float, blocks: np.ndarray) -> np.ndarray:
-    """Student t quantile ``p`` on ``blocks - 1`` degrees of freedom, NaN below 2 blocks.
+    """Student t quantile ``p`` on ``LUGSAIL_DOF (blocks - 1)`` degrees of freedom, NaN below
+    2 blocks.
 
     ``scipy.special.stdtrit`` is the function under ``scipy.stats.t.ppf`` (same values). The
     statistics of a point share a handful of block counts and a count recurs at the next
@@ -97,6 +138,11 @@ class _Evaluation:
     half_width: np.ndarray
     suspect: dict
     targets: list  # resolved target of each name: float (NaN: not yet known), None: untargeted
+    long_enough: list  # record and blocks long enough against the integral time (bool)
+    min_total_s: list  # least record (s) the minimum-record guards ask for
+    held: list  # None, or (reason, least total record in s) of a guard's hold (slow content)
+    no_interval: list  # None, or why no honest interval exists
+    unresolved: np.ndarray  # standard error the record does not resolve yet (0 when none)
 
 
 class PointStatistics:
@@ -148,12 +194,21 @@ class PointStatistics:
         self.confidence = float(confidence if confidence is not None else self.targets.confidence)
         self.moments = MomentAccumulator(m)
         self.blocking = BlockingAccumulator(m, base=base, ref=ref)
+        self.tails = TailAccumulator(m)
         self.table = StatisticTable(self.columns, self.moments.layout)
         # the moment statistics (table.names), then Tint_c, Neff_c, L_c: the one name table's order
         self.names = tuple(statistic_names(self.columns))
         # per-name lookups done once: target resolution, components a name depends on
         self._plan = self.targets.plan(self.names)
         self._components = tuple(frozenset(components_of(name)) for name in self.names)
+        col = {c: i for i, c in enumerate(self.columns)}
+        self._comp_idx = tuple(
+            tuple(sorted(col[c] for c in comps if c in col)) or tuple(range(m))
+            for comps in self._components
+        )
+        self._order = tuple(needed_order(family(name)) for name in self.names)
+        self.k_method = k_method(self.columns)
+        self._modelled_k = m < 3 and not self.targets.accept_modelled_k
         # Tint_c, Neff_c, L_c take their block count and relative error from the mean C
         self._source = np.r_[np.arange(len(self.table.names)), np.tile(np.arange(m), 3)]
         # the moment rows a checkpoint needs: the targeted statistics (Tint, Neff, L through
@@ -175,6 +230,7 @@ class PointStatistics:
         new = self._like()
         new.moments = self.moments.copy()
         new.blocking = self.blocking.copy()
+        new.tails = self.tails.copy()
         new.checkpoints = self.checkpoints.copy()
         new._duration_s = self._duration_s
         return new
@@ -228,18 +284,34 @@ class PointStatistics:
             block = block.astype(np.float64)
         if block.shape[0] == 0:
             return self
+        if not np.isfinite(block).all():
+            bad = np.flatnonzero(~np.isfinite(block).all(axis=1))
+            raise ValueError(
+                f"block has non-finite samples (NaN or inf) in {bad.size} of {block.shape[0]} "
+                f"rows, first at row {int(bad[0])}; nothing was added"
+            )
         if self.rate_hz is None:
             if duration_s is None or not math.isfinite(duration_s) or duration_s < 0:
                 raise ValueError("random sampling (rate_hz None) needs the block's duration_s")
             self._duration_s += float(duration_s)
         # one sweep: the blocking kernel also hands the block's central sums to the moments
         self.blocking.update(block, moments=self.moments)
+        self.tails.update(block)
         self._cache = None
         self._checkpoint_ev = None
         if self.checkpoints.due(self.n):
             ev = self._evaluate(self._checkpoint_rows)
             self._checkpoint_ev = ev
-            self.checkpoints.record(self.n, self._passes(ev), self.duration_s)
+            results = self._passes(ev)
+            trusted = [
+                ev.names[i]
+                for i in self._plan.targeted
+                if trustworthy(
+                    int(ev.blocks[i]), ev.se_rel_err[i], ev.half_width[i], ev.long_enough[i]
+                )
+            ]
+            required = [ev.names[i] for i in self._plan.targeted if ev.no_interval[i] is None]
+            self.checkpoints.record(self.n, results, self.duration_s, trusted, required)
         return self
 
     def merge(self, other: PointStatistics, independent: bool = True) -> PointStatistics:
@@ -268,6 +340,7 @@ class PointStatistics:
         new = self._like()
         new.moments = self.moments.merge(other.moments)
         new.blocking = self.blocking.merge(other.blocking, independent=independent)
+        new.tails = self.tails.merge(other.tails)
         new._duration_s = self._duration_s + other._duration_s
         if new.checkpoints.due(new.n):
             names = self._plan.targeted
@@ -307,6 +380,11 @@ class PointStatistics:
                 nan.copy(),
                 {},
                 self._plan.resolve(nan.tolist()),
+                [False] * S,
+                [0.0] * S,
+                [None] * S,
+                [None] * S,
+                np.zeros(S),
             )
             self._cache = ev
             return ev
@@ -320,19 +398,127 @@ class PointStatistics:
         values = np.concatenate([values, np.empty(3 * m)])
         se = np.empty(S)
         _integral_scales(self.duration_s, choice.variance, choice.relative_error, m, values, se)
+        # blocks at least MIN_BLOCK_TINTS integral times long (the lugsail estimate is 6 % low
+        # in variance at 4 T_int for an exponential correlation, 23 % low at 2 T_int): raise
+        # the level where Jonsson's choice is shorter, and evaluate again (at most twice)
+        for _ in range(2):
+            min_level = self._min_levels(values, choice)
+            if min_level is None:
+                break
+            choice = self.blocking.analyse(grad, min_level)
+            _integral_scales(
+                self.duration_s, choice.variance, choice.relative_error, m, values, se
+            )
         blocks = choice.blocks[self._source]
         rel = choice.relative_error[self._source]
-        hw = _t_quantiles(0.5 * (1.0 + self.confidence), blocks) * se
+        hw = INTERVAL_INFLATION * _t_quantiles(0.5 * (1.0 + self.confidence), blocks) * se
         suspect = {}
         verdicts = assess_columns(self.blocking.segment_means(), se[:m].tolist())
         for c, verdict in zip(self.columns, verdicts, strict=True):
             if not verdict.stationary:
                 suspect[c] = verdict.reason or "not stationary"
         targets = self._plan.resolve(values.tolist())
-        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets)
+        guards = self._guards(values, se, hw, choice, blocks, targets)
+        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, *guards)
         if rows is None:
             self._cache = ev
         return ev
+
+    def _slowest_scale(self, tint, comps) -> float:
+        """The integral time (s) that statistic rows with components ``comps`` must respect:
+        the longest of their components', and at least the user's slowest facility period."""
+        t = max(tint[c] for c in comps)
+        period = self.targets.slowest_period_s
+        return t if period is None or not t < period else period
+
+    def _min_levels(self, values, choice) -> np.ndarray | None:
+        """Lowest blocking level of each moment row whose blocks are MIN_BLOCK_TINTS integral
+        times long; None when every row's choice already satisfies it."""
+        m = len(self.columns)
+        k_stats = len(self.table.names)
+        if self.n < 2 or self.duration_s <= 0:
+            return None
+        tint = values[k_stats : k_stats + m].tolist()
+        per_sample = self.duration_s / self.n
+        base = self.blocking.base
+        out = np.zeros(k_stats, dtype=np.int64)
+        raise_any = False
+        levels = choice.level.tolist()
+        for r in range(k_stats):
+            t = self._slowest_scale(tint, self._comp_idx[r])
+            if not (math.isfinite(t) and t > 0.0) or levels[r] < 0:
+                continue
+            need = MIN_BLOCK_TINTS * t / per_sample / base  # in base blocks
+            lvl = max(0, math.ceil(math.log2(need))) if need > 1.0 else 0
+            if lvl > levels[r]:
+                out[r] = lvl
+                raise_any = True
+        return out if raise_any else None
+
+    def _guards(self, values, se, hw, choice, blocks, targets):
+        """Minimum record, slow content and tails for every statistic (see _Evaluation).
+
+        Sets the half-width of rows without an honest interval to NaN (in place).
+        """
+        m = len(self.columns)
+        k_stats = len(self.table.names)
+        T = self.duration_s
+        n = max(self.n, 1)
+        tint = values[k_stats : k_stats + m].tolist()  # Tint of each component, s
+        alpha = self.tails.tail_index(values[:m]).tolist()
+        need_user = self.targets.required_record_s
+        block_samples = choice.block_samples[self._source].tolist()
+        slow_samples = choice.slow_block_samples[self._source].tolist()
+        top = choice.top_variance[self._source].tolist()
+        var = choice.variance[self._source].tolist()
+        hw_list = hw.tolist()
+        S = len(self.names)
+        long_enough, min_total, held, no_interval = [], [], [], []
+        unresolved = np.zeros(S)
+        for i in range(S):
+            comps = self._comp_idx[i]
+            t_i = self._slowest_scale(tint, comps)
+            ok_t = math.isfinite(t_i) and t_i > 0.0
+            block_s = block_samples[i] * T / n
+            need = max(need_user, (MIN_RECORD_TINTS * t_i) if ok_t else 0.0)
+            need = max(need, (MIN_BLOCKS * MIN_BLOCK_TINTS * t_i) if ok_t else 0.0)
+            long_enough.append(ok_t and T >= need and block_s >= MIN_BLOCK_TINTS * t_i)
+            min_total.append(need)
+            reason = None
+            if slow_samples[i] > 0:
+                unresolved[i] = math.sqrt(max(top[i] - var[i], 0.0))
+                slow_s = slow_samples[i] * T / n
+                expect = 2 * MIN_BLOCKS * slow_s
+                target = targets[i]
+                if target is not None and math.isfinite(target) and target > 0 and se[i] > 0:
+                    ratio = STOP_MARGIN * hw_list[i] / target
+                    expect = max(expect, T * ratio**2 * top[i] / var[i])
+                reason = (
+                    f"slow content: the error of {self.names[i]} is not yet resolved (the "
+                    f"blocking curve still rises at blocks of {slow_s:.3g} s); "
+                    f"expect >= {expect:.3g} s",
+                    expect,
+                )
+            held.append(reason)
+            why = None
+            a = min(alpha[c] for c in comps)
+            q = self._order[i]
+            if a <= TAIL_MARGIN * q:
+                worst = self.columns[min(comps, key=lambda c: alpha[c])]
+                why = (
+                    f"no honest interval: tails too heavy (tail index {a:.1f} for {worst}; "
+                    f"the error needs moments of order {q})"
+                )
+            elif self._modelled_k and self.names[i] == "k":
+                why = (
+                    f"no honest interval: {self.k_method}; the assumption's error is unknown "
+                    "(set accept_modelled_k = true in the targets file to accept it)"
+                )
+            no_interval.append(why)
+            if why is not None:
+                hw[i] = math.nan
+                se[i] = math.nan
+        return long_enough, min_total, held, no_interval, unresolved
 
     def _stationary(self, i: int, suspect: dict) -> bool:
         """True when no component statistic ``i`` depends on is flagged in ``suspect``."""
@@ -342,7 +528,12 @@ class PointStatistics:
         hw, blocks, rel = ev.half_width.tolist(), ev.blocks.tolist(), ev.se_rel_err.tolist()
         return {
             ev.names[i]: passes(
-                hw[i], ev.targets[i], blocks[i], rel[i], self._stationary(i, ev.suspect)
+                hw[i],
+                ev.targets[i],
+                blocks[i],
+                rel[i],
+                self._stationary(i, ev.suspect) and ev.held[i] is None,
+                ev.long_enough[i] and ev.no_interval[i] is None,
             )
             for i in self._plan.targeted
         }
@@ -369,6 +560,8 @@ class PointStatistics:
         values, stderr = ev.values.tolist(), ev.stderr.tolist()
         half_width, block_counts = ev.half_width.tolist(), ev.blocks.tolist()
         se_rel_err = ev.se_rel_err.tolist()
+        unresolved = ev.unresolved.tolist()
+        cp = self.checkpoints
         for i in indices:
             name = ev.names[i]
             v, se, hw = values[i], stderr[i], half_width[i]
@@ -376,25 +569,38 @@ class PointStatistics:
             target = ev.targets[i]
             bad = sorted(self._components[i] & ev.suspect.keys()) if ev.suspect else []
             reason = None
-            if target is None:
+            trusted = trustworthy(blocks, se_rel_err[i], hw, ev.long_enough[i])
+            if ev.no_interval[i] is not None:
+                # no honest interval: never converged, and the point's verdict does not wait
+                converged, eta = (None if target is None else False), None
+                state, reason = "no-interval", ev.no_interval[i]
+            elif target is None:
                 converged, eta = None, None
                 state = "suspect" if bad else "untargeted"
+                if bad:
+                    reason = "; ".join(f"{c}: {ev.suspect[c]}" for c in bad)
             else:
                 any_target = True
-                converged = self.checkpoints.is_converged(name) and not bad
-                streak = self.checkpoints.streak.get(name, 0)
-                eta = 0.0 if converged else eta_seconds(hw, target, blocks, T, streak)
+                held = bool(bad) or ev.held[i] is not None
+                converged = cp.is_converged(name) and not held
+                streak = cp.streak.get(name, 0)
+                eta = (
+                    0.0
+                    if converged
+                    else eta_seconds(hw, target, blocks, T, streak, ev.min_total_s[i])
+                )
                 if bad:
                     state, reason = "suspect", "; ".join(f"{c}: {ev.suspect[c]}" for c in bad)
+                elif ev.held[i] is not None:
+                    (state, reason), slow_need = ("suspect", ev.held[i][0]), ev.held[i][1]
+                    eta = max(slow_need - T, eta or 0.0)
                 elif converged:
                     state = "converged"
-                elif (
-                    blocks < MIN_BLOCKS
-                    or not math.isfinite(hw)
-                    or se_rel_err[i] > MAX_SE_RELATIVE_ERROR
-                ):
-                    state = "warming-up"
-                    reason = f"{blocks} blocks at the chosen level, {MIN_BLOCKS} needed"
+                elif not trusted:
+                    reason = self._untrusted_reason(i, ev, blocks, se_rel_err[i], hw)
+                    state = "converging" if name in cp.trusted else "warming-up"
+                elif streak > 0:
+                    state = "confirming"
                 else:
                     state = "converging"
                 if not converged:
@@ -413,6 +619,7 @@ class PointStatistics:
                     state=state,
                     blocks=blocks,
                     reason=reason,
+                    unresolved=unresolved[i],
                 )
             )
         converged = any_target and all_conv
@@ -424,6 +631,17 @@ class PointStatistics:
             estimates=tuple(estimates),
             converged=converged,
             converged_at_s=self.checkpoints.converged_at_s if converged else None,
-            k_method=K_METHODS[len(self.columns)],
+            k_method=self.k_method,
             suspect=ev.suspect,
+        )
+
+    def _untrusted_reason(self, i, ev, blocks, se_rel_err, hw) -> str:
+        """Why the error bar of statistic ``i`` is not trustworthy yet (one short sentence)."""
+        if blocks < MIN_BLOCKS or not math.isfinite(hw):
+            return f"{blocks} blocks at the chosen level, {MIN_BLOCKS} needed"
+        if se_rel_err > 0.15:
+            return "the standard error itself is not yet known well enough"
+        return (
+            f"record too short: {MIN_RECORD_TINTS} integral times and blocks of "
+            f"{MIN_BLOCK_TINTS} needed (about {ev.min_total_s[i]:.3g} s in all)"
         )

@@ -64,6 +64,12 @@ def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
             arrays[f"blocking.{k}"] = v.copy()
         elif v is not None:
             blocking[k] = _scalar(v)
+    arrays["tails.high"] = np.sort(ps.tails.high, axis=1)  # order carries no meaning: canonical
+    arrays["tails.low"] = np.sort(ps.tails.low, axis=1)
+    checkpoints = {
+        f.name: _scalar(getattr(ps.checkpoints, f.name)) for f in dataclasses.fields(ps.checkpoints)
+    }
+    checkpoints["trusted"] = sorted(checkpoints["trusted"])  # a set: JSON has lists
     meta = {
         "format": FORMAT,
         "version": VERSION,
@@ -74,10 +80,8 @@ def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
         "duration_s": float(ps._duration_s),
         "moments": {"n": int(ps.moments.n)},
         "blocking": blocking,
-        "checkpoints": {
-            f.name: _scalar(getattr(ps.checkpoints, f.name))
-            for f in dataclasses.fields(ps.checkpoints)
-        },
+        "tails": {"n": int(ps.tails.n), "keep": int(ps.tails.keep)},
+        "checkpoints": checkpoints,
     }
     return meta, arrays
 
@@ -131,8 +135,17 @@ def from_state(meta: dict, arrays) -> object:
                     if old is None or a.shape[1:] != old.shape[1:] or a.dtype != old.dtype:
                         raise StateError(f"{name}: unexpected shape or type {a.shape} {a.dtype}")
                 setattr(bl, k, a)
+        tails = ps.tails
+        tails.n, tails.keep = int(meta["tails"]["n"]), int(meta["tails"]["keep"])
+        for k in ("high", "low"):
+            a = np.array(arrays[f"tails.{k}"], dtype=np.float64)
+            if a.ndim != 2 or a.shape[0] != tails.m:
+                raise StateError(f"tails.{k}: shape {a.shape}, expected ({tails.m}, n)")
+            setattr(tails, k, a)
         ps._duration_s = float(meta["duration_s"])
-        ps.checkpoints = Checkpoints(**meta["checkpoints"])
+        cp = dict(meta["checkpoints"])
+        cp["trusted"] = set(cp.get("trusted", ()))
+        ps.checkpoints = Checkpoints(**cp)
     except (KeyError, TypeError) as exc:
         raise StateError(f"incomplete point state: {exc!r}") from None
     return ps

@@ -15,11 +15,23 @@ from typing import NamedTuple
 __all__ = ["Estimate", "PointSnapshot", "STATES"]
 
 #: States a statistic can be in, in the order a run passes through them.
-#: ``warming-up``: too few blocks to trust an error bar; ``converging``: error bar is
-#: trustworthy but wider than the target; ``converged``: target met at 3 consecutive
-#: checkpoints; ``suspect``: the stationarity guard failed for a component it depends on;
+#: ``warming-up``: the error bar is not yet trustworthy (too few blocks, or a record or blocks
+#: too short against the integral time); ``converging``: the error bar is trustworthy but wider
+#: than the target; ``confirming``: the target was met at the last checkpoint, the streak of
+#: checkpoints is not complete; ``converged``: target met at every checkpoint of the streak;
+#: ``suspect``: a guard holds it (stationarity of a component it depends on, slow content
+#: under the blocking curve); ``no-interval``: no honest interval exists (tails too heavy for
+#: the moments the error needs, or k resting on an unverifiable model), value only;
 #: ``untargeted``: no target was set (value and error bar still reported).
-STATES = ("warming-up", "converging", "converged", "suspect", "untargeted")
+STATES = (
+    "warming-up",
+    "converging",
+    "confirming",
+    "converged",
+    "suspect",
+    "no-interval",
+    "untargeted",
+)
 
 
 def _finite_or_none(x: float | None) -> float | None:
@@ -51,6 +63,9 @@ class Estimate(NamedTuple):
     state: str
     blocks: int = 0
     reason: str | None = None
+    #: standard error the record does not resolve yet (slow content: sqrt(V_top - V) of the
+    #: blocking curve's rise above the chosen level); ``stderr`` is the resolved part
+    unresolved: float = 0.0
 
     def to_json(self) -> dict:
         """The entry of DESIGN §4 ``statistics`` (non-finite numbers become null)."""
@@ -99,8 +114,9 @@ class PointSnapshot:
         return tuple(e for e in self.estimates if e.target is not None)
 
     def slowest(self) -> Estimate | None:
-        """The targeted statistic furthest from its target (largest ETA; unknown ETA first)."""
-        open_ = [e for e in self.targeted() if not e.converged]
+        """The targeted statistic furthest from its target (largest ETA; unknown ETA first);
+        rows without an honest interval do not count (the point's verdict does not wait)."""
+        open_ = [e for e in self.targeted() if not e.converged and e.state != "no-interval"]
         if not open_:
             return None
         return max(open_, key=lambda e: math.inf if e.eta_s is None else e.eta_s)

@@ -363,6 +363,11 @@ def assess_columns(
         except (TypeError, ValueError):
             se = math.nan
         se_ok = math.isfinite(se) and se > 0.0
+        if float(np.ptp(x[:, c])) == 0.0:
+            # every segment mean equal (a constant signal): nothing drifts, and the rank tests
+            # would count 0 reverse arrangements and call it a trend
+            out.append(StationarityVerdict(True, None, {"segments": n, "constant": True}))
+            continue
         failed = []
         reasons = []
         # Least-squares trend, the main test (highest power against a linear drift).

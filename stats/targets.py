@@ -6,8 +6,8 @@ the statistic's own units) or relative to a scale that cannot vanish:
 =====================================  ====================================================
 family of the statistic                relative to
 =====================================  ====================================================
-means ``U``, ``V``, ``W``              local mean speed ``|U| = sqrt(U^2 + V^2 + W^2)``
-                                       over the components present
+means ``U``, ``V``, ``W``              velocity scale ``sqrt(|U|^2 + 2k/3)``, ``|U|`` the
+                                       local mean speed over the components present
 second moments ``uu`` ... and ``k``    ``k``
 third moments ``uuu`` ...              ``k**1.5``
 fourth moments ``uuuu`` ...            ``k**2``
@@ -17,7 +17,7 @@ fourth moments ``uuuu`` ...            ``k**2``
 =====================================  ====================================================
 
 Defaults (used when no file is given): confidence 0.95; ``U``, ``V``, ``W`` within 1 % of the
-local mean speed; ``uu``, ``vv``, ``ww``, ``uv``, ``uw``, ``vw`` and ``k`` within 5 % of ``k``.
+velocity scale; ``uu``, ``vv``, ``ww``, ``uv``, ``uw``, ``vw`` and ``k`` within 5 % of ``k``.
 Why these are reachable in about 10-30 s at an integral time of a few ms (Gaussian,
 exponential-correlation arithmetic, Lumley & Panofsky 1964; half-width = 1.96 x 1.1 x SE):
 a mean at 20 % turbulence intensity has SE = 0.2 |U| sqrt(2 T_int / T), so 1 % needs
@@ -25,19 +25,25 @@ T >= 3700 T_int (11 s at 3 ms); ``uu`` has SE = uu sqrt(2 T_int / T) and with uu
 5 % of k target needs T >= 1700 T_int (5 s at 3 ms); ``uv`` (SE = sqrt(uu vv (1 + r^2) T_int / T))
 needs about 1100 T_int. Statistics that are not named are still reported, untargeted.
 
+Three optional settings guard the verdict (REFERENCES §11, §12): ``min_record_s`` (no statistic
+is converged before this much record, seconds), ``slowest_period_s`` (the slowest period of
+the facility's unsteadiness, e.g. a pump or the speed control hunting; it is then treated as
+the longest integral time present: blocks of at least 4 and a record of at least 100 of it) and ``accept_modelled_k = true`` (give k measured with fewer than three components an
+interval; by default such a k is reported without one, as it rests on an isotropy model).
+
 A file replaces the default list as a whole: its ``[targets]`` table is the complete list of
 targets. A file without a ``[targets]`` table keeps the default targets and only sets the
 confidence. Example (DESIGN §5)::
 
     confidence = 0.95
     [targets]
-    U   = { relative = 0.01 }     # +-1 % of the local mean speed
+    U   = { relative = 0.01 }     # +-1 % of sqrt(|U|^2 + 2k/3)
     uv  = { absolute = 0.02 }     # m^2/s^2
     uuv = { relative = 0.15 }     # +-15 % of k^(3/2)
 
 >>> t = Targets.from_dict({"targets": {"U": {"relative": 0.01}, "uv": {"absolute": 0.02}}})
->>> round(t.resolve("U", {"U": 8.0, "V": 6.0}), 6)
-0.1
+>>> round(t.resolve("U", {"U": 8.0, "V": 6.0, "k": 1.5}), 4)
+0.1005
 >>> t.resolve("uv", {"k": float("nan")}), t.resolve("uu", {"k": 1.0})
 (0.02, None)
 """
@@ -97,19 +103,33 @@ _SCALE_KIND = {
 
 
 def _scales(means, k) -> dict[str, float]:
-    """Every shared scale from the mean components present and k (NaN where not yet known)."""
-    speed = math.sqrt(math.fsum(float(m) ** 2 for m in means)) if means else math.nan
+    """Every shared scale from the mean components present and k (NaN where not yet known).
+
+    The scale of the means is ``sqrt(|U|^2 + 2k/3)``, not the mean speed ``|U|`` that DESIGN §5
+    first named: in a recirculation zone or a wake centre |U| passes through zero while the
+    fluctuations do not, and a tolerance relative to |U| then asked for days of record. With
+    2k/3 (the variance of one component in isotropic turbulence) the scale stays positive
+    wherever the flow is turbulent, and equals |U| to within 2 % at 20 % turbulence intensity.
+    A file that says ``U = { relative = 0.01 }`` keeps working; only its scale changed. Without
+    a usable k the scale is |U| alone.
+    """
     k = float(k)
     if not k >= 0.0:  # NaN or negative: not a usable energy yet
         k15 = k2 = k = math.nan
     else:
         k15, k2 = k**1.5, k * k
+    if means:
+        # without a k (a caller's dict that has none) the scale is |U| alone, as before
+        extra = 2.0 * k / 3.0 if k >= 0.0 else 0.0
+        speed = math.sqrt(math.fsum(float(m) ** 2 for m in means) + extra)
+    else:
+        speed = math.nan
     return {"speed": speed, "k": k, "k^1.5": k15, "k^2": k2, "one": 1.0, "none": math.nan}
 
 
 # What a relative target is relative to, for describe() and error messages.
 _SCALE_TEXT = {
-    "mean": "of the local mean speed |U|",
+    "mean": "of the velocity scale sqrt(|U|^2 + 2k/3)",
     "second": "of k",
     "third": "of k^(3/2)",
     "fourth": "of k^2",
@@ -130,7 +150,8 @@ _UNITS = {
     "dissipation": "m^2/s^3",
 }
 
-_TOP_KEYS = ("confidence", "targets")
+_TOP_KEYS = ("confidence", "targets", "min_record_s", "slowest_period_s", "accept_modelled_k")
+
 _TARGET_KEYS = ("relative", "absolute")
 
 
@@ -227,6 +248,19 @@ class Targets:
 
     confidence: float = DEFAULT_CONFIDENCE
     targets: Mapping[str, Target] = field(default_factory=dict)
+    #: no verdict before this much record (seconds); None: no minimum of the user's
+    min_record_s: float | None = None
+    #: the slowest period (or correlation time) of the facility's unsteadiness (pump, speed
+    #: control hunting...), seconds: it counts as an integral time that every statistic's
+    #: minimum record and block length must respect (convergence.MIN_RECORD_TINTS, _BLOCK_)
+    slowest_period_s: float | None = None
+    #: give k from fewer than three components an interval (it rests on an isotropy model)
+    accept_modelled_k: bool = False
+
+    @property
+    def required_record_s(self) -> float:
+        """The least record, in seconds, that the user's settings ask for before a verdict."""
+        return 0.0 if self.min_record_s is None else self.min_record_s
 
     def __post_init__(self):
         c = self.confidence
@@ -237,6 +271,14 @@ class Targets:
             if not isinstance(t, Target) or t.name != name:
                 raise TargetsError(f"targets[{name!r}] must be a Target named {name!r}")
         object.__setattr__(self, "targets", MappingProxyType(dict(self.targets)))
+        for key in ("min_record_s", "slowest_period_s"):
+            x = getattr(self, key)
+            if x is not None and not (_is_number(x) and math.isfinite(x) and x > 0):
+                raise TargetsError(f"{key} must be a positive number of seconds, got {x!r}")
+        if not isinstance(self.accept_modelled_k, bool):
+            raise TargetsError(
+                f"accept_modelled_k must be true or false, got {self.accept_modelled_k!r}"
+            )
 
     # ----------------------------------------------------------------- constructors
     @classmethod
@@ -264,8 +306,24 @@ class Targets:
                 f"{source}: confidence must be a number strictly between 0 and 1 "
                 f"(e.g. 0.95), got {confidence!r}"
             )
+        record = {}
+        for key in ("min_record_s", "slowest_period_s"):
+            if key in d:
+                x = d[key]
+                if not (_is_number(x) and math.isfinite(x) and x > 0):
+                    raise TargetsError(
+                        f"{source}: {key} must be a positive number of seconds, got {x!r}"
+                    )
+                record[key] = float(x)
+        if "accept_modelled_k" in d:
+            if not isinstance(d["accept_modelled_k"], bool):
+                raise TargetsError(
+                    f"{source}: accept_modelled_k must be true or false, "
+                    f"got {d['accept_modelled_k']!r}"
+                )
+            record["accept_modelled_k"] = d["accept_modelled_k"]
         if "targets" not in d:
-            return cls(confidence=float(confidence), targets=cls.defaults().targets)
+            return cls(confidence=float(confidence), targets=cls.defaults().targets, **record)
         table = d["targets"]
         if not isinstance(table, Mapping):
             raise TargetsError(
@@ -278,7 +336,7 @@ class Targets:
                 "or remove the table to use the defaults"
             )
         parsed = {name: _parse_target(source, name, spec) for name, spec in table.items()}
-        return cls(confidence=float(confidence), targets=parsed)
+        return cls(confidence=float(confidence), targets=parsed, **record)
 
     @classmethod
     def from_toml(cls, path) -> Targets:
@@ -302,7 +360,13 @@ class Targets:
             out[name] = (
                 {"absolute": t.absolute} if t.absolute is not None else {"relative": t.relative}
             )
-        return {"confidence": self.confidence, "targets": out}
+        d = {"confidence": self.confidence, "targets": out}
+        for key in ("min_record_s", "slowest_period_s"):
+            if getattr(self, key) is not None:
+                d[key] = getattr(self, key)
+        if self.accept_modelled_k:
+            d["accept_modelled_k"] = True
+        return d
 
     # ----------------------------------------------------------------- resolving
     def scale(self, name: str, values: Mapping[str, float]) -> float:

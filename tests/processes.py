@@ -37,3 +37,37 @@ def skewed(z: np.ndarray, a: float) -> np.ndarray:
 def ar1_mean_variance(rho: float, n: int, sigma: float = 1.0) -> float:
     """Exact Var(mean) of n AR(1) samples (REFERENCES §1, checked against the brute-force sum)."""
     return sigma**2 / n * ((1 + rho) / (1 - rho) - 2 * rho * (1 - rho**n) / (n * (1 - rho) ** 2))
+
+
+def two_scale(rng, n, w, t_fast=5.0, t_slow=5000.0, mean=MEAN, stress=STRESS) -> np.ndarray:
+    """Turbulence with slow facility content: each latent component is
+    sqrt(1 - w) AR(1, T = t_fast) + sqrt(w) AR(1, T = t_slow) (samples), unit variance, then
+    mixed like :func:`turbulence`. Var(mean) follows REFERENCES §12 (sum over the parts)."""
+    m = len(mean)
+    z = np.sqrt(1 - w) * ar1(rng, n, m, np.exp(-1 / t_fast))
+    z += np.sqrt(w) * ar1(rng, n, m, np.exp(-1 / t_slow))
+    return z @ np.linalg.cholesky(stress).T + mean
+
+
+def two_scale_mean_variance(n, w, t_fast=5.0, t_slow=5000.0) -> float:
+    """Exact Var(mean) of n samples of a unit-variance latent component of :func:`two_scale`."""
+    return (1 - w) * ar1_mean_variance(np.exp(-1 / t_fast), n) + w * ar1_mean_variance(
+        np.exp(-1 / t_slow), n
+    )
+
+
+def heavy_ar1(rng, n, m, rho, kind="t5") -> np.ndarray:
+    """(n, m) unit-variance AR(1) driven by Student-t(5) ("t5") or Laplace ("laplace")
+    innovations scaled to unit variance (started after a burn-in of 20 integral times)."""
+    burn = int(20 / max(1e-9, -np.log(rho)))
+    if kind == "t5":
+        e = rng.standard_t(5, size=(n + burn, m)) / np.sqrt(5 / 3)
+    else:
+        e = rng.laplace(size=(n + burn, m)) / np.sqrt(2.0)
+    return lfilter([1.0], [1.0, -rho], e * np.sqrt(1 - rho**2), axis=0)[burn:]
+
+
+def ar1_flatness(rho: float, innovation_excess: float) -> float:
+    """Flatness of an AR(1) from its innovations' excess kurtosis (REFERENCES §12):
+    3 + excess x (1 - rho^2)^2 / (1 - rho^4)."""
+    return 3.0 + innovation_excess * (1 - rho**2) ** 2 / (1 - rho**4)

@@ -4,7 +4,9 @@ Processes: 3-component Gaussian AR(1) (exact sampled Ornstein-Uhlenbeck, REFEREN
 the Cholesky factor of a prescribed Reynolds-stress tensor (Lund, Wu & Squires 1998,
 J. Comput. Phys. 140:233), and the skewed transform y = z + a(z^2 - 1) with known skewness and
 flatness (REFERENCES §10: a = 0.1 gives 0.590206 and 3.465975). A 95 % interval must contain the
-truth in 0.92-0.98 of the replicates (binomial sd at 400 replicates: 0.011).
+truth in 0.92-0.99 of the replicates that show one (binomial sd at 400 replicates: 0.011;
+the upper bound was 0.98 before intervals were widened by 5 %, point.INTERVAL_INFLATION,
+which lifts odd moments, already conservative, to about 0.985).
 """
 
 import numpy as np
@@ -20,19 +22,31 @@ N = 2**16
 RHO = np.exp(-1 / 10)  # T_int = 10 samples
 
 
-def coverage(make, truth, columns, reps=REPS):
+WITHHELD = {}  # name -> share of records without an interval in the last coverage() call
+
+
+def coverage(make, truth, columns, reps=REPS, targets=None):
+    """Coverage among the records that show an interval; the share withheld (state
+    ``no-interval``: the tail guard) goes to WITHHELD and is bounded by each test."""
     hits = {name: 0 for name in truth}
+    shown = {name: 0 for name in truth}
     for r in range(reps):
         x = make(np.random.default_rng(10_000 + r))
-        ps = PointStatistics(columns, rate_hz=1000.0)
+        ps = PointStatistics(columns, rate_hz=1000.0, targets=targets)
         for k in range(0, x.shape[0], 8192):
             ps.update(x[k : k + 8192])
         snap = ps.snapshot()
         assert snap.confidence == 0.95
         for name, want in truth.items():
             e = snap.estimate(name)
+            if not np.isfinite(e.ci_low):
+                assert e.state == "no-interval"
+                continue
+            shown[name] += 1
             hits[name] += e.ci_low <= want <= e.ci_high
-    return {name: h / reps for name, h in hits.items()}
+    WITHHELD.clear()
+    WITHHELD.update({name: 1 - shown[name] / reps for name in truth})
+    return {name: hits[name] / max(shown[name], 1) for name in truth}
 
 
 def test_gaussian_stress_tensor_coverage():
@@ -51,7 +65,9 @@ def test_gaussian_stress_tensor_coverage():
     }
     cov = coverage(lambda rng: turbulence(rng, N, RHO).astype(np.float32), truth, ("u", "v", "w"))
     for name, c in cov.items():
-        assert 0.92 <= c <= 0.98, (name, c, cov)
+        assert 0.92 <= c <= 0.99, (name, c, cov)
+    # Gaussian tails: the tail guard may withhold the flatness (8th moments) on a few records
+    assert max(WITHHELD.values()) <= 0.10, WITHHELD
 
 
 def test_skewed_process_coverage():
@@ -73,9 +89,12 @@ def test_skewed_process_coverage():
         z = ar1(rng, N, 2, RHO)
         return np.column_stack([2.0 + skewed(z[:, 0], a), skewed(z[:, 1], a)])
 
-    cov = coverage(make, truth, ("u", "v"))
+    # k from (u, v) is the model 3/4 (uu + vv); here the model is exact by construction, so
+    # its statistical interval is what is checked (accept_modelled_k opts in)
+    cov = coverage(make, truth, ("u", "v"), targets=Targets.from_dict({"accept_modelled_k": True}))
     for name, c in cov.items():
-        assert 0.92 <= c <= 0.98, (name, c, cov)
+        assert 0.92 <= c <= 0.99, (name, c, cov)
+    assert max(WITHHELD.values()) <= 0.10, WITHHELD
 
 
 def test_skewed_flatness_coverage_on_longer_records():
@@ -89,7 +108,10 @@ def test_skewed_flatness_coverage_on_longer_records():
         return (2.0 + skewed(ar1(rng, 4 * N, 1, RHO)[:, 0], a))[:, None]
 
     cov = coverage(make, {"flat_u": 3.465975}, ("u",), reps=200)
-    assert 0.92 <= cov["flat_u"] <= 0.98, cov
+    assert 0.92 <= cov["flat_u"] <= 0.99, (cov, WITHHELD)
+    # the tail guard cannot tell this skewed tail from a heavy one on every record: measured
+    # 17.5 % of records without a flatness interval (README, "Before you rely on it")
+    assert WITHHELD["flat_u"] <= 0.25, WITHHELD
 
 
 def test_sequential_stopping_keeps_coverage():

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import pytest
 
 from eddyvigil.stats.names import statistic_names
@@ -16,7 +17,7 @@ from eddyvigil.stats.targets import DEFAULT_TARGETS, Target, Targets, TargetsErr
 DESIGN_EXAMPLE = """\
 confidence = 0.95
 [targets]
-U   = { relative = 0.01 }     # ±1 % of the local mean speed
+U   = { relative = 0.01 }     # ±1 % of the velocity scale
 V   = { relative = 0.01 }
 uu  = { relative = 0.05 }     # ±5 % of k
 uv  = { absolute = 0.02 }     # m²/s²
@@ -39,8 +40,9 @@ def test_design_example_parses_and_resolves_to_hand_values(example):
     assert t.confidence == 0.95
     assert list(t.targets) == ["U", "V", "uu", "uv", "uuv"]
     assert t.targets["uv"] == Target("uv", absolute=0.02)
-    assert t.resolve("U", VALUES) == pytest.approx(0.01 * 5.0, rel=1e-15)
-    assert t.resolve("V", VALUES) == pytest.approx(0.05, rel=1e-15)
+    # means: 1 % of sqrt(|U|^2 + 2k/3) = sqrt(25 + 8/3) (hand arithmetic)
+    assert t.resolve("U", VALUES) == pytest.approx(0.01 * np.sqrt(25 + 8 / 3), rel=1e-15)
+    assert t.resolve("V", VALUES) == pytest.approx(0.05 * np.sqrt(25 + 8 / 3) / 5, rel=1e-15)
     assert t.resolve("uu", VALUES) == pytest.approx(0.05 * 4.0, rel=1e-15)
     assert t.resolve("uv", VALUES) == 0.02
     assert t.resolve("uuv", VALUES) == pytest.approx(0.15 * 8.0, rel=1e-15)
@@ -52,13 +54,16 @@ def test_design_example_parses_and_resolves_to_hand_values(example):
 def test_mean_speed_uses_only_the_components_present():
     t = Targets.from_dict({"targets": {"U": {"relative": 0.02}}})
     assert t.resolve("U", {"U": -6.0}) == pytest.approx(0.12)  # one component: |U|
-    # 2^2 + 3^2 + 6^2 = 49 (hand arithmetic)
-    assert t.resolve("U", {"U": 2.0, "V": -3.0, "W": 6.0, "k": 1.0}) == pytest.approx(0.14)
+    # 2^2 + 3^2 + 6^2 = 49, plus 2k/3 = 2 (hand arithmetic)
+    assert t.resolve("U", {"U": 2.0, "V": -3.0, "W": 6.0, "k": 3.0}) == pytest.approx(
+        0.02 * np.sqrt(51.0)
+    )
 
 
 @pytest.mark.parametrize(
     ("name", "scale"),
     [
+        ("U", float(np.sqrt(25.0 + 8.0 / 3.0))),
         ("uu", 4.0),
         ("k", 4.0),
         ("vw", 4.0),
@@ -73,6 +78,7 @@ def test_mean_speed_uses_only_the_components_present():
     ],
 )
 def test_scales_by_family(name, scale):
+    # means: sqrt(|U|^2 + 2k/3) = sqrt(9 + 16 + 8/3), covered by the "U" case below
     values = {
         "U": 3.0,
         "V": 4.0,
@@ -127,9 +133,12 @@ def test_defaults_are_the_documented_ones():
     text = t.describe()
     for name in t.targets:
         assert f"  {name} " in text
-    assert "±1 % of the local mean speed" in text and "±5 % of k" in text and "95 %" in text
-    # 10-component example from DESIGN §5 values: U target 1 % of |U| = 0.05 m/s.
-    assert t.resolve("W", {"U": 3.0, "V": 4.0, "W": 0.0}) == pytest.approx(0.05)
+    assert "±1 % of the velocity scale" in text and "±5 % of k" in text and "95 %" in text
+    # DESIGN §5 values: |U| = 5 m/s; with k = 0.375 the scale is sqrt(25 + 0.25) (see
+    # _scales: it stays positive where |U| vanishes).
+    assert t.resolve("W", {"U": 3.0, "V": 4.0, "W": 0.0, "k": 0.375}) == pytest.approx(
+        0.01 * np.sqrt(25.25)
+    )
     # Every untargeted name of a full 3-component stream resolves to None.
     for name in statistic_names(("u", "v", "w")):
         assert (t.resolve(name, VALUES) is None) == (name not in t.targets)
@@ -219,3 +228,13 @@ def test_targets_on_statistics_not_estimated_are_refused(name):
     # a target that nothing computes could never be met; it must not be silently ignored
     with pytest.raises(TargetsError, match="does not estimate it yet"):
         Targets.from_dict({"targets": {name: {"relative": 0.1}}})
+
+
+def test_mean_scale_stays_positive_where_the_mean_speed_vanishes():
+    # A recirculation zone: |U| ~ 0 while k is not. The scale sqrt(|U|^2 + 2k/3) is then the
+    # rms of one component of isotropic turbulence (Pope 2000, Turbulent Flows, k = 3/2 u'^2),
+    # so a 1 % target on U is 1 % of u' instead of 1 % of nearly nothing.
+    t = Targets.from_dict({"targets": {"U": {"relative": 0.01}}})
+    assert t.resolve("U", {"U": 1e-4, "k": 1.5}) == pytest.approx(0.01 * np.sqrt(1e-8 + 1.0))
+    plan = t.plan(("U", "k"))
+    assert plan.resolve([0.0, 1.5]) == [pytest.approx(0.01), None]

@@ -1,0 +1,80 @@
+"""How long does stopping on the verdict take, how good is the ETA, and how often is it wrong?
+
+Closed-loop runs on processes with known truth (tests/processes.py): a 3-component Gaussian
+AR(1) with T_int = 10 samples and the default targets. For each run: the stop (first
+``converged`` point) against the oracle sample count (the record at which the true 95 %
+half-width of the slowest targeted statistic equals its target, from the exact OU variances
+of REFERENCES §1 and §5: means sigma^2 (1+rho)/(1-rho), second moments the Hermite-2 factor
+(1+rho^2)/(1-rho^2)), the predicted/actual total record at 25 % and 50 % of the stop, and the
+share of runs stopping with the truth outside the interval. Prints figures only (no
+assertions). Run: ``nice -n 10 .venv/bin/python benchmarks/bench_stopping.py [reps]``.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+
+from processes import MEAN, STRESS, turbulence  # noqa: E402
+from stopping import run_until_converged  # noqa: E402
+
+from eddyvigil.stats import Targets  # noqa: E402
+
+Z = 1.959964
+
+
+def oracle(rho: float, targets: Targets) -> float:
+    f1 = (1 + rho) / (1 - rho)
+    f2 = (1 + rho**2) / (1 - rho**2)
+    R = STRESS
+    k = 0.5 * np.trace(R)
+    values = {"U": MEAN[0], "V": MEAN[1], "W": MEAN[2], "k": k}
+    nvar = {c.upper(): R[i, i] * f1 for i, c in enumerate("uvw")}
+    for i, a in enumerate("uvw"):
+        for j, b in enumerate("uvw"):
+            if j >= i:
+                nvar[a + b] = (R[i, i] * R[j, j] + R[i, j] ** 2) * f2
+    nvar["k"] = 0.5 * float(np.sum(R**2)) * f2
+    need = [Z**2 * nvar[n] / targets.resolve(n, values) ** 2 for n in targets.targets]
+    return max(need)
+
+
+def main(reps: int = 200) -> None:
+    rho = np.exp(-1 / 10)
+    targets = Targets.defaults()
+    n_star = oracle(rho, targets)
+    truth = {"U": MEAN[0], "V": MEAN[1], "W": MEAN[2], "k": 0.5 * np.trace(STRESS)}
+    for i, a in enumerate("uvw"):
+        for j, b in enumerate("uvw"):
+            if j >= i:
+                truth[a + b] = STRESS[i, j]
+    t0 = time.perf_counter()
+    runs = []
+    for r in range(reps):
+        x = turbulence(np.random.default_rng(300_000 + r), int(4 * n_star), rho)
+        runs.append(run_until_converged(x, ("u", "v", "w"), targets, truth))
+    stops = np.array([s.samples or np.nan for s in runs]) / n_star
+    miss = {n: np.mean([s.miss[n] for s in runs]) for n in truth}
+    e25 = np.array([s.eta_ratio(0.25) for s in runs])
+    e50 = np.array([s.eta_ratio(0.5) for s in runs])
+    print(f"default targets, 3-component Gaussian AR(1), T_int = 10 samples, {reps} runs")
+    print(f"oracle {n_star:.0f} samples; never converged within 4x: {np.isnan(stops).sum()}")
+    print(
+        f"stop / oracle: median {np.nanmedian(stops):.3f}, p95 {np.nanpercentile(stops, 95):.3f}"
+    )
+    print(
+        f"ETA predicted/actual total: at 25 % median {np.nanmedian(e25):.3f} "
+        f"(under in {np.nanmean(e25 < 1):.2f}), at 50 % median {np.nanmedian(e50):.3f} "
+        f"(under in {np.nanmean(e50 < 1):.2f})"
+    )
+    print("share of runs stopping with the truth outside:", {n: round(v, 3) for n, v in miss.items()})
+    print(f"worst coverage at the stop: {1 - max(miss.values()):.3f}  ({time.perf_counter() - t0:.0f} s)")
+
+
+if __name__ == "__main__":
+    main(int(sys.argv[1]) if len(sys.argv) > 1 else 200)
