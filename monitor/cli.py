@@ -22,6 +22,7 @@ COMMANDS = {
     "replay": ("eddyvigil.monitor.replay", "feed a recording through the same path as live data"),
     "export": ("eddyvigil.monitor.export", "write recorded samples and summaries to open formats"),
     "combine": ("eddyvigil.monitor.combine", "merge repeats of a point (states, recordings)"),
+    "reprocess": ("eddyvigil.monitor.reprocess", "replay many recordings at once (Dask) into one summary"),
 }
 
 

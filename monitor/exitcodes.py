@@ -61,6 +61,7 @@ COMMAND_CODES = {
     "simulate": (0, 1, 2, 3, 4, 6, 8, 130),
     "demo": (0, 1, 2, 4, 5, 6, 8),
     "combine": (0, 1, 2, 4, 7, 8, 9),
+    "reprocess": (0, 1, 2, 3, 4, 5, 7, 8, 9),
 }
 
 #: Remarks shown under a command's list where a code needs its context.
@@ -70,6 +71,8 @@ NOTES = {
     '"complete": false.',
     "simulate": "130: stopped before the traverse ended (its end message is still sent).",
     "demo": "Ctrl-C / SIGTERM ends the demo normally (0); a child's refusal is passed on.",
+    "reprocess": "3: the --dask scheduler cannot be reached; 2 also when --dask is asked for "
+    "and dask is not installed.",
 }
 
 
