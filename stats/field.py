@@ -71,11 +71,11 @@ def _field_ingest(x, valid, ref, has_ref, count, tot, bsum, bcnt, base, pa, pb,
     """
     n, P, m = x.shape
     M = m + pa.shape[0]
-    L = nb.shape[1]
+    L = nb.shape[0]
     y = np.empty(M)
     b = np.empty(M)
-    for p in range(P):
-        for i in range(n):
+    for i in range(n):
+        for p in range(P):
             if not valid[i, p]:
                 continue
             if not has_ref[p]:
@@ -99,32 +99,83 @@ def _field_ingest(x, valid, ref, has_ref, count, tot, bsum, bcnt, base, pa, pb,
             bcnt[p] = 0
             lev = 0
             while lev < L:
-                k = nb[p, lev]
+                k = nb[lev, p]
                 if k == 0:
                     for a in range(M):
-                        first[p, lev, a] = b[a]
+                        first[lev, p, a] = b[a]
                 else:
                     for a in range(M):
-                        la = last[p, lev, a]
+                        la = last[lev, p, a]
                         for c in range(M):
-                            Q1[p, lev, a, c] += la * b[c]
+                            Q1[lev, p, a, c] += la * b[c]
                 for a in range(M):
-                    S1[p, lev, a] += b[a]
-                    last[p, lev, a] = b[a]
+                    S1[lev, p, a] += b[a]
+                    last[lev, p, a] = b[a]
                     ba = b[a]
-                    for c in range(M):
-                        Q0[p, lev, a, c] += ba * b[c]
-                nb[p, lev] = k + 1
-                if pflag[p, lev]:
+                    for c in range(a, M):  # symmetric: the upper triangle only
+                        Q0[lev, p, a, c] += ba * b[c]
+                nb[lev, p] = k + 1
+                if pflag[lev, p]:
                     for a in range(M):
-                        b[a] = 0.5 * (pend[p, lev, a] + b[a])
-                    pflag[p, lev] = False
+                        b[a] = 0.5 * (pend[lev, p, a] + b[a])
+                    pflag[lev, p] = False
                     lev += 1
                 else:
                     for a in range(M):
-                        pend[p, lev, a] = b[a]
-                    pflag[p, lev] = True
+                        pend[lev, p, a] = b[a]
+                    pflag[lev, p] = True
                     break
+
+
+@numba.njit(cache=True, nogil=True)
+def _field_forms(G, Q0, Q1, S1, first, last, nb, c0, gamma):
+    """Lag-0 and lag-1 autocovariances (P, S, L) of every statistic's block means per level.
+
+    For gradient g and the level's block means b_i (i = 1..n) about mu (the base blocks'
+    mean): c0 = g' [Q0/n - (S1 mu' + mu S1')/n + mu mu'] g and
+    gamma = g' [Q1 - (S1 - last) mu' - mu (S1 - first)' + (n - 1) mu mu'] g / n.
+    """
+    P, S, M = G.shape
+    L = nb.shape[0]
+    mu = np.empty(M)
+    h = np.empty(M)
+    t = np.empty(M)
+    for p in range(P):
+        if nb[0, p] < 1:
+            continue
+        for a in range(M):
+            mu[a] = S1[0, p, a] / nb[0, p]
+        for lev in range(L):
+            n = nb[lev, p]
+            if n < 1:
+                break
+            for s in range(S):
+                gm = 0.0
+                gs = 0.0
+                gh = 0.0
+                gt = 0.0
+                for a in range(M):
+                    g = G[p, s, a]
+                    gm += g * mu[a]
+                    gs += g * S1[lev, p, a]
+                    gh += g * (S1[lev, p, a] - last[lev, p, a])
+                    gt += g * (S1[lev, p, a] - first[lev, p, a])
+                q0 = 0.0
+                q1 = 0.0
+                for a in range(M):
+                    ga = G[p, s, a]
+                    if ga == 0.0:
+                        continue
+                    r0 = 0.5 * Q0[lev, p, a, a] * ga  # Q0 holds its upper triangle
+                    r1 = 0.0
+                    for c in range(M):
+                        r1 += Q1[lev, p, a, c] * G[p, s, c]
+                    for c in range(a + 1, M):
+                        r0 += Q0[lev, p, a, c] * G[p, s, c]
+                    q0 += 2.0 * ga * r0
+                    q1 += ga * r1
+                c0[p, s, lev] = (q0 - 2.0 * gs * gm) / n + gm * gm
+                gamma[p, s, lev] = (q1 - gh * gm - gm * gt + (n - 1.0) * gm * gm) / n
 
 
 class FieldSnapshot:
@@ -211,26 +262,28 @@ class FieldStatistics:
     def _alloc(self, L: int) -> None:
         P, M = self.P, self.M
         old = getattr(self, "nb", None)
+        # level-major: a level's state of neighbouring probes is contiguous, so a sweep over
+        # the probes streams through memory
         new = {
-            "nb": np.zeros((P, L), dtype=np.int64),
-            "S1": np.zeros((P, L, M)),
-            "Q0": np.zeros((P, L, M, M)),
-            "Q1": np.zeros((P, L, M, M)),
-            "first": np.zeros((P, L, M)),
-            "last": np.zeros((P, L, M)),
-            "pend": np.zeros((P, L, M)),
-            "pflag": np.zeros((P, L), dtype=np.bool_),
+            "nb": np.zeros((L, P), dtype=np.int64),
+            "S1": np.zeros((L, P, M)),
+            "Q0": np.zeros((L, P, M, M)),
+            "Q1": np.zeros((L, P, M, M)),
+            "first": np.zeros((L, P, M)),
+            "last": np.zeros((L, P, M)),
+            "pend": np.zeros((L, P, M)),
+            "pflag": np.zeros((L, P), dtype=np.bool_),
         }
         if old is not None:
-            L0 = old.shape[1]
+            L0 = old.shape[0]
             for k, arr in new.items():
-                arr[:, :L0] = getattr(self, k)
+                arr[:L0] = getattr(self, k)
         for k, arr in new.items():
             setattr(self, k, arr)
 
     @property
     def levels(self) -> int:
-        return int(self.nb.shape[1])
+        return int(self.nb.shape[0])
 
     def _targeted(self) -> tuple[str, ...]:
         return tuple(n for n in self.names if n in self.targets.targets)
@@ -241,7 +294,10 @@ class FieldStatistics:
 
     def update(self, x, valid=None) -> FieldStatistics:
         """Add snapshots ``x`` (n, P, m); ``valid`` (n, P) booleans (None: all valid)."""
-        x = np.ascontiguousarray(x, dtype=np.float64)
+        x = np.asarray(x)
+        if x.dtype not in (np.float32, np.float64):
+            x = x.astype(np.float64)
+        x = np.ascontiguousarray(x)
         if x.ndim != 3 or x.shape[1:] != (self.P, len(self.columns)):
             raise ValueError(f"expected (n, {self.P}, {len(self.columns)}) snapshots")
         n = x.shape[0]
@@ -303,27 +359,19 @@ class FieldStatistics:
             mono = self.tot / self.count[:, None]
             vals = self._values(mono)
             G = self._gradients(mono)
-            nb = self.nb.astype(np.float64)  # (P, L)
-            mu = self.S1[:, 0, :] / nb[:, :1]  # mean of the base blocks (P, M)
-            n_ = nb[:, :, None, None]
-            mumu = mu[:, None, :, None] * mu[:, None, None, :]
-            C0 = (self.Q0 - self.S1[..., :, None] * mu[:, None, None, :]
-                  - mu[:, None, :, None] * self.S1[..., None, :]) / n_ + mumu
-            head = self.S1 - self.last  # sum of all but the last block mean
-            tail = self.S1 - self.first  # all but the first
-            C1 = (self.Q1 - head[..., :, None] * mu[:, None, None, :]
-                  - mu[:, None, :, None] * tail[..., None, :]
-                  + (nb[:, :, None, None] - 1.0) * mumu) / n_
-            c0 = np.einsum("psa,plab,psb->psl", G, C0, G, optimize=True)
-            gamma = np.einsum("psa,plab,psb->psl", G, C1, G, optimize=True)
+        c0 = np.full((P, S, self.levels), np.nan)
+        gamma = np.full((P, S, self.levels), np.nan)
+        _field_forms(G, self.Q0, self.Q1, self.S1, self.first, self.last, self.nb, c0, gamma)
         var = np.full((P, S), np.nan)
         blocks = np.zeros((P, S), dtype=np.int64)
         rel = np.full((P, S), np.nan)
         # choose_level shares one block-count profile per call: probes with the same number of
         # valid samples have the same one (all of them, when nothing is masked)
-        profiles, inverse = np.unique(self.nb, axis=0, return_inverse=True)
-        for g, prof in enumerate(profiles):
-            rows = np.flatnonzero(inverse.ravel() == g)
+        # (the block counts of a probe follow from its number of valid samples alone)
+        counts, first_of, inverse = np.unique(self.count, return_index=True, return_inverse=True)
+        for g in range(counts.size):
+            rows = np.flatnonzero(inverse.ravel() == g) if counts.size > 1 else np.arange(P)
+            prof = self.nb[:, first_of[g]]
             if prof[0] < 2:
                 continue
             ch = choose_level(c0[rows].reshape(-1, self.levels),
