@@ -62,13 +62,14 @@ def main() -> None:
         f.snapshot()
         best_snap = min(best_snap, time.perf_counter() - t0)
     n = args.snapshots
-    print(f"field {args.nx} x {args.ny} vectors, 2 components, {n} snapshots, blocks of {args.block}")
+    print(f"field {args.nx} x {args.ny} vectors, 2 components, {n} snapshots, "
+          f"blocks of {args.block}")
     print(f"{'FieldStatistics.update':<34s} {n / best_f:10.0f} snapshots/s")
     print(f"{'numpy running sums (no errors)':<34s} {n / best_np:10.0f} snapshots/s"
           f"   ratio {best_np / best_f:.2f}")
     print(f"{'snapshot() (full analysis)':<34s} {best_snap:10.3f} s")
-    print(f"state: {sum(a.nbytes for a in vars(f).values() if isinstance(a, np.ndarray)) / 2**20:.0f}"
-          f" MiB for {f.levels} levels")
+    state = sum(a.nbytes for a in vars(f).values() if isinstance(a, np.ndarray)) / 2**20
+    print(f"state: {state:.0f} MiB for {f.levels} levels")
 
 
 if __name__ == "__main__":

@@ -152,7 +152,7 @@ def merge_repeats(results: list[dict]) -> list[dict]:
             g["lines"].append(line)
             g["sources"].append(r["recording"])
     out = []
-    for (stream, _), g in groups.items():
+    for g in groups.values():
         first, parts = g["lines"][0], g["lines"]
         rejected: dict[str, int] = {}
         for p in parts:

@@ -138,8 +138,6 @@ def _field_forms(G, Q0, Q1, S1, first, last, nb, c0, gamma):
     P, S, M = G.shape
     L = nb.shape[0]
     mu = np.empty(M)
-    h = np.empty(M)
-    t = np.empty(M)
     for p in range(P):
         if nb[0, p] < 1:
             continue

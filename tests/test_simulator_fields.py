@@ -64,7 +64,8 @@ def test_piv_scenario_through_the_pipeline_covers_the_truth(tmp_path):
         with np.load(tmp_path / line["field"]["file"]) as z:
             assert (z["count"] < sc.snapshots).any()  # 2 % invalid vectors were left out
             for name, truth in sc.truth().items():
-                hits += int(((z[name + "_ci_low"] <= truth) & (truth <= z[name + "_ci_high"])).sum())
+                lo, hi = z[name + "_ci_low"], z[name + "_ci_high"]
+                hits += int(((lo <= truth) & (truth <= hi)).sum())
                 total += sc.P
     coverage = hits / total
     print(f"piv scenario: coverage {coverage:.3f} over {total} intervals")
