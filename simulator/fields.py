@@ -10,8 +10,8 @@ time scale (a fixed linear combination of independent AR(1) series of one coeffi
 one); two vectors i, j are correlated by exactly K_i . K_j (the kernel rows), which on a grid
 fine against s is exp(-r^2 / (4 s^2)) at distance r, whose integral over r is the correlation
 length (a coarse rake is correlated less). The components are then mixed by the Cholesky
-factor of the vector's stress tensor and the mean added: the truth per vector is exactly ``mean`` and
-``stress`` (``k`` = ``names.k_from_normal_stresses``).
+factor of the vector's stress tensor and the mean added: the truth per vector is exactly
+``mean`` and ``stress`` (``k`` = ``names.k_from_normal_stresses``).
 
 Two built-in scenarios (invented, for trying the monitor):
 
