@@ -7,6 +7,8 @@ Prints side by side, in one run, snapshots per second of:
   them (the goal is at least 1000 snapshots/s);
 - a numpy baseline doing only running sums of u, v, uu, vv, uv per vector (no error bars at
   all): the floor that any accumulator of these values pays;
+- the ingest kernel alone (checkpoint evaluations switched off), to show what the geometric
+  checkpoints cost over a short run (their number grows only with log N);
 - one ``snapshot()`` (the full analysis: level choice, intervals, verdicts, ETAs) in seconds.
 
 Run: ``OPENBLAS_NUM_THREADS=1 NUMBA_NUM_THREADS=1 python benchmarks/bench_field.py
@@ -48,13 +50,19 @@ def main() -> None:
     blocks = [x[k : k + args.block] for k in range(0, args.snapshots, args.block)]
     FieldStatistics(("u", "v"), 4, 15.0).update(x[:300, :4])  # compile before timing
 
-    best_f, best_np, best_snap = np.inf, np.inf, np.inf
+    best_f, best_np, best_snap, best_k = np.inf, np.inf, np.inf, np.inf
     for _ in range(3):
         f = FieldStatistics(("u", "v"), P, 15.0)
         t0 = time.perf_counter()
         for b in blocks:
             f.update(b)
         best_f = min(best_f, time.perf_counter() - t0)
+        g = FieldStatistics(("u", "v"), P, 15.0)
+        g.next_check = 2**62  # the ingest kernel alone: no checkpoint evaluations
+        t0 = time.perf_counter()
+        for b in blocks:
+            g.update(b)
+        best_k = min(best_k, time.perf_counter() - t0)
         t0 = time.perf_counter()
         _numpy_sums(x, blocks)
         best_np = min(best_np, time.perf_counter() - t0)
@@ -65,6 +73,8 @@ def main() -> None:
     print(f"field {args.nx} x {args.ny} vectors, 2 components, {n} snapshots, "
           f"blocks of {args.block}")
     print(f"{'FieldStatistics.update':<34s} {n / best_f:10.0f} snapshots/s")
+    print(f"{'  of which ingest kernel alone':<34s} {n / best_k:10.0f} snapshots/s"
+          f"   (checkpoints: {best_f - best_k:.2f} s in all)")
     print(f"{'numpy running sums (no errors)':<34s} {n / best_np:10.0f} snapshots/s"
           f"   ratio {best_np / best_f:.2f}")
     print(f"{'snapshot() (full analysis)':<34s} {best_snap:10.3f} s")
