@@ -61,7 +61,7 @@ COMMAND_CODES = {
     "simulate": (0, 1, 2, 3, 4, 6, 8, 130),
     "demo": (0, 1, 2, 4, 5, 6, 8),
     "combine": (0, 1, 2, 4, 7, 8, 9),
-    "reprocess": (0, 1, 2, 3, 4, 5, 7, 8, 9),
+    "reprocess": (0, 1, 2, 3, 4, 5, 7, 8, 9, 130),
 }
 
 #: Remarks shown under a command's list where a code needs its context.

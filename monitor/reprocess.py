@@ -299,6 +299,10 @@ def run(args: argparse.Namespace) -> int:
         return _fail(exc.code, str(exc))
     except CombineError as exc:
         return _fail(ExitCode.CANNOT_COMBINE, str(exc))
+    except KeyboardInterrupt:
+        return _fail(ExitCode.STOPPED, "stopped before every recording was reprocessed")
+    except Exception as exc:  # a worker's failure comes back here: one line, no traceback
+        return _fail(ExitCode.ERROR, f"reprocessing failed ({type(exc).__name__}: {exc})")
     try:
         f = open_summary_file(args.summary, mode)
     except OutputRefused as exc:

@@ -112,6 +112,19 @@ def test_merged_repeats_equal_one_accumulator_over_all_samples(campaign, tmp_pat
     assert run["recordings"] == 4
 
 
+@pytest.mark.integration
+def test_an_unreachable_scheduler_is_an_endpoint_error(campaign, tmp_path, capsys):
+    pytest.importorskip("dask.distributed")
+    from conftest import free_port
+
+    base, _ = campaign
+    args = ["reprocess", str(base / "run0"), "--summary", str(tmp_path / "z.jsonl")]
+    code = cli.main([*args, "--dask", f"tcp://127.0.0.1:{free_port()}"])  # nobody listens
+    assert code == ExitCode.ENDPOINT
+    assert "cannot reach a Dask scheduler" in capsys.readouterr().err
+    assert not (tmp_path / "z.jsonl").exists()
+
+
 def test_reprocess_refusals_have_exit_codes(campaign, tmp_path, capsys, monkeypatch):
     base, _ = campaign
     out = str(tmp_path / "x.jsonl")
