@@ -25,6 +25,7 @@ COMMANDS = {
     "budget": ("eddyvigil.monitor.budget_cmd", "k budget across a traverse, with uncertainty"),
     "report": ("eddyvigil.monitor.report", "one offline HTML report of a run"),
     "plan": ("eddyvigil.monitor.plan_cmd", "share the facility time left among remaining points"),
+    "reprocess": ("eddyvigil.monitor.reprocess", "replay many recordings at once (Dask) into one summary"),
 }
 
 

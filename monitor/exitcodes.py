@@ -64,6 +64,7 @@ COMMAND_CODES = {
     "budget": (0, 1, 2, 4),
     "report": (0, 1, 2, 4, 8),
     "plan": (0, 1, 2, 4, 8),
+    "reprocess": (0, 1, 2, 3, 4, 5, 7, 8, 9, 130),
 }
 
 #: Remarks shown under a command's list where a code needs its context.
@@ -73,6 +74,8 @@ NOTES = {
     '"complete": false.',
     "simulate": "130: stopped before the traverse ended (its end message is still sent).",
     "demo": "Ctrl-C / SIGTERM ends the demo normally (0); a child's refusal is passed on.",
+    "reprocess": "3: the --dask scheduler cannot be reached; 2 also when --dask is asked for "
+    "and dask is not installed.",
 }
 
 

@@ -112,6 +112,9 @@ class _PointRun:
         self.withdrawn_at_s: float | None = None
         self.converged_clock: float | None = None
         self.history: dict[str, list[float]] = {"duration_s": []}
+        # rakes and fields (monitor.fields): the layout announced, the field statistics
+        self.layout_rake, self.layout_grid, self.layout_probes = None, None, None
+        self.field = None
 
     @property
     def point_id(self):
@@ -263,6 +266,9 @@ class Pipeline:
                 reason = self._on_samples_message(st, msg)
             elif isinstance(msg, wire.PointMessage):
                 self._on_point(st, msg.point)
+                if msg.n_probes is not None:  # a rake or field (monitor.fields)
+                    st.point.layout_rake, st.point.layout_grid = msg.probes, msg.grid
+                    st.point.layout_probes = msg.n_probes
             else:
                 self._on_end(st, counts_message=True)
         if reason is not None:
@@ -333,6 +339,10 @@ class Pipeline:
     def _on_samples_message(self, st: _StreamState, msg) -> str | None:
         if msg.point is not None and (st.point is None or msg.point.get("id") != st.point.point_id):
             self._on_point(st, msg.point)
+        if msg.probes is not None or (st.point is not None and st.point.field is not None):
+            from eddyvigil.monitor import fields
+
+            return fields.feed(self, st, msg)
         times = msg.times
         return self._feed_block(
             st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0, msg.units
@@ -566,6 +576,12 @@ class Pipeline:
         if run.stats is not None and (run.snapshot is None or run.stale):
             self._take_stats_snapshot(st, run)
         line = self._point_line(st, run, complete)
+        if run.field is not None:  # a rake or field: per-vector arrays go to a file
+            from eddyvigil.monitor import fields
+
+            paths = self._writer.file_paths()
+            scalars, line["field"] = fields.finish(run, st.name, paths[0] if paths else None)
+            line.update(scalars)
         self._writer.write(line)
         st.finished.append(line)
         st.last_history = run.history

@@ -154,6 +154,11 @@ class SummaryWriter:
         self.lines_written += 1
         return text
 
+    def file_paths(self) -> list[str]:
+        """Paths of the sinks that are files on disk (rakes/fields write beside the first)."""
+        names = [getattr(f, "name", None) for f in self._files]
+        return [n for n in names if isinstance(n, str) and os.path.isfile(n)]
+
     def write_all(self, lines: Iterable[Mapping]) -> None:
         for line in lines:
             self.write(line)

@@ -22,6 +22,20 @@ Choices made where DESIGN leaves room:
 - ``point`` (required on point messages, optional on samples): an object with a non-empty string
   ``id``; ``x``, ``y``, ``z`` finite numbers and ``nu`` a positive finite number when present,
   ``note`` a string when present.
+
+Rakes and fields (DESIGN §13, a compatible extension: a message without the new fields decodes
+exactly as before):
+
+- ``"probes": P`` (an integer >= 1) on a samples header: the frame holds ``n x P x
+  len(columns)`` values and ``data`` is (n, P, len(columns)). ``t`` and ``weight`` columns are
+  refused with ``probes`` (a rake or field is sampled uniformly: ``rate_hz`` is required).
+- ``valid`` (only with ``probes``): 0 or 1 per row and probe, else ``bad_field``. The
+  velocities of a vector marked 0 are never read, so they may be NaN (as PIV software writes
+  rejected vectors); every vector marked 1 must be finite (``non_finite``).
+- On a point message, ``"probes": [{"id", "x", "y", "z"}, ...]`` (a rake: non-empty ids,
+  finite coordinates) or ``"grid": {"x0", "dx", "nx", "y0", "dy", "ny"}`` (a field, row-major,
+  P = nx*ny: finite origins, positive finite spacings, integer counts >= 1), not both; they
+  sit in the header beside ``point``, so the summary's ``point`` object stays small.
 """
 
 from __future__ import annotations
@@ -73,6 +87,9 @@ SAMPLE_DTYPES: tuple[str, ...] = ("<f4", "<f8")
 
 _KIND_FRAMES = {"samples": 3, "point": 2, "end": 2}
 _NON_VELOCITY = ("t", "weight")
+_NON_VELOCITY_PROBES = ("t", "weight", "valid")
+#: Probes of one rake/field message at most (a 1024 x 1024 PIV field).
+MAX_PROBES = 2**20
 
 
 # --------------------------------------------------------------------------- messages
@@ -93,6 +110,7 @@ class SamplesMessage:
     units: str
     point: dict | None
     header: dict
+    probes: int | None = None  # P of a rake/field: data is then (n, P, len(columns))
 
     @property
     def n(self) -> int:
@@ -101,16 +119,26 @@ class SamplesMessage:
 
     @property
     def velocity_columns(self) -> tuple[str, ...]:
-        """Column names without ``t`` and ``weight``, in wire order."""
-        return tuple(c for c in self.columns if c not in _NON_VELOCITY)
+        """Column names without ``t`` and ``weight`` (and ``valid`` with probes), in wire order."""
+        skip = _NON_VELOCITY if self.probes is None else _NON_VELOCITY_PROBES
+        return tuple(c for c in self.columns if c not in skip)
 
     @property
     def velocity(self) -> np.ndarray:
-        """(n, m) velocity: ``data`` itself if it has no ``t``/``weight`` column, else a copy."""
+        """(n, m) velocity (or (n, P, m) with probes): ``data`` itself if it holds velocity
+        columns only, else a copy."""
         if len(self.velocity_columns) == len(self.columns):
             return self.data
-        idx = [i for i, c in enumerate(self.columns) if c not in _NON_VELOCITY]
-        return self.data[:, idx]
+        keep = set(self.velocity_columns)
+        idx = [i for i, c in enumerate(self.columns) if c in keep]
+        return self.data[..., idx]
+
+    @property
+    def valid(self) -> np.ndarray | None:
+        """(n, P) boolean mask of the ``valid`` column of a rake/field message, or None."""
+        if self.probes is None or "valid" not in self.columns:
+            return None
+        return self.data[..., self.columns.index("valid")] == 1
 
     @property
     def times(self) -> np.ndarray | None:
@@ -125,7 +153,7 @@ class SamplesMessage:
     def _column(self, name: str) -> np.ndarray | None:
         if name not in self.columns:
             return None
-        return self.data[:, self.columns.index(name)]
+        return self.data[..., self.columns.index(name)]
 
 
 @dataclass(frozen=True)
@@ -137,6 +165,17 @@ class PointMessage:
     seq: int
     point: dict
     header: dict
+    probes: tuple[dict, ...] | None = None  # a rake's probes (DESIGN §13)
+    grid: dict | None = None  # a field's grid: x0, dx, nx, y0, dy, ny
+
+    @property
+    def n_probes(self) -> int | None:
+        """P of the rake or field this point message announces, or None (one probe)."""
+        if self.probes is not None:
+            return len(self.probes)
+        if self.grid is not None:
+            return int(self.grid["nx"]) * int(self.grid["ny"])
+        return None
 
 
 @dataclass(frozen=True)
@@ -189,7 +228,8 @@ def encode_samples(
 ) -> list:
     """Frames of one samples message: ``[topic, header, samples]``.
 
-    ``data`` is (n, len(columns)) float32 or float64 (1-D is accepted for one column). The
+    ``data`` is (n, len(columns)) float32 or float64 (1-D is accepted for one column), or
+    (n, P, len(columns)) for a rake or field (the header then says ``"probes": P``). The
     samples frame is the array itself when it is already C-contiguous little-endian (no copy;
     send it with ``copy=False``). Values are not checked (fault injection sends bad ones on
     purpose); ``extra`` header fields are added last and may override the standard ones.
@@ -203,7 +243,8 @@ def encode_samples(
     columns = tuple(columns)
     if arr.ndim == 1 and len(columns) == 1:
         arr = arr.reshape(-1, 1)
-    if arr.ndim != 2 or arr.shape[1] != len(columns):
+    probes = arr.shape[1] if arr.ndim == 3 else None  # a rake or field (DESIGN §13)
+    if arr.ndim not in (2, 3) or arr.shape[-1] != len(columns):
         raise ValueError(f"data of shape {arr.shape} does not match {len(columns)} columns")
     if arr.dtype.kind != "f" or arr.dtype.itemsize not in (4, 8):
         raise ValueError(f"data must be float32 or float64, not {arr.dtype}")
@@ -217,6 +258,8 @@ def encode_samples(
         t0=float(t0),
         units=units,
     )
+    if probes is not None:
+        header["probes"] = int(probes)
     if point is not None:
         header["point"] = dict(point)
     if extra:
@@ -322,7 +365,16 @@ def _decode_samples(
         or len(set(columns)) != len(columns)
     ):
         raise _Reject("bad_field", "columns must be a non-empty list of unique non-empty strings")
-    if all(c in _NON_VELOCITY for c in columns):
+    probes = header.get("probes")
+    if probes is not None:
+        if not _is_int(probes) or not 1 <= probes <= MAX_PROBES:
+            raise _Reject("bad_field", f"probes must be an integer from 1 to {MAX_PROBES}")
+        if "t" in columns or "weight" in columns:
+            raise _Reject("bad_field", "a rake/field message (probes) takes no t or weight column")
+    elif "probes" in header:
+        raise _Reject("bad_field", "probes must be an integer >= 1, not null")
+    skip = _NON_VELOCITY if probes is None else _NON_VELOCITY_PROBES
+    if all(c in skip for c in columns):
         raise _Reject("bad_field", "columns hold no velocity component")
     if not isinstance(dtype, str) or dtype not in SAMPLE_DTYPES:
         raise _Reject("bad_dtype", f"dtype must be one of {SAMPLE_DTYPES}, not {dtype!r}"[:200])
@@ -348,6 +400,9 @@ def _decode_samples(
 
     itemsize = 4 if dtype == "<f4" else 8
     m = len(columns)
+    if probes is not None:
+        return _decode_probes(header, stream, session, seq, payload, columns, dtype, n, probes,
+                              rate_hz, t0, units, point)
     expected = n * m * itemsize
     if payload.nbytes != expected:
         raise _Reject(
@@ -377,6 +432,79 @@ def _decode_samples(
         point=point,
         header=header,
     )
+
+
+def _decode_probes(header, stream, session, seq, payload, columns, dtype, n, probes, rate_hz,
+                   t0, units, point) -> SamplesMessage:
+    """The samples of a rake or field: (n, P, m); ``valid`` 0/1; NaN allowed where invalid."""
+    itemsize = 4 if dtype == "<f4" else 8
+    m = len(columns)
+    expected = n * probes * m * itemsize
+    if payload.nbytes != expected:
+        raise _Reject(
+            "bad_shape",
+            f"samples frame holds {payload.nbytes} bytes, expected "
+            f"{n}x{probes}x{m}x{itemsize} = {expected}",
+        )
+    data = np.frombuffer(payload, dtype=np.dtype(dtype)).reshape(n, probes, m)
+    data.flags.writeable = False
+    if "valid" in columns:
+        flag = data[..., columns.index("valid")]
+        if not bool(((flag == 0) | (flag == 1)).all()):
+            raise _Reject("bad_field", "the valid column must hold 0 or 1")
+        vel = [i for i, c in enumerate(columns) if c != "valid"]
+        good = flag == 1
+        if not bool(np.isfinite(data[..., vel])[good].all()):
+            raise _Reject("non_finite", "NaN or infinity in a vector marked valid")
+    elif not _all_finite(data):
+        raise _Reject("non_finite", "NaN or infinity among the samples")
+    return SamplesMessage(
+        stream=stream,
+        session=session,
+        seq=seq,
+        columns=tuple(columns),
+        dtype=dtype,
+        data=data,
+        rate_hz=float(rate_hz),
+        t0=float(t0),
+        units=units,
+        point=point,
+        header=header,
+        probes=int(probes),
+    )
+
+
+def _check_layout(header: dict) -> tuple[tuple[dict, ...] | None, dict | None]:
+    """``probes`` (a rake) or ``grid`` (a field) of a point message, checked (DESIGN §13)."""
+    probes, grid = header.get("probes"), header.get("grid")
+    if probes is not None and grid is not None:
+        raise _Reject("bad_field", "a point message carries probes or grid, not both")
+    if probes is not None:
+        if not isinstance(probes, list) or not 1 <= len(probes) <= MAX_PROBES:
+            raise _Reject("bad_field", "probes must be a non-empty list of probe objects")
+        for p in probes:
+            if not isinstance(p, dict) or not isinstance(p.get("id"), str) or not p["id"]:
+                raise _Reject("bad_field", "every probe needs a non-empty string id")
+            for key in ("x", "y", "z"):
+                if key in p and not _finite_number(p[key]):
+                    raise _Reject("bad_field", f"probe {key} must be a finite number (m)")
+        return tuple(probes), None
+    if grid is not None:
+        if not isinstance(grid, dict):
+            raise _Reject("bad_field", "grid must be a JSON object")
+        for key in ("x0", "y0"):
+            if not _finite_number(grid.get(key)):
+                raise _Reject("bad_field", f"grid {key} must be a finite number (m)")
+        for key in ("dx", "dy"):
+            if not (_finite_number(grid.get(key)) and grid[key] > 0):
+                raise _Reject("bad_field", f"grid {key} must be a positive finite number (m)")
+        for key in ("nx", "ny"):
+            if not (_is_int(grid.get(key)) and grid[key] >= 1):
+                raise _Reject("bad_field", f"grid {key} must be an integer >= 1")
+        if grid["nx"] * grid["ny"] > MAX_PROBES:
+            raise _Reject("bad_field", f"grid of more than {MAX_PROBES} vectors")
+        return None, grid
+    return None, None
 
 
 def _decode(frames: Any, max_message_bytes: int, ids: list) -> Message:
@@ -441,6 +569,10 @@ def _decode(frames: Any, max_message_bytes: int, ids: list) -> Message:
         return _decode_samples(header, stream, session, seq, views[2])
     if kind == "point":
         point = _check_point(_require(header, "point"))
+        if "probes" in header or "grid" in header:
+            probes, grid = _check_layout(header)
+            return PointMessage(stream=stream, session=session, seq=seq, point=point,
+                                header=header, probes=probes, grid=grid)
         return PointMessage(stream=stream, session=session, seq=seq, point=point, header=header)
     return EndMessage(stream=stream, session=session, seq=seq, header=header)
 

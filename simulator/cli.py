@@ -144,6 +144,13 @@ def run(args: argparse.Namespace) -> int:
     def _fail(code, message):
         return fail("simulate", code, message)
 
+    from eddyvigil.simulator.fields import FIELD_SCENARIOS
+
+    if args.scenario in FIELD_SCENARIOS:  # a rake or PIV field (simulator/fields.py)
+        from eddyvigil.simulator.fields import run_field
+
+        return run_field(args)
+
     try:
         scenario = load_scenario(args.scenario).with_rate(args.rate)
     except ScenarioError as e:

@@ -1,0 +1,112 @@
+"""Rakes and fields in the pipeline: samples with ``probes`` feed a field accumulator.
+
+The pipeline hands every samples message that carries ``probes`` (DESIGN §13), and every
+samples message of a point that already is a rake or field, to :func:`feed`; the point's
+statistics are then a :class:`~eddyvigil.stats.field.FieldStatistics` (``run.field``) instead
+of a ``PointStatistics``. When the point finishes, :func:`finish` writes the per-vector arrays
+to an ``.npz`` file beside the summary and returns the point line's ``field`` object:
+``{"file", "format": "npz", "probes", "converged_fraction", ...}``.
+
+Choices made where DESIGN leaves room:
+
+- The point line of a rake/field keeps the scalar fields (``samples`` = snapshots,
+  ``duration_s``, counts, ``converged`` = the field verdict, ``converged_at_s``) and an empty
+  ``statistics`` list: per-vector values belong in the file, not in one JSON line.
+- The file is ``<summary name>.fields/<stream>-<point index>-<point id>.npz`` and ``file`` is its
+  path relative to the summary's folder. Without a summary file (standard output, in-process
+  use) no file is written and ``file`` is null; the line still says the converged fraction.
+- The file holds, per statistic (``U``, ``V``, ``uu``, ``vv``, ``uv``, ``k``...), arrays of
+  length P: ``<name>``, ``<name>_stderr``, ``<name>_ci_low``, ``<name>_ci_high``,
+  ``<name>_target``, ``<name>_converged``, ``<name>_eta_s``; and ``count`` (valid samples per
+  vector), ``converged`` (every target of the vector met), and the layout: ``x``, ``y``, ``z``
+  and ``id`` of a rake's probes, or ``grid`` (x0, dx, nx, y0, dy, ny) of a field.
+- A samples message whose ``probes``, columns or rate differ from the point's first one, or
+  that differs from the P the point message announced, is rejected (``layout_changed``);
+  different ``units`` as for one probe (``units_changed``).
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+
+import numpy as np
+
+__all__ = ["feed", "finish", "field_file_path"]
+
+
+def feed(pipeline, st, msg) -> str | None:
+    """Add a samples message to the point's field statistics; returns a rejection reason."""
+    from eddyvigil.stats.field import FieldStatistics
+
+    run = st.point if st.point is not None else pipeline._start_point(st, None)
+    if msg.probes is None or (run.stats is not None):
+        return "layout_changed"  # one probe's samples on a field, or a field on one probe
+    announced = run.layout_probes
+    if announced is not None and msg.probes != announced:
+        return "layout_changed"
+    columns = msg.velocity_columns
+    if run.units is not None and msg.units != run.units:
+        return "units_changed"
+    if run.field is None:
+        run.units = msg.units
+        run.columns, run.rate_hz = columns, msg.rate_hz
+        run.field = FieldStatistics(columns, msg.probes, msg.rate_hz, targets=pipeline.targets,
+                                    fraction=getattr(pipeline, "field_fraction", 1.0))
+    elif columns != run.columns or msg.rate_hz != run.rate_hz or msg.probes != run.field.P:
+        return "layout_changed"
+    run.field.update(msg.velocity, msg.valid)
+    st.samples += msg.n
+    st.rate_hz = msg.rate_hz
+    return None
+
+
+def field_file_path(summary_path, stream: str, index: int, point_id) -> Path:
+    """Where a point's per-vector arrays go, beside the summary file."""
+    summary_path = Path(summary_path)
+    safe = re.sub(r"[^A-Za-z0-9._-]+", "_", f"{stream}-{index}-{point_id}")
+    return summary_path.parent / (summary_path.name + ".fields") / f"{safe}.npz"
+
+
+def finish(run, stream: str, summary_path) -> tuple[dict, dict]:
+    """``(scalar fields, field object)`` of a finished rake/field point; writes its file."""
+    snap = run.field.snapshot()
+    scalars = {
+        "samples": int(snap.snapshots),
+        "duration_s": float(snap.duration_s),
+        "converged": bool(snap.field_converged),
+        "converged_at_s": snap.converged_at_s,
+    }
+    obj = {
+        "file": None,
+        "format": "npz",
+        "probes": int(snap.probes),
+        "converged_fraction": float(snap.converged_fraction),
+        "fraction_required": float(snap.fraction),
+        "eta_slowest_decile_s": (None if not math.isfinite(snap.eta_slowest_decile_s)
+                                 else float(snap.eta_slowest_decile_s)),
+        "statistics": list(snap.names),
+    }
+    if summary_path is None:
+        return scalars, obj
+    path = field_file_path(summary_path, stream, run.index, run.point.get("id"))
+    arrays = snap.arrays()
+    if run.layout_rake is not None:
+        arrays["id"] = np.array([str(p["id"]) for p in run.layout_rake])
+        for key in ("x", "y", "z"):
+            arrays[key] = np.array([float(p.get(key, math.nan)) for p in run.layout_rake])
+    if run.layout_grid is not None:
+        g = run.layout_grid
+        arrays["grid"] = np.array([g["x0"], g["dx"], g["nx"], g["y0"], g["dy"], g["ny"]], float)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp = path.with_name(path.name + ".part")
+        with open(tmp, "wb") as f:
+            np.savez(f, **arrays)
+        tmp.replace(path)
+    except OSError as exc:
+        obj["error"] = f"cannot write the per-vector file: {exc.strerror or exc}"
+        return scalars, obj
+    obj["file"] = str(path.relative_to(Path(summary_path).parent))
+    return scalars, obj
