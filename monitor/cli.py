@@ -21,6 +21,7 @@ COMMANDS = {
     "watch": ("eddyvigil.monitor.watch", "monitor a live stream"),
     "replay": ("eddyvigil.monitor.replay", "feed a recording through the same path as live data"),
     "export": ("eddyvigil.monitor.export", "write recorded samples and summaries to open formats"),
+    "keys": ("eddyvigil.monitor.keys", "write CURVE key pairs for the --curve-* options"),
 }
 
 

@@ -40,7 +40,8 @@ MEANINGS = {
     ExitCode.USAGE: "bad command line (unknown option, bad value, optional package missing)",
     ExitCode.ENDPOINT: "bad endpoint (malformed, port outside 1-65535, unknown host, "
     "cannot connect or bind)",
-    ExitCode.INPUT_FILE: "an input file is unreadable or malformed (targets, scenario)",
+    ExitCode.INPUT_FILE: "an input file is unreadable or malformed (targets, scenario, "
+    "CURVE key)",
     ExitCode.OUTPUT_EXISTS: "an output already exists: a recording in --record DIR or the "
     "--summary FILE (say --append / --summary-mode to add to it)",
     ExitCode.ADDRESS_IN_USE: "address already in use (a bound socket or the dashboard port)",
@@ -57,6 +58,7 @@ COMMAND_CODES = {
     "export": (0, 1, 2, 7, 8),
     "simulate": (0, 1, 2, 3, 4, 6, 8, 130),
     "demo": (0, 1, 2, 4, 5, 6, 8),
+    "keys": (0, 1, 2, 5, 8),
 }
 
 #: Remarks shown under a command's list where a code needs its context.
@@ -66,6 +68,7 @@ NOTES = {
     '"complete": false.',
     "simulate": "130: stopped before the traverse ended (its end message is still sent).",
     "demo": "Ctrl-C / SIGTERM ends the demo normally (0); a child's refusal is passed on.",
+    "keys": "5: a key file of that name exists in DIR (keys are never overwritten).",
 }
 
 

@@ -18,6 +18,12 @@ Size limit. The application limit (``--max-message-mb``) is enforced by
 ``MAXMSGSIZE``, which disconnects a peer without telling anyone, is only set as a far higher
 memory ceiling (:data:`MAXMSGSIZE_FACTOR` times the limit), and a disconnect it causes shows up
 as a transport event.
+
+CURVE. With a :class:`eddyvigil.monitor.keys.Gatekeeper` (``curve=``) the socket is the CURVE
+server (whether it binds or connects), the gatekeeper's ZAP handler runs on the socket's
+context, handshake failures are counted by the gatekeeper, and its notices of refused peers
+are passed to ``on_event``; the connect/disconnect chatter of a refused peer retrying every
+0.1 s is not (it would flood the terminal).
 """
 
 from __future__ import annotations
@@ -68,6 +74,17 @@ for _name, _text in (
         _EVENT_TEXT[getattr(zmq, _name)] = _text
 
 
+_HANDSHAKE_FAILED = {
+    getattr(zmq, name)
+    for name in ("EVENT_HANDSHAKE_FAILED_NO_DETAIL", "EVENT_HANDSHAKE_FAILED_PROTOCOL",
+                 "EVENT_HANDSHAKE_FAILED_AUTH")
+    if hasattr(zmq, name)
+}
+_HANDSHAKE_FAILED_AUTH = getattr(zmq, "EVENT_HANDSHAKE_FAILED_AUTH", None)
+_PEER_CHATTER = {zmq.EVENT_CONNECTED, zmq.EVENT_ACCEPTED, zmq.EVENT_DISCONNECTED,
+                 zmq.EVENT_CLOSED}
+
+
 #: Kept under their old names: the errors of :mod:`eddyvigil.monitor.transport`.
 SubscriberError = EndpointError
 
@@ -91,6 +108,8 @@ class Subscriber:
         Receive high-water mark in messages.
     context : zmq.Context, optional
         Defaults to a private context, terminated by :meth:`close`.
+    curve : eddyvigil.monitor.keys.Gatekeeper, optional
+        CURVE server keys and allowed publishers; None (default) leaves the socket open to all.
     """
 
     def __init__(
@@ -103,6 +122,7 @@ class Subscriber:
         max_message_bytes: int = 256 * 2**20,
         rcvhwm: int = DEFAULT_RCVHWM,
         context: zmq.Context | None = None,
+        curve=None,
     ):
         if socket not in ("sub", "pull"):
             raise SubscriberError(f"socket must be 'sub' or 'pull', not {socket!r}")
@@ -111,9 +131,16 @@ class Subscriber:
         self._ctx = context if context is not None else zmq.Context()
         self._stop = threading.Event()
         kind = zmq.SUB if socket == "sub" else zmq.PULL
+        self.curve = curve
+        self._quiet_until = -float("inf")
         try:
-            self.socket = open_socket(self._ctx, kind, endpoint, bind=bind)
+            if curve is not None:
+                curve.start(self._ctx)
+            self.socket = open_socket(self._ctx, kind, endpoint, bind=bind,
+                                      options=curve.options if curve is not None else None)
         except SubscriberError:
+            if curve is not None:
+                curve.stop()
             if self._own_ctx:
                 self._ctx.term()
             raise
@@ -173,6 +200,8 @@ class Subscriber:
             ready = dict(poller.poll(poll_ms))
             if self._monitor in ready:
                 self._drain_events(on_event)
+            if self.curve is not None:
+                self._curve_notices(on_event)
             if self.socket in ready:
                 for _ in range(DRAIN_BATCH):
                     try:
@@ -189,12 +218,19 @@ class Subscriber:
                 next_tick = now + tick_interval_s
                 on_tick()
 
+    @property
+    def refused_peers(self) -> int | None:
+        """Peers refused by CURVE (None without CURVE)."""
+        return None if self.curve is None else self.curve.refused_peers
+
     def _drain_events(self, on_event) -> None:
         while True:
             try:
                 evt = recv_monitor_message(self._monitor, zmq.NOBLOCK)
             except zmq.Again:
-                return
+                break
+            if self.curve is not None and self._curve_event(evt, on_event):
+                continue
             kind = evt.get("event")
             if kind in (zmq.EVENT_CONNECTED, zmq.EVENT_ACCEPTED):
                 self.peer_seen = True
@@ -216,6 +252,26 @@ class Subscriber:
                 self._last_event = (kind, addr)
                 on_event(f"{time.strftime('%H:%M:%S')} {text} {addr or self.endpoint}")
 
+    def _curve_event(self, evt: dict, on_event) -> bool:
+        """Count a handshake failure; True if the event is not to be shown (refused peer)."""
+        kind = evt.get("event")
+        if kind in _HANDSHAKE_FAILED:
+            self._quiet_until = time.monotonic() + 1.0
+            if kind != _HANDSHAKE_FAILED_AUTH:  # a ZAP refusal is counted by its key instead
+                self.curve.handshake_failed(
+                    f"{time.strftime('%H:%M:%S')} {_EVENT_TEXT.get(kind, 'handshake failed')} "
+                    f"{self.endpoint}")
+            return True
+        if kind in (zmq.EVENT_CONNECTED, zmq.EVENT_ACCEPTED):
+            self.peer_seen = True
+        return time.monotonic() < self._quiet_until and kind in _PEER_CHATTER
+
+    def _curve_notices(self, on_event) -> None:
+        if self.curve is not None:
+            for text in self.curve.notices():
+                if on_event is not None:
+                    on_event(text)
+
     def close(self) -> None:
         """Close both sockets with LINGER 0 (and the private context)."""
         try:
@@ -224,5 +280,7 @@ class Subscriber:
             pass
         self._monitor.close(linger=0)
         self.socket.close(linger=0)
+        if self.curve is not None:
+            self.curve.stop()
         if self._own_ctx:
             self._ctx.term()

@@ -137,6 +137,19 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help=f"receive queue depth in messages (default {DEFAULT_RCVHWM})",
     )
     p.add_argument("--quiet", action="store_true", help="no status line")
+    curve = p.add_argument_group(
+        "CURVE (encryption and publisher authentication; watch is the CURVE server)"
+    )
+    curve.add_argument(
+        "--curve-secret",
+        metavar="FILE",
+        help="the monitor's key pair, e.g. DIR/monitor.key_secret from `eddyvigil keys DIR`",
+    )
+    curve.add_argument(
+        "--curve-allow",
+        metavar="KEYDIR",
+        help="accept only publishers whose public key (*.key) is in KEYDIR (read at start)",
+    )
 
 
 def add_summary_mode(p: argparse.ArgumentParser) -> None:
@@ -325,6 +338,16 @@ def run(args: argparse.Namespace) -> int:
             check_endpoint(args.control, bind=True)
     except SubscriberError as exc:
         return _fail(ExitCode.ENDPOINT, str(exc))
+    curve = None
+    if (args.curve_secret is None) != (args.curve_allow is None):
+        return _fail(ExitCode.USAGE, "--curve-secret and --curve-allow go together")
+    if args.curve_secret is not None:
+        from eddyvigil.monitor.keys import Gatekeeper, KeyFileError
+
+        try:
+            curve = Gatekeeper(args.curve_secret, args.curve_allow)
+        except KeyFileError as exc:
+            return _fail(ExitCode.INPUT_FILE, str(exc))
     mode = summary_mode(args.summary_mode, args.append)
     try:
         if args.summary:
@@ -350,6 +373,7 @@ def run(args: argparse.Namespace) -> int:
                 streams=args.stream,
                 max_message_bytes=max_bytes,
                 rcvhwm=args.rcvhwm,
+                curve=curve,
             )
         except AddressInUseError as exc:
             return _fail(ExitCode.ADDRESS_IN_USE, str(exc))
@@ -411,9 +435,11 @@ def run(args: argparse.Namespace) -> int:
         silence = {"said": False}
         if not args.quiet:
             verb = "bound at" if args.bind else "connecting to"
+            secured = (f" (CURVE: {len(curve.allowed)} publisher key(s) allowed)"
+                       if curve is not None else "")
             print(
-                f"eddyvigil watch: {args.socket.upper()} socket {verb} {endpoint}; waiting for "
-                "the first message",
+                f"eddyvigil watch: {args.socket.upper()} socket {verb} {endpoint}{secured}; "
+                "waiting for the first message",
                 file=sys.stderr,
                 flush=True,
             )
@@ -423,7 +449,10 @@ def run(args: argparse.Namespace) -> int:
             if args.no_dashboard and pipeline.all_ended:
                 sub.stop()
 
+        pipeline.refused_peers = sub.refused_peers
+
         def on_event(text):
+            pipeline.refused_peers = sub.refused_peers
             status.event(text)
             pipeline.transport_event(text)
 
@@ -454,6 +483,7 @@ def run(args: argparse.Namespace) -> int:
             if code:
                 return code
         status.done()
+        pipeline.refused_peers = sub.refused_peers
         pipeline.close()
         if recorder is not None:
             recorder.flush()
