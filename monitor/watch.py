@@ -262,31 +262,31 @@ class StatusPrinter:
             self._stream.flush()
 
 
-def prepare_kernels(quiet: bool = False, notice_after_s: float = 5.0) -> float:
-    """Load the statistics kernels before any socket opens (see ``stats/warmup.py``).
+def start_kernel_warmup(quiet: bool = False, notice_after_s: float = 5.0):
+    """Start loading the statistics kernels in the background (see ``stats/warmup.py``).
 
-    On the first start after installing they compile for about 20 s; loading them later
-    takes well under 2 s. A notice is shown only when it takes longer than
-    ``notice_after_s``, i.e. when they are really being compiled. Returns the seconds taken.
+    The socket opens meanwhile; messages are kept in order until the kernels are ready. On
+    the first start after installing they compile for about 20 s; loading them later takes
+    well under 2 s. A notice is shown only when ``ready`` takes longer than
+    ``notice_after_s``, i.e. when they are really being compiled. Returns the
+    :class:`eddyvigil.stats.warmup.KernelWarmup` (``ready``, ``done`` events).
     """
-    from eddyvigil.stats.warmup import prepare_kernels as prepare
+    from eddyvigil.stats.warmup import KernelWarmup
 
-    notice = threading.Timer(
-        notice_after_s,
-        lambda: print(
-            "eddyvigil: compiling the statistics kernels (once after installing: about 20 s "
-            "more); no socket is open yet",
-            file=sys.stderr,
-            flush=True,
-        ),
-    )
-    notice.daemon = True
+    warm = KernelWarmup()
+
+    def notice():
+        if not warm.ready.wait(notice_after_s):
+            print(
+                "eddyvigil: compiling the statistics kernels (once after installing: about 20 s"
+                "); messages arriving meanwhile are kept in order and counted after it",
+                file=sys.stderr,
+                flush=True,
+            )
+
     if not quiet:
-        notice.start()
-    try:
-        return prepare()
-    finally:
-        notice.cancel()
+        threading.Thread(target=notice, name="eddyvigil-warmup-notice", daemon=True).start()
+    return warm.start()
 
 
 def write_settings(directory: Path, targets, max_message_bytes: int) -> None:
@@ -362,7 +362,7 @@ def run(args: argparse.Namespace) -> int:
             code = ExitCode.ADDRESS_IN_USE if "in use" in why else ExitCode.ENDPOINT
             return _fail(code, f"dashboard: {why}; choose another with --port / --host")
 
-    prepare_kernels(quiet=args.quiet)
+    warm = start_kernel_warmup(quiet=args.quiet)
     closers = []
     try:
         try:
@@ -419,6 +419,7 @@ def run(args: argparse.Namespace) -> int:
         if not sinks:
             sinks = [terminal_summary_sink("watch", args.quiet)]
 
+        warm.imported.wait()  # numba and scipy loaded once, by the warm-up thread
         from eddyvigil.monitor.pipeline import Pipeline
         from eddyvigil.monitor.summary import SummaryWriter
 
@@ -473,7 +474,7 @@ def run(args: argparse.Namespace) -> int:
             status.tick(pipeline.snapshot)
 
         def acquire():
-            sub.run(on_frames, on_event=on_event, on_tick=on_tick)
+            sub.run(on_frames, on_event=on_event, on_tick=on_tick, ready=warm.ready)
 
         if args.no_dashboard:
             install_stop_signals(sub.stop)
