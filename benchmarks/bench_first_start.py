@@ -123,8 +123,9 @@ def main() -> int:
             cache = tempfile.mkdtemp(prefix="numba-cache-", dir=work)
             for label in ("empty", "warm"):
                 t = one_start(cache, a.dashboard, Path(work))
-                print(f"{r:5d} {label:>6} {t['ready']:8.2f} {t.get('first point', float('nan')):11.2f}"
-                      f" {t.get('exit', float('nan')):7.2f} {str(t['samples ok']):>10}", flush=True)
+                nan = float("nan")
+                print(f"{r:5d} {label:>6} {t['ready']:8.2f} {t.get('first point', nan):11.2f}"
+                      f" {t.get('exit', nan):7.2f} {str(t['samples ok']):>10}", flush=True)
     return 0
 
 
