@@ -87,9 +87,14 @@ def write_keys(directory: str | os.PathLike) -> list[Path]:
     existing = [p for p in targets if p.exists()]
     if existing:
         raise FileExistsError(", ".join(str(p) for p in existing))
-    for name in KEY_NAMES:
-        _, secret = zmq.auth.create_certificates(d, name)
-        os.chmod(secret, 0o600)
+    old_mask = os.umask(0o077)  # a secret file is never readable by others, not even briefly
+    try:
+        for name in KEY_NAMES:
+            public, secret = zmq.auth.create_certificates(d, name)
+            os.chmod(secret, 0o600)
+            os.chmod(public, 0o644)
+    finally:
+        os.umask(old_mask)
     return targets
 
 
