@@ -15,8 +15,9 @@ Set-up (all real processes on 127.0.0.1):
 - one process sending a malformed message (random bytes, broken JSON, wrong shape, in turn)
   every ``--garbage-every`` seconds;
 - ``--browsers`` headless Chromium pages that open the dashboard, stay, reload, go away and
-  come back at random (seeded), reading how old the newest point of the selected stream's
-  trace is (lag).
+  come back at random (seeded), each showing stream ``s00`` and reading how far the newest
+  sample of its trace is behind real time (lag: wall time since the publisher's sample clock
+  started minus the sample's stream time; it includes any lag of the publisher itself).
 
 Every ``--sample-every`` seconds: watch's RSS, open file descriptors, threads, CPU share,
 dashboard connections, and the latest page lag. At the end every message is accounted for:
@@ -191,6 +192,10 @@ class Browsers:
         for _ in range(300):
             if d.execute_script("return window.Bokeh !== undefined && Bokeh.documents.length > 0"):
                 self.loads.append(time.monotonic() - t)
+                # show the first stream of the paced publisher (its clock's start is known)
+                d.execute_script("const s = Bokeh.documents[0].get_model_by_name("
+                                 "'stream_select'); if (s && s.options.includes('s00'))"
+                                 " s.value = 's00';")
                 time.sleep(1.0)  # a first update
                 self._lag(d)
                 return
