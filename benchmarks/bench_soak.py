@@ -430,6 +430,7 @@ def main() -> int:
     ap.add_argument("--garbage-every", type=float, default=2.0)
     ap.add_argument("--sample-every", type=float, default=30.0)
     ap.add_argument("--seed", type=int, default=0)
+    ap.add_argument("--workdir", help="keep the recording, summary and logs here")
     # child roles
     ap.add_argument("--publisher", help=argparse.SUPPRESS)
     ap.add_argument("--garbage", help=argparse.SUPPRESS)
@@ -447,7 +448,10 @@ def main() -> int:
           f"({a.streams * a.rate / a.rows:.0f} messages/s, {a.streams * a.rate / 1e6:.2f} M "
           f"samples/s), {a.browsers} browsers, {a.minutes:g} min; load average "
           f"{os.getloadavg()[0]:.1f} on {os.cpu_count()} cores", flush=True)
-    with tempfile.TemporaryDirectory() as work:
+    work = a.workdir or tempfile.mkdtemp(prefix="eddyvigil-soak-")
+    Path(work).mkdir(parents=True, exist_ok=True)
+    print(f"working folder (recording, summary, watch's stderr; remove it yourself): {work}")
+    if True:
         res = run_soak(a.minutes * 60.0, streams=a.streams, rate=a.rate, rows=a.rows,
                        browsers=a.browsers, restart_every_s=a.restart_every,
                        garbage_every_s=a.garbage_every, sample_every_s=a.sample_every,
