@@ -354,13 +354,15 @@ def run_soak(seconds: float, *, streams: int = 64, rate: float = 20_000.0, rows:
         stop_browsers.set()
         if browser_group:
             browser_group.join()
-        if restarter is not None:
-            restarter.wait(120)  # it runs to the end and sends `end`
+        # publishers run to their end and send `end`; one that is behind (the monitor could
+        # not keep up) still has queued messages: give it as long again, then say so
+        killed = []
         for c in children[1:]:
             try:
-                c.wait(120)
+                c.wait(max(120.0, seconds))
             except subprocess.TimeoutExpired:
                 c.kill()
+                killed.append(" ".join(c.args[2:4]))
         time.sleep(2.0)
         settle = {"dash_conns_after_browsers": sum(
             1 for c in proc.net_connections(kind="tcp")
@@ -391,6 +393,7 @@ def run_soak(seconds: float, *, streams: int = 64, rate: float = 20_000.0, rows:
             "no_reading": browser_group.nulls},
         "tracebacks": watch_err.count("Traceback"),
         "watch_exit": watch.returncode,
+        "publishers_killed": killed,
         **settle,
     }
 
@@ -415,6 +418,9 @@ def summarise(res: dict, log=print) -> None:
         load = f"{np.median(b['loads']):.1f} s" if b["loads"] else "-"
         log(f"browsers: {b['actions']}; page ready median {load}; {lag} over "
             f"{len(b['lags'])} readings (none: {b['no_reading']}); errors {b['errors'][:3]}")
+    if res["publishers_killed"]:
+        log(f"NOT ACCOUNTED: publishers killed with messages still queued: "
+            f"{res['publishers_killed']}")
     log(f"dashboard connections after the browsers closed: {res['dash_conns_after_browsers']}; "
         f"tracebacks in watch's stderr: {res['tracebacks']}; watch exit {res['watch_exit']}")
 
