@@ -187,8 +187,8 @@ def open_publisher(ctx: zmq.Context, socket_type: str, endpoint: str, *, bind: b
                    linger_ms: int = 0, options: dict | None = None) -> tuple[zmq.Socket, bool]:
     """Open a PUB/PUSH socket and, for PUB, wait out the slow joiner; returns (socket, peer).
 
-    PUB: wait at most ``wait_peer_s`` for a first peer to connect, then ``settle_s`` for its
-    subscription to arrive. PUSH needs neither (it holds messages until a peer is there).
+    PUB: wait at most ``wait_peer_s`` for a first peer to connect (with CURVE client keys in
+    ``options``: to complete the handshake), then ``settle_s`` for its subscription to arrive. PUSH needs neither (it holds messages until a peer is there).
     ``peer`` is False when no peer came within ``wait_peer_s`` (the caller says so).
     """
     kind = SOCKET_TYPES[socket_type]
