@@ -58,6 +58,8 @@ DEFAULT_RCVHWM = 4096
 #: 3 x float32 at 20 kHz send 15 MiB/s: about a minute of them).
 DEFAULT_BACKLOG_BYTES = 1 << 30
 MAXMSGSIZE_FACTOR = 4
+#: Seconds between closing a CURVE socket and stopping its ZAP handler (see :meth:`close`).
+CURVE_CLOSE_GRACE_S = 0.3
 #: Messages taken from the socket per poll before the loop looks at its stop flag again.
 DRAIN_BATCH = 64
 
@@ -138,6 +140,7 @@ class Subscriber:
         self._ctx = context if context is not None else zmq.Context()
         self._stop = threading.Event()
         kind = zmq.SUB if socket == "sub" else zmq.PULL
+        self._bound = bool(bind)
         self.curve = curve
         self._quiet_until = -float("inf")
         try:
@@ -322,8 +325,18 @@ class Subscriber:
         except zmq.ZMQError:
             pass
         self._monitor.close(linger=0)
+        if self.curve is not None:
+            # libzmq aborts the process (zap_client.cpp:50) when a handshake sends its ZAP
+            # request after its session began to close; a refused peer retries every 0.1 s,
+            # so: no new connections first, then let running handshakes finish, then close.
+            try:
+                (self.socket.unbind if self._bound else self.socket.disconnect)(self.endpoint)
+            except zmq.ZMQError:
+                pass
+            time.sleep(CURVE_CLOSE_GRACE_S)
         self.socket.close(linger=0)
         if self.curve is not None:
+            time.sleep(CURVE_CLOSE_GRACE_S)
             self.curve.stop()
         if self._own_ctx:
             self._ctx.term()
