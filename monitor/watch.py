@@ -363,6 +363,10 @@ def run(args: argparse.Namespace) -> int:
             return _fail(code, f"dashboard: {why}; choose another with --port / --host")
 
     warm = start_kernel_warmup(quiet=args.quiet)
+    # numba and scipy are loaded (once, by the warm-up thread) before the socket opens, so the
+    # receiving loop starts right after it: what arrives is read in order of arrival, not left
+    # in ZeroMQ's per-peer queues (PULL would then take them from each peer in turn)
+    warm.imported.wait()
     closers = []
     try:
         try:
@@ -419,7 +423,6 @@ def run(args: argparse.Namespace) -> int:
         if not sinks:
             sinks = [terminal_summary_sink("watch", args.quiet)]
 
-        warm.imported.wait()  # numba and scipy loaded once, by the warm-up thread
         from eddyvigil.monitor.pipeline import Pipeline
         from eddyvigil.monitor.summary import SummaryWriter
 
