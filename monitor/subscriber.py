@@ -59,7 +59,7 @@ DEFAULT_RCVHWM = 4096
 DEFAULT_BACKLOG_BYTES = 1 << 30
 MAXMSGSIZE_FACTOR = 4
 #: Seconds between closing a CURVE socket and stopping its ZAP handler (see :meth:`close`).
-CURVE_CLOSE_GRACE_S = 0.3
+CURVE_CLOSE_GRACE_S = 0.5
 #: Messages taken from the socket per poll before the loop looks at its stop flag again.
 DRAIN_BATCH = 64
 
@@ -312,6 +312,25 @@ class Subscriber:
             self.peer_seen = True
         return time.monotonic() < self._quiet_until and kind in _PEER_CHATTER
 
+    def _close_curve_quietly(self) -> None:
+        """No new connections, then wait until the socket monitor has been quiet for
+        :data:`CURVE_CLOSE_GRACE_S` (at most 5 s): libzmq aborts the process
+        (zap_client.cpp:50) when a handshake sends its ZAP request after its session began to
+        close, and a refused peer retries every 0.1 s."""
+        try:
+            (self.socket.unbind if self._bound else self.socket.disconnect)(self.endpoint)
+        except zmq.ZMQError:
+            pass
+        deadline = time.monotonic() + 5.0
+        while time.monotonic() < deadline:
+            if not self._monitor.poll(int(CURVE_CLOSE_GRACE_S * 1000)):
+                return
+            try:
+                while True:
+                    recv_monitor_message(self._monitor, zmq.NOBLOCK)
+            except zmq.Again:
+                pass
+
     def _curve_notices(self, on_event) -> None:
         if self.curve is not None:
             for text in self.curve.notices():
@@ -320,20 +339,13 @@ class Subscriber:
 
     def close(self) -> None:
         """Close both sockets with LINGER 0 (and the private context)."""
+        if self.curve is not None:
+            self._close_curve_quietly()
         try:
             self.socket.disable_monitor()
         except zmq.ZMQError:
             pass
         self._monitor.close(linger=0)
-        if self.curve is not None:
-            # libzmq aborts the process (zap_client.cpp:50) when a handshake sends its ZAP
-            # request after its session began to close; a refused peer retries every 0.1 s,
-            # so: no new connections first, then let running handshakes finish, then close.
-            try:
-                (self.socket.unbind if self._bound else self.socket.disconnect)(self.endpoint)
-            except zmq.ZMQError:
-                pass
-            time.sleep(CURVE_CLOSE_GRACE_S)
         self.socket.close(linger=0)
         if self.curve is not None:
             time.sleep(CURVE_CLOSE_GRACE_S)
