@@ -167,13 +167,14 @@ def test_only_the_allowed_publisher_reaches_the_statistics(keys, socket, monitor
     finally:
         sub.stop()
         thread.join(timeout=10)
-        if not monitor_binds:  # no reconnects to the strangers while closing (see close())
-            for n in names[1:]:
-                sub.socket.disconnect(endpoints[n])
-        sub.close()
+        # the strangers go first: libzmq aborts when a socket closes while a refused peer's
+        # handshake is on its way to the ZAP handler (see Subscriber.close); with no peer left
+        # retrying, closing is safe
         for s in peers.values():
             s.close(linger=0)
         ctx.term()
+        time.sleep(0.5)
+        sub.close()
     assert pipeline.streams_seen == ("ours",)
     pipeline.refused_peers = gate.refused_peers
     pipeline.close()
