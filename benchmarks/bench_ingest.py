@@ -43,10 +43,10 @@ from eddyvigil.monitor import wire  # noqa: E402
 ROWS = 16384
 
 
-def publish(endpoint: str, messages: int, seconds: float) -> None:
+def publish(endpoint: str, messages: int, seconds: float, rows: int = ROWS) -> None:
     """Child process: PUSH ``messages`` (or for ``seconds`` if > 0) samples messages, then end."""
     rng = np.random.default_rng(1)
-    block = (np.array([8.0, 0.4, 0.0]) + rng.standard_normal((ROWS, 3))).astype("<f4")
+    block = (np.array([8.0, 0.4, 0.0]) + rng.standard_normal((rows, 3))).astype("<f4")
     ctx = zmq.Context()
     sock = ctx.socket(zmq.PUSH)
     sock.setsockopt(zmq.LINGER, 0)
@@ -61,7 +61,7 @@ def publish(endpoint: str, messages: int, seconds: float) -> None:
         deadline is not None and time.monotonic() < deadline
     ):
         frames = wire.encode_samples(
-            "bench", "b1", seq, block, ("u", "v", "w"), rate_hz=20000.0, t0=i * ROWS / 20000.0
+            "bench", "b1", seq, block, ("u", "v", "w"), rate_hz=20000.0, t0=i * rows / 20000.0
         )
         sock.send_multipart(frames, copy=False)
         seq += 1
@@ -72,7 +72,8 @@ def publish(endpoint: str, messages: int, seconds: float) -> None:
     ctx.term()
 
 
-def start_publisher(endpoint: str, messages: int, seconds: float = 0.0) -> subprocess.Popen:
+def start_publisher(endpoint: str, messages: int, seconds: float = 0.0,
+                    rows: int = ROWS) -> subprocess.Popen:
     return subprocess.Popen(
         [
             sys.executable,
@@ -83,6 +84,8 @@ def start_publisher(endpoint: str, messages: int, seconds: float = 0.0) -> subpr
             str(messages),
             "--seconds",
             str(seconds),
+            "--rows",
+            str(rows),
         ]
     )
 
@@ -104,7 +107,7 @@ def cpu_seconds(pids) -> list[float]:
     return out
 
 
-def bare_receiver(messages: int) -> tuple[float, list[float]]:
+def bare_receiver(messages: int, rows: int = ROWS) -> tuple[float, list[float]]:
     """Samples/s of a PULL that only counts (first samples message to end), and the CPU
     seconds per message of [publisher, receiver] over the same span."""
     ep = free_endpoint()
@@ -112,7 +115,7 @@ def bare_receiver(messages: int) -> tuple[float, list[float]]:
     sock = ctx.socket(zmq.PULL)
     sock.setsockopt(zmq.LINGER, 0)
     sock.bind(ep)
-    pub = start_publisher(ep, messages)
+    pub = start_publisher(ep, messages, rows=rows)
     samples, t_first = 0, None
     try:
         for _ in range(messages + 2):
@@ -142,6 +145,7 @@ def full_path(
     seconds: float = 0.0,
     rss: list | None = None,
     rcvhwm: int | None = None,
+    rows: int = ROWS,
 ):
     """Samples/s of Subscriber -> Pipeline (all statistics) -> Recorder; returns (rate, samples,
     CPU seconds per message of [publisher, monitor])."""
@@ -173,7 +177,7 @@ def full_path(
 
     timer = threading.Timer(max(600.0, seconds + 120.0), sub.stop)  # a safety net only
     timer.start()
-    pub = start_publisher(ep, messages, seconds)
+    pub = start_publisher(ep, messages, seconds, rows=rows)
     try:
         sub.run(on_frames, on_tick=on_tick, tick_interval_s=1.0)
     finally:
@@ -188,7 +192,7 @@ def full_path(
     pipeline.close()
     if recorder is not None:
         recorder.close()
-    n_msg = max(1, samples // ROWS)
+    n_msg = max(1, samples // rows)
     cpu = [(b - a) / n_msg for a, b in zip(state["cpu0"], state["cpu"], strict=True)]
     return samples / (state["t_last"] - state["t_first"]), samples, cpu
 
@@ -206,6 +210,27 @@ def replay_rate(rec_dir: Path) -> tuple[float, int]:
     return samples / elapsed, samples
 
 
+def per_message(repeat: int, samples: float, sizes=(1024, 4096, 16384)) -> None:
+    """Figure 4: the fixed cost per message. For each message size, ``repeat`` rounds of the
+    bare receiver and the watch path side by side; medians of rate and CPU per message."""
+    print(f"per-message cost: PUSH/PULL over tcp loopback, {samples / 1e6:g} M samples per run, "
+          f"{repeat} rounds, medians (load average {os.getloadavg()[0]:.1f})")
+    print("   rows   bare Ms/s   watch Ms/s  ratio   CPU/msg bare   CPU/msg watch   "
+          "watch per 1k rows")
+    for rows in sizes:
+        messages = int(samples // rows)
+        res = []
+        for _ in range(repeat):
+            bare, cpu_bare = bare_receiver(messages, rows)
+            plain, _, cpu_plain = full_path(messages, None, rows=rows)
+            res.append((bare, plain, cpu_bare[1], cpu_plain[1]))
+        b, w, cb, cw = (float(np.median([r[k] for r in res])) for k in range(4))
+        ratio = float(np.median([r[1] / r[0] for r in res]))
+        print(f"  {rows:5d}   {b / 1e6:9.1f}   {w / 1e6:10.1f}  {ratio:5.2f}   "
+              f"{cb * 1e6:10.0f} us   {cw * 1e6:11.0f} us   {cw * 1e6 * 1024 / rows:9.0f} us",
+              flush=True)
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--messages", type=int, default=400, help="messages for figures 1 and 2")
@@ -213,9 +238,18 @@ def main() -> None:
     ap.add_argument("--long-seconds", type=float, default=20.0, help="duration of figure 3")
     ap.add_argument("--publish", help=argparse.SUPPRESS)
     ap.add_argument("--seconds", type=float, default=0.0, help=argparse.SUPPRESS)
+    ap.add_argument("--rows", type=int, default=ROWS, help=argparse.SUPPRESS)
+    ap.add_argument("--per-message", action="store_true",
+                    help="only figure 4: watch vs bare receiver at 1024, 4096, 16384 rows")
+    ap.add_argument("--samples", type=float, default=6.5e6,
+                    help="samples per run of figure 4 (default 6.5e6)")
     args = ap.parse_args()
     if args.publish:
-        publish(args.publish, args.messages, args.seconds)
+        publish(args.publish, args.messages, args.seconds, args.rows)
+        return
+    if args.per_message:
+        full_path(5, None)  # kernels loaded
+        per_message(args.repeat, args.samples)
         return
 
     # warm up: load the numba-compiled kernels once so that no figure includes compilation

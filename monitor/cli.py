@@ -26,6 +26,7 @@ COMMANDS = {
     "report": ("eddyvigil.monitor.report", "one offline HTML report of a run"),
     "plan": ("eddyvigil.monitor.plan_cmd", "share the facility time left among remaining points"),
     "reprocess": ("eddyvigil.monitor.reprocess", "replay many recordings at once (Dask) into one summary"),
+    "keys": ("eddyvigil.monitor.keys", "write CURVE key pairs for the --curve-* options"),
 }
 
 

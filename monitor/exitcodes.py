@@ -41,7 +41,8 @@ MEANINGS = {
     ExitCode.USAGE: "bad command line (unknown option, bad value, optional package missing)",
     ExitCode.ENDPOINT: "bad endpoint (malformed, port outside 1-65535, unknown host, "
     "cannot connect or bind)",
-    ExitCode.INPUT_FILE: "an input file is unreadable or malformed (targets, scenario)",
+    ExitCode.INPUT_FILE: "an input file is unreadable or malformed (targets, scenario, "
+    "CURVE key)",
     ExitCode.OUTPUT_EXISTS: "an output already exists: a recording in --record DIR or the "
     "--summary FILE (say --append / --summary-mode to add to it)",
     ExitCode.ADDRESS_IN_USE: "address already in use (a bound socket or the dashboard port)",
@@ -65,6 +66,7 @@ COMMAND_CODES = {
     "report": (0, 1, 2, 4, 8),
     "plan": (0, 1, 2, 4, 8),
     "reprocess": (0, 1, 2, 3, 4, 5, 7, 8, 9, 130),
+    "keys": (0, 1, 2, 5, 8),
 }
 
 #: Remarks shown under a command's list where a code needs its context.
@@ -76,6 +78,7 @@ NOTES = {
     "demo": "Ctrl-C / SIGTERM ends the demo normally (0); a child's refusal is passed on.",
     "reprocess": "3: the --dask scheduler cannot be reached; 2 also when --dask is asked for "
     "and dask is not installed.",
+    "keys": "5: a key file of that name exists in DIR (keys are never overwritten).",
 }
 
 

@@ -226,6 +226,8 @@ class Pipeline:
         self._last_publish = -math.inf
         self._closed = False
         self.internal_errors: list[str] = []
+        #: peers refused by CURVE (set by watch with --curve-*; None: no CURVE, not in the run line)
+        self.refused_peers: int | None = None
         self.snapshot: RunSnapshot = self._build_snapshot()
 
     # ------------------------------------------------------------------ socket / replay path
@@ -644,7 +646,7 @@ class Pipeline:
         """The closing ``run`` line of DESIGN §4 (totals of the whole run)."""
         rejected = _zero_reasons()
         rejected.update(self._rejected)
-        return {
+        line = {
             "v": 1,
             "kind": "run",
             "samples": sum(st.samples for st in self._streams.values()),
@@ -656,6 +658,9 @@ class Pipeline:
             "streams": sorted(n for n, st in self._streams.items() if st.active),
             "restarts": sum(st.restarts for st in self._streams.values()),
         }
+        if self.refused_peers is not None:
+            line["refused_peers"] = int(self.refused_peers)
+        return line
 
     # ------------------------------------------------------------------ state for readers
 

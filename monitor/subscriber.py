@@ -18,12 +18,19 @@ Size limit. The application limit (``--max-message-mb``) is enforced by
 ``MAXMSGSIZE``, which disconnects a peer without telling anyone, is only set as a far higher
 memory ceiling (:data:`MAXMSGSIZE_FACTOR` times the limit), and a disconnect it causes shows up
 as a transport event.
+
+CURVE. With a :class:`eddyvigil.monitor.keys.Gatekeeper` (``curve=``) the socket is the CURVE
+server (whether it binds or connects), the gatekeeper's ZAP handler runs on the socket's
+context, handshake failures are counted by the gatekeeper, and its notices of refused peers
+are passed to ``on_event``; the connect/disconnect chatter of a refused peer retrying every
+0.1 s is not (it would flood the terminal).
 """
 
 from __future__ import annotations
 
 import threading
 import time
+from collections import deque
 from collections.abc import Callable, Iterable
 
 import zmq
@@ -47,7 +54,12 @@ __all__ = [
 ]
 
 DEFAULT_RCVHWM = 4096
+#: Bytes of messages kept in order while the kernels compile on a first start (64 probes of
+#: 3 x float32 at 20 kHz send 15 MiB/s: about a minute of them).
+DEFAULT_BACKLOG_BYTES = 1 << 30
 MAXMSGSIZE_FACTOR = 4
+#: Seconds between closing a CURVE socket and stopping its ZAP handler (see :meth:`close`).
+CURVE_CLOSE_GRACE_S = 0.5
 #: Messages taken from the socket per poll before the loop looks at its stop flag again.
 DRAIN_BATCH = 64
 
@@ -66,6 +78,17 @@ for _name, _text in (
 ):
     if hasattr(zmq, _name):
         _EVENT_TEXT[getattr(zmq, _name)] = _text
+
+
+_HANDSHAKE_FAILED = {
+    getattr(zmq, name)
+    for name in ("EVENT_HANDSHAKE_FAILED_NO_DETAIL", "EVENT_HANDSHAKE_FAILED_PROTOCOL",
+                 "EVENT_HANDSHAKE_FAILED_AUTH")
+    if hasattr(zmq, name)
+}
+_HANDSHAKE_FAILED_AUTH = getattr(zmq, "EVENT_HANDSHAKE_FAILED_AUTH", None)
+_PEER_CHATTER = {zmq.EVENT_CONNECTED, zmq.EVENT_ACCEPTED, zmq.EVENT_DISCONNECTED,
+                 zmq.EVENT_CLOSED}
 
 
 #: Kept under their old names: the errors of :mod:`eddyvigil.monitor.transport`.
@@ -91,6 +114,10 @@ class Subscriber:
         Receive high-water mark in messages.
     context : zmq.Context, optional
         Defaults to a private context, terminated by :meth:`close`.
+    curve : eddyvigil.monitor.keys.Gatekeeper, optional
+        CURVE server keys and allowed publishers; None (default) leaves the socket open to all.
+    backlog_limit_bytes : int
+        At most this many bytes kept while waiting for ``ready`` (see :meth:`run`).
     """
 
     def __init__(
@@ -103,6 +130,8 @@ class Subscriber:
         max_message_bytes: int = 256 * 2**20,
         rcvhwm: int = DEFAULT_RCVHWM,
         context: zmq.Context | None = None,
+        curve=None,
+        backlog_limit_bytes: int = DEFAULT_BACKLOG_BYTES,
     ):
         if socket not in ("sub", "pull"):
             raise SubscriberError(f"socket must be 'sub' or 'pull', not {socket!r}")
@@ -111,9 +140,17 @@ class Subscriber:
         self._ctx = context if context is not None else zmq.Context()
         self._stop = threading.Event()
         kind = zmq.SUB if socket == "sub" else zmq.PULL
+        self._bound = bool(bind)
+        self.curve = curve
+        self._quiet_until = -float("inf")
         try:
-            self.socket = open_socket(self._ctx, kind, endpoint, bind=bind)
+            if curve is not None:
+                curve.start(self._ctx)
+            self.socket = open_socket(self._ctx, kind, endpoint, bind=bind,
+                                      options=curve.options if curve is not None else None)
         except SubscriberError:
+            if curve is not None:
+                curve.stop()
             if self._own_ctx:
                 self._ctx.term()
             raise
@@ -136,6 +173,10 @@ class Subscriber:
         )
         self._monitor.setsockopt(zmq.LINGER, 0)
         self.messages = 0
+        #: messages received but not yet handed on (waiting for ``ready``), and their bytes
+        self.backlog_messages = 0
+        self.backlog_bytes = 0
+        self.backlog_limit_bytes = int(backlog_limit_bytes)
         self.disconnects = 0
         self._last_event: tuple | None = None
         self._ever_connected = False
@@ -159,42 +200,83 @@ class Subscriber:
         tick_interval_s: float = 1.0,
         poll_ms: int = 100,
         max_messages: int | None = None,
+        ready: threading.Event | None = None,
     ) -> None:
         """Receive until :meth:`stop` (or ``max_messages``); callbacks run in this thread.
 
         ``on_frames(frames, received_at)`` gets the ``zmq.Frame`` list and the wall time;
         ``on_event(text)`` transport events; ``on_tick()`` about every ``tick_interval_s``.
+        ``ready``: until it is set (the statistics kernels are being compiled) messages are
+        received and kept in order with their receive times, not handed on; then the backlog
+        goes to ``on_frames`` first. The backlog holds at most :attr:`backlog_limit_bytes`;
+        beyond that messages wait in ZeroMQ's queue (PULL: the publisher is slowed down).
         """
         poller = zmq.Poller()
         poller.register(self.socket, zmq.POLLIN)
         poller.register(self._monitor, zmq.POLLIN)
         next_tick = time.monotonic() + tick_interval_s
+        backlog: deque = deque()
+        self.backlog_bytes = 0
+        enough = max_messages if max_messages is not None else float("inf")
         while not self._stop.is_set():
-            ready = dict(poller.poll(poll_ms))
-            if self._monitor in ready:
+            warm = ready is None or ready.is_set()
+            full = self.backlog_bytes >= self.backlog_limit_bytes
+            if not warm and full:
+                poller.unregister(self.socket)  # no busy loop while the queue is full
+            ready_sockets = dict(poller.poll(0 if (warm and backlog) else poll_ms))
+            if not warm and full:
+                poller.register(self.socket, zmq.POLLIN)
+            if self._monitor in ready_sockets:
                 self._drain_events(on_event)
-            if self.socket in ready:
+            if self.curve is not None:
+                self._curve_notices(on_event)
+            if self.socket in ready_sockets:
                 for _ in range(DRAIN_BATCH):
+                    if self.messages >= enough:
+                        break
+                    direct = warm and not backlog
+                    if not direct and self.backlog_bytes >= self.backlog_limit_bytes:
+                        break
                     try:
                         frames = self.socket.recv_multipart(zmq.NOBLOCK, copy=False)
                     except zmq.Again:
                         break
                     self.messages += 1
-                    on_frames(frames, time.time())
-                    if max_messages is not None and self.messages >= max_messages:
-                        self._stop.set()
+                    if direct:
+                        on_frames(frames, time.time())
+                    else:
+                        backlog.append((frames, time.time()))
+                        self.backlog_bytes += sum(len(f) for f in frames)
+                    if self._stop.is_set():
                         break
+            if warm:
+                for _ in range(min(len(backlog), DRAIN_BATCH)):
+                    if self._stop.is_set():
+                        break
+                    frames, received_at = backlog.popleft()
+                    self.backlog_bytes -= sum(len(f) for f in frames)
+                    on_frames(frames, received_at)
+            self.backlog_messages = len(backlog)
+            if self.messages >= enough and not backlog:
+                self._stop.set()
             now = time.monotonic()
             if on_tick is not None and now >= next_tick:
                 next_tick = now + tick_interval_s
                 on_tick()
+
+    @property
+    def refused_peers(self) -> int | None:
+        """Peers refused by CURVE (None without CURVE)."""
+        return None if self.curve is None else self.curve.refused_peers
 
     def _drain_events(self, on_event) -> None:
         while True:
             try:
                 evt = recv_monitor_message(self._monitor, zmq.NOBLOCK)
             except zmq.Again:
-                return
+                break
+            if self.curve is not None and self._curve_event(evt, on_event):
+                continue
             kind = evt.get("event")
             if kind in (zmq.EVENT_CONNECTED, zmq.EVENT_ACCEPTED):
                 self.peer_seen = True
@@ -216,13 +298,57 @@ class Subscriber:
                 self._last_event = (kind, addr)
                 on_event(f"{time.strftime('%H:%M:%S')} {text} {addr or self.endpoint}")
 
+    def _curve_event(self, evt: dict, on_event) -> bool:
+        """Count a handshake failure; True if the event is not to be shown (refused peer)."""
+        kind = evt.get("event")
+        if kind in _HANDSHAKE_FAILED:
+            self._quiet_until = time.monotonic() + 1.0
+            if kind != _HANDSHAKE_FAILED_AUTH:  # a ZAP refusal is counted by its key instead
+                self.curve.handshake_failed(
+                    f"{time.strftime('%H:%M:%S')} {_EVENT_TEXT.get(kind, 'handshake failed')} "
+                    f"{self.endpoint}")
+            return True
+        if kind in (zmq.EVENT_CONNECTED, zmq.EVENT_ACCEPTED):
+            self.peer_seen = True
+        return time.monotonic() < self._quiet_until and kind in _PEER_CHATTER
+
+    def _close_curve_quietly(self) -> None:
+        """No new connections, then wait until the socket monitor has been quiet for
+        :data:`CURVE_CLOSE_GRACE_S` (at most 5 s): libzmq aborts the process
+        (zap_client.cpp:50) when a handshake sends its ZAP request after its session began to
+        close, and a refused peer retries every 0.1 s."""
+        try:
+            (self.socket.unbind if self._bound else self.socket.disconnect)(self.endpoint)
+        except zmq.ZMQError:
+            pass
+        deadline = time.monotonic() + 5.0
+        while time.monotonic() < deadline:
+            if not self._monitor.poll(int(CURVE_CLOSE_GRACE_S * 1000)):
+                return
+            try:
+                while True:
+                    recv_monitor_message(self._monitor, zmq.NOBLOCK)
+            except zmq.Again:
+                pass
+
+    def _curve_notices(self, on_event) -> None:
+        if self.curve is not None:
+            for text in self.curve.notices():
+                if on_event is not None:
+                    on_event(text)
+
     def close(self) -> None:
         """Close both sockets with LINGER 0 (and the private context)."""
+        if self.curve is not None:
+            self._close_curve_quietly()
         try:
             self.socket.disable_monitor()
         except zmq.ZMQError:
             pass
         self._monitor.close(linger=0)
         self.socket.close(linger=0)
+        if self.curve is not None:
+            time.sleep(CURVE_CLOSE_GRACE_S)
+            self.curve.stop()
         if self._own_ctx:
             self._ctx.term()

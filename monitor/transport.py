@@ -164,17 +164,20 @@ def open_socket(ctx: zmq.Context, socket_type: int | str, endpoint: str, *, bind
     return sock
 
 
-def wait_for_peer(monitor_socket: zmq.Socket, timeout_s: float, stop=lambda: False) -> bool:
+def wait_for_peer(monitor_socket: zmq.Socket, timeout_s: float, stop=lambda: False,
+                  events: int = zmq.EVENT_ACCEPTED | zmq.EVENT_CONNECTED) -> bool:
     """Wait for a peer on a socket monitor made *before* the bind/connect; False on timeout.
 
     ``monitor_socket`` comes from ``sock.get_monitor_socket(EVENT_ACCEPTED | EVENT_CONNECTED)``
     (attached first, so an immediate connection is not missed); ``stop()`` ends the wait early.
+    ``events``: the events that count as "a peer is there" (a CURVE client waits for
+    ``EVENT_HANDSHAKE_SUCCEEDED``: a peer that refuses our key is no peer).
     """
     deadline = time.monotonic() + timeout_s
     while not stop() and (left := deadline - time.monotonic()) > 0:
         if monitor_socket.poll(int(min(left, 0.2) * 1000) + 1):
             ev = zmq.utils.monitor.recv_monitor_message(monitor_socket)
-            if ev["event"] in (zmq.EVENT_ACCEPTED, zmq.EVENT_CONNECTED):
+            if ev["event"] & events:
                 return True
     return False
 
@@ -184,8 +187,8 @@ def open_publisher(ctx: zmq.Context, socket_type: str, endpoint: str, *, bind: b
                    linger_ms: int = 0, options: dict | None = None) -> tuple[zmq.Socket, bool]:
     """Open a PUB/PUSH socket and, for PUB, wait out the slow joiner; returns (socket, peer).
 
-    PUB: wait at most ``wait_peer_s`` for a first peer to connect, then ``settle_s`` for its
-    subscription to arrive. PUSH needs neither (it holds messages until a peer is there).
+    PUB: wait at most ``wait_peer_s`` for a first peer to connect (with CURVE client keys in
+    ``options``: to complete the handshake), then ``settle_s`` for its subscription to arrive. PUSH needs neither (it holds messages until a peer is there).
     ``peer`` is False when no peer came within ``wait_peer_s`` (the caller says so).
     """
     kind = SOCKET_TYPES[socket_type]
@@ -196,7 +199,10 @@ def open_publisher(ctx: zmq.Context, socket_type: str, endpoint: str, *, bind: b
     else:
         check_endpoint(endpoint, bind=bind)
         sock = ctx.socket(kind)
-        mon = sock.get_monitor_socket(zmq.EVENT_ACCEPTED | zmq.EVENT_CONNECTED)
+        curve = zmq.CURVE_SERVERKEY in (options or {})
+        events = (zmq.EVENT_HANDSHAKE_SUCCEEDED if curve
+                  else zmq.EVENT_ACCEPTED | zmq.EVENT_CONNECTED)
+        mon = sock.get_monitor_socket(events)
         try:
             sock.setsockopt(zmq.LINGER, int(linger_ms))
             for opt, value in (options or {}).items():
@@ -211,7 +217,7 @@ def open_publisher(ctx: zmq.Context, socket_type: str, endpoint: str, *, bind: b
                     raise AddressInUseError(f"{endpoint}: address already in use") from None
                 verb = "bind" if bind else "connect"
                 raise EndpointError(f"cannot {verb} {endpoint}: {exc.strerror}") from None
-            peer = wait_for_peer(mon, wait_peer_s, stop)
+            peer = wait_for_peer(mon, wait_peer_s, stop, events)
         finally:
             if not sock.closed:
                 sock.disable_monitor()

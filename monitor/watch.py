@@ -144,6 +144,19 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "and dropout samples by linear interpolation before the statistics",
     )
     p.add_argument("--quiet", action="store_true", help="no status line")
+    curve = p.add_argument_group(
+        "CURVE (encryption and publisher authentication; watch is the CURVE server)"
+    )
+    curve.add_argument(
+        "--curve-secret",
+        metavar="FILE",
+        help="the monitor's key pair, e.g. DIR/monitor.key_secret from `eddyvigil keys DIR`",
+    )
+    curve.add_argument(
+        "--curve-allow",
+        metavar="KEYDIR",
+        help="accept only publishers whose public key (*.key) is in KEYDIR (read at start)",
+    )
 
 
 def add_summary_mode(p: argparse.ArgumentParser) -> None:
@@ -286,31 +299,31 @@ class StatusPrinter:
             print(self._pending, file=self._stream, flush=True)
 
 
-def prepare_kernels(quiet: bool = False, notice_after_s: float = 5.0) -> float:
-    """Load the statistics kernels before any socket opens (see ``stats/warmup.py``).
+def start_kernel_warmup(quiet: bool = False, notice_after_s: float = 5.0):
+    """Start loading the statistics kernels in the background (see ``stats/warmup.py``).
 
-    On the first start after installing they compile for about 20 s; loading them later
-    takes well under 2 s. A notice is shown only when it takes longer than
-    ``notice_after_s``, i.e. when they are really being compiled. Returns the seconds taken.
+    The socket opens meanwhile; messages are kept in order until the kernels are ready. On
+    the first start after installing they compile for about 20 s; loading them later takes
+    well under 2 s. A notice is shown only when ``ready`` takes longer than
+    ``notice_after_s``, i.e. when they are really being compiled. Returns the
+    :class:`eddyvigil.stats.warmup.KernelWarmup` (``ready``, ``done`` events).
     """
-    from eddyvigil.stats.warmup import prepare_kernels as prepare
+    from eddyvigil.stats.warmup import KernelWarmup
 
-    notice = threading.Timer(
-        notice_after_s,
-        lambda: print(
-            "eddyvigil: compiling the statistics kernels (once after installing: about 20 s "
-            "more); no socket is open yet",
-            file=sys.stderr,
-            flush=True,
-        ),
-    )
-    notice.daemon = True
+    warm = KernelWarmup()
+
+    def notice():
+        if not warm.ready.wait(notice_after_s):
+            print(
+                "eddyvigil: compiling the statistics kernels (once after installing: about 20 s"
+                "); messages arriving meanwhile are kept in order and counted after it",
+                file=sys.stderr,
+                flush=True,
+            )
+
     if not quiet:
-        notice.start()
-    try:
-        return prepare()
-    finally:
-        notice.cancel()
+        threading.Thread(target=notice, name="eddyvigil-warmup-notice", daemon=True).start()
+    return warm.start()
 
 
 def write_settings(directory: Path, targets, max_message_bytes: int) -> None:
@@ -362,6 +375,16 @@ def run(args: argparse.Namespace) -> int:
             check_endpoint(args.control, bind=True)
     except SubscriberError as exc:
         return _fail(ExitCode.ENDPOINT, str(exc))
+    curve = None
+    if (args.curve_secret is None) != (args.curve_allow is None):
+        return _fail(ExitCode.USAGE, "--curve-secret and --curve-allow go together")
+    if args.curve_secret is not None:
+        from eddyvigil.monitor.keys import Gatekeeper, KeyFileError
+
+        try:
+            curve = Gatekeeper(args.curve_secret, args.curve_allow)
+        except KeyFileError as exc:
+            return _fail(ExitCode.INPUT_FILE, str(exc))
     mode = summary_mode(args.summary_mode, args.append)
     try:
         if args.summary:
@@ -376,7 +399,11 @@ def run(args: argparse.Namespace) -> int:
             code = ExitCode.ADDRESS_IN_USE if "in use" in why else ExitCode.ENDPOINT
             return _fail(code, f"dashboard: {why}; choose another with --port / --host")
 
-    prepare_kernels(quiet=args.quiet)
+    warm = start_kernel_warmup(quiet=args.quiet)
+    # numba and scipy are loaded (once, by the warm-up thread) before the socket opens, so the
+    # receiving loop starts right after it: what arrives is read in order of arrival, not left
+    # in ZeroMQ's per-peer queues (PULL would then take them from each peer in turn)
+    warm.imported.wait()
     closers = []
     try:
         try:
@@ -387,6 +414,7 @@ def run(args: argparse.Namespace) -> int:
                 streams=args.stream,
                 max_message_bytes=max_bytes,
                 rcvhwm=args.rcvhwm,
+                curve=curve,
             )
         except AddressInUseError as exc:
             return _fail(ExitCode.ADDRESS_IN_USE, str(exc))
@@ -449,9 +477,11 @@ def run(args: argparse.Namespace) -> int:
         silence = {"said": False}
         if not args.quiet:
             verb = "bound at" if args.bind else "connecting to"
+            secured = (f" (CURVE: {len(curve.allowed)} publisher key(s) allowed)"
+                       if curve is not None else "")
             print(
-                f"eddyvigil watch: {args.socket.upper()} socket {verb} {endpoint}; waiting for "
-                "the first message",
+                f"eddyvigil watch: {args.socket.upper()} socket {verb} {endpoint}{secured}; "
+                "waiting for the first message",
                 file=sys.stderr,
                 flush=True,
             )
@@ -461,7 +491,10 @@ def run(args: argparse.Namespace) -> int:
             if args.no_dashboard and pipeline.all_ended:
                 sub.stop()
 
+        pipeline.refused_peers = sub.refused_peers
+
         def on_event(text):
+            pipeline.refused_peers = sub.refused_peers
             status.event(text)
             pipeline.transport_event(text)
 
@@ -482,7 +515,7 @@ def run(args: argparse.Namespace) -> int:
             status.tick(pipeline.snapshot)
 
         def acquire():
-            sub.run(on_frames, on_event=on_event, on_tick=on_tick)
+            sub.run(on_frames, on_event=on_event, on_tick=on_tick, ready=warm.ready)
 
         if args.no_dashboard:
             install_stop_signals(sub.stop)
@@ -492,6 +525,7 @@ def run(args: argparse.Namespace) -> int:
             if code:
                 return code
         status.done()
+        pipeline.refused_peers = sub.refused_peers
         pipeline.close()
         if recorder is not None:
             recorder.flush()

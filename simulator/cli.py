@@ -134,6 +134,17 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         help="PUB only: wait at most S for a peer to connect (default 5 s)",
     )
     parser.add_argument("--quiet", action="store_true", help="no progress lines on stderr")
+    curve = parser.add_argument_group("CURVE (the monitor is the CURVE server)")
+    curve.add_argument(
+        "--curve-secret",
+        metavar="FILE",
+        help="this publisher's key pair, e.g. DIR/publisher.key_secret from `eddyvigil keys DIR`",
+    )
+    curve.add_argument(
+        "--curve-server-key",
+        metavar="FILE",
+        help="the monitor's public key, e.g. DIR/monitor.key",
+    )
 
 
 def run(args: argparse.Namespace) -> int:
@@ -177,6 +188,17 @@ def run(args: argparse.Namespace) -> int:
             check_summary_file(args.truth, "overwrite")
         except OutputRefused as e:
             return _fail(e.code, str(e).replace("--summary", "--truth"))
+    curve = None
+    if (args.curve_secret is None) != (args.curve_server_key is None):
+        return _fail(ExitCode.USAGE, "--curve-secret and --curve-server-key go together")
+    if args.curve_secret is not None:
+        from eddyvigil.monitor.keys import KeyFileError, client_options, load_public, load_secret
+
+        try:
+            curve = client_options(*load_secret(args.curve_secret),
+                                   load_public(args.curve_server_key))
+        except KeyFileError as e:
+            return _fail(ExitCode.INPUT_FILE, str(e))
     opts = PublisherOptions(
         endpoint=endpoint,
         bind=args.bind is not None,
@@ -191,6 +213,7 @@ def run(args: argparse.Namespace) -> int:
         settle_s=max(0.0, args.settle),
         wait_peer_s=max(0.0, args.wait_peer),
         quiet=args.quiet,
+        curve=curve,
     )
     try:
         code = Publisher(scenario, opts).run()

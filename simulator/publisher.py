@@ -54,6 +54,8 @@ class PublisherOptions:
     wait_peer_s: float = 5.0
     sndhwm: int = 1000
     quiet: bool = False
+    #: CURVE client socket options (``eddyvigil.monitor.keys.client_options``); None: no CURVE
+    curve: dict | None = None
 
 
 class Publisher:
@@ -137,7 +139,8 @@ class Publisher:
             settle_s=self.opt.settle_s,
             stop=lambda: self._stop,
             linger_ms=2000,  # let the last frames (end) leave on close
-            options={zmq.SNDHWM: self.opt.sndhwm, zmq.SNDTIMEO: 200},  # PUSH retries: _send
+            # PUSH retries: _send; CURVE keys (if any) before the bind/connect
+            options={zmq.SNDHWM: self.opt.sndhwm, zmq.SNDTIMEO: 200, **(self.opt.curve or {})},
         )
         if not peer:
             self._log(f"simulate: no peer within {self.opt.wait_peer_s:g} s; publishing anyway")
