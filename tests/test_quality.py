@@ -162,9 +162,14 @@ def test_exclude_statistics_of_a_spiked_stream_agree_with_the_clean_stream():
     for name in ("U", "V", "W", "uu", "vv", "ww", "uv"):
         half = 0.5 * (got[name]["ci_high"] - got[name]["ci_low"])
         assert abs(got[name]["value"] - ref[name]["value"]) <= half, name
-    # and the check is not empty: the spikes do move the unreplaced variances outside
-    half = 0.5 * (bad["uu"]["ci_high"] - bad["uu"]["ci_low"])
-    assert abs(bad["uu"]["value"] - ref["uu"]["value"]) > half
+    # and the check is not empty: unreplaced, the spikes either move the variance outside its
+    # interval or make its tails so heavy that no honest interval is shown (Hill 1975 tail
+    # index, stats/tails.py)
+    if bad["uu"]["ci_low"] is None:
+        assert bad["uu"]["state"] == "no-interval", bad["uu"]
+    else:
+        half = 0.5 * (bad["uu"]["ci_high"] - bad["uu"]["ci_low"])
+        assert abs(bad["uu"]["value"] - ref["uu"]["value"]) > half
 
 
 def test_flagged_fraction_above_threshold_makes_the_point_suspect_never_converged():
