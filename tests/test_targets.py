@@ -214,8 +214,14 @@ def test_from_dict_refuses_non_mappings_and_bad_direct_construction():
         Targets(targets={"U": Target("V", relative=0.1)})
 
 
-@pytest.mark.parametrize("name", ["eps", "eta"])
+@pytest.mark.parametrize("name", ["eta"])
 def test_targets_on_statistics_not_estimated_are_refused(name):
     # a target that nothing computes could never be met; it must not be silently ignored
     with pytest.raises(TargetsError, match="does not estimate it yet"):
         Targets.from_dict({"targets": {name: {"relative": 0.1}}})
+
+
+def test_a_target_on_eps_is_accepted():
+    # eps is judged beside the moments (stats/eps_target.py), relative to k^(3/2)/L_u
+    t = Targets.from_dict({"targets": {"eps": {"relative": 0.05}, "U": {"relative": 0.01}}})
+    assert t.targets["eps"].relative == 0.05
