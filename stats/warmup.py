@@ -38,7 +38,8 @@ def prepare_kernels() -> float:
                 quality = SignalQuality(columns, "exclude")
                 quality.update(block[:4200])
                 quality.flush()
-    from eddyvigil.stats.spectral_kernels import accumulate_power  # Welch sums: one signature
+    from eddyvigil.stats.spectral_kernels import accumulate_power  # Welch sums: two signatures
 
     accumulate_power(np.zeros((1, 1, 2), dtype=np.complex128), np.zeros((2, 1)))
+    accumulate_power(np.zeros((1, 1, 2), dtype=np.complex64), np.zeros((2, 1)))  # float32 data
     return time.perf_counter() - start
