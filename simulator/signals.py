@@ -740,7 +740,10 @@ class PopeShapeGenerator(TurbulenceGenerator):
             buf = np.concatenate([self._history, noise])
             self._history = buf[-(self.taps - 1) :].copy()
             c = np.stack(
-                [sps.fftconvolve(buf[:, i], self.kernels[:, i], mode="valid") for i in range(self.m)],
+                [
+                    sps.fftconvolve(buf[:, i], self.kernels[:, i], mode="valid")
+                    for i in range(self.m)
+                ],
                 axis=1,
             )
             parts.append(c)

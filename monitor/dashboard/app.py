@@ -84,7 +84,7 @@ class _Page:
             views.status_columns(RunSnapshot(0, 0.0)), name="status_source")
         coloured = StringFormatter(text_color="colour", font_style="bold")
         self.status = DataTable(
-            name="status", source=self.status_source, height=290, width=640, index_position=None,
+            name="status", source=self.status_source, height=370, width=640, index_position=None,
             columns=[TableColumn(field="stream", title="stream", width=70),
                      TableColumn(field="point", title="point", width=60),
                      TableColumn(field="name", title="statistic", width=60),
