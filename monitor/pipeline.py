@@ -472,7 +472,8 @@ class Pipeline:
             run.units = units
             run.columns, run.rate_hz = columns, rate_hz
             run.stats = self._stats.PointStatistics(columns, rate_hz, targets=self.targets)
-            run.spectra = None if rate_hz is None else self._spectra.PointSpectra(columns, rate_hz)
+            run.spectra = (None if rate_hz is None
+                           else self._spectra.PointSpectra(columns, rate_hz, targets=self.targets))
             run.quality = self._quality.SignalQuality(columns, self.quality_policy)
             run.t0 = float(t0) if rate_hz is not None and t0 is not None else None
         elif columns != run.columns or rate_hz != run.rate_hz:
@@ -525,7 +526,7 @@ class Pipeline:
         self._add_history(run, snap)
         if not run.signalled and snap.converged:
             self._take_stats_snapshot(st, run, history=False)  # the summary line needs all
-            if self._point_verdict(run.snapshot).move_on:
+            if self._point_verdict(run.snapshot).move_on and self._eps_met(run):
                 self._signal(st, run, converged=True)
         elif run.signalled and any(e.state == "suspect" for e in snap.targeted()):
             self._take_stats_snapshot(st, run, history=False)
@@ -534,6 +535,12 @@ class Pipeline:
             run.stale = True
             if run.snapshot is None:
                 self._take_stats_snapshot(st, run, history=False)
+
+    def _eps_met(self, run: _PointRun) -> bool:
+        """A target on eps (judged beside the moments, stats/eps_target.py) is met too."""
+        if run.spectra is None:
+            return "eps" not in self.targets.targets  # no spectrum: an eps target cannot be met
+        return run.spectra.eps_met(run.snapshot, (run.point or {}).get("nu"))
 
     def _signal(self, st: _StreamState, run: _PointRun, converged: bool) -> None:
         at_s = float(run.snapshot.duration_s)

@@ -38,7 +38,9 @@ walk(document);
 const doc = Bokeh.documents[0];
 const div = document.createElement('div');
 div.innerHTML = doc.get_model_by_name('verdict').text;
-return {rendered: cells, model: Array.from(doc.get_model_by_name('status_source').data.value),
+return {rendered: cells,
+        model: Array.from(doc.get_model_by_name('status_source').data.value)
+                    .filter(v => v.includes('±')),
         banner: div.textContent};
 """
 

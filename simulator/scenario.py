@@ -14,7 +14,8 @@ Two ways to give the points:
 
 Top-level ``[scenario]`` keys: ``name``, ``description``, ``facility``, ``stream``
 (default ``probe-a``), ``rate_hz``, ``point_seconds`` (time per point, the cap with
-``--follow-control``), ``spectrum`` (``"ou"`` or ``"vonkarman"``), ``columns``
+``--follow-control``), ``spectrum`` (``"ou"``, ``"vonkarman"`` or ``"pope"``: Pope's model
+spectrum with a dissipation range, needs ``nu``), ``columns``
 (``["u", "v", "w"]``), ``dtype`` (``"<f8"`` or ``"<f4"``), ``nu`` (m^2/s), ``c1`` (Kolmogorov
 constant of the 1-D spectrum, 0.49), ``sampling`` (``"uniform"`` or ``"random"`` with
 ``data_rate_hz`` and ``probe_diameter_m``). ``[faults]`` as in :mod:`eddyvigil.simulator.faults`.
@@ -52,6 +53,7 @@ from eddyvigil.simulator.signals import (
     OUGenerator,
     RandomSampler,
     Shedding,
+    PopeShapeGenerator,
     TurbulenceGenerator,
     VonKarmanGenerator,
     cholesky_factor,
@@ -230,7 +232,7 @@ class PlaneWake:
             z=z,
             mean=tuple(mean),
             stress=tuple(map(tuple, stress)),
-            length_m=self.p["length_m"] if spectrum == "vonkarman" else None,
+            length_m=self.p["length_m"] if spectrum in ("vonkarman", "pope") else None,
             tint_s=self.p["length_m"] / float(np.linalg.norm(mean)) if spectrum == "ou" else None,
             skew=tuple(self.skew(y)),
             shedding=shed,
@@ -285,7 +287,20 @@ class Scenario:
         mean = np.asarray(point.mean, float)[:m]
         stress = np.asarray(point.stress, float)[:m, :m]
         skew = np.asarray(point.skew, float)[:m]
-        if self.spectrum == "vonkarman":
+        if self.spectrum == "pope":
+            if point.length_m is None:
+                raise ScenarioError(f"point {point.id}: the Pope spectrum needs length_m")
+            gen = PopeShapeGenerator(
+                mean,
+                stress,
+                point.length_m,
+                self.nu,
+                self.rate_hz,
+                seed,
+                skew=skew,
+                shedding=point.shedding,
+            )
+        elif self.spectrum == "vonkarman":
             if point.length_m is None:
                 raise ScenarioError(f"point {point.id}: the von Kármán spectrum needs length_m")
             gen = VonKarmanGenerator(
@@ -394,8 +409,10 @@ def _number(table: dict, key: str, default, section="scenario"):
 def _scenario_from_dict(d: dict, source: str) -> Scenario:
     s = d.get("scenario", {})
     spectrum = s.get("spectrum", "ou")
-    if spectrum not in ("ou", "vonkarman"):
-        raise ScenarioError(f"spectrum must be 'ou' or 'vonkarman', not {spectrum!r}")
+    if spectrum not in ("ou", "vonkarman", "pope"):
+        raise ScenarioError(f"spectrum must be 'ou', 'vonkarman' or 'pope', not {spectrum!r}")
+    if spectrum == "pope" and _number(s, "nu", None) is None:
+        raise ScenarioError("spectrum = 'pope' needs nu (its dissipation range depends on it)")
     sampling = s.get("sampling", "uniform")
     if sampling not in ("uniform", "random"):
         raise ScenarioError(f"sampling must be 'uniform' or 'random', not {sampling!r}")
@@ -541,9 +558,15 @@ def point_truth(scenario: Scenario, point: PointSpec, seed=0) -> dict:
     for i, c in enumerate(cols):
         stats[f"Tint_{c}"] = tint[i]
     stats[f"L_{c0}"] = tint[0] * float(np.linalg.norm(turb.mean))
-    eps = turb.epsilon() if isinstance(turb, VonKarmanGenerator) else None
+    eps = turb.epsilon() if isinstance(turb, VonKarmanGenerator | PopeShapeGenerator) else None
     stats["eps"] = eps
-    stats["eta"] = (scenario.nu**3 / eps) ** 0.25 if (eps and scenario.nu) else None
+    nu = scenario.nu
+    stats["eta"] = (nu**3 / eps) ** 0.25 if (eps and nu) else None
+    if isinstance(turb, PopeShapeGenerator):
+        # the small scales of REFERENCES §7 from eps and u'^2 = uu (as the monitor forms them)
+        stats["tau_eta"] = math.sqrt(nu / eps)
+        stats["lambda_g"] = math.sqrt(15.0 * nu * r[0, 0] / eps)
+        stats["Re_lambda"] = math.sqrt(r[0, 0]) * stats["lambda_g"] / nu
     out = {
         "point": point.wire_point(scenario.nu),
         "statistics": {k: _jsonable(v) for k, v in stats.items()},

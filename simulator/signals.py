@@ -35,6 +35,8 @@ __all__ = [
     "VonKarmanGenerator",
     "PopeGenerator",
     "PopeSpectrum",
+    "PopeShapeGenerator",
+    "pope_for_length",
     "RandomSampler",
     "cholesky_factor",
     "skew_moments",
@@ -666,3 +668,130 @@ class PopeGenerator(TurbulenceGenerator):
     def _unit_integral_time(self) -> np.ndarray:
         rho = self.unit_acf(self.taps)
         return np.full(self.m, (0.5 + rho[1:].sum()) / self.rate_hz)
+
+
+def pope_for_length(k: float, length_m: float, nu: float, tol: float = 1e-6) -> PopeSpectrum:
+    """The :class:`PopeSpectrum` of energy ``k`` and viscosity ``nu`` whose longitudinal
+    integral length ``l11`` is ``length_m`` (ε found by iteration; ``l11`` falls as ε grows)."""
+    eps = 0.43 * k**1.5 / length_m  # L11 ~ 0.43 k^{3/2}/eps at high Reynolds number (Pope 2000)
+    for _ in range(40):
+        sp = PopeSpectrum(k, eps, nu)
+        ratio = sp.l11 / length_m
+        if abs(ratio - 1.0) < tol:
+            return sp
+        eps *= ratio
+    raise ValueError(f"no Pope spectrum with L11 = {length_m} m for k = {k}, nu = {nu}")
+
+
+class PopeShapeGenerator(TurbulenceGenerator):
+    """Prescribed stresses and skewness with the time structure of Pope's model spectrum.
+
+    Like :class:`VonKarmanGenerator` (white noise through a zero-phase FIR kernel, then the
+    skew transform and the Cholesky mix of ``stress``), but the unit processes have the shape of
+    Pope's model spectrum, with an inertial and a dissipation range: unit process 0 the
+    longitudinal ``E11``, the others the transverse ``E22``, by Taylor's hypothesis at the mean
+    speed, folded about Nyquist. The model is the one of ``k = 3 R_11 / 2``, ``nu`` and the ε
+    that makes its integral length ``L11`` equal ``length_m``.
+
+    ``epsilon()`` is the dissipation rate of u as the isotropic derivative formula sees it,
+    ``15 nu <(du/dx)^2>``: the model's ε times ``(1 + 4a^2)/(1 + 2a^2)`` for a skewed u (for
+    Gaussian z, z' is independent of z, so ``<y'^2> = <z'^2>(1 + 4a^2)/(1 + 2a^2)``).
+    """
+
+    def __init__(
+        self, mean, stress, length_m, nu, rate_hz, seed, *, skew=0.0, shedding=None, taps=None
+    ):
+        super().__init__(mean, stress, rate_hz, seed, skew=skew, shedding=shedding)
+        self.speed_ms = float(np.linalg.norm(self.mean))
+        if not (self.speed_ms > 0 and length_m > 0 and nu > 0):
+            raise ValueError("Pope-shaped generator needs length_m > 0, nu > 0, a mean speed > 0")
+        self.length_m, self.nu = float(length_m), float(nu)
+        self.spectrum = pope_for_length(1.5 * self.stress[0, 0], self.length_m, self.nu)
+        tl = self.length_m / self.speed_ms
+        if taps is None:
+            taps = 1 << max(10, math.ceil(math.log2(64 * tl * self.rate_hz)))
+        self.taps = int(taps)
+        f = np.fft.rfftfreq(self.taps, 1.0 / self.rate_hz)
+        kernels = []
+        for transverse in (False, True):
+            s = self._folded_unit_psd(f, transverse)
+            h = np.roll(np.fft.irfft(np.sqrt(s * self.rate_hz / 2), self.taps), self.taps // 2)
+            kernels.append(h / math.sqrt(np.sum(h**2)))
+        self.kernels = np.stack([kernels[min(i, 1)] for i in range(self.m)], axis=1)
+        self._chunk = max(4 * self.taps, 1 << 15)
+        self._history = self._rng.standard_normal((self.taps - 1, self.m))
+        self._ready = np.empty((0, self.m))
+
+    def _folded_unit_psd(self, f, transverse, folds=8):
+        sp = self.spectrum
+
+        def one(g):
+            return sp.psd(np.abs(g), self.speed_ms, transverse) / sp.u_rms**2
+
+        s = one(f)
+        for j in range(1, folds + 1):
+            s = s + one(j * self.rate_hz - f) + one(j * self.rate_hz + f)
+        return s
+
+    def _fill(self, n, out):
+        parts, have = [self._ready], self._ready.shape[0]
+        while have < n:
+            noise = self._rng.standard_normal((self._chunk, self.m))
+            buf = np.concatenate([self._history, noise])
+            self._history = buf[-(self.taps - 1) :].copy()
+            c = np.stack(
+                [
+                    sps.fftconvolve(buf[:, i], self.kernels[:, i], mode="valid")
+                    for i in range(self.m)
+                ],
+                axis=1,
+            )
+            parts.append(c)
+            have += c.shape[0]
+        pool = np.concatenate(parts) if len(parts) > 1 else self._ready
+        skew_mix(
+            np.ascontiguousarray(pool[:n]), self.skew_a, self._skew_norm, self.chol, self.mean, out
+        )
+        self._ready = pool[n:]
+
+    def _kernel_acf(self, i: int, lags: int) -> np.ndarray:
+        spec = np.abs(np.fft.rfft(self.kernels[:, i], 2 * self.taps)) ** 2
+        acf = np.fft.irfft(spec, 2 * self.taps)[: self.taps]
+        out = np.zeros(lags)
+        k = min(lags, self.taps)
+        out[:k] = acf[:k] / acf[0]
+        return out
+
+    def unit_acf(self, lags: int) -> np.ndarray:
+        return self._kernel_acf(0, lags)
+
+    def _unit_integral_time(self) -> np.ndarray:
+        """Integral time of each output component's turbulent part.
+
+        Each skewed unit process m has ``T_m = dt (1/2 + sum rho_y)``; component i is
+        ``sum_m L_im y_m`` of independent processes, so ``R_ii T_i = sum_m L_im^2 T_m``.
+        """
+        a2 = self.skew_a**2
+        t_unit = np.empty(self.m)
+        for i in range(self.m):
+            rho = self._kernel_acf(i, self.taps)
+            y = (rho + 2 * a2[i] * rho**2) / (1 + 2 * a2[i])
+            t_unit[i] = (0.5 + y[1:].sum()) / self.rate_hz
+        return (self.chol**2 @ t_unit) / np.diag(self.stress)
+
+    def epsilon(self) -> float:
+        """``15 nu <(du/dx)^2>`` of the sampled u: the model's ε times the ratio of the
+        derivative integrals ``int (2 pi f)^2 S df`` up to Nyquist of the skewed and the Gaussian
+        unit process (their spectra from the exact discrete autocorrelations; the ``z^2`` part of
+        the skew transform is broader than ``z`` and folds about Nyquist)."""
+        rho = self._kernel_acf(0, self.taps)
+        a2 = self.skew_a[0] ** 2
+        y = (rho + 2 * a2 * rho**2) / (1 + 2 * a2)
+
+        def derivative_integral(acf):
+            sym = np.r_[acf, 0.0, acf[:0:-1]]  # even sequence of length 2 taps
+            spec = np.fft.rfft(sym).real
+            theta = np.linspace(0.0, math.pi, spec.size)
+            return float(np.sum(theta**2 * spec))
+
+        return self.spectrum.eps * derivative_integral(y) / derivative_integral(rho)

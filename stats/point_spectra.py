@@ -13,6 +13,7 @@ from __future__ import annotations
 import math
 
 from eddyvigil.stats.dissipation import C1_DEFAULT, NU_AIR_20C, Dissipation, Quantity, dissipation
+from eddyvigil.stats.eps_target import EpsStatus, EpsTarget
 from eddyvigil.stats.spectra import SpectrumAccumulator, SpectrumSnapshot
 
 __all__ = ["NO_SPECTRUM_RANDOM", "SPECTRAL_ROWS", "PointSpectra", "summary_fields"]
@@ -35,6 +36,8 @@ class PointSpectra:
     c1 : Kolmogorov constant of the 1-D spectrum for the inertial fit
     fit_range_hz : a (low, high) range for the inertial fit instead of the automatic one
     stride : transform every ``stride``-th Welch segment only (cheaper, fewer dof)
+    targets : the run's ``stats.Targets``; a target on ``eps`` is judged here
+        (``stats/eps_target.py``)
     """
 
     def __init__(
@@ -46,8 +49,12 @@ class PointSpectra:
         c1: float = C1_DEFAULT,
         fit_range_hz=None,
         stride: int = 1,
+        targets=None,
     ):
         self.columns = tuple(columns)
+        t = None if targets is None else targets.targets.get("eps")
+        self.eps_target = None if t is None else EpsTarget(relative=t.relative, absolute=t.absolute)
+        self.eps_status: EpsStatus | None = None
         self.rate_hz = float(rate_hz)
         self.c1 = float(c1)
         self.fit_range_hz = fit_range_hz
@@ -107,8 +114,25 @@ class PointSpectra:
                     speed_stderr=speed_se if math.isfinite(speed_se) else None,
                     confidence=moments.confidence,
                 )
+        if self.eps_target is not None and spec is not None and moments is not None:
+            k, _ = _value_and_error(moments, "k")
+            length, _ = _value_and_error(moments, f"L_{self.columns[0]}")
+            self.eps_status = self.eps_target.evaluate(
+                None if result is None else result.eps,
+                segments=spec.segments,
+                duration_s=float(moments.duration_s),
+                k=k,
+                length_m=length,
+            )
         self._cache = (key, spec, result)
         return spec, result
+
+    def eps_met(self, moments, nu: float | None = None) -> bool:
+        """True unless ``eps`` is targeted and not converged (evaluated on the latest segments)."""
+        if self.eps_target is None:
+            return True
+        self.evaluate(moments, nu)
+        return self.eps_status is not None and self.eps_status.converged
 
     def live(
         self,
@@ -121,14 +145,15 @@ class PointSpectra:
         """Like :meth:`evaluate`, for a display: re-evaluated only once the segment count has grown
         by ``growth`` and (when the caller passes its clock's ``now``) ``min_interval_s`` has passed
         since the last live evaluation; a display needs no fresher ε, and the fit costs tens of ms.
-        The point's summary line always uses :meth:`evaluate`."""
+        The point's summary line always uses :meth:`evaluate`. Returns ``(spectrum,
+        dissipation, eps_status)``; the status is None when ``eps`` is untargeted."""
         if self._live is not None:
             segs, at, out = self._live
             grown = self.welch.segments >= growth * segs and self.welch.segments > segs
             waited = now is None or at is None or now - at >= min_interval_s
             if segs > 0 and not (grown and waited):
                 return out
-        out = self.evaluate(moments, nu)
+        out = (*self.evaluate(moments, nu), self.eps_status)
         self._live = (self.welch.segments, now, out)
         return out
 
@@ -233,4 +258,14 @@ def summary_fields(
             "L_u_spectral": d.L_u_spectral.as_dict(),
         }
     )
-    return fields, [_row(n, q) for n, q in d.rows().items()]
+    rows = [_row(n, q) for n, q in d.rows().items()]
+    status = spectra.eps_status
+    if status is not None:
+        rows[0].update(
+            target=status.target,
+            converged=status.converged,
+            eta_s=status.eta_s,
+            state=status.state,
+            reason=status.reason if status.reason else rows[0]["reason"],
+        )
+    return fields, rows

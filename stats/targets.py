@@ -12,8 +12,8 @@ second moments ``uu`` ... and ``k``    ``k``
 third moments ``uuu`` ...              ``k**1.5``
 fourth moments ``uuuu`` ...            ``k**2``
 ``skew_*``, ``flat_*``                 1 (a relative target is an absolute one)
-``Tint_*``, ``Neff_*``, ``L_*``,       the magnitude of the statistic itself
-``eta``, ``eps``
+``Tint_*``, ``Neff_*``, ``L_*``         the magnitude of the statistic itself
+``eps``                                ``k**1.5 / L_u`` (judged in ``stats/eps_target.py``)
 =====================================  ====================================================
 
 Defaults (used when no file is given): confidence 0.95; ``U``, ``V``, ``W`` within 1 % of the
@@ -208,7 +208,7 @@ def _parse_target(source: str, name, spec) -> Target:
             "U V W, stresses uu vv ww uv uw vw, k, third/fourth moments like uuv or uuvv, "
             "skew_u, flat_u, Tint_u, Neff_u, L_u"
         )
-    if name in NOT_ESTIMATED:
+    if name in NOT_ESTIMATED and name != "eps":  # eps: judged in stats/eps_target.py
         # a target nobody computes could never be met: refuse it rather than ignore it
         raise TargetsError(
             f"{where}: {name} is a statistic name, but this version does not estimate it yet; "

@@ -53,6 +53,7 @@ def exercise(dtype, columns) -> None:
         quality.update(block[:4200])
         quality.flush()
     accumulate_power(np.zeros((1, 1, 2), dtype=np.complex128), np.zeros((2, 1)))  # Welch sums
+    accumulate_power(np.zeros((1, 1, 2), dtype=np.complex64), np.zeros((2, 1)))  # float32 data
 
 
 def prepare_kernels() -> float:

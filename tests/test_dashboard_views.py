@@ -10,6 +10,7 @@ import pytest
 from eddyvigil.monitor.dashboard import views
 from eddyvigil.monitor.state import RunSnapshot, StreamView
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
+from eddyvigil.stats.verdict import state_words
 
 
 def _est(name, value, hw, target, state, eta=None):
@@ -217,3 +218,56 @@ def test_a_normal_end_looks_finished():
     health = views.health_html(snap)
     assert "! transport" not in health and "after end (normal)" in health
     p.close()
+
+
+def _spectral_view(targeted: bool):
+    """A stream view whose spectrum comes from a Pope-spectrum stream (Pope 2000, Turbulent
+    Flows, §6.5; REFERENCES §7), through the monitor's own PointSpectra."""
+    from eddyvigil.simulator.signals import PopeGenerator, generate
+    from eddyvigil.stats import PointStatistics, Targets
+    from eddyvigil.stats.point_spectra import PointSpectra
+
+    rate, nu = 20_000.0, 1.5e-5
+    table = {"U": {"relative": 0.01}}
+    if targeted:
+        table["eps"] = {"relative": 0.1}
+    targets = Targets.from_dict({"targets": table})
+    gen = PopeGenerator([5.0, 0.0], 0.6, 2.0, nu, rate, seed=3)
+    x = generate(gen, 200_000)
+    st = PointStatistics(("u", "v"), rate, targets=targets).update(x)
+    ps = PointSpectra(("u", "v"), rate, targets=targets).update(x)
+    snap = st.snapshot()
+    spectrum = ps.live(snap, nu)
+    view = StreamView(stream="probe-a", session="s1", point={"id": "P01", "y": 0.02},
+                      point_index=1, stats=snap, rate_hz=rate, received_rate_hz=rate,
+                      messages=10, lost_messages=0, gaps=0, restarts=0, rejected={},
+                      spectrum=spectrum)
+    return view, gen.truth()
+
+
+@pytest.mark.parametrize("targeted", [False, True])
+def test_status_board_and_profile_show_eps_eta_re_lambda(targeted):
+    view, truth = _spectral_view(targeted)
+    cols = views.status_columns(_run(view))
+    rows = {n: i for i, n in enumerate(cols["name"])}
+    assert {"eps", "eta", "Re_lambda"} <= set(rows)
+    d = view.spectrum[1]
+    for name in ("eps", "eta", "Re_lambda"):
+        q = d.rows()[name]
+        assert q.ci_low is not None  # this stream resolves its dissipation range
+        assert cols["value"][rows[name]] == (f"{views.format_value(q.value)} "
+                                             f"[{views.format_value(q.ci_low)}, "
+                                             f"{views.format_value(q.ci_high)}]")
+        # and the interval holds the model's value (REFERENCES §7 scales of Pope's spectrum)
+        assert q.ci_low <= truth[name] <= q.ci_high
+    i = rows["eps"]
+    if targeted:
+        assert cols["target"][i].startswith("± ") and cols["state"][i] != state_words("untargeted")
+    else:
+        assert cols["target"][i] == "–" and cols["state"][i] == state_words("untargeted")
+    cur = views.current_profile_columns(view, "y", ("U", "eps"))
+    assert cur["eps"] == [d.eps.value] and cur["eps_lo"] == [d.eps.ci_low]
+    fin = [{"point": {"id": "P00", "y": 0.0}, "statistics": [
+        {"name": "eps", "value": 2.0, "ci_low": 1.9, "ci_high": 2.1}]}]
+    prof = views.profile_columns(_view(OPEN, finished=fin), "y", ("eps",))
+    assert prof["eps"] == [2.0] and prof["eps_hi"] == [2.1]

@@ -110,20 +110,21 @@ def test_pub_publisher_sends_the_whole_traverse(ctx, tmp_path):
     assert [m.seq for m in msgs] == list(range(len(msgs)))  # nothing lost, from 0
     points = [m.point["id"] for m in msgs if isinstance(m, wire.PointMessage)]
     assert points == [f"P{i:02d}" for i in range(1, 10)]
-    # 1000 rows per point, uniform rate, t0 continuing across points
-    samples = [m for m in msgs if isinstance(m, wire.SamplesMessage)]
-    assert sum(m.n for m in samples) == 9 * 1000
-    assert all(m.rate_hz == 4000.0 and m.columns == ("u", "v", "w") for m in samples)
-    np.testing.assert_allclose([m.t0 for m in samples], np.arange(len(samples)) * 100 / 4000.0)
-    # the received samples are the in-process generator's, same seed (point i: seed [3, i])
+    # 0.25 s of rows per point, uniform rate, t0 continuing across points
     sc = load_scenario("wake")
+    rate, rows = sc.rate_hz, round(0.25 * sc.rate_hz)
+    samples = [m for m in msgs if isinstance(m, wire.SamplesMessage)]
+    assert sum(m.n for m in samples) == 9 * rows
+    assert all(m.rate_hz == rate and m.columns == ("u", "v", "w") for m in samples)
+    np.testing.assert_allclose([m.t0 for m in samples], np.arange(len(samples)) * 100 / rate)
+    # the received samples are the in-process generator's, same seed (point i: seed [3, i])
     seed0 = int(np.random.SeedSequence([3, 0]).generate_state(2)[0])
     first = np.concatenate([m.velocity for m in samples[:10]])
     np.testing.assert_array_equal(first, sc.make_generator(sc.points[0], seed0).next_block(1000))
     truth = json.loads(truth_file.read_text())
     assert truth["complete"] and truth["sessions"] == [msgs[0].session]
     assert [p["point"]["id"] for p in truth["points"]] == points
-    assert all(p["rows"] == 1000 and p["ended_by"] == "time" for p in truth["points"])
+    assert all(p["rows"] == rows and p["ended_by"] == "time" for p in truth["points"])
     assert {"production", "turbulent_transport", "dissipation", "residual"} <= set(
         truth["points"][0]["budget"]
     )

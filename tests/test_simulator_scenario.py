@@ -62,11 +62,13 @@ def test_wake_profiles_symmetry_and_budget():
         assert bud["residual"] == pytest.approx(
             bud["dissipation"] - bud["production"] - bud["turbulent_transport"]
         )
-        # eps of the von Kármán inertial range, 0.714 uu^{3/2}/L for C1 = 0.49 (REFERENCES §7),
-        # raised by [(1+4a^2)/(1+2a^2)]^{3/2} for the skewed u
+        # eps of Pope's model spectrum (the wake's spectrum = "pope"); the scales from it by
+        # the formulas of REFERENCES §7 (Pope 2000, Turbulent Flows, §6.1)
         assert bud["dissipation"] == pytest.approx(st["eps"])
         assert st["eta"] == pytest.approx((sc.nu**3 / st["eps"]) ** 0.25)
-        assert 0.002 < st["Tint_u"] < 0.005  # "a few ms" at 4 kHz
+        assert st["lambda_g"] == pytest.approx(math.sqrt(15 * sc.nu * st["uu"] / st["eps"]))
+        assert st["Re_lambda"] == pytest.approx(math.sqrt(st["uu"]) * st["lambda_g"] / sc.nu)
+        assert 0.002 < st["Tint_u"] < 0.005  # "a few ms": L11 / U
     # transport: independent numerical derivative (numpy.gradient on a fine grid of the flux
     # 0.5(uuv + vvv + wwv) built from truth records at neighbouring positions)
     from eddyvigil.simulator.scenario import PlaneWake

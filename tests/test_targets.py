@@ -223,7 +223,7 @@ def test_from_dict_refuses_non_mappings_and_bad_direct_construction():
         Targets(targets={"U": Target("V", relative=0.1)})
 
 
-@pytest.mark.parametrize("name", ["eps", "eta"])
+@pytest.mark.parametrize("name", ["eta"])
 def test_targets_on_statistics_not_estimated_are_refused(name):
     # a target that nothing computes could never be met; it must not be silently ignored
     with pytest.raises(TargetsError, match="does not estimate it yet"):
@@ -238,3 +238,9 @@ def test_mean_scale_stays_positive_where_the_mean_speed_vanishes():
     assert t.resolve("U", {"U": 1e-4, "k": 1.5}) == pytest.approx(0.01 * np.sqrt(1e-8 + 1.0))
     plan = t.plan(("U", "k"))
     assert plan.resolve([0.0, 1.5]) == [pytest.approx(0.01), None]
+
+
+def test_a_target_on_eps_is_accepted():
+    # eps is judged beside the moments (stats/eps_target.py), relative to k^(3/2)/L_u
+    t = Targets.from_dict({"targets": {"eps": {"relative": 0.05}, "U": {"relative": 0.01}}})
+    assert t.targets["eps"].relative == 0.05

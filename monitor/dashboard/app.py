@@ -51,6 +51,8 @@ HALFWIDTH_SLOWEST = 4
 _PLOT = dict(height=300, sizing_mode="stretch_width", toolbar_location="right",
              tools="pan,wheel_zoom,box_zoom,reset,save")
 _PROFILE_NAMES = ("uu", "vv", "ww", "uv", "k")
+#: Every column of the profile sources: the moments' and eps (from the spectra).
+_PROFILE_COLUMNS = views.MEAN_NAMES + views.STRESS_NAMES + ("eps",)
 
 
 def _empty(columns: dict) -> dict:
@@ -83,7 +85,7 @@ class _Page:
             views.status_columns(RunSnapshot(0, 0.0)), name="status_source")
         coloured = StringFormatter(text_color="colour", font_style="bold")
         self.status = DataTable(
-            name="status", source=self.status_source, height=290, width=640, index_position=None,
+            name="status", source=self.status_source, height=370, width=640, index_position=None,
             columns=[TableColumn(field="stream", title="stream", width=70),
                      TableColumn(field="point", title="point", width=60),
                      TableColumn(field="name", title="statistic", width=60),
@@ -140,10 +142,10 @@ class _Page:
                                  f"{HALFWIDTH_SLOWEST} furthest from target)", active=False)
         self.show_all.on_change("active", self._on_select)
 
-        self.profile_source = ColumnDataSource(views.profile_columns(None, "y"),
-                                               name="profile_source")
-        self.current_source = ColumnDataSource(views.current_profile_columns(None, "y"),
-                                               name="current_source")
+        self.profile_source = ColumnDataSource(
+            views.profile_columns(None, "y", _PROFILE_COLUMNS), name="profile_source")
+        self.current_source = ColumnDataSource(
+            views.current_profile_columns(None, "y", _PROFILE_COLUMNS), name="current_source")
         self.profile_mean = figure(name="profile_mean",
                                    title="traverse: U (95 % CI; diamond = the current point)",
                                    x_axis_label="y (m)", y_axis_label="U (m/s)", **_PLOT)
@@ -156,8 +158,14 @@ class _Page:
         for n in _PROFILE_NAMES:
             self._profile(self.profile_stresses, n)
         _legend_outside(self.profile_stresses)
+        self.profile_eps = figure(name="profile_eps",
+                                  title="traverse: dissipation rate ε (95 % CI; from the u "
+                                        "spectrum by Taylor's hypothesis)",
+                                  x_axis_label="y (m)", y_axis_label="ε (m²/s³)", **_PLOT)
+        self._profile(self.profile_eps, "eps")
+        _legend_outside(self.profile_eps)
         for fig in (self.trace, self.running_mean, self.running_stresses, self.profile_mean,
-                    self.profile_stresses):
+                    self.profile_stresses, self.profile_eps):
             fig.yaxis.formatter = BasicTickFormatter(use_scientific=False)
             fig.xaxis.formatter = BasicTickFormatter(use_scientific=False)
 
@@ -186,6 +194,7 @@ class _Page:
             row(self.trace, self.halfwidth, sizing_mode="stretch_width"),
             row(self.running_mean, self.running_stresses, sizing_mode="stretch_width"),
             row(self.profile_mean, self.profile_stresses, sizing_mode="stretch_width"),
+            row(self.profile_eps, sizing_mode="stretch_width"),
             self.spectrum.layout,
             self.budget.figure,
             self.finished,
@@ -266,13 +275,13 @@ class _Page:
         axis = views.profile_axis(view)
         if axis != self.axis:
             self.axis = axis
-            for fig in (self.profile_mean, self.profile_stresses):
+            for fig in (self.profile_mean, self.profile_stresses, self.profile_eps):
                 fig.xaxis.axis_label = f"{axis} (m)"
-        profile = views.profile_columns(view, axis)
+        profile = views.profile_columns(view, axis, _PROFILE_COLUMNS)
         if len(profile["coord"]) != len(self.profile_source.data["coord"]) or new_point:
             self.profile_source.data = profile
             self.finished_source.data = views.finished_columns(view)
-        self.current_source.data = views.current_profile_columns(view, axis)
+        self.current_source.data = views.current_profile_columns(view, axis, _PROFILE_COLUMNS)
         self.spectrum.update(view)
         self.budget.update(view, axis)
 

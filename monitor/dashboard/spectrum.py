@@ -52,7 +52,7 @@ def spectrum_columns(spectrum, compensated: bool = False, max_bins: int = 200) -
     }
     if spectrum is None or spectrum[0] is None:
         return empty
-    spec, diss = spectrum
+    spec, diss = spectrum[:2]
     speed = diss.speed_ms if diss is not None else float("nan")
     comp = bool(compensated) and math.isfinite(speed) and speed > 0
     lb = spec.log_binned(max_bins)
@@ -116,7 +116,7 @@ def scales_html(spectrum) -> str:
     """ε, η, τ_η, λ_g, Re_λ with their 95 % intervals, the method and ν (plain HTML)."""
     if spectrum is None or spectrum[0] is None:
         return "<i>spectrum: waiting for the first complete segment</i>"
-    spec, d = spectrum
+    spec, d = spectrum[:2]
     head = (
         f"Welch: {spec.segments} segments of {spec.segment} samples "
         f"(Δf = {spec.df_hz:.3g} Hz, Hann, 50 % overlap)"

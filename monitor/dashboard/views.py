@@ -26,7 +26,7 @@ __all__ = [
     "trace_columns", "history_columns", "halfwidth_columns", "guide_columns",
     "profile_axis", "profile_columns", "current_profile_columns", "finished_columns",
     "format_value", "format_duration", "GREY", "targeted_names", "statistic_dash",
-    "STYLE_NOTE", "flow_html", "slowest_first",
+    "STYLE_NOTE", "flow_html", "slowest_first", "SPECTRAL_STATUS",
 ]
 
 #: Okabe & Ito (2008, "Color universal design") palette: distinguishable with every common
@@ -299,7 +299,54 @@ def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
             cols["state"].append(state_words(state))
             cols["eta"].append("done" if e.converged else _eta(e.eta_s))
             cols["colour"].append(STATE_COLOURS.get(state, GREY))
+        _spectral_status_rows(cols, name, pid, v)
     return cols
+
+
+#: Rows of the status board from the spectra (ε targeted or not, then the scales it sets).
+SPECTRAL_STATUS = ("eps", "eta", "Re_lambda")
+
+
+def _spectral_quantity(view: StreamView | None, name: str):
+    """The current point's ``dissipation.Quantity`` of ``name`` (None without a spectrum)."""
+    spectrum = view.spectrum if view is not None else None
+    if not spectrum or len(spectrum) < 2 or spectrum[1] is None:
+        return None
+    return spectrum[1].rows().get(name)
+
+
+def _spectral_status_rows(cols: dict[str, list], stream: str, pid: str, v: StreamView) -> None:
+    """ε, η and Re_λ of the current point with their intervals (asymmetric: shown as [lo, hi]).
+
+    ε carries its target, state and ETA when it is targeted (``stats/eps_target.py``); a value
+    without an honest interval says so instead of showing one.
+    """
+    if not v.spectrum or v.spectrum[0] is None:
+        return
+    status = v.spectrum[2] if len(v.spectrum) > 2 else None
+    for n in SPECTRAL_STATUS:
+        q = _spectral_quantity(v, n)
+        honest = q is not None and q.value is not None and q.ci_low is not None
+        if honest:
+            text = f"{format_value(q.value)} [{format_value(q.ci_low)}, {format_value(q.ci_high)}]"
+        elif q is not None and q.value is not None:
+            text = f"{format_value(q.value)} (no interval)"
+        else:
+            text = "–"
+        state = "untargeted" if honest else "no-interval"
+        target, eta = "–", "–"
+        if n == "eps" and status is not None:
+            state = status.state
+            target = "–" if status.target is None else f"± {format_value(status.target, 2)}"
+            eta = "done" if status.converged else _eta(status.eta_s)
+        cols["stream"].append(stream)
+        cols["point"].append(pid)
+        cols["name"].append(n)
+        cols["value"].append(text)
+        cols["target"].append(target)
+        cols["state"].append(state_words(state))
+        cols["eta"].append(eta)
+        cols["colour"].append(STATE_COLOURS.get(state, GREY))
 
 
 def _eta(seconds) -> str:
@@ -540,7 +587,8 @@ def current_profile_columns(view: StreamView | None, axis: str,
     out["id"].append(str(view.point.get("id", "")))
     have = set(view.stats.names)
     for n in names:
-        e = view.stats.estimate(n) if n in have else None
+        # a statistic of the moments, or one of the spectra's (eps: dissipation.Quantity)
+        e = view.stats.estimate(n) if n in have else _spectral_quantity(view, n)
         out[n].append(_num(e.value) if e else math.nan)
         out[n + "_lo"].append(_num(e.ci_low) if e else math.nan)
         out[n + "_hi"].append(_num(e.ci_high) if e else math.nan)
