@@ -24,7 +24,6 @@ import os
 import statistics
 import sys
 import time
-import types
 from pathlib import Path
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
@@ -38,6 +37,8 @@ from eddyvigil.monitor.pipeline import Pipeline  # noqa: E402
 from eddyvigil.simulator.signals import PopeGenerator, generate  # noqa: E402
 from eddyvigil.stats import point_spectra  # noqa: E402
 from eddyvigil.stats.dissipation import dissipation  # noqa: E402
+
+_PointSpectra = point_spectra.PointSpectra
 
 RATE = 20_000.0
 
@@ -65,22 +66,24 @@ def frames_of(x: np.ndarray, rows: int, points: int) -> list[list[bytes]]:
 
 def run(frames, stride: int | None) -> float:
     """Seconds to feed ``frames``; ``stride`` None switches the spectra off."""
-    p = Pipeline(summary=io.StringIO())
     if stride is None:
-        p._spectra = types.SimpleNamespace(
-            PointSpectra=lambda *a, **k: None, summary_fields=point_spectra.summary_fields
-        )
-    elif stride != 1:
-        p._spectra = types.SimpleNamespace(
-            PointSpectra=functools.partial(point_spectra.PointSpectra, stride=stride),
-            summary_fields=point_spectra.summary_fields,
-        )
-    t = time.perf_counter()
-    for f in frames:
-        p.handle_frames(f)
-        p.snapshot  # noqa: B018 - what a reader does
-    p.close()
-    return time.perf_counter() - t
+        factory = lambda *a, **k: None  # noqa: E731
+    elif stride == 1:
+        factory = _PointSpectra
+    else:
+        factory = functools.partial(_PointSpectra, stride=stride)
+    # monitor.point_run builds each point's spectra through this module attribute
+    point_spectra.PointSpectra = factory
+    try:
+        p = Pipeline(summary=io.StringIO())
+        t = time.perf_counter()
+        for f in frames:
+            p.handle_frames(f)
+            p.snapshot  # noqa: B018 - what a reader does
+        p.close()
+        return time.perf_counter() - t
+    finally:
+        point_spectra.PointSpectra = _PointSpectra
 
 
 def main() -> None:
