@@ -193,7 +193,7 @@ class Pipeline:
         self._received = 0  # messages of the whole run
         self._points_finished = 0
         self._transport_events: list[str] = []
-        self._sequence = 0  # of the published run snapshots
+        self._snapshots_published = 0  # numbers the run snapshots (RunSnapshot.sequence)
         self._last_publish = -math.inf
         self._closed = False
         self.internal_errors: list[str] = []
@@ -336,19 +336,7 @@ class Pipeline:
         self._received += 1
         block = np.asarray(block)
         columns = tuple(columns)
-        reason = None
-        if block.ndim != 2 or block.shape[1] != len(columns) or block.shape[0] < 1:
-            reason = "bad_shape"
-        elif block.dtype.kind != "f":
-            reason = "bad_dtype"
-        elif not np.isfinite(block).all():
-            reason = "non_finite"
-        elif times is not None and (
-            np.shape(times) != (block.shape[0],) or not np.all(np.diff(times) >= 0)
-        ):
-            reason = "time_backwards" if np.shape(times) == (block.shape[0],) else "bad_shape"
-        elif rate_hz is None and times is None:
-            reason = "missing_field"
+        reason = _block_rejection(block, columns, rate_hz, times)
         if reason is None:
             t0 = 0.0
             if times is None and st.current is not None and st.current.statistics is not None:
@@ -533,12 +521,12 @@ class Pipeline:
     def _build_snapshot(self) -> RunSnapshot:
         now = self._clock()
         self._last_publish = now
-        self._sequence += 1
+        self._snapshots_published += 1
         views = {}
         for name, st in self._streams.items():
             views[name] = self._stream_view(st, now)
         return RunSnapshot(
-            sequence=self._sequence,
+            sequence=self._snapshots_published,
             created_at=time.time(),
             streams=views,
             rejected_total=dict(self._rejected),
@@ -547,17 +535,30 @@ class Pipeline:
 
     def _stream_view(self, st: _Stream, now: float) -> StreamView:
         """What readers see of one stream (a fresh point snapshot first, if data arrived)."""
-        run = st.current
-        if run is not None and run.snapshot_stale:
-            run.take_snapshot()
-        # after a point ends its running estimates stay on screen until the next begins
-        shown = run.history if run else st.last_history
+        point_run = st.current
+        if point_run is None:
+            # after a point ends its running estimates stay on screen until the next begins
+            shown = st.last_history
+            meta = point_snapshot = converged_age = spectrum = None
+            point_index = st.points_started - 1
+        else:
+            if point_run.snapshot_stale:
+                point_run.take_snapshot()
+            shown = point_run.history
+            meta, point_index = dict(point_run.meta), point_run.index
+            point_snapshot = point_run.point_snapshot
+            converged_age = None
+            if point_run.converged_clock is not None:
+                converged_age = now - point_run.converged_clock
+            spectrum = None
+            if point_run.spectra is not None:
+                spectrum = point_run.spectra.live(point_snapshot, point_run.meta.get("nu"), now)
         return StreamView(
             stream=st.name,
             session=st.sequence.session,
-            point=dict(run.meta) if run else None,
-            point_index=run.index if run else st.points_started - 1,
-            stats=run.point_snapshot if run else None,
+            point=meta,
+            point_index=point_index,
+            stats=point_snapshot,
             rate_hz=st.rate_hz,
             received_rate_hz=st.receive.rate_hz(now),
             messages=st.messages,
@@ -569,12 +570,9 @@ class Pipeline:
             history=shown.arrays() if shown is not None else {},
             finished=tuple(st.finished),
             ended=st.ended,
-            converged_wall_age_s=(
-                now - run.converged_clock if run and run.converged_clock is not None else None
-            ),
-            spectrum=(run.spectra.live(run.point_snapshot, run.meta.get("nu"), now)
-                      if run and run.spectra is not None else None),
-            quality=quality_view(run),
+            converged_wall_age_s=converged_age,
+            spectrum=spectrum,
+            quality=quality_view(point_run),
         )
 
     def _internal_error(self) -> None:
@@ -582,6 +580,23 @@ class Pipeline:
         self.internal_errors.append(text)
         del self.internal_errors[:-20]
         print(f"eddyvigil: internal error (message dropped and counted):\n{text}", file=sys.stderr)
+
+
+def _block_rejection(block: np.ndarray, columns: tuple, rate_hz, times) -> str | None:
+    """Why a block given to :meth:`Pipeline.feed` cannot be taken (the wire's reasons), or None."""
+    if block.ndim != 2 or block.shape[1] != len(columns) or block.shape[0] < 1:
+        return "bad_shape"
+    if block.dtype.kind != "f":
+        return "bad_dtype"
+    if not np.isfinite(block).all():
+        return "non_finite"
+    if times is not None and (
+        np.shape(times) != (block.shape[0],) or not np.all(np.diff(times) >= 0)
+    ):
+        return "time_backwards" if np.shape(times) == (block.shape[0],) else "bad_shape"
+    if rate_hz is None and times is None:
+        return "missing_field"
+    return None
 
 
 def _topic_of(frames) -> str | None:
