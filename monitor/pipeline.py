@@ -2,6 +2,7 @@
 
 The orchestrator only; each job has its own module:
 
+- :mod:`~eddyvigil.monitor.stream`: one stream's totals, current point, finished lines, view;
 - :mod:`~eddyvigil.monitor.sequence`: a stream's session, expected ``seq``, gaps, losses;
 - :mod:`~eddyvigil.monitor.point_run`: one point's accumulators, counts, snapshots and
   control signals (:meth:`~eddyvigil.monitor.point_run.PointRun.feed` is where a block enters
@@ -67,16 +68,13 @@ from eddyvigil.monitor.display import (
     HISTORY_ROWS,
     TRACE_ROWS,
     TRACE_ROWS_PER_MESSAGE,
-    History,
-    Trace,
     quality_note,
     quality_view,
 )
 from eddyvigil.monitor.lines import point_line, run_line
 from eddyvigil.monitor.point_run import PointRun
-from eddyvigil.monitor.rate import ReceiveRate
-from eddyvigil.monitor.sequence import SequenceAccount
-from eddyvigil.monitor.state import RunSnapshot, StreamView
+from eddyvigil.monitor.state import RunSnapshot
+from eddyvigil.monitor.stream import StreamState
 from eddyvigil.monitor.summary import SummaryWriter
 
 __all__ = [
@@ -102,31 +100,6 @@ PIPELINE_REJECTION_REASONS = (
 MAX_STREAMS = 256
 #: Transport events kept for the snapshot.
 MAX_TRANSPORT_EVENTS = 50
-
-
-class _Stream:
-    """Everything the pipeline knows about one stream (totals over its points)."""
-
-    def __init__(self, name: str):
-        self.name = name
-        self.sequence = SequenceAccount()
-        self.active = False  # at least one accepted message
-        self.ended = False
-        self.messages = 0  # accepted
-        self.received = 0  # accepted + rejected
-        self.samples = 0
-        self.rejected: Counter = Counter()
-        # losses and rejections found while no point is current, charged to the next point
-        self.carry_gaps = 0
-        self.carry_lost = 0
-        self.carry_rejected: Counter = Counter()
-        self.current: PointRun | None = None
-        self.points_started = 0
-        self.finished: list[dict] = []  # point lines of its finished points
-        self.last_history: History | None = None  # of the last finished point (display)
-        self.rate_hz: float | None = None
-        self.trace = Trace()
-        self.receive = ReceiveRate()
 
 
 class Pipeline:
@@ -188,7 +161,7 @@ class Pipeline:
         self._clock = clock
         self.max_message_bytes = int(max_message_bytes)
         self.quality_policy = quality  # stats.quality: "flag" or "exclude" (README, Signal quality)
-        self._streams: dict[str, _Stream] = {}
+        self._streams: dict[str, StreamState] = {}
         self._rejected: Counter = Counter()  # of the whole run
         self._received = 0  # messages of the whole run
         self._points_finished = 0
@@ -266,15 +239,11 @@ class Pipeline:
             st.sequence.unreadable()
         self._count_rejection(st, rej.reason)
 
-    def _count_rejection(self, st: _Stream, reason: str) -> None:
+    def _count_rejection(self, st: StreamState, reason: str) -> None:
         self._rejected[reason] += 1
-        st.rejected[reason] += 1
-        if st.current is not None:
-            st.current.rejected[reason] += 1
-        else:
-            st.carry_rejected[reason] += 1
+        st.count_rejection(reason)
 
-    def _check_sequence(self, st: _Stream, session: str, seq: int) -> str | None:
+    def _check_sequence(self, st: StreamState, session: str, seq: int) -> str | None:
         """Sequence accounting (monitor.sequence); a restart finishes the current point and a
         loss is charged to the current point, or to the next when none is current."""
         if st.sequence.is_restart(session):
@@ -285,15 +254,10 @@ class Pipeline:
         if outcome.duplicate:
             return "duplicate_seq"
         if outcome.lost:
-            if st.current is not None:
-                st.current.gaps += 1
-                st.current.lost += outcome.lost
-            else:
-                st.carry_gaps += 1
-                st.carry_lost += outcome.lost
+            st.charge_loss(outcome.lost)
         return None
 
-    def _on_samples_message(self, st: _Stream, msg) -> str | None:
+    def _on_samples_message(self, st: StreamState, msg) -> str | None:
         if msg.point is not None and (
             st.current is None or msg.point.get("id") != st.current.point_id
         ):
@@ -380,22 +344,15 @@ class Pipeline:
 
     # ------------------------------------------------------------------ a point's lifecycle
 
-    def _on_point(self, st: _Stream, meta: dict) -> None:
+    def _on_point(self, st: StreamState, meta: dict) -> None:
         if st.current is not None:
             self._finish_point(st, complete=True)
         self._start_point(st, meta)
 
-    def _start_point(self, st: _Stream, meta: dict | None) -> PointRun:
-        point_run = PointRun(st.points_started, meta, history_rows=HISTORY_ROWS)
-        st.points_started += 1
-        point_run.gaps, point_run.lost = st.carry_gaps, st.carry_lost
-        point_run.rejected = st.carry_rejected
-        st.carry_gaps, st.carry_lost, st.carry_rejected = 0, 0, Counter()
-        st.current = point_run
-        st.ended = False
-        return point_run
+    def _start_point(self, st: StreamState, meta: dict | None) -> PointRun:
+        return st.start_point(meta, history_rows=HISTORY_ROWS)
 
-    def _on_end(self, st: _Stream, counts_message: bool = False) -> None:
+    def _on_end(self, st: StreamState, counts_message: bool = False) -> None:
         if st.current is not None:
             if counts_message:  # the end message belongs to the point it closes
                 st.current.messages += 1
@@ -417,13 +374,9 @@ class Pipeline:
         reason, duration_s = point_run.accept_times(times)
         if reason is not None:
             return reason
-        n = velocity.shape[0]
         mark = point_run.checkpoint_mark()
         point_run.feed(velocity, duration_s)
-        st.samples += n
-        st.receive.add(self._clock(), n)
-        st.rate_hz = rate_hz
-        st.trace.add(velocity, columns, rate_hz, times, t0)
+        st.add_samples(velocity, columns, rate_hz, times, t0, self._clock())
         # Convergence is decided at the statistics' own checkpoints (inside update, from the
         # data alone). At a checkpoint the targeted statistics come from the checkpoint's own
         # evaluation (a history row, and the converged signal at once); every other statistic
@@ -439,7 +392,7 @@ class Pipeline:
             point_run.snapshot_stale = True
         return None
 
-    def _signal(self, st: _Stream, point_run: PointRun, converged: bool) -> None:
+    def _signal(self, st: StreamState, point_run: PointRun, converged: bool) -> None:
         """Send a converged or withdrawn signal (control socket) with the point's line so far."""
         at_s = point_run.record_signal(converged, self._clock() if converged else None)
         callback = self._on_converged if converged else self._on_withdrawn
@@ -451,7 +404,7 @@ class Pipeline:
             except Exception:
                 self._internal_error()
 
-    def _finish_point(self, st: _Stream, complete: bool) -> None:
+    def _finish_point(self, st: StreamState, complete: bool) -> None:
         """The point ends: its last rows, a final snapshot, its line written; readers told."""
         point_run = st.current
         point_run.flush()
@@ -460,14 +413,13 @@ class Pipeline:
         ):
             point_run.take_snapshot()
         self._write_point_line(st, self._point_line(st, point_run, complete))
-        st.last_history = point_run.history
-        st.current = None
+        st.end_point()
         self._points_finished += 1
         self._maybe_publish(force=True)
 
     # ------------------------------------------------------------------ lines
 
-    def _point_line(self, st: _Stream, point_run: PointRun, complete: bool) -> dict:
+    def _point_line(self, st: StreamState, point_run: PointRun, complete: bool) -> dict:
         return point_line(
             st.name,
             st.sequence.session,
@@ -477,7 +429,7 @@ class Pipeline:
             self.targets.confidence,
         )
 
-    def _write_point_line(self, st: _Stream, line: dict) -> None:
+    def _write_point_line(self, st: StreamState, line: dict) -> None:
         """The one place a finished point's line is written (and kept for readers)."""
         self._writer.write(line)
         st.finished.append(line)
@@ -501,12 +453,12 @@ class Pipeline:
         active = [st for st in self._streams.values() if st.active]
         return bool(active) and all(st.ended for st in active)
 
-    def _stream(self, name: str) -> _Stream | None:
+    def _stream(self, name: str) -> StreamState | None:
         st = self._streams.get(name)
         if st is None:
             if len(self._streams) >= MAX_STREAMS:
                 return None
-            st = self._streams[name] = _Stream(name)
+            st = self._streams[name] = StreamState(name)
         return st
 
     def _maybe_publish(self, force: bool = False) -> None:
@@ -524,55 +476,13 @@ class Pipeline:
         self._snapshots_published += 1
         views = {}
         for name, st in self._streams.items():
-            views[name] = self._stream_view(st, now)
+            views[name] = st.view(now)
         return RunSnapshot(
             sequence=self._snapshots_published,
             created_at=time.time(),
             streams=views,
             rejected_total=dict(self._rejected),
             transport_events=tuple(self._transport_events),
-        )
-
-    def _stream_view(self, st: _Stream, now: float) -> StreamView:
-        """What readers see of one stream (a fresh point snapshot first, if data arrived)."""
-        point_run = st.current
-        if point_run is None:
-            # after a point ends its running estimates stay on screen until the next begins
-            shown = st.last_history
-            meta = point_snapshot = converged_age = spectrum = None
-            point_index = st.points_started - 1
-        else:
-            if point_run.snapshot_stale:
-                point_run.take_snapshot()
-            shown = point_run.history
-            meta, point_index = dict(point_run.meta), point_run.index
-            point_snapshot = point_run.point_snapshot
-            converged_age = None
-            if point_run.converged_clock is not None:
-                converged_age = now - point_run.converged_clock
-            spectrum = None
-            if point_run.spectra is not None:
-                spectrum = point_run.spectra.live(point_snapshot, point_run.meta.get("nu"), now)
-        return StreamView(
-            stream=st.name,
-            session=st.sequence.session,
-            point=meta,
-            point_index=point_index,
-            stats=point_snapshot,
-            rate_hz=st.rate_hz,
-            received_rate_hz=st.receive.rate_hz(now),
-            messages=st.messages,
-            lost_messages=st.sequence.lost,
-            gaps=st.sequence.gaps,
-            restarts=st.sequence.restarts,
-            rejected=dict(st.rejected),
-            trace=st.trace.window(),
-            history=shown.arrays() if shown is not None else {},
-            finished=tuple(st.finished),
-            ended=st.ended,
-            converged_wall_age_s=converged_age,
-            spectrum=spectrum,
-            quality=quality_view(point_run),
         )
 
     def _internal_error(self) -> None:
