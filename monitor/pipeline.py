@@ -49,7 +49,7 @@ Choices made where DESIGN leaves room (also stated in README's summary section):
   of the sample count, from the data alone, so a replay reproduces a live run's summaries bit
   for bit whatever its pace. The pipeline takes a statistics snapshot right after each
   checkpoint (when the control signal may fire), when it publishes a
-  :class:`~monitor.state.RunSnapshot` (paced by the clock) and when a point ends.
+  :class:`~eddyvigil.monitor.state.RunSnapshot` (paced by the clock) and when a point ends.
 """
 
 from __future__ import annotations

@@ -11,9 +11,9 @@ control signals (converged / withdrawn).
 :meth:`PointRun.feed` is the one place a block enters the point's accumulators.
 The sample-count checkpoints of the statistics decide everything that must replay bit for bit
 (:meth:`PointRun.checkpoint_signal`); the clock only decides when a full snapshot is taken for
-readers. Sequence accounting, the stream and the summary writer belong to others
-(:mod:`~eddyvigil.monitor.sequence`, :mod:`~eddyvigil.monitor.pipeline`,
-:mod:`~eddyvigil.monitor.lines`).
+readers. Sequence accounting, the stream, the lines and their writing belong to others
+(:mod:`~eddyvigil.monitor.sequence`, :mod:`~eddyvigil.monitor.stream`,
+:mod:`~eddyvigil.monitor.lines`, :mod:`~eddyvigil.monitor.pipeline`).
 """
 
 from __future__ import annotations

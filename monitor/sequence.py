@@ -11,8 +11,10 @@ numbers alone :class:`SequenceAccount` tells a repeated message from a lost one:
   ``seq`` yet cannot be placed: :meth:`SequenceAccount.unreadable`).
 - A new session is a publisher restart: fresh expectations, one more restart counted.
 
-It knows nothing of points: whoever owns the stream decides where a loss is charged and
-what a restart finishes (:mod:`eddyvigil.monitor.pipeline`).
+It knows nothing of points: the stream charges a loss to its current point or the next
+(:meth:`eddyvigil.monitor.stream.StreamState.charge_loss`), and the pipeline finishes the
+current point at a restart, before the account takes the new session, so the point's line
+names the session it belonged to.
 
 >>> account = SequenceAccount()
 >>> account.check("s1", 5)  # the baseline
