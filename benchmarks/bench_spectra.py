@@ -26,7 +26,6 @@ import os
 import statistics
 import sys
 import time
-import types
 from pathlib import Path
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
@@ -40,6 +39,8 @@ from eddyvigil.monitor.pipeline import Pipeline  # noqa: E402
 from eddyvigil.simulator.signals import PopeGenerator, generate  # noqa: E402
 from eddyvigil.stats import point_spectra  # noqa: E402
 from eddyvigil.stats.dissipation import dissipation  # noqa: E402
+
+_PointSpectra = point_spectra.PointSpectra
 
 RATE = 20_000.0
 
@@ -67,24 +68,26 @@ def frames_of(x: np.ndarray, rows: int, points: int) -> list[list[bytes]]:
 
 def run(frames, stride: int | None) -> float:
     """Seconds to feed ``frames``; ``stride`` None switches the spectra off."""
-    p = Pipeline(summary=io.StringIO())
     if stride is None:
-        p._spectra = types.SimpleNamespace(
-            PointSpectra=lambda *a, **k: None, summary_fields=point_spectra.summary_fields
-        )
-    elif stride != 1:
-        p._spectra = types.SimpleNamespace(
-            PointSpectra=functools.partial(point_spectra.PointSpectra, stride=stride),
-            summary_fields=point_spectra.summary_fields,
-        )
-    # CPU time of this process (the path is single-threaded): on a machine shared with other
-    # jobs, wall-clock rounds differed by 5x, CPU time far less
-    t = time.process_time()
-    for f in frames:
-        p.handle_frames(f)
-        p.snapshot  # noqa: B018 - what a reader does
-    p.close()
-    return time.process_time() - t
+        factory = lambda *a, **k: None  # noqa: E731
+    elif stride == 1:
+        factory = _PointSpectra
+    else:
+        factory = functools.partial(_PointSpectra, stride=stride)
+    # monitor.point_run builds each point's spectra through this module attribute
+    point_spectra.PointSpectra = factory
+    try:
+        p = Pipeline(summary=io.StringIO())
+        # CPU time of this process (the path is single-threaded): on a machine shared with
+        # other jobs, wall-clock rounds differed by 5x, CPU time far less
+        t = time.process_time()
+        for f in frames:
+            p.handle_frames(f)
+            p.snapshot  # noqa: B018 - what a reader does
+        p.close()
+        return time.process_time() - t
+    finally:
+        point_spectra.PointSpectra = _PointSpectra
 
 
 def main() -> None:

@@ -109,9 +109,10 @@ def points_of_recording(directory, targets=None) -> list[tuple[dict, object]]:
     class _Keeping(Pipeline):
         # keeps each point's statistics when the pipeline finishes the point
         def _finish_point(self, st, complete):
-            run = st.point
-            if run is not None and run.stats is not None and run.stats.n:
-                kept.append((dict(run.point), run.stats))
+            point_run = st.current  # monitor.point_run.PointRun
+            statistics = point_run.statistics if point_run is not None else None
+            if statistics is not None and statistics.n:
+                kept.append((dict(point_run.meta), statistics))
             super()._finish_point(st, complete)
 
     kwargs = {}

@@ -40,8 +40,8 @@ def feed(pipeline, st, msg) -> str | None:
     """Add a samples message to the point's field statistics; returns a rejection reason."""
     from eddyvigil.stats.field import FieldStatistics
 
-    run = st.point if st.point is not None else pipeline._start_point(st, None)
-    if msg.probes is None or (run.stats is not None):
+    run = st.current if st.current is not None else pipeline._start_point(st, None)
+    if msg.probes is None or (run.statistics is not None):
         return "layout_changed"  # one probe's samples on a field, or a field on one probe
     announced = run.layout_probes
     if announced is not None and msg.probes != announced:
@@ -90,7 +90,7 @@ def finish(run, stream: str, summary_path) -> tuple[dict, dict]:
     }
     if summary_path is None:
         return scalars, obj
-    path = field_file_path(summary_path, stream, run.index, run.point.get("id"))
+    path = field_file_path(summary_path, stream, run.index, run.meta.get("id"))
     arrays = snap.arrays()
     if run.layout_rake is not None:
         arrays["id"] = np.array([str(p["id"]) for p in run.layout_rake])

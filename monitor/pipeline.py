@@ -1,5 +1,21 @@
 """The monitor's core loop: decoded messages -> per-stream, per-point statistics -> snapshots.
 
+The orchestrator only; each job has its own module:
+
+- :mod:`~eddyvigil.monitor.stream`: one stream's totals, current point, finished lines, view;
+- :mod:`~eddyvigil.monitor.sequence`: a stream's session, expected ``seq``, gaps, losses;
+- :mod:`~eddyvigil.monitor.point_run`: one point's accumulators, counts, snapshots and
+  control signals (:meth:`~eddyvigil.monitor.point_run.PointRun.feed` is where a block enters
+  the statistics);
+- :mod:`~eddyvigil.monitor.display`: trace buffer, history rows, quality marks (readers only);
+- :mod:`~eddyvigil.monitor.lines`: the summary's point and run lines.
+
+Words used here: a *stream* is one publisher's named series; a *point run* is what one
+measurement point of a stream has gathered (``stream.current``); the *run* is the whole
+monitoring session (the run line); a *point snapshot* is the statistics of one point
+(``stats.PointSnapshot``), the *run snapshot* what the pipeline publishes for readers
+(:attr:`Pipeline.snapshot`, a :class:`~eddyvigil.monitor.state.RunSnapshot`).
+
 :class:`Pipeline` takes raw frames (from a socket or a recording, through the one
 :meth:`Pipeline.handle_frames` path) or numpy blocks (the in-process API of an acquisition
 script: :meth:`~Pipeline.begin_point`, :meth:`~Pipeline.feed`, :meth:`~Pipeline.end`) and
@@ -33,7 +49,7 @@ Choices made where DESIGN leaves room (also stated in README's summary section):
   of the sample count, from the data alone, so a replay reproduces a live run's summaries bit
   for bit whatever its pace. The pipeline takes a statistics snapshot right after each
   checkpoint (when the control signal may fire), when it publishes a
-  :class:`~monitor.state.RunSnapshot` (paced by the clock) and when a point ends.
+  :class:`~eddyvigil.monitor.state.RunSnapshot` (paced by the clock) and when a point ends.
 """
 
 from __future__ import annotations
@@ -48,12 +64,29 @@ from collections.abc import Callable, Mapping, Sequence
 import numpy as np
 
 from eddyvigil.monitor import wire
-from eddyvigil.monitor.rate import ReceiveRate
+from eddyvigil.monitor.display import (
+    HISTORY_ROWS,
+    TRACE_ROWS,
+    TRACE_ROWS_PER_MESSAGE,
+    quality_note,
+    quality_view,
+)
 from eddyvigil.monitor.budget_cmd import budget_line
-from eddyvigil.monitor.state import RunSnapshot, StreamView
+from eddyvigil.monitor.lines import point_line, run_line
+from eddyvigil.monitor.point_run import PointRun
+from eddyvigil.monitor.state import RunSnapshot
+from eddyvigil.monitor.stream import StreamState
 from eddyvigil.monitor.summary import SummaryWriter
 
-__all__ = ["Pipeline", "PIPELINE_REJECTION_REASONS", "TRACE_ROWS", "HISTORY_ROWS"]
+__all__ = [
+    "Pipeline",
+    "PIPELINE_REJECTION_REASONS",
+    "TRACE_ROWS",
+    "TRACE_ROWS_PER_MESSAGE",
+    "HISTORY_ROWS",
+    "quality_note",
+    "quality_view",
+]
 
 #: Reasons the pipeline itself rejects a well-formed message for (in addition to the wire's).
 PIPELINE_REJECTION_REASONS = (
@@ -64,92 +97,10 @@ PIPELINE_REJECTION_REASONS = (
     "too_many_streams",
     "internal_error",
 )
-#: Rows kept in a stream's decimated trace.
-TRACE_ROWS = 2000
-#: Rows taken at most from one samples message into the trace.
-TRACE_ROWS_PER_MESSAGE = 256
-#: Entries kept in a point's history; when full, every other entry is dropped.
-HISTORY_ROWS = 2000
 #: Streams tracked at most (protects memory against a flood of invented stream names).
 MAX_STREAMS = 256
 #: Transport events kept for the snapshot.
 MAX_TRANSPORT_EVENTS = 50
-
-_ALL_REASONS = tuple(wire.REJECTION_REASONS) + tuple(
-    r for r in PIPELINE_REJECTION_REASONS if r not in wire.REJECTION_REASONS
-)
-
-
-def _zero_reasons() -> dict[str, int]:
-    return dict.fromkeys(wire.REJECTION_REASONS, 0)
-
-
-class _PointRun:
-    """Book-keeping of the current point of one stream."""
-
-    def __init__(self, index: int, point: dict | None):
-        self.index = index
-        self.point = dict(point) if point is not None else {"id": None}
-        self.stats = None  # stats.PointStatistics, created at the first samples
-        self.spectra = None  # stats.point_spectra.PointSpectra (regularly sampled points only)
-        self.columns: tuple[str, ...] | None = None
-        self.rate_hz: float | None = None
-        self.units: str | None = None  # of the first accepted samples
-        self.messages = 0
-        self.gaps = 0
-        self.lost = 0
-        self.rejected: Counter = Counter()
-        self.last_t: float | None = None
-        self.snapshot = None  # latest stats.snapshot.PointSnapshot
-        self.quality = None  # stats.quality.SignalQuality, created with the statistics
-        self.t0: float | None = None  # t of the point's first row (uniform sampling)
-        self.held_s = 0.0  # duration of rows the quality checks hold back (random sampling)
-        self.stale = False  # data arrived since the last statistics snapshot
-        # the control signals: "converged" when the verdict says move on, "withdrawn" when a
-        # signalled point turns suspect while data keep coming (at most one of each pending)
-        self.signalled = False
-        self.signalled_at_s: float | None = None
-        self.withdrawn_at_s: float | None = None
-        self.converged_clock: float | None = None
-        self.history: dict[str, list[float]] = {"duration_s": []}
-        # rakes and fields (monitor.fields): the layout announced, the field statistics
-        self.layout_rake, self.layout_grid, self.layout_probes = None, None, None
-        self.field = None
-
-    @property
-    def point_id(self):
-        return self.point.get("id")
-
-
-class _StreamState:
-    """Everything the pipeline knows about one stream."""
-
-    def __init__(self, name: str):
-        self.name = name
-        self.session: str | None = None
-        self.expected_seq: int | None = None
-        self.unreadable_pending = 0
-        self.active = False  # at least one accepted message
-        self.ended = False
-        self.messages = 0  # accepted
-        self.received = 0  # accepted + rejected
-        self.samples = 0
-        self.lost = 0
-        self.gaps = 0
-        self.restarts = 0
-        self.rejected: Counter = Counter()
-        self.carry_gaps = 0
-        self.carry_lost = 0
-        self.carry_rejected: Counter = Counter()
-        self.point: _PointRun | None = None
-        self.points_started = 0
-        self.finished: list[dict] = []
-        self.last_history: dict[str, list[float]] = {}  # of the last finished point (display)
-        self.rate_hz: float | None = None
-        self.trace = np.zeros((TRACE_ROWS, 0))
-        self.trace_columns: tuple[str, ...] = ()
-        self.trace_fill = 0
-        self.receive = ReceiveRate()
 
 
 class Pipeline:
@@ -181,6 +132,8 @@ class Pipeline:
         Monotonic clock in seconds (injected for tests).
     max_message_bytes : int
         Application size limit passed to :func:`eddyvigil.monitor.wire.decode`.
+    quality : str
+        ``"flag"`` or ``"exclude"`` (:mod:`eddyvigil.stats.quality`; README, Signal quality).
     """
 
     def __init__(
@@ -196,33 +149,25 @@ class Pipeline:
         max_message_bytes: int = wire.DEFAULT_MAX_MESSAGE_BYTES,
         quality: str = "flag",
     ):
-        from eddyvigil import stats  # the numba-compiled core is loaded only when a pipeline is built
-        from eddyvigil.stats.verdict import point_verdict
+        from eddyvigil import stats  # the numba-compiled core loads only when a pipeline is built
 
-        self._stats = stats
-        from eddyvigil.stats import point_spectra  # Welch spectra and eps beside the moments
-        from eddyvigil.stats import quality as _quality
-
-        self._spectra = point_spectra
-        self._quality = _quality
         self.targets = targets if targets is not None else stats.Targets.defaults()
         self._writer = summary if isinstance(summary, SummaryWriter) else SummaryWriter(summary)
         self._on_converged = on_converged
         if on_withdrawn is None:
             on_withdrawn = getattr(on_converged, "withdrawn", None)
         self._on_withdrawn = on_withdrawn
-        self._point_verdict = point_verdict
         self._recorder = recorder
         self._interval = float(snapshot_interval_s)
         self._clock = clock
         self.max_message_bytes = int(max_message_bytes)
         self.quality_policy = quality  # stats.quality: "flag" or "exclude" (README, Signal quality)
-        self._streams: dict[str, _StreamState] = {}
-        self._rejected: Counter = Counter()
-        self._received = 0
+        self._streams: dict[str, StreamState] = {}
+        self._rejected: Counter = Counter()  # of the whole run
+        self._received = 0  # messages of the whole run
         self._points_finished = 0
         self._transport_events: list[str] = []
-        self._sequence = 0
+        self._snapshots_published = 0  # numbers the run snapshots (RunSnapshot.sequence)
         self._last_publish = -math.inf
         self._closed = False
         self.internal_errors: list[str] = []
@@ -269,8 +214,8 @@ class Pipeline:
             elif isinstance(msg, wire.PointMessage):
                 self._on_point(st, msg.point)
                 if msg.n_probes is not None:  # a rake or field (monitor.fields)
-                    st.point.layout_rake, st.point.layout_grid = msg.probes, msg.grid
-                    st.point.layout_probes = msg.n_probes
+                    st.current.layout_rake, st.current.layout_grid = msg.probes, msg.grid
+                    st.current.layout_probes = msg.n_probes
             else:
                 self._on_end(st, counts_message=True)
         if reason is not None:
@@ -278,8 +223,8 @@ class Pipeline:
         else:
             st.active = True
             st.messages += 1
-            if st.point is not None and not isinstance(msg, wire.EndMessage):
-                st.point.messages += 1
+            if st.current is not None and not isinstance(msg, wire.EndMessage):
+                st.current.messages += 1
         return reason
 
     def _reject_unplaced(self, rej, frames) -> None:
@@ -297,57 +242,38 @@ class Pipeline:
             # it consumed its seq (a repeated seq is simply counted under the wire's reason)
             self._check_sequence(st, rej.session, rej.seq)
         else:
-            st.unreadable_pending += 1
+            st.sequence.unreadable()
         self._count_rejection(st, rej.reason)
 
-    def _count_rejection(self, st: _StreamState, reason: str) -> None:
+    def _count_rejection(self, st: StreamState, reason: str) -> None:
         self._rejected[reason] += 1
-        st.rejected[reason] += 1
-        if st.point is not None:
-            st.point.rejected[reason] += 1
-        else:
-            st.carry_rejected[reason] += 1
+        st.count_rejection(reason)
 
-    def _check_sequence(self, st: _StreamState, session: str, seq: int) -> str | None:
-        if st.session is None:
-            st.session, st.expected_seq = session, seq + 1
-            return None
-        if session != st.session:
-            if st.point is not None:
-                self._finish_point(st, complete=False)
-            st.restarts += 1
-            st.session, st.expected_seq = session, seq + 1
-            st.unreadable_pending = 0
+    def _check_sequence(self, st: StreamState, session: str, seq: int) -> str | None:
+        """Sequence accounting (monitor.sequence); a restart finishes the current point and a
+        loss is charged to the current point, or to the next when none is current."""
+        if st.sequence.is_restart(session):
+            if st.current is not None:
+                self._finish_point(st, complete=False)  # its line names the old session
             st.ended = False
-            return None
-        if seq < st.expected_seq:
+        outcome = st.sequence.check(session, seq)
+        if outcome.duplicate:
             return "duplicate_seq"
-        if seq > st.expected_seq:
-            missing = seq - st.expected_seq
-            lost = max(0, missing - st.unreadable_pending)
-            if lost:
-                st.gaps += 1
-                st.lost += lost
-                if st.point is not None:
-                    st.point.gaps += 1
-                    st.point.lost += lost
-                else:
-                    st.carry_gaps += 1
-                    st.carry_lost += lost
-        st.unreadable_pending = 0
-        st.expected_seq = seq + 1
+        if outcome.lost:
+            st.charge_loss(outcome.lost)
         return None
 
-    def _on_samples_message(self, st: _StreamState, msg) -> str | None:
-        if msg.point is not None and (st.point is None or msg.point.get("id") != st.point.point_id):
+    def _on_samples_message(self, st: StreamState, msg) -> str | None:
+        if msg.point is not None and (
+            st.current is None or msg.point.get("id") != st.current.point_id
+        ):
             self._on_point(st, msg.point)
-        if msg.probes is not None or (st.point is not None and st.point.field is not None):
+        if msg.probes is not None or (st.current is not None and st.current.field is not None):
             from eddyvigil.monitor import fields
 
             return fields.feed(self, st, msg)
-        times = msg.times
         return self._feed_block(
-            st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0, msg.units
+            st, msg.velocity, msg.velocity_columns, msg.rate_hz, msg.times, msg.t0, msg.units
         )
 
     # ------------------------------------------------------------------ in-process API
@@ -384,29 +310,17 @@ class Pipeline:
         self._received += 1
         block = np.asarray(block)
         columns = tuple(columns)
-        reason = None
-        if block.ndim != 2 or block.shape[1] != len(columns) or block.shape[0] < 1:
-            reason = "bad_shape"
-        elif block.dtype.kind != "f":
-            reason = "bad_dtype"
-        elif not np.isfinite(block).all():
-            reason = "non_finite"
-        elif times is not None and (
-            np.shape(times) != (block.shape[0],) or not np.all(np.diff(times) >= 0)
-        ):
-            reason = "time_backwards" if np.shape(times) == (block.shape[0],) else "bad_shape"
-        elif rate_hz is None and times is None:
-            reason = "missing_field"
+        reason = _block_rejection(block, columns, rate_hz, times)
         if reason is None:
             t0 = 0.0
-            if times is None and st.point is not None and st.point.stats is not None:
-                t0 = st.point.quality.n / float(rate_hz)  # rows received (the statistics may lag)
+            if times is None and st.current is not None and st.current.statistics is not None:
+                t0 = st.current.rows_received / float(rate_hz)
             reason = self._feed_block(st, block, columns, rate_hz, times, t0, units)
         if reason is None:
             st.active = True
             st.messages += 1
-            if st.point is not None:
-                st.point.messages += 1
+            if st.current is not None:
+                st.current.messages += 1
         else:
             self._count_rejection(st, reason)
         self._maybe_publish()
@@ -432,239 +346,121 @@ class Pipeline:
             return
         self._closed = True
         for st in self._streams.values():
-            if st.point is not None:
+            if st.current is not None:
                 self._finish_point(st, complete=False)
         self._writer.write(self.run_line())
         self._writer.close()
         self.publish()
 
-    # ------------------------------------------------------------------ points
+    # ------------------------------------------------------------------ a point's lifecycle
 
-    def _on_point(self, st: _StreamState, point: dict) -> None:
-        if st.point is not None:
+    def _on_point(self, st: StreamState, meta: dict) -> None:
+        if st.current is not None:
             self._finish_point(st, complete=True)
-        self._start_point(st, point)
+        self._start_point(st, meta)
 
-    def _start_point(self, st: _StreamState, point: dict | None) -> _PointRun:
-        run = _PointRun(st.points_started, point)
-        st.points_started += 1
-        run.gaps, run.lost, run.rejected = st.carry_gaps, st.carry_lost, st.carry_rejected
-        st.carry_gaps, st.carry_lost, st.carry_rejected = 0, 0, Counter()
-        st.point = run
-        st.ended = False
-        return run
+    def _start_point(self, st: StreamState, meta: dict | None) -> PointRun:
+        return st.start_point(meta, history_rows=HISTORY_ROWS)
 
-    def _on_end(self, st: _StreamState, counts_message: bool = False) -> None:
-        if st.point is not None:
+    def _on_end(self, st: StreamState, counts_message: bool = False) -> None:
+        if st.current is not None:
             if counts_message:  # the end message belongs to the point it closes
-                st.point.messages += 1
+                st.current.messages += 1
             self._finish_point(st, complete=True)
         st.ended = True
         st.active = True
         self._maybe_publish(force=True)  # readers see the end at once
 
     def _feed_block(self, st, velocity, columns, rate_hz, times, t0, units="m/s") -> str | None:
-        run = st.point if st.point is not None else self._start_point(st, None)
+        """A block of accepted samples: checks against the point, the point's accumulators
+        (PointRun.feed), the stream's totals and trace, then the checkpoint's signals."""
+        point_run = st.current if st.current is not None else self._start_point(st, None)
         columns = tuple(columns)
-        if run.units is not None and units != run.units:
-            return "units_changed"  # never converted, never mixed in
-        if run.stats is None:
-            run.units = units
-            run.columns, run.rate_hz = columns, rate_hz
-            run.stats = self._stats.PointStatistics(columns, rate_hz, targets=self.targets)
-            run.spectra = (None if rate_hz is None
-                           else self._spectra.PointSpectra(columns, rate_hz, targets=self.targets))
-            run.quality = self._quality.SignalQuality(columns, self.quality_policy)
-            run.t0 = float(t0) if rate_hz is not None and t0 is not None else None
-        elif columns != run.columns or rate_hz != run.rate_hz:
-            return "layout_changed"
-        duration_s = None
-        if rate_hz is None:
-            t_first, t_last = float(times[0]), float(times[-1])
-            if run.last_t is not None and t_first < run.last_t:
-                return "time_backwards"
-            duration_s = t_last - (t_first if run.last_t is None else run.last_t)
-            run.last_t = t_last
-        n = velocity.shape[0]
-        mark = _checkpoint_mark(run.stats)
-        cleaned = run.quality.update(velocity)  # the same block, or replaced rows ("exclude")
-        if rate_hz is None:  # a duration waits for rows when "exclude" holds them back
-            run.held_s += duration_s
-            if cleaned.shape[0]:
-                run.stats.update(cleaned, duration_s=run.held_s)
-                run.held_s = 0.0
-        else:
-            run.stats.update(cleaned)
-        if run.spectra is not None and cleaned.shape[0]:
-            run.spectra.update(cleaned)  # the rows the statistics see: a continuous series
-        st.samples += n
-        st.receive.add(self._clock(), n)
-        st.rate_hz = rate_hz
-        self._trace(st, velocity, columns, rate_hz, times, t0)
+        reason = point_run.accept_layout(
+            columns, rate_hz, units, t0, self.targets, self.quality_policy
+        )
+        if reason is not None:
+            return reason
+        reason, duration_s = point_run.accept_times(times)
+        if reason is not None:
+            return reason
+        mark = point_run.checkpoint_mark()
+        point_run.feed(velocity, duration_s)
+        st.add_samples(velocity, columns, rate_hz, times, t0, self._clock())
         # Convergence is decided at the statistics' own checkpoints (inside update, from the
         # data alone). At a checkpoint the targeted statistics come from the checkpoint's own
         # evaluation (a history row, and the converged signal at once); every other statistic
         # waits for the next publication (pace of the clock) or the end of the point, and so
         # does everything between checkpoints, where the verdict cannot change.
-        if mark is None or run.snapshot is None:
-            self._take_stats_snapshot(st, run)
-        elif _checkpoint_mark(run.stats) != mark:
-            self._on_checkpoint(st, run)
+        if mark is None or point_run.point_snapshot is None:
+            point_run.take_snapshot()
+        elif point_run.checkpoint_mark() != mark:
+            signal = point_run.checkpoint_signal()
+            if signal is not None:
+                self._signal(st, point_run, converged=signal == "converged")
         else:
-            run.stale = True
+            point_run.snapshot_stale = True
         return None
 
-    def _on_checkpoint(self, st: _StreamState, run: _PointRun) -> None:
-        """The control signals are decided here only (sample-count checkpoints: replay = live).
-
-        ``converged`` once the full snapshot's verdict says move on (the record-length rule
-        needs the integral times, which only the full snapshot has); ``withdrawn`` when a
-        signalled point has a suspect targeted statistic at a later checkpoint.
-        """
-        snap = run.stats.targeted_snapshot()
-        snap = self._quality.hold_suspect(snap, run.quality.suspect_reasons())
-        self._add_history(run, snap)
-        if not run.signalled and snap.converged:
-            self._take_stats_snapshot(st, run, history=False)  # the summary line needs all
-            if self._point_verdict(run.snapshot).move_on and self._eps_met(run):
-                self._signal(st, run, converged=True)
-        elif run.signalled and any(e.state == "suspect" for e in snap.targeted()):
-            self._take_stats_snapshot(st, run, history=False)
-            self._signal(st, run, converged=False)
-        else:
-            run.stale = True
-            if run.snapshot is None:
-                self._take_stats_snapshot(st, run, history=False)
-
-    def _eps_met(self, run: _PointRun) -> bool:
-        """A target on eps (judged beside the moments, stats/eps_target.py) is met too."""
-        if run.spectra is None:
-            return "eps" not in self.targets.targets  # no spectrum: an eps target cannot be met
-        return run.spectra.eps_met(run.snapshot, (run.point or {}).get("nu"))
-
-    def _signal(self, st: _StreamState, run: _PointRun, converged: bool) -> None:
-        at_s = float(run.snapshot.duration_s)
-        run.signalled = converged
-        if converged:
-            run.signalled_at_s, run.converged_clock = at_s, self._clock()
-        else:
-            run.withdrawn_at_s, run.converged_clock = at_s, None
+    def _signal(self, st: StreamState, point_run: PointRun, converged: bool) -> None:
+        """Send a converged or withdrawn signal (control socket) with the point's line so far."""
+        at_s = point_run.record_signal(converged, self._clock() if converged else None)
         callback = self._on_converged if converged else self._on_withdrawn
         if callback is not None:
             try:
-                callback(st.name, dict(run.point), at_s, self._point_line(st, run, False))
+                callback(
+                    st.name, dict(point_run.meta), at_s, self._point_line(st, point_run, False)
+                )
             except Exception:
                 self._internal_error()
 
-    def _take_stats_snapshot(self, st: _StreamState, run: _PointRun, history=True) -> None:
-        run.stale = False
-        snap = self._quality.hold_suspect(run.stats.snapshot(), run.quality.suspect_reasons())
-        run.snapshot = snap
-        if history:
-            self._add_history(run, snap)
-
-    @staticmethod
-    def _add_history(run: _PointRun, snap) -> None:
-        """One row of the targeted statistics' values, half-widths and targets (dashboard)."""
-        h = run.history
-        h["duration_s"].append(float(snap.duration_s))
-        for e in snap.targeted():
-            h.setdefault(e.name, []).append(float(e.value))
-            h.setdefault(e.name + "_hw", []).append(float(e.half_width))
-            h.setdefault(e.name + "_target", []).append(float(e.target))
-        if len(h["duration_s"]) >= HISTORY_ROWS:
-            for key in h:
-                h[key] = h[key][::2]
-
-    def _finish_point(self, st: _StreamState, complete: bool) -> None:
-        run = st.point
-        if run.stats is not None:  # the rows the quality checks still hold
-            tail = run.quality.flush()
-            run.stats.update(tail, **({} if run.rate_hz else {"duration_s": run.held_s}))
-            run.stale = True
-        if run.stats is not None and (run.snapshot is None or run.stale):
-            self._take_stats_snapshot(st, run)
-        line = self._point_line(st, run, complete)
-        if run.field is not None:  # a rake or field: per-vector arrays go to a file
+    def _finish_point(self, st: StreamState, complete: bool) -> None:
+        """The point ends: its last rows, a final snapshot, its line written; readers told."""
+        point_run = st.current
+        point_run.flush()
+        if point_run.statistics is not None and (
+            point_run.point_snapshot is None or point_run.snapshot_stale
+        ):
+            point_run.take_snapshot()
+        line = self._point_line(st, point_run, complete)
+        if point_run.field is not None:  # a rake or field: per-vector arrays go to a file
             from eddyvigil.monitor import fields
 
             paths = self._writer.file_paths()
-            scalars, line["field"] = fields.finish(run, st.name, paths[0] if paths else None)
+            scalars, line["field"] = fields.finish(point_run, st.name, paths[0] if paths else None)
             line.update(scalars)
-        self._writer.write(line)
-        st.finished.append(line)
-        st.last_history = run.history
-        # DESIGN §11: the stream's k budget so far, once three positions make a traverse
-        budget = budget_line(st.name, st.finished, float(self.targets.confidence),
-                             minimum_points=3)
-        if budget is not None:
-            self._writer.write(budget)
-        st.point = None
+        self._write_point_line(st, line)
+        st.end_point()
         self._points_finished += 1
         self._maybe_publish(force=True)
 
     # ------------------------------------------------------------------ lines
 
-    def _point_line(self, st: _StreamState, run: _PointRun, complete: bool) -> dict:
-        snap = run.snapshot
-        rejected = _zero_reasons()
-        rejected.update(run.rejected)
-        line = {
-            "v": 1,
-            "kind": "point",
-            "complete": bool(complete),
-            "stream": st.name,
-            "session": st.session,
-            "point": dict(run.point),
-            "point_index": run.index,
-            "samples": 0,
-            "duration_s": 0.0,
-            "messages": run.messages,
-            "gaps": run.gaps,
-            "lost_messages": run.lost,
-            "rejected": rejected,
-            "restarts": st.restarts,
-            "confidence": float(self.targets.confidence),
-            "converged": False,
-            "converged_at_s": None,
-            "k_method": None,
-            "suspect": {},
-            "verdict": self._point_verdict(snap).to_json(),
-            "signalled_at_s": run.signalled_at_s,
-            "withdrawn_at_s": run.withdrawn_at_s,
-            "columns": list(run.columns) if run.columns else [],
-            "rate_hz": run.rate_hz,
-            "units": run.units,
-            "statistics": [],
-        }
-        if snap is not None:
-            fields = snap.summary_fields()
-            line.update(fields)
-            extra, rows = self._spectra.summary_fields(
-                run.spectra, snap, run.point, random_sampling=run.rate_hz is None
-            )
-            line.update(extra)
-            # keep the contract order: statistics last
-            line["quality"] = run.quality.summary()
-            line["statistics"] = line.pop("statistics") + rows
-        return line
+    def _point_line(self, st: StreamState, point_run: PointRun, complete: bool) -> dict:
+        return point_line(
+            st.name,
+            st.sequence.session,
+            st.sequence.restarts,
+            point_run,
+            complete,
+            self.targets.confidence,
+        )
+
+    def _write_point_line(self, st: StreamState, line: dict) -> None:
+        """The one place a finished point's line is written (and kept for readers)."""
+        self._writer.write(line)
+        st.finished.append(line)
+        # DESIGN §11: the stream's k budget so far, once three positions make a traverse
+        budget = budget_line(st.name, st.finished, float(self.targets.confidence),
+                             minimum_points=3)
+        if budget is not None:
+            self._writer.write(budget)
 
     def run_line(self) -> dict:
         """The closing ``run`` line of DESIGN §4 (totals of the whole run)."""
-        rejected = _zero_reasons()
-        rejected.update(self._rejected)
-        line = {
-            "v": 1,
-            "kind": "run",
-            "samples": sum(st.samples for st in self._streams.values()),
-            "messages": self._received,
-            "lost": sum(st.lost for st in self._streams.values()),
-            "gaps": sum(st.gaps for st in self._streams.values()),
-            "rejected": rejected,
-            "points": self._points_finished,
-            "streams": sorted(n for n, st in self._streams.items() if st.active),
-            "restarts": sum(st.restarts for st in self._streams.values()),
-        }
+        line = run_line(
+            self._streams.values(), self._received, self._rejected, self._points_finished
+        )
         if self.refused_peers is not None:
             line["refused_peers"] = int(self.refused_peers)
         return line
@@ -682,95 +478,32 @@ class Pipeline:
         active = [st for st in self._streams.values() if st.active]
         return bool(active) and all(st.ended for st in active)
 
-    def _stream(self, name: str) -> _StreamState | None:
+    def _stream(self, name: str) -> StreamState | None:
         st = self._streams.get(name)
         if st is None:
             if len(self._streams) >= MAX_STREAMS:
                 return None
-            st = self._streams[name] = _StreamState(name)
+            st = self._streams[name] = StreamState(name)
         return st
-
-    def _trace(self, st, velocity, columns, rate_hz, times, t0) -> None:
-        """Keep a thinned copy of the latest samples (at most TRACE_ROWS rows) for display.
-
-        The buffer holds twice TRACE_ROWS rows and is compacted only when full, so a message
-        costs a strided copy of at most TRACE_ROWS_PER_MESSAGE rows.
-        """
-        n, m = velocity.shape
-        if st.trace_columns != columns:
-            st.trace = np.zeros((2 * TRACE_ROWS, m + 1))
-            st.trace_columns, st.trace_fill = columns, 0
-        stride = max(1, -(-n // TRACE_ROWS_PER_MESSAGE))
-        thinned = velocity[::stride]
-        k = thinned.shape[0]
-        if st.trace_fill + k > st.trace.shape[0]:
-            keep = TRACE_ROWS - k
-            st.trace[:keep] = st.trace[st.trace_fill - keep : st.trace_fill]
-            st.trace_fill = keep
-        rows = st.trace[st.trace_fill : st.trace_fill + k]
-        if times is not None:
-            rows[:, 0] = times[::stride]
-        else:
-            rows[:, 0] = np.arange(0, n, stride)
-            rows[:, 0] /= rate_hz
-            rows[:, 0] += t0
-        rows[:, 1:] = thinned
-        st.trace_fill += k
 
     def _maybe_publish(self, force: bool = False) -> None:
         if force or self._clock() - self._last_publish >= self._interval:
             self.publish()
 
     def publish(self) -> RunSnapshot:
-        """Build and publish a new snapshot now (rebinding :attr:`snapshot`)."""
+        """Build and publish a new run snapshot now (rebinding :attr:`snapshot`)."""
         self.snapshot = self._build_snapshot()
         return self.snapshot
 
     def _build_snapshot(self) -> RunSnapshot:
         now = self._clock()
         self._last_publish = now
-        self._sequence += 1
+        self._snapshots_published += 1
         views = {}
         for name, st in self._streams.items():
-            run = st.point
-            if run is not None and run.stale:
-                self._take_stats_snapshot(st, run)
-            trace = {}
-            if st.trace_fill:
-                # a copy: the buffer is overwritten by the next messages, a snapshot is not
-                window = st.trace[max(0, st.trace_fill - TRACE_ROWS) : st.trace_fill].copy()
-                trace["t"] = window[:, 0]
-                for j, c in enumerate(st.trace_columns):
-                    trace[c] = window[:, j + 1]
-            # after a point ends its running estimates stay on screen until the next begins
-            shown = run.history if run else st.last_history
-            history = {k: np.asarray(v) for k, v in shown.items()}
-            views[name] = StreamView(
-                stream=name,
-                session=st.session,
-                point=dict(run.point) if run else None,
-                point_index=run.index if run else st.points_started - 1,
-                stats=run.snapshot if run else None,
-                rate_hz=st.rate_hz,
-                received_rate_hz=st.receive.rate_hz(now),
-                messages=st.messages,
-                lost_messages=st.lost,
-                gaps=st.gaps,
-                restarts=st.restarts,
-                rejected=dict(st.rejected),
-                trace=trace,
-                history=history,
-                finished=tuple(st.finished),
-                ended=st.ended,
-                converged_wall_age_s=(
-                    now - run.converged_clock if run and run.converged_clock is not None else None
-                ),
-                spectrum=(run.spectra.live(run.snapshot, run.point.get("nu"), now)
-                          if run and run.spectra is not None else None),
-                quality=quality_view(run),
-            )
+            views[name] = st.view(now)
         return RunSnapshot(
-            sequence=self._sequence,
+            sequence=self._snapshots_published,
             created_at=time.time(),
             streams=views,
             rejected_total=dict(self._rejected),
@@ -784,48 +517,21 @@ class Pipeline:
         print(f"eddyvigil: internal error (message dropped and counted):\n{text}", file=sys.stderr)
 
 
-def quality_view(run: _PointRun | None) -> dict | None:
-    """The point's quality object for readers, with the recent flagged samples as ``marks``
-    (``t`` s, ``component``, ``kind`` 1 spike / 2 dropout, raw ``value``; uniform sampling only)."""
-    if run is None or run.quality is None:
-        return None
-    out = run.quality.summary()
-    marks = run.quality.marks if run.t0 is not None and run.rate_hz else []
-    out["marks"] = {
-        "t": [run.t0 + r / run.rate_hz for r, _, _, _ in marks],
-        "component": [run.columns[c] for _, c, _, _ in marks],
-        "kind": [k for _, _, k, _ in marks],
-        "value": [v for _, _, _, v in marks],
-    }
-    return out
-
-
-def quality_note(quality: Mapping | None) -> str:
-    """Non-zero quality counts for the status line, e.g. `` quality u: 3 spikes, 200 dropout``."""
-    if not quality:
-        return ""
-    parts = []
-    for c, q in quality.items():
-        if not isinstance(q, Mapping) or "spikes" not in q:
-            continue
-        found = [
-            f"{q[key]} {label}"
-            for key, label in (
-                ("spikes", "spikes"),
-                ("dropout_samples", "dropout"),
-                ("clipped_samples", "clipped"),
-            )
-            if q[key]
-        ]
-        if found:
-            parts.append(f"{c}: {', '.join(found)}")
-    return (" quality " + "; ".join(parts)) if parts else ""
-
-
-def _checkpoint_mark(point_stats):
-    """The sample count of the statistics' next convergence checkpoint (None if unknown)."""
-    checkpoints = getattr(point_stats, "checkpoints", None)
-    return getattr(checkpoints, "next_n", None)
+def _block_rejection(block: np.ndarray, columns: tuple, rate_hz, times) -> str | None:
+    """Why a block given to :meth:`Pipeline.feed` cannot be taken (the wire's reasons), or None."""
+    if block.ndim != 2 or block.shape[1] != len(columns) or block.shape[0] < 1:
+        return "bad_shape"
+    if block.dtype.kind != "f":
+        return "bad_dtype"
+    if not np.isfinite(block).all():
+        return "non_finite"
+    if times is not None and (
+        np.shape(times) != (block.shape[0],) or not np.all(np.diff(times) >= 0)
+    ):
+        return "time_backwards" if np.shape(times) == (block.shape[0],) else "bad_shape"
+    if rate_hz is None and times is None:
+        return "missing_field"
+    return None
 
 
 def _topic_of(frames) -> str | None:
