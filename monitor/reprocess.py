@@ -97,10 +97,11 @@ def reprocess_one(directory: str, targets: dict | None = None, keep_states: bool
     class _Keeping(Pipeline):
         # keeps each point's statistics and line when the pipeline finishes the point
         def _finish_point(self, st, complete):
-            run = st.point
+            point_run = st.current  # monitor.point_run.PointRun
             super()._finish_point(st, complete)
-            if keep_states and run is not None and run.stats is not None and run.stats.n:
-                states.append((st.name, dict(run.point), run.stats, st.finished[-1]))
+            statistics = point_run.statistics if point_run is not None else None
+            if keep_states and statistics is not None and statistics.n:
+                states.append((st.name, dict(point_run.meta), statistics, st.finished[-1]))
 
     text = io.StringIO()
     pipeline = _Keeping(tg, summary=text, **kwargs)
