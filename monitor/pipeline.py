@@ -103,6 +103,7 @@ class _PointRun:
         self.quality = None  # stats.quality.SignalQuality, created with the statistics
         self.t0: float | None = None  # t of the point's first row (uniform sampling)
         self.held_s = 0.0  # duration of rows the quality checks hold back (random sampling)
+        self.random = None  # monitor.random_sampling.RandomFeed (random sampling only)
         self.stale = False  # data arrived since the last statistics snapshot
         # the control signals: "converged" when the verdict says move on, "withdrawn" when a
         # signalled point turns suspect while data keep coming (at most one of each pending)
@@ -191,6 +192,7 @@ class Pipeline:
         clock: Callable[[], float] = time.monotonic,
         max_message_bytes: int = wire.DEFAULT_MAX_MESSAGE_BYTES,
         quality: str = "flag",
+        weighting: str = "arrival",
     ):
         from eddyvigil import stats  # the numba-compiled core is loaded only when a pipeline is built
         from eddyvigil.stats.verdict import point_verdict
@@ -200,6 +202,9 @@ class Pipeline:
         from eddyvigil.stats import quality as _quality
 
         self._spectra = point_spectra
+        from eddyvigil.monitor.random_sampling import RandomFeed  # loads the weighted kernels
+
+        self._random_feed = RandomFeed
         self._quality = _quality
         self.targets = targets if targets is not None else stats.Targets.defaults()
         self._writer = summary if isinstance(summary, SummaryWriter) else SummaryWriter(summary)
@@ -213,6 +218,7 @@ class Pipeline:
         self._clock = clock
         self.max_message_bytes = int(max_message_bytes)
         self.quality_policy = quality  # stats.quality: "flag" or "exclude" (README, Signal quality)
+        self.weighting = weighting  # random sampling without a weight column (DESIGN §10)
         self._streams: dict[str, _StreamState] = {}
         self._rejected: Counter = Counter()
         self._received = 0
@@ -334,7 +340,8 @@ class Pipeline:
             self._on_point(st, msg.point)
         times = msg.times
         return self._feed_block(
-            st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0, msg.units
+            st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0, msg.units,
+            weights=msg.weights,
         )
 
     # ------------------------------------------------------------------ in-process API
@@ -356,11 +363,13 @@ class Pipeline:
         rate_hz: float | None = None,
         times: np.ndarray | None = None,
         units: str = "m/s",
+        weights: np.ndarray | None = None,
     ) -> str | None:
         """Feed an ``(n, len(columns))`` block of velocity samples; returns a rejection reason.
 
         ``rate_hz`` for uniform sampling, or ``times`` (s, one per row) for random sampling;
-        ``units`` of the velocities (a change within a point is rejected, ``units_changed``).
+        ``units`` of the velocities (a change within a point is rejected, ``units_changed``);
+        ``weights`` (residence times, one per row) with ``times`` (DESIGN §10).
         A block that is not finite or not of the stated shape is rejected and counted, never
         raised on.
         """
@@ -388,7 +397,7 @@ class Pipeline:
             t0 = 0.0
             if times is None and st.point is not None and st.point.stats is not None:
                 t0 = st.point.quality.n / float(rate_hz)  # rows received (the statistics may lag)
-            reason = self._feed_block(st, block, columns, rate_hz, times, t0, units)
+            reason = self._feed_block(st, block, columns, rate_hz, times, t0, units, weights)
         if reason is None:
             st.active = True
             st.messages += 1
@@ -450,7 +459,9 @@ class Pipeline:
         st.active = True
         self._maybe_publish(force=True)  # readers see the end at once
 
-    def _feed_block(self, st, velocity, columns, rate_hz, times, t0, units="m/s") -> str | None:
+    def _feed_block(
+        self, st, velocity, columns, rate_hz, times, t0, units="m/s", weights=None
+    ) -> str | None:
         run = st.point if st.point is not None else self._start_point(st, None)
         columns = tuple(columns)
         if run.units is not None and units != run.units:
@@ -459,12 +470,17 @@ class Pipeline:
             run.units = units
             run.columns, run.rate_hz = columns, rate_hz
             run.stats = self._stats.PointStatistics(columns, rate_hz, targets=self.targets)
+            if rate_hz is None:  # random sampling: weighted statistics (monitor.random_sampling)
+                run.random = self._random_feed(columns, weights is not None, self.weighting, self.targets)
+                run.stats = run.random.stats
             run.spectra = None if rate_hz is None else self._spectra.PointSpectra(columns, rate_hz)
             run.quality = self._quality.SignalQuality(columns, self.quality_policy)
             run.t0 = float(t0) if rate_hz is not None and t0 is not None else None
         elif columns != run.columns or rate_hz != run.rate_hz:
             return "layout_changed"
         duration_s = None
+        if run.random is not None and (bad := run.random.check(weights)):
+            return bad
         if rate_hz is None:
             t_first, t_last = float(times[0]), float(times[-1])
             if run.last_t is not None and t_first < run.last_t:
@@ -476,8 +492,8 @@ class Pipeline:
         cleaned = run.quality.update(velocity)  # the same block, or replaced rows ("exclude")
         if rate_hz is None:  # a duration waits for rows when "exclude" holds them back
             run.held_s += duration_s
+            run.random.feed(cleaned, times, weights, run.held_s)
             if cleaned.shape[0]:
-                run.stats.update(cleaned, duration_s=run.held_s)
                 run.held_s = 0.0
         else:
             run.stats.update(cleaned)
@@ -560,7 +576,10 @@ class Pipeline:
         run = st.point
         if run.stats is not None:  # the rows the quality checks still hold
             tail = run.quality.flush()
-            run.stats.update(tail, **({} if run.rate_hz else {"duration_s": run.held_s}))
+            if run.random is not None:
+                run.random.feed(tail, np.empty(0), run.random.no_weights(), run.held_s)
+            else:
+                run.stats.update(tail)
             run.stale = True
         if run.stats is not None and (run.snapshot is None or run.stale):
             self._take_stats_snapshot(st, run)
@@ -615,6 +634,8 @@ class Pipeline:
             line.update(extra)
             # keep the contract order: statistics last
             line["quality"] = run.quality.summary()
+            if run.random is not None:
+                line.update(run.stats.random_sampling_fields())  # DESIGN §10
             line["statistics"] = line.pop("statistics") + rows
         return line
 
