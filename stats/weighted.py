@@ -25,7 +25,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from eddyvigil.stats.monomials import layout, merge_sums, shift_sums
-from eddyvigil.stats.weighted_kernels import time_block_sums, weighted_central_sums
+from eddyvigil.stats.weighted_kernels import (
+    time_block_sums,
+    weighted_central_sums,
+    weighted_mean,
+    weighted_monomial_sums,
+)
 
 __all__ = ["WEIGHTINGS", "TimeBlocks", "WeightedMoments", "sample_weights"]
 
@@ -90,6 +95,13 @@ class WeightedMoments:
         self.s3 = np.zeros(len(self.layout.combos[3]))
         self.s4 = np.zeros(len(self.layout.combos[4]))
         self._c = tuple(_combo_rows(self.layout, p) for p in (2, 3, 4))
+        # third and fourth co-moments as entries of two small matrix products (BLAS): the
+        # pair products P (n, q2) against d (n, m) and against P itself
+        pair = {c: q for q, c in enumerate(self.layout.combos[2])}
+        self._pairs = self._c[0]
+        self._t3 = np.array([(pair[c[:2]], c[2]) for c in self.layout.combos[3]]).reshape(-1, 2)
+        self._t4 = np.array([(pair[c[:2]], pair[c[2:]]) for c in self.layout.combos[4]])
+        self._t4 = self._t4.reshape(-1, 2)
 
     @property
     def m(self) -> int:
@@ -104,6 +116,27 @@ class WeightedMoments:
 
     def update(self, x: np.ndarray, w: np.ndarray) -> WeightedMoments:
         """Add rows ``x`` (n, m) with weights ``w`` (n,) >= 0; returns self."""
+        x = np.ascontiguousarray(x, dtype=np.float64)
+        w = np.ascontiguousarray(w, dtype=np.float64)
+        if x.shape[0] == 0:
+            return self
+        # two passes: the block's weighted mean (about its first row, for digits), then the
+        # weighted monomial sums of the deviations from it
+        mean = np.empty(self.m)
+        W = weighted_mean(x, w, mean)
+        if W <= 0.0:
+            self.n += x.shape[0]
+            return self
+        _, sums = weighted_monomial_sums(x, w, mean)
+        m, n2, n3 = self.m, self.s2.shape[0], self.s3.shape[0]
+        s2 = sums[m : m + n2]
+        s3 = sums[m + n2 : m + n2 + n3]
+        s4 = sums[m + n2 + n3 :]
+        self._combine(x.shape[0], W, mean, s2, s3, s4)
+        return self
+
+    def update_loop(self, x: np.ndarray, w: np.ndarray) -> WeightedMoments:
+        """:meth:`update` by the plain numba loop (a cross-check of the matrix form)."""
         x = np.ascontiguousarray(x, dtype=np.float64)
         w = np.ascontiguousarray(w, dtype=np.float64)
         if x.shape[0] == 0:
