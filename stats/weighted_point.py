@@ -12,11 +12,13 @@ interval (none honest is known here); ``Neff_c = sigma^2 / Var(mean)`` and ``L_c
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
 
 from eddyvigil.stats.arrivals import ArrivalCheck
+from eddyvigil.stats.convergence import CHECKPOINT_GROWTH, STOP_MARGIN, STREAK
 from eddyvigil.stats.point import PointStatistics, _Evaluation, _integral_scales, _t_quantiles
 from eddyvigil.stats.slotting import SlottedCorrelation
 from eddyvigil.stats.stationarity import assess_columns
@@ -151,6 +153,33 @@ class WeightedPointStatistics(PointStatistics):
         if rows is None:
             self._cache = ev
         return ev
+
+    def _snapshot(self, ev, indices):
+        """The common snapshot, with an early ETA for the means from the slotted T_int.
+
+        While too few time blocks exist for the blocking error to predict anything, the
+        error of a mean follows from Var(mean) = (sigma^2 / N)(1 + 2 n' T_int) for Poisson
+        arrivals at rate n' (REFERENCES-style elementary result; Adrian & Yao 1987, from
+        memory): the record T = N / n' that meets the target with the stopping rule's margin,
+        then the rest of the checkpoint streak.
+        """
+        snap = super()._snapshot(ev, indices)
+        rate = self.arrivals.rate_hz()
+        if not math.isfinite(rate) or rate <= 0:
+            return snap
+        m = len(self.columns)
+        tints = ev.values[len(self.table.names) : len(self.table.names) + m]
+        z = _t_quantiles(0.5 * (1.0 + self.confidence), np.array([10_000]))[0]
+        out = []
+        for e in snap.estimates:
+            i = self.names.index(e.name)
+            if i < m and e.eta_s is None and e.target and math.isfinite(tints[i]):
+                var = ev.values[self.names.index(self.columns[i] * 2)]
+                need = (STOP_MARGIN * z / e.target) ** 2 * var * (1 + 2 * rate * tints[i]) / rate
+                eta = max(need * CHECKPOINT_GROWTH ** (STREAK - 1) - self.duration_s, 0.0)
+                e = e._replace(eta_s=eta if math.isfinite(eta) else None)
+            out.append(e)
+        return dataclasses.replace(snap, estimates=tuple(out))
 
     def integral_times(self, mean) -> np.ndarray:
         if self.slots is None:

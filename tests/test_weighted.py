@@ -206,3 +206,22 @@ def test_weighted_interval_coverage_on_velocity_biased_records():
         e = snap.estimate("U")
         hits += e.ci_low <= 10.0 <= e.ci_high
     assert 0.92 <= hits / runs <= 0.98
+
+
+def test_early_eta_of_the_mean_from_the_slotted_integral_time():
+    # before enough time blocks exist (< 16), the ETA of U follows from Var(mean) =
+    # (sigma^2/N)(1 + 2 n' T_int) (Poisson arrivals; elementary result): sigma = 1, n' = 200/s,
+    # T_int = 10 ms, target 0.02 -> T = (1.1 z / 0.02)^2 (1 + 4) / 200, then two more
+    # checkpoints 10 % apart. From 0.3 s of data the inputs are rough: the median of 9
+    # seeded records must be within 50 % (about 60 samples: T_int comes out low).
+    from eddyvigil.stats.targets import Targets
+
+    targets = Targets.from_dict({"targets": {"U": {"absolute": 0.02}}})
+    etas = []
+    for seed in range(9):
+        u, t = poisson_ou(np.random.default_rng(seed), 200.0, 0.3, 5.0, 1.0, 0.01)
+        snap = feed(WeightedPointStatistics(("u",), "none", targets=targets), u[:, None], t)
+        assert snap.estimate("U").blocks < 16  # the blocking error cannot predict yet
+        etas.append(snap.estimate("U").eta_s)
+    expected = (1.1 * 1.96 / 0.02) ** 2 * 5.0 / 200.0 * 1.1**2 - 0.3
+    assert np.median(etas) == pytest.approx(expected, rel=0.5)
