@@ -1,6 +1,7 @@
 """Cost of weighted (random-sampling) moments against unweighted ones, measured side by side.
 
-    python benchmarks/bench_weighted.py [--rows 1000000] [--block 4096] [--components 3] [--repeat 5]
+    python benchmarks/bench_weighted.py [--rows 1000000] [--block 4096] [--components 3]
+                                        [--repeat 5]
 
 On the same blocks (float64, ``--components`` components, ``--rows`` in ``--block`` rows), in
 alternating rounds:

@@ -339,10 +339,8 @@ class Pipeline:
         if msg.point is not None and (st.point is None or msg.point.get("id") != st.point.point_id):
             self._on_point(st, msg.point)
         times = msg.times
-        return self._feed_block(
-            st, msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0, msg.units,
-            weights=msg.weights,
-        )
+        args = (msg.velocity, msg.velocity_columns, msg.rate_hz, times, msg.t0, msg.units)
+        return self._feed_block(st, *args, weights=msg.weights)
 
     # ------------------------------------------------------------------ in-process API
 
@@ -471,7 +469,8 @@ class Pipeline:
             run.columns, run.rate_hz = columns, rate_hz
             run.stats = self._stats.PointStatistics(columns, rate_hz, targets=self.targets)
             if rate_hz is None:  # random sampling: weighted statistics (monitor.random_sampling)
-                run.random = self._random_feed(columns, weights is not None, self.weighting, self.targets)
+                has_w = weights is not None
+                run.random = self._random_feed(columns, has_w, self.weighting, self.targets)
                 run.stats = run.random.stats
             run.spectra = None if rate_hz is None else self._spectra.PointSpectra(columns, rate_hz)
             run.quality = self._quality.SignalQuality(columns, self.quality_policy)

@@ -204,7 +204,10 @@ def run(args: argparse.Namespace) -> int:
     try:
         sink = summary if summary is not None else terminal_summary_sink("replay", args.quiet)
         pipeline = Pipeline(
-            targets, summary=sink, max_message_bytes=max_bytes, quality=args.quality,
+            targets,
+            summary=sink,
+            max_message_bytes=max_bytes,
+            quality=args.quality,
             weighting=args.weighting,
         )
         stop = threading.Event()

@@ -288,8 +288,6 @@ def _wsums3(x, wt, c, starts, lens, out):
         out[j, 34] = aw
 
 
-
-
 @numba.njit(cache=True, nogil=True)
 def weighted_mean(x, wt, mean):
     """Pass 1: sum wt (x - x[0]) / sum wt + x[0] into ``mean``; returns the weight total."""

@@ -112,8 +112,9 @@ class WeightedPointStatistics(PointStatistics):
         S = len(self.names)
         if self.n < 2 or self.wmom.weight <= 0 or self.tblocks.ref is None:
             nan = np.full(S, np.nan)
-            ev = _Evaluation(self.names, nan, nan.copy(), np.zeros(S, dtype=np.int64),
-                             nan.copy(), nan.copy(), {}, self._plan.resolve(nan.tolist()))  # fmt: skip
+            zero = np.zeros(S, dtype=np.int64)
+            targets = self._plan.resolve(nan.tolist())
+            ev = _Evaluation(self.names, nan, nan.copy(), zero, nan.copy(), nan.copy(), {}, targets)
             self._cache = ev
             return ev
         ref = self.tblocks.ref

@@ -66,7 +66,5 @@ def test_weight_column_that_vanishes_within_a_point_is_rejected():
     assert p.feed("lda-1", a[:, :2], columns=("u", "v"), times=a[:, 2], weights=a[:, 3]) is None
     assert p.feed("lda-1", b[:, :2], columns=("u", "v"), times=b[:, 2]) == "layout_changed"
     bad = -b[:, 3]
-    assert (
-        p.feed("lda-1", b[:, :2], columns=("u", "v"), times=b[:, 2], weights=bad) == "bad_weight"
-    )
+    assert p.feed("lda-1", b[:, :2], columns=("u", "v"), times=b[:, 2], weights=bad) == "bad_weight"
     p.close()
