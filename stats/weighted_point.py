@@ -32,6 +32,13 @@ MIN_SAMPLES_PER_TINT = 10.0
 SLOTS = 128
 
 
+class _NotKept:
+    def __getattr__(self, name):
+        if name.startswith("__"):
+            raise AttributeError(name)
+        raise ValueError("points of randomly sampled data cannot be saved or merged yet")
+
+
 class WeightedPointStatistics(PointStatistics):
     """Statistics of one randomly sampled point.
 
@@ -51,6 +58,9 @@ class WeightedPointStatistics(PointStatistics):
         self.tblocks = TimeBlocks(m)
         self.slots: SlottedCorrelation | None = None
         self.arrivals = ArrivalCheck()
+        # the unweighted accumulators of PointStatistics are not kept: saving a state
+        # (stats.pointstate.to_state) or merging refuses instead of writing an empty point
+        self.moments = self.blocking = _NotKept()
 
     def copy(self) -> WeightedPointStatistics:
         new = WeightedPointStatistics(self.columns, self.weighting, self.targets, self.confidence)

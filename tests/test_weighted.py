@@ -225,3 +225,17 @@ def test_early_eta_of_the_mean_from_the_slotted_integral_time():
         etas.append(snap.estimate("U").eta_s)
     expected = (1.1 * 1.96 / 0.02) ** 2 * 5.0 / 200.0 * 1.1**2 - 0.3
     assert np.median(etas) == pytest.approx(expected, rel=0.5)
+
+
+def test_random_sampling_points_refuse_merge_and_save_rather_than_write_nonsense():
+    from eddyvigil.stats.pointstate import to_state
+
+    rng = np.random.default_rng(1)
+    u, t = poisson_ou(rng, 500.0, 1.0, 5.0, 1.0, 0.01)
+    ps = WeightedPointStatistics(("u",), "none")
+    feed(ps, u[:, None], t)
+    with pytest.raises(ValueError, match="cannot be merged"):
+        ps.merge(ps.copy())
+    with pytest.raises(ValueError, match="cannot be saved"):
+        to_state(ps)
+    assert ps.copy().snapshot().estimate("U").value == ps.snapshot().estimate("U").value
