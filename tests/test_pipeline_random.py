@@ -68,3 +68,25 @@ def test_weight_column_that_vanishes_within_a_point_is_rejected():
     bad = -b[:, 3]
     assert p.feed("lda-1", b[:, :2], columns=("u", "v"), times=b[:, 2], weights=bad) == "bad_weight"
     p.close()
+
+
+def test_wire_frames_with_t_and_weight_columns_take_the_transit_path():
+    # the socket/replay path: handle_frames decodes the t and weight columns (DESIGN §2, §10)
+    from eddyvigil.monitor import wire
+
+    _, _, rows = _rows(seconds=3.0)
+    buf = io.StringIO()
+    p = Pipeline(summary=buf)
+    seq = 0
+    assert p.handle_frames(wire.encode_point("lda-1", "s", seq, {"id": "M1"})) is None
+    for part in np.array_split(rows, 6):
+        seq += 1
+        frames = wire.encode_samples(
+            "lda-1", "s", seq, part, ("u", "v", "t", "weight"), rate_hz=None, t0=part[0, 2]
+        )
+        assert p.handle_frames(frames) is None
+    p.close()
+    line = json.loads(buf.getvalue().splitlines()[0])
+    assert line["weighting"] == "transit" and line["samples"] == rows.shape[0]
+    u = {s["name"]: s["value"] for s in line["statistics"]}["U"]
+    assert u == pytest.approx(np.average(rows[:, 0], weights=rows[:, 3]), rel=1e-12)
