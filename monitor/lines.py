@@ -73,6 +73,8 @@ def point_line(
         line.update(extra)
         # keep the contract order: statistics last
         line["quality"] = run.quality.summary()
+        if run.random is not None:
+            line.update(run.statistics.random_sampling_fields())  # DESIGN §10
         line["statistics"] = line.pop("statistics") + rows
     return line
 

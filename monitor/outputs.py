@@ -180,7 +180,11 @@ class TerminalSummary:
                    else "converged" if line.get("converged") else "not converged")
         ended = "" if line.get("complete") else " (cut short)"
         rejected = sum((line.get("rejected") or {}).values())
+        rs = line.get("random_sampling") or {}  # laser-Doppler notes (DESIGN §10), said plainly
+        notes = "".join(f"; {n}" for n in rs.get("notes") or [])
+        weighting = f" ({line['weighting']} weighting)" if line.get("weighting") else ""
         return (f"point {point if point is not None else '-'} on {line.get('stream')}: "
                 f"{_count(line.get('samples'))} samples in "
-                f"{float(line.get('duration_s') or 0):.1f} s, "
-                f"{verdict}{ended}; {line.get('lost_messages', 0)} lost, {rejected} rejected")
+                f"{float(line.get('duration_s') or 0):.1f} s{weighting}, "
+                f"{verdict}{ended}; {line.get('lost_messages', 0)} lost, {rejected} rejected"
+                f"{notes}")

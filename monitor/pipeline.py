@@ -148,6 +148,7 @@ class Pipeline:
         clock: Callable[[], float] = time.monotonic,
         max_message_bytes: int = wire.DEFAULT_MAX_MESSAGE_BYTES,
         quality: str = "flag",
+        weighting: str = "arrival",
     ):
         from eddyvigil import stats  # the numba-compiled core loads only when a pipeline is built
 
@@ -162,6 +163,7 @@ class Pipeline:
         self._clock = clock
         self.max_message_bytes = int(max_message_bytes)
         self.quality_policy = quality  # stats.quality: "flag" or "exclude" (README, Signal quality)
+        self.weighting = weighting  # random sampling without a weight column (DESIGN §10)
         self._streams: dict[str, StreamState] = {}
         self._rejected: Counter = Counter()  # of the whole run
         self._received = 0  # messages of the whole run
@@ -272,9 +274,8 @@ class Pipeline:
             from eddyvigil.monitor import fields
 
             return fields.feed(self, st, msg)
-        return self._feed_block(
-            st, msg.velocity, msg.velocity_columns, msg.rate_hz, msg.times, msg.t0, msg.units
-        )
+        args = (msg.velocity, msg.velocity_columns, msg.rate_hz, msg.times, msg.t0, msg.units)
+        return self._feed_block(st, *args, weights=msg.weights)
 
     # ------------------------------------------------------------------ in-process API
 
@@ -295,11 +296,13 @@ class Pipeline:
         rate_hz: float | None = None,
         times: np.ndarray | None = None,
         units: str = "m/s",
+        weights: np.ndarray | None = None,
     ) -> str | None:
         """Feed an ``(n, len(columns))`` block of velocity samples; returns a rejection reason.
 
         ``rate_hz`` for uniform sampling, or ``times`` (s, one per row) for random sampling;
-        ``units`` of the velocities (a change within a point is rejected, ``units_changed``).
+        ``units`` of the velocities (a change within a point is rejected, ``units_changed``);
+        ``weights`` (residence times, one per row) with ``times`` (DESIGN §10).
         A block that is not finite or not of the stated shape is rejected and counted, never
         raised on.
         """
@@ -315,7 +318,7 @@ class Pipeline:
             t0 = 0.0
             if times is None and st.current is not None and st.current.statistics is not None:
                 t0 = st.current.rows_received / float(rate_hz)
-            reason = self._feed_block(st, block, columns, rate_hz, times, t0, units)
+            reason = self._feed_block(st, block, columns, rate_hz, times, t0, units, weights)
         if reason is None:
             st.active = True
             st.messages += 1
@@ -371,13 +374,16 @@ class Pipeline:
         st.active = True
         self._maybe_publish(force=True)  # readers see the end at once
 
-    def _feed_block(self, st, velocity, columns, rate_hz, times, t0, units="m/s") -> str | None:
+    def _feed_block(
+        self, st, velocity, columns, rate_hz, times, t0, units="m/s", weights=None
+    ) -> str | None:
         """A block of accepted samples: checks against the point, the point's accumulators
         (PointRun.feed), the stream's totals and trace, then the checkpoint's signals."""
         point_run = st.current if st.current is not None else self._start_point(st, None)
         columns = tuple(columns)
         reason = point_run.accept_layout(
-            columns, rate_hz, units, t0, self.targets, self.quality_policy
+            columns, rate_hz, units, t0, self.targets, self.quality_policy, self.weighting,
+            weights,
         )
         if reason is not None:
             return reason
@@ -385,7 +391,7 @@ class Pipeline:
         if reason is not None:
             return reason
         mark = point_run.checkpoint_mark()
-        point_run.feed(velocity, duration_s)
+        point_run.feed(velocity, duration_s, times, weights)
         st.add_samples(velocity, columns, rate_hz, times, t0, self._clock())
         # Convergence is decided at the statistics' own checkpoints (inside update, from the
         # data alone). At a checkpoint the targeted statistics come from the checkpoint's own

@@ -20,6 +20,8 @@ from __future__ import annotations
 
 from collections import Counter
 
+import numpy as np
+
 from eddyvigil.monitor.display import History
 
 __all__ = ["PointRun"]
@@ -58,6 +60,7 @@ class PointRun:
         self.statistics = None  # stats.PointStatistics
         self.spectra = None  # stats.point_spectra.PointSpectra (uniform sampling only)
         self.quality = None  # stats.quality.SignalQuality
+        self.random = None  # monitor.random_sampling.RandomFeed (random sampling only)
         # what readers see
         self.point_snapshot = None  # latest stats.snapshot.PointSnapshot (quality guard applied)
         self.snapshot_stale = False  # data arrived since point_snapshot was taken
@@ -84,7 +87,10 @@ class PointRun:
 
     # ------------------------------------------------------------------ input
 
-    def accept_layout(self, columns, rate_hz, units, t0, targets, quality_policy) -> str | None:
+    def accept_layout(
+        self, columns, rate_hz, units, t0, targets, quality_policy, weighting="arrival",
+        weights=None,
+    ) -> str | None:
         """Check a block's layout against the point's (fixing it, and creating the accumulators,
         at the first block); returns a rejection reason or None."""
         if self.units is not None and units != self.units:
@@ -96,6 +102,11 @@ class PointRun:
             self.units = units
             self.columns, self.rate_hz = columns, rate_hz
             self.statistics = stats.PointStatistics(columns, rate_hz, targets=targets)
+            if rate_hz is None:  # random sampling: weighted statistics (monitor.random_sampling)
+                from eddyvigil.monitor.random_sampling import RandomFeed
+
+                self.random = RandomFeed(columns, weights is not None, weighting, targets)
+                self.statistics = self.random.stats
             self.targets = targets
             self.spectra = (
                 None
@@ -106,6 +117,8 @@ class PointRun:
             self.t0 = float(t0) if rate_hz is not None and t0 is not None else None
         elif columns != self.columns or rate_hz != self.rate_hz:
             return "layout_changed"
+        if self.random is not None:
+            return self.random.check(weights)  # a weight column that comes and goes, or bad weights
         return None
 
     def accept_times(self, times) -> tuple[str | None, float | None]:
@@ -120,7 +133,7 @@ class PointRun:
         self.last_t = t_last
         return None, duration_s
 
-    def feed(self, velocity, duration_s: float | None) -> None:
+    def feed(self, velocity, duration_s: float | None, times=None, weights=None) -> None:
         """The one place a block enters the point's accumulators.
 
         Quality first (one call per block; "exclude" hands on replaced rows, later), then the
@@ -129,8 +142,8 @@ class PointRun:
         cleaned = self.quality.update(velocity)  # the same block, or replaced rows ("exclude")
         if self.rate_hz is None:  # a duration waits for rows when "exclude" holds them back
             self.held_s += duration_s
+            self.random.feed(cleaned, times, weights, self.held_s)
             if cleaned.shape[0]:
-                self.statistics.update(cleaned, duration_s=self.held_s)
                 self.held_s = 0.0
         else:
             self.statistics.update(cleaned)
@@ -142,7 +155,10 @@ class PointRun:
         if self.statistics is None:
             return
         tail = self.quality.flush()
-        self.statistics.update(tail, **({} if self.rate_hz else {"duration_s": self.held_s}))
+        if self.random is not None:
+            self.random.feed(tail, np.empty(0), self.random.no_weights(), self.held_s)
+        else:
+            self.statistics.update(tail)
         self.snapshot_stale = True
 
     def checkpoint_mark(self):

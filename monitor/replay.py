@@ -95,6 +95,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
         "and dropout samples by linear interpolation before the statistics",
     )
+    p.add_argument(  # random sampling without a weight column (DESIGN §10, README)
+        "--weighting",
+        choices=("arrival", "none"),
+        default="arrival",
+        help="random sampling (t column) without a weight column: arrival = weight each sample "
+        "by the time since the previous one (default), none = arithmetic (velocity-biased)",
+    )
     p.add_argument("--quiet", action="store_true", help="no status line")
 
 
@@ -197,7 +204,11 @@ def run(args: argparse.Namespace) -> int:
     try:
         sink = summary if summary is not None else terminal_summary_sink("replay", args.quiet)
         pipeline = Pipeline(
-            targets, summary=sink, max_message_bytes=max_bytes, quality=args.quality
+            targets,
+            summary=sink,
+            max_message_bytes=max_bytes,
+            quality=args.quality,
+            weighting=args.weighting,
         )
         stop = threading.Event()
         status = StatusPrinter(quiet=args.quiet)

@@ -143,6 +143,13 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
         "and dropout samples by linear interpolation before the statistics",
     )
+    p.add_argument(  # random sampling without a weight column (DESIGN §10, README)
+        "--weighting",
+        choices=("arrival", "none"),
+        default="arrival",
+        help="random sampling (t column) without a weight column: arrival = weight each sample "
+        "by the time since the previous one (default), none = arithmetic (velocity-biased)",
+    )
     p.add_argument("--quiet", action="store_true", help="no status line")
     curve = p.add_argument_group(
         "CURVE (encryption and publisher authentication; watch is the CURVE server)"
@@ -471,6 +478,7 @@ def run(args: argparse.Namespace) -> int:
             recorder=recorder,
             max_message_bytes=max_bytes,
             quality=args.quality,
+            weighting=args.weighting,
         )
         status = StatusPrinter(quiet=args.quiet, ended=lambda: pipeline.all_ended)
         started = time.monotonic()

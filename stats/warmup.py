@@ -48,6 +48,12 @@ def exercise(dtype, columns) -> None:
         for part in np.array_split(block, 3):
             stats.update(part, duration_s=None if rate_hz else part.shape[0] / 1000.0)
         stats.snapshot()
+    if dtype is np.float64:  # random sampling's weighted kernels (all float64 inside)
+        from eddyvigil.stats.weighted_point import WeightedPointStatistics
+
+        weighted = WeightedPointStatistics(columns, "transit")
+        t = np.arange(block.shape[0]) * 1e-3
+        weighted.update(block, times=t, weights=np.ones(block.shape[0])).snapshot()
     if len(columns) == 3:  # the signal-quality kernels: one window, per input dtype
         quality = SignalQuality(columns, "exclude")
         quality.update(block[:4200])

@@ -239,7 +239,25 @@ def test_random_sampling_duration_from_time_column_and_steps_back_rejected():
     point = lines_of(buf)[0]
     assert point["samples"] == 3000
     assert point["duration_s"] == pytest.approx(t[-1] - t[0], rel=1e-12)
-    np.testing.assert_allclose(stat(point, "U"), u.mean(), rtol=1e-12)
+    # no weight column: the default fallback weights each sample by the time since the
+    # previous arrival (Barnett & Bentley 1974, from memory; the first by the mean gap)
+    w = np.r_[(t[999] - t[0]) / 999, np.diff(t)]
+    assert point["weighting"] == "arrival"
+    np.testing.assert_allclose(stat(point, "U"), np.average(u[:, 0], weights=w), rtol=1e-12)
+
+
+def test_random_sampling_without_weighting_is_arithmetic():
+    p = Pipeline(summary=(buf := io.StringIO()), weighting="none")
+    rng = np.random.default_rng(9)
+    t = np.cumsum(rng.exponential(1e-3, 3000))
+    u = 5.0 + rng.standard_normal((3000, 2))
+    p.begin_point("lda", {"id": "R"})
+    assert p.feed("lda", u, columns=("u", "v"), times=t) is None
+    p.close()
+    point = lines_of(buf)[0]
+    assert point["weighting"] == "none"
+    np.testing.assert_allclose(stat(point, "U"), u[:, 0].mean(), rtol=1e-12)
+    np.testing.assert_allclose(stat(point, "uv"), np.cov(u.T, bias=True)[0, 1], rtol=1e-9)
 
 
 def test_snapshot_is_rebound_frozen_and_bounded(monkeypatch):
