@@ -18,8 +18,14 @@ import math
 import numpy as np
 
 from eddyvigil.stats.arrivals import ArrivalCheck
-from eddyvigil.stats.convergence import CHECKPOINT_GROWTH, STOP_MARGIN, STREAK
-from eddyvigil.stats.point import PointStatistics, _Evaluation, _integral_scales, _t_quantiles
+from eddyvigil.stats.convergence import CHECKPOINT_GROWTH, MIN_RECORD_TINTS, STOP_MARGIN, STREAK
+from eddyvigil.stats.point import (
+    INTERVAL_INFLATION,
+    PointStatistics,
+    _Evaluation,
+    _integral_scales,
+    _t_quantiles,
+)
 from eddyvigil.stats.slotting import SlottedCorrelation
 from eddyvigil.stats.stationarity import assess_columns
 from eddyvigil.stats.weighted import WEIGHTINGS, TimeBlocks, WeightedMoments, sample_weights
@@ -124,7 +130,10 @@ class WeightedPointStatistics(PointStatistics):
             nan = np.full(S, np.nan)
             zero = np.zeros(S, dtype=np.int64)
             targets = self._plan.resolve(nan.tolist())
-            ev = _Evaluation(self.names, nan, nan.copy(), zero, nan.copy(), nan.copy(), {}, targets)
+            ev = _Evaluation(
+                self.names, nan, nan.copy(), zero, nan.copy(), nan.copy(), {}, targets,
+                [False] * S, [0.0] * S, [None] * S, [None] * S, np.zeros(S),
+            )
             self._cache = ev
             return ev
         ref = self.tblocks.ref
@@ -149,7 +158,7 @@ class WeightedPointStatistics(PointStatistics):
             se[k + 2 * m + i] = np.nan
         blocks = np.full(S, choice.blocks, dtype=np.int64)
         rel_all = np.full(S, choice.relative_error)
-        hw = _t_quantiles(0.5 * (1.0 + self.confidence), blocks) * se
+        hw = INTERVAL_INFLATION * _t_quantiles(0.5 * (1.0 + self.confidence), blocks) * se
         suspect = {}
         verdicts = assess_columns(self.tblocks.block_means(), se[:m].tolist())
         for c, verdict in zip(self.columns, verdicts, strict=True):
@@ -160,10 +169,38 @@ class WeightedPointStatistics(PointStatistics):
             for c in self.columns:
                 suspect.setdefault(c, "processor dead time: too few short inter-arrival gaps")
         targets = self._plan.resolve(values.tolist())
-        ev = _Evaluation(self.names, values, se, blocks, rel_all, hw, suspect, targets)
+        guards = self._weighted_guards(tints, se, hw)
+        ev = _Evaluation(self.names, values, se, blocks, rel_all, hw, suspect, targets, *guards)
         if rows is None:
             self._cache = ev
         return ev
+
+    def _weighted_guards(self, tints, se, hw):
+        """The minimum record and the modelled-k rule of PointStatistics._guards, for random
+        sampling: the record must span MIN_RECORD_TINTS of the slotted integral time of every
+        component a statistic depends on. While the slotted correlation has not yet crossed
+        zero (T_int unknown) the time blocks' own count is the only guard. No tail guard here
+        (the weighted path keeps no extremes yet); no slow-content test (time blocks have one
+        level). Sets the half-width of rows without an honest interval to NaN (in place)."""
+        S = len(self.names)
+        T = self.duration_s
+        long_enough, min_total, no_interval = [], [], []
+        for i in range(S):
+            t_i = max((tints[c] for c in self._comp_idx[i]), default=math.nan)
+            need = MIN_RECORD_TINTS * t_i if math.isfinite(t_i) and t_i > 0 else 0.0
+            need = max(need, self.targets.required_record_s)
+            long_enough.append(T >= need)
+            min_total.append(need)
+            why = None
+            if self._modelled_k and self.names[i] == "k":
+                why = (
+                    f"no honest interval: {self.k_method}; the assumption's error is unknown "
+                    "(set accept_modelled_k = true in the targets file to accept it)"
+                )
+                hw[i] = math.nan
+                se[i] = math.nan
+            no_interval.append(why)
+        return long_enough, min_total, [None] * S, no_interval, np.zeros(S)
 
     def _snapshot(self, ev, indices):
         """The common snapshot, with an early ETA for the means from the slotted T_int.

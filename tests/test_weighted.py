@@ -211,9 +211,11 @@ def test_weighted_interval_coverage_on_velocity_biased_records():
 def test_early_eta_of_the_mean_from_the_slotted_integral_time():
     # before enough time blocks exist (< 16), the ETA of U follows from Var(mean) =
     # (sigma^2/N)(1 + 2 n' T_int) (Poisson arrivals; elementary result): sigma = 1, n' = 200/s,
-    # T_int = 10 ms, target 0.02 -> T = (1.1 z / 0.02)^2 (1 + 4) / 200, then two more
-    # checkpoints 10 % apart. From 0.3 s of data the inputs are rough: the median of 9
-    # seeded records must be within 50 % (about 60 samples: T_int comes out low).
+    # T_int = 10 ms, target 0.02 -> T = (margin z / 0.02)^2 (1 + 4) / 200, then the rest of
+    # the checkpoint streak (the stopping rule's constants, stats/convergence.py). From 0.3 s
+    # of data the inputs are rough: the median of 9 seeded records must be within 50 % (about
+    # 60 samples: T_int comes out low).
+    from eddyvigil.stats.convergence import CHECKPOINT_GROWTH, STOP_MARGIN, STREAK
     from eddyvigil.stats.targets import Targets
 
     targets = Targets.from_dict({"targets": {"U": {"absolute": 0.02}}})
@@ -223,7 +225,9 @@ def test_early_eta_of_the_mean_from_the_slotted_integral_time():
         snap = feed(WeightedPointStatistics(("u",), "none", targets=targets), u[:, None], t)
         assert snap.estimate("U").blocks < 16  # the blocking error cannot predict yet
         etas.append(snap.estimate("U").eta_s)
-    expected = (1.1 * 1.96 / 0.02) ** 2 * 5.0 / 200.0 * 1.1**2 - 0.3
+    expected = (
+        (STOP_MARGIN * 1.96 / 0.02) ** 2 * 5.0 / 200.0 * CHECKPOINT_GROWTH ** (STREAK - 1) - 0.3
+    )
     assert np.median(etas) == pytest.approx(expected, rel=0.5)
 
 
