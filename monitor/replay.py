@@ -23,6 +23,7 @@ from eddyvigil.monitor.transport import parse_speed, port_number
 from eddyvigil.monitor.watch import (
     SETTINGS_FILE,
     StatusPrinter,
+    add_sample_policies,
     add_summary_mode,
     install_stop_signals,
     serve_dashboard_while,
@@ -88,20 +89,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         metavar="S",
         help="seconds to wait for subscribers before re-sending (default 1)",
     )
-    p.add_argument(  # signal-quality policy (README, Signal quality)
-        "--quality",
-        choices=("flag", "exclude"),
-        default="flag",
-        help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
-        "and dropout samples by linear interpolation before the statistics",
-    )
-    p.add_argument(  # random sampling without a weight column (DESIGN §10, README)
-        "--weighting",
-        choices=("arrival", "none"),
-        default="arrival",
-        help="random sampling (t column) without a weight column: arrival = weight each sample "
-        "by the time since the previous one (default), none = arithmetic (velocity-biased)",
-    )
+    add_sample_policies(p)
     p.add_argument("--quiet", action="store_true", help="no status line")
 
 

@@ -136,20 +136,7 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         default=DEFAULT_RCVHWM,
         help=f"receive queue depth in messages (default {DEFAULT_RCVHWM})",
     )
-    p.add_argument(  # signal-quality policy (README, Signal quality)
-        "--quality",
-        choices=("flag", "exclude"),
-        default="flag",
-        help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
-        "and dropout samples by linear interpolation before the statistics",
-    )
-    p.add_argument(  # random sampling without a weight column (DESIGN §10, README)
-        "--weighting",
-        choices=("arrival", "none"),
-        default="arrival",
-        help="random sampling (t column) without a weight column: arrival = weight each sample "
-        "by the time since the previous one (default), none = arithmetic (velocity-biased)",
-    )
+    add_sample_policies(p)
     p.add_argument("--quiet", action="store_true", help="no status line")
     curve = p.add_argument_group(
         "CURVE (encryption and publisher authentication; watch is the CURVE server)"
@@ -163,6 +150,24 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
         "--curve-allow",
         metavar="KEYDIR",
         help="accept only publishers whose public key (*.key) is in KEYDIR (read at start)",
+    )
+
+
+def add_sample_policies(p: argparse.ArgumentParser) -> None:
+    """``--quality`` and ``--weighting``: what is done to the samples (watch and replay)."""
+    p.add_argument(  # signal-quality policy (README, Signal quality)
+        "--quality",
+        choices=("flag", "exclude"),
+        default="flag",
+        help="flag: count spikes/dropouts/clipping and warn (default); exclude: replace spikes "
+        "and dropout samples by linear interpolation before the statistics",
+    )
+    p.add_argument(  # random sampling without a weight column (DESIGN §10, README)
+        "--weighting",
+        choices=("arrival", "none"),
+        default="arrival",
+        help="random sampling (t column) without a weight column: arrival = weight each sample "
+        "by the time since the previous one (default), none = arithmetic (velocity-biased)",
     )
 
 
