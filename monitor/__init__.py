@@ -4,7 +4,7 @@ Public names are loaded on first use (PEP 562), as in ``stats``: importing ``edd
 loads neither numpy nor its BLAS, so the command can settle the BLAS thread count first.
 """
 
-from importlib import import_module
+from eddyvigil.stats.lazy import lazy_exports
 
 __all__ = [
     "ControlPublisher",
@@ -27,13 +27,4 @@ _WHERE = {
 }
 
 
-def __getattr__(name):
-    if name in _WHERE:
-        value = getattr(import_module(_WHERE[name]), name)
-        globals()[name] = value
-        return value
-    raise AttributeError(f"module 'eddyvigil.monitor' has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(__all__)
+__getattr__, __dir__ = lazy_exports(globals(), _WHERE)

@@ -6,7 +6,7 @@ Public names are imported lazily (PEP 562) so that ``import eddyvigil.simulator.
 
 from __future__ import annotations
 
-import importlib
+from eddyvigil.stats.lazy import lazy_exports
 
 _HOME = {
     "MALFORMED_KINDS": "faults",
@@ -36,11 +36,6 @@ _HOME = {
 __all__ = list(_HOME)
 
 
-def __getattr__(name: str):
-    if name in _HOME:
-        return getattr(importlib.import_module(f"eddyvigil.simulator.{_HOME[name]}"), name)
-    raise AttributeError(f"module 'eddyvigil.simulator' has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(list(globals()) + __all__)
+__getattr__, __dir__ = lazy_exports(
+    globals(), {name: f"eddyvigil.simulator.{module}" for name, module in _HOME.items()}
+)
