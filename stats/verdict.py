@@ -44,6 +44,7 @@ __all__ = [
     "state_words",
     "display_state",
     "plain_reason",
+    "format_duration",
 ]
 
 #: Record length (in integral times of the slowest component) before MOVE ON is said.
@@ -142,9 +143,14 @@ def _finite_or_none(x):
     return None if x is None or not math.isfinite(x) else float(x)
 
 
-def _seconds(s: float | None) -> str:
+def format_duration(s: float | None, unknown: str = "unknown") -> str:
+    """A duration in words a person reads at a glance (``unknown`` when there is none).
+
+    >>> format_duration(41.6), format_duration(185), format_duration(3720), format_duration(None)
+    ('42 s', '3 min 05 s', '1 h 02 min', 'unknown')
+    """
     if s is None or not math.isfinite(s) or s < 0:
-        return "unknown"
+        return unknown
     s = round(s)
     if s < 60:
         return f"{s} s"
@@ -254,12 +260,12 @@ def point_verdict(snap: PointSnapshot | None) -> Verdict:
                 f"{MIN_RECORD_INTEGRAL_TIMES:.0f} needed before the drift check can be trusted",
                 **base,
             )
-        return Verdict("move-on", f"all {n} targets met after {_seconds(snap.converged_at_s)}"
+        return Verdict("move-on", f"all {n} targets met after {format_duration(snap.converged_at_s)}"
                        f" of data", **base)
     if all(e.state in ("warming-up", "suspect") for e in targeted) and suspect != list(targeted):
         return Verdict("warming-up", "too few blocks for an honest error bar yet" + flagged,
                        **base)
-    eta = "time still needed unknown" if slow_eta is None else f"about {_seconds(slow_eta)} more"
+    eta = "time still needed unknown" if slow_eta is None else f"about {format_duration(slow_eta)} more"
     confirming = sum(1 for e in targeted if display_state(e) == "confirming")
     conf = f", {confirming} confirming" if confirming else ""
     return Verdict("keep-acquiring",

@@ -18,6 +18,7 @@ import numpy as np
 from eddyvigil.monitor.rate import WINDOW_S, format_rate
 from eddyvigil.monitor.state import RunSnapshot, StreamView
 from eddyvigil.stats.names import family
+from eddyvigil.stats import verdict as verdict_words
 from eddyvigil.stats.verdict import display_state, point_verdict, state_words
 
 __all__ = [
@@ -116,15 +117,7 @@ def format_duration(seconds) -> str:
     >>> format_duration(41.6), format_duration(185), format_duration(3720), format_duration(None)
     ('42 s', '3 min 05 s', '1 h 02 min', '–')
     """
-    s = _num(seconds)
-    if math.isnan(s) or s < 0:
-        return "–"
-    s = round(s)
-    if s < 60:
-        return f"{s} s"
-    if s < 3600:
-        return f"{s // 60} min {s % 60:02d} s"
-    return f"{s // 3600} h {(s % 3600) // 60:02d} min"
+    return verdict_words.format_duration(_num(seconds), unknown="–")
 
 
 def pick_stream(snapshot: RunSnapshot, wanted: str | None) -> str | None:
