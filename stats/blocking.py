@@ -18,13 +18,18 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import lru_cache
 
-import numba
 import numpy as np
 from scipy import special
 from scipy import stats as sps
 
-from eddyvigil.stats.delta import influence_autocovariances
-from eddyvigil.stats.kernels import blocking_push, ingest_block, kernel_view, segment_push
+from eddyvigil.stats.kernels import (
+    blocking_push,
+    influence_autocovariances,
+    ingest_block,
+    jonsson_lugsail,
+    kernel_view,
+    segment_push,
+)
 from eddyvigil.stats.monomials import layout
 
 __all__ = [
@@ -97,67 +102,6 @@ def _chi2_99_table(K: int) -> np.ndarray:
     return q
 
 
-@numba.njit(cache=True, error_model="numpy")
-def _jonsson_lugsail(
-    c0, gamma, n, q, fq, min_level, base, var, level, blocks, block_samples, rel, top, slow
-):
-    """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level),
-    and the rise test of the levels above j (``top``: the largest significant V_k, else NaN;
-    ``slow``: the highest level k with a significant rise, else -1).
-
-    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2); ``fq[j, k]`` is
-    the critical ratio V_k / V_j of the rise test; ``min_level`` (S,) the lowest level each row
-    may use (blocks long enough against the integral time; above K - 1: unknown).
-    """
-    S = c0.shape[0]
-    K = q.shape[0]
-    r2 = np.empty(K)
-    for s in range(S):
-        top[s] = np.nan
-        slow[s] = -1
-        for jj in range(K):
-            r = n[jj] * (gamma[s, jj] / c0[s, jj]) ** 2
-            r2[jj] = r if np.isfinite(r) else np.inf
-        # M_j = sum_{k >= j} r2_k, summed from the top level down
-        first_ok = -1
-        acc = 0.0
-        for jj in range(K - 1, -1, -1):
-            acc += r2[jj]
-            if acc < q[jj]:
-                first_ok = jj
-        j = min(max(first_ok, 1), K - 1)  # never level 0 alone
-        if min_level[s] > j:
-            j = min_level[s]
-        nj, nm = (n[j], n[j - 1]) if j < K else (0.0, 0.0)
-        if first_ok < 0 or not (nj >= 2 and nm >= 2):
-            var[s], level[s], blocks[s], block_samples[s], rel[s] = np.nan, -1, 0, 0, np.nan
-            continue
-        vj = c0[s, j] / (nj - 1)
-        vm = c0[s, j - 1] / (nm - 1)
-        # lugsail 2 V_j - V_{j-1}; never below V_j; rounding can leave c0 a hair below zero
-        # (NaN propagates, as np.maximum does)
-        v = 2.0 * vj - vm
-        if vj > v or np.isnan(vj):
-            v = vj
-        if v < 0.0:
-            v = 0.0
-        var[s] = v
-        level[s] = j
-        blocks[s] = np.int64(nj)
-        block_samples[s] = base * 2**j
-        # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n)
-        # = 5/n for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
-        # the standard error's relative error is half of its square root.
-        rel[s] = 0.5 * np.sqrt(5.0 / max(nj - 1, 1.0))
-        # slow content: a level above j whose variance is significantly above the plateau
-        for kk in range(j + 1, K):
-            vk = c0[s, kk] / (n[kk] - 1)
-            if v > 0.0 and vk > fq[j, kk] * v:
-                slow[s] = kk
-                if not (vk <= top[s]):
-                    top[s] = vk
-
-
 def choose_level(
     c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int, min_level=None
 ) -> LevelChoice:
@@ -185,7 +129,7 @@ def choose_level(
     if usable.size < 2:
         return LevelChoice(var, level, blocks, block_samples, rel, top, np.zeros(S, np.int64))
     K = int(usable[-1]) + 1
-    _jonsson_lugsail(
+    jonsson_lugsail(
         np.ascontiguousarray(c0, dtype=np.float64),
         np.ascontiguousarray(gamma, dtype=np.float64),
         np.ascontiguousarray(n, dtype=np.float64),

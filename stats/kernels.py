@@ -19,6 +19,8 @@ Two numerical choices are made here:
 
 from __future__ import annotations
 
+import math
+
 import numba
 import numpy as np
 
@@ -530,3 +532,385 @@ def ingest_block(
             y[:, :m], seg_sums, seg_cur, seg_full, seg_len, seg_fill
         )
     return carry_n, seg_full, seg_len, seg_fill
+
+
+@numba.njit(cache=True, nogil=True)
+def shift_comoments(
+    n,
+    s2,
+    s3,
+    s4,
+    shift,
+    t_order,
+    t_target,
+    t_src_order,
+    t_src,
+    t_comp,
+    o2,
+    o3,
+    o4,
+    accumulate=False,
+):
+    if not accumulate:
+        for q in range(o2.shape[0]):
+            o2[q] = 0.0
+        for q in range(o3.shape[0]):
+            o3[q] = 0.0
+        for q in range(o4.shape[0]):
+            o4[q] = 0.0
+    for r in range(t_order.shape[0]):
+        so = t_src_order[r]
+        if so == 0:
+            v = n
+        elif so == 2:
+            v = s2[t_src[r]]
+        elif so == 3:
+            v = s3[t_src[r]]
+        else:
+            v = s4[t_src[r]]
+        for j in range(4):
+            c = t_comp[r, j]
+            if c >= 0:
+                v *= shift[c]
+        p = t_order[r]
+        if p == 2:
+            o2[t_target[r]] += v
+        elif p == 3:
+            o3[t_target[r]] += v
+        else:
+            o4[t_target[r]] += v
+
+
+@numba.njit(cache=True, nogil=True)
+def merge_comoments(
+    na,
+    mean_a,
+    a2,
+    a3,
+    a4,
+    nb,
+    mean_b,
+    b2,
+    b3,
+    b4,
+    t_order,
+    t_target,
+    t_src_order,
+    t_src,
+    t_comp,
+    mean,
+    o2,
+    o3,
+    o4,
+):
+    n = na + nb
+    m = mean_a.shape[0]
+    sa = np.empty(m)
+    sb = np.empty(m)
+    for i in range(m):
+        delta = mean_b[i] - mean_a[i]
+        sa[i] = -delta * (nb / n)
+        sb[i] = delta * (na / n)
+        mean[i] = mean_a[i] + delta * (nb / n)
+    shift_comoments(na, a2, a3, a4, sa, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4)
+    shift_comoments(
+        nb, b2, b3, b4, sb, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4, True
+    )
+
+
+@numba.njit(cache=True, nogil=True)
+def central_terms_and_jacobian(raw, m, mono, comp, owner, terms, J):
+    """Terms of the central co-moments (T,) and their Jacobian ``J`` (C, D) from monomial means.
+
+    ``raw`` (D,) are the monomial means of ``x - ref``; ``delta = raw[:m]``. Term ``t`` of the
+    expansion table (see :class:`StatisticTable`) is ``raw[mono[t]] * prod(-delta[comp[t]])``
+    and belongs to co-moment ``owner[t]``; index D of ``raw`` and index m of ``-delta`` stand
+    for 1. The Jacobian collects d/d raw[mono] (the product) and d/d delta_i (-1 times the
+    product of the other factors), in that order.
+    """
+    D = raw.shape[0]
+    T = mono.shape[0]
+    J[:, :] = 0.0
+    f = np.empty(4)
+    for t in range(T):
+        for p in range(4):
+            c = comp[t, p]
+            f[p] = -raw[c] if c < m else 1.0
+        coef = f[0] * f[1] * f[2] * f[3]
+        mo = mono[t]
+        if mo < D:
+            terms[t] = raw[mo] * coef
+            J[owner[t], mo] += coef
+        else:
+            terms[t] = coef
+    for p in range(4):
+        for t in range(T):
+            c = comp[t, p]
+            if c >= m:
+                continue
+            others = 1.0
+            first = True
+            for q in range(4):
+                if q == p:
+                    continue
+                cq = comp[t, q]
+                fq = -raw[cq] if cq < m else 1.0
+                if first:
+                    others = fq
+                    first = False
+                else:
+                    others = others * fq
+            mo = mono[t]
+            r = raw[mo] if mo < D else 1.0
+            J[owner[t], c] += -r * others
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def chain_rule(raw, ref, cen, J, kfac, stress, third, fourth, c2, c3, c4, values, grad):
+    """Every statistic (values (S,), gradient (S, D)) from the central co-moments ``cen`` and
+    their Jacobian ``J``, in report order: means, stresses, k, third and fourth moments,
+    skewness, flatness. ``stress``, ``third``, ``fourth`` are positions in ``cen`` in report
+    order, ``c2``/``c3``/``c4`` those of uu, uuu, uuuu of each component; ``kfac`` is k's
+    factor for the number of components. Same expressions as :meth:`StatisticTable.evaluate`.
+    """
+    m = c2.shape[0]
+    D = J.shape[1]
+    grad[:, :] = 0.0
+    r = 0
+    for i in range(m):  # means: ref + first-order monomial mean
+        values[r] = ref[i] + raw[i]
+        grad[r, i] = 1.0
+        r += 1
+    for q in stress:
+        values[r] = cen[q]
+        grad[r, :] = J[q, :]
+        r += 1
+    k = 0.0
+    for i in range(m):
+        k += cen[c2[i]]
+    values[r] = kfac * k
+    for d in range(D):
+        acc = J[c2[0], d]
+        for i in range(1, m):
+            acc += J[c2[i], d]
+        grad[r, d] = kfac * acc
+    r += 1
+    for pos in (third, fourth):
+        for q in pos:
+            values[r] = cen[q]
+            grad[r, :] = J[q, :]
+            r += 1
+    # skewness uuu / uu^1.5, then flatness uuuu / uu^2: s_k / s2^p and its gradient
+    for ck, p in ((c3, 1.5), (c4, 2.0)):
+        for i in range(m):
+            s2, sk = cen[c2[i]], cen[ck[i]]
+            a, b = s2**p, p * sk / s2 ** (p + 1.0)
+            values[r] = sk / a
+            for d in range(D):
+                grad[r, d] = J[ck[i], d] / a - b * J[c2[i], d]
+            r += 1
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def influence_autocovariances(grad, n, S, Q, P, first, last, mu, c0, gamma):
+    """Lag-0 and lag-1 autocovariances of every statistic's influence series, per level.
+
+    The influence series of statistic ``s`` is ``grad[s] @ y`` over the monomial block means
+    ``y``; a blocking level ``k`` keeps ``n[k]`` of them as sums: ``S`` (L, D), outer-product
+    sums ``Q`` and symmetrised lag-one sums ``P`` (L, D, D), ``first``/``last`` (L, D). With
+    ``g = grad[s]``, ``zq = g Q_k g``, ``zp = g P_k g``, ``zs``, ``zf``, ``zl`` the projections
+    of ``S``, ``first``, ``last``, and ``zmu = g @ mu`` the global mean (all base blocks):
+
+        c0[s, k]    = (zq - 2 zmu zs + n zmu^2) / n
+        gamma[s, k] = (zp - zmu (2 zs - zf - zl) + (n - 1) zmu^2) / n
+
+    i.e. about the *global* mean, not each level's own (REFERENCES §2 pitfall). A gradient
+    touches only the monomials of its statistic's components and order, so only its nonzero
+    entries enter the products (exact zeros add nothing; a NaN entry is kept).
+    """
+    n_stat, D = grad.shape
+    L = Q.shape[0]
+    idx = np.empty(D, dtype=np.int64)
+    g = np.empty(D)
+    for s in range(n_stat):
+        nz = 0
+        for a in range(D):
+            if grad[s, a] != 0.0:
+                idx[nz] = a
+                g[nz] = grad[s, a]
+                nz += 1
+        zmu = 0.0
+        for i in range(nz):
+            zmu += g[i] * mu[idx[i]]
+        for k in range(L):
+            zq = 0.0
+            zp = 0.0
+            zs = 0.0
+            zf = 0.0
+            zl = 0.0
+            for i in range(nz):
+                a = idx[i]
+                ga = g[i]
+                rq = 0.0
+                rp = 0.0
+                for j in range(nz):
+                    b = idx[j]
+                    rq += Q[k, a, b] * g[j]
+                    rp += P[k, a, b] * g[j]
+                zq += ga * rq
+                zp += ga * rp
+                zs += ga * S[k, a]
+                zf += ga * first[k, a]
+                zl += ga * last[k, a]
+            nk = n[k]
+            c0[s, k] = (zq - 2.0 * zmu * zs + nk * zmu**2) / nk
+            gamma[s, k] = (zp - zmu * (2.0 * zs - zf - zl) + (nk - 1.0) * zmu**2) / nk
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def jonsson_lugsail(
+    c0, gamma, n, q, fq, min_level, base, var, level, blocks, block_samples, rel, top, slow
+):
+    """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level),
+    and the rise test of the levels above j (``top``: the largest significant V_k, else NaN;
+    ``slow``: the highest level k with a significant rise, else -1).
+
+    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2); ``fq[j, k]`` is
+    the critical ratio V_k / V_j of the rise test; ``min_level`` (S,) the lowest level each row
+    may use (blocks long enough against the integral time; above K - 1: unknown).
+    """
+    S = c0.shape[0]
+    K = q.shape[0]
+    r2 = np.empty(K)
+    for s in range(S):
+        top[s] = np.nan
+        slow[s] = -1
+        for jj in range(K):
+            r = n[jj] * (gamma[s, jj] / c0[s, jj]) ** 2
+            r2[jj] = r if np.isfinite(r) else np.inf
+        # M_j = sum_{k >= j} r2_k, summed from the top level down
+        first_ok = -1
+        acc = 0.0
+        for jj in range(K - 1, -1, -1):
+            acc += r2[jj]
+            if acc < q[jj]:
+                first_ok = jj
+        j = min(max(first_ok, 1), K - 1)  # never level 0 alone
+        if min_level[s] > j:
+            j = min_level[s]
+        nj, nm = (n[j], n[j - 1]) if j < K else (0.0, 0.0)
+        if first_ok < 0 or not (nj >= 2 and nm >= 2):
+            var[s], level[s], blocks[s], block_samples[s], rel[s] = np.nan, -1, 0, 0, np.nan
+            continue
+        vj = c0[s, j] / (nj - 1)
+        vm = c0[s, j - 1] / (nm - 1)
+        # lugsail 2 V_j - V_{j-1}; never below V_j; rounding can leave c0 a hair below zero
+        # (NaN propagates, as np.maximum does)
+        v = 2.0 * vj - vm
+        if vj > v or np.isnan(vj):
+            v = vj
+        if v < 0.0:
+            v = 0.0
+        var[s] = v
+        level[s] = j
+        blocks[s] = np.int64(nj)
+        block_samples[s] = base * 2**j
+        # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n)
+        # = 5/n for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
+        # the standard error's relative error is half of its square root.
+        rel[s] = 0.5 * np.sqrt(5.0 / max(nj - 1, 1.0))
+        # slow content: a level above j whose variance is significantly above the plateau
+        for kk in range(j + 1, K):
+            vk = c0[s, kk] / (n[kk] - 1)
+            if v > 0.0 and vk > fq[j, kk] * v:
+                slow[s] = kk
+                if not (vk <= top[s]):
+                    top[s] = vk
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def integral_scales(duration_s, var, rel, m, values, se):
+    """Append Tint, Neff and L of each component to ``values`` and fill ``se`` (S,).
+
+    ``values`` holds the moment statistics followed by 3 m free places; ``var`` and ``rel``
+    are the variances and relative standard errors of the moment statistics. From the error
+    of the mean: Var(mean) = 2 sigma^2 Tint / T, N_eff = sigma^2 / Var(mean) (REFERENCES §1);
+    the integral length by Taylor's hypothesis, convected at the local mean speed |U|. The
+    relative error of a variance estimate is twice that of its square root; the mean speed's
+    own relative error adds in quadrature for the length.
+    """
+    k = var.shape[0]
+    for i in range(k):
+        se[i] = np.sqrt(var[i])
+    speed2 = 0.0
+    spread2 = 0.0
+    for i in range(m):
+        speed2 += values[i] ** 2
+        spread2 += (values[i] * se[i]) ** 2
+    speed = np.sqrt(speed2)
+    rel_speed = np.sqrt(spread2) / speed**2
+    for i in range(m):
+        sig2 = values[m + i]
+        tint = duration_s * var[i] / (2.0 * sig2)
+        neff = sig2 / var[i]
+        length = speed * tint
+        rel_t = 2 * rel[i]
+        values[k + i] = tint
+        values[k + m + i] = neff
+        values[k + 2 * m + i] = length
+        se[k + i] = rel_t * tint
+        se[k + m + i] = rel_t * neff
+        se[k + 2 * m + i] = np.sqrt(rel_t**2 + rel_speed**2) * length
+
+
+@numba.njit(cache=True, nogil=True)
+def inversions(x, out):
+    """``out[c] = #{i < j : x[i, c] > x[j, c]}`` for every column ``c`` of ``x`` (n, k)."""
+    n, k = x.shape
+    for c in range(k):
+        a = 0
+        for i in range(n - 1):
+            xi = x[i, c]
+            for j in range(i + 1, n):
+                if xi > x[j, c]:
+                    a += 1
+        out[c] = a
+
+
+@numba.njit(cache=True, nogil=True)
+def trend_and_halves(x, t, slope, first, second):
+    """Per column ``c`` of ``x`` (n, k): the regression ``t`` and ``slope`` of the values against
+    their centred index (NaN when n < 3 or the fit is perfect), and the means ``first`` and
+    ``second`` of the first and last ``n // 2`` values (NaN when n < 2)."""
+    n, k = x.shape
+    h = n // 2
+    sxx = 0.0
+    for r in range(n):
+        i = r - 0.5 * (n - 1)
+        sxx += i * i
+    for c in range(k):
+        s = 0.0
+        for r in range(n):
+            s += x[r, c]
+        mean = s / n if n > 0 else np.nan
+        sxy = 0.0
+        for r in range(n):
+            sxy += (r - 0.5 * (n - 1)) * (x[r, c] - mean)
+        b = sxy / sxx if n >= 3 else np.nan
+        ss = 0.0
+        for r in range(n):
+            e = (x[r, c] - mean) - b * (r - 0.5 * (n - 1))
+            ss += e * e
+        slope[c] = b
+        t[c] = np.nan
+        if n >= 3:
+            s2 = ss / (n - 2)
+            if s2 > 0.0:
+                t[c] = b / math.sqrt(s2 / sxx)
+        f = 0.0
+        g = 0.0
+        for r in range(h):
+            f += x[r, c]
+            g += x[n - h + r, c]
+        first[c] = f / h if h > 0 else np.nan
+        second[c] = g / h if h > 0 else np.nan

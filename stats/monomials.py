@@ -13,8 +13,9 @@ from dataclasses import dataclass
 from functools import lru_cache
 from itertools import combinations, combinations_with_replacement
 
-import numba
 import numpy as np
+
+from eddyvigil.stats.kernels import merge_comoments, shift_comoments
 
 __all__ = ["Layout", "layout", "merge_sums", "shift_sums"]
 
@@ -92,96 +93,12 @@ def layout(m: int) -> Layout:
     )
 
 
-@numba.njit(cache=True)
-def _shift_kernel(
-    n,
-    s2,
-    s3,
-    s4,
-    shift,
-    t_order,
-    t_target,
-    t_src_order,
-    t_src,
-    t_comp,
-    o2,
-    o3,
-    o4,
-    accumulate=False,
-):
-    if not accumulate:
-        for q in range(o2.shape[0]):
-            o2[q] = 0.0
-        for q in range(o3.shape[0]):
-            o3[q] = 0.0
-        for q in range(o4.shape[0]):
-            o4[q] = 0.0
-    for r in range(t_order.shape[0]):
-        so = t_src_order[r]
-        if so == 0:
-            v = n
-        elif so == 2:
-            v = s2[t_src[r]]
-        elif so == 3:
-            v = s3[t_src[r]]
-        else:
-            v = s4[t_src[r]]
-        for j in range(4):
-            c = t_comp[r, j]
-            if c >= 0:
-                v *= shift[c]
-        p = t_order[r]
-        if p == 2:
-            o2[t_target[r]] += v
-        elif p == 3:
-            o3[t_target[r]] += v
-        else:
-            o4[t_target[r]] += v
-
-
-@numba.njit(cache=True)
-def _merge_kernel(
-    na,
-    mean_a,
-    a2,
-    a3,
-    a4,
-    nb,
-    mean_b,
-    b2,
-    b3,
-    b4,
-    t_order,
-    t_target,
-    t_src_order,
-    t_src,
-    t_comp,
-    mean,
-    o2,
-    o3,
-    o4,
-):
-    n = na + nb
-    m = mean_a.shape[0]
-    sa = np.empty(m)
-    sb = np.empty(m)
-    for i in range(m):
-        delta = mean_b[i] - mean_a[i]
-        sa[i] = -delta * (nb / n)
-        sb[i] = delta * (na / n)
-        mean[i] = mean_a[i] + delta * (nb / n)
-    _shift_kernel(na, a2, a3, a4, sa, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4)
-    _shift_kernel(
-        nb, b2, b3, b4, sb, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4, True
-    )
-
-
 def merge_sums(lay: Layout, na, mean_a, a2, a3, a4, nb, mean_b, b2, b3, b4):
     """Pairwise merge of two sets of central sums (Pébay 2008): both re-centred on the
     combined mean, then added. Returns (mean, s2, s3, s4) as new arrays."""
     mean = np.empty_like(mean_a)
     o2, o3, o4 = np.empty_like(a2), np.empty_like(a3), np.empty_like(a4)
-    _merge_kernel(
+    merge_comoments(
         float(na),
         mean_a,
         a2,
@@ -214,7 +131,7 @@ def shift_sums(lay: Layout, n: float, s2, s3, s4, shift):
     o2 = np.empty_like(s2)
     o3 = np.empty_like(s3)
     o4 = np.empty_like(s4)
-    _shift_kernel(
+    shift_comoments(
         float(n),
         s2,
         s3,
