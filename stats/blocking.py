@@ -23,6 +23,9 @@ from scipy import special
 from scipy import stats as sps
 
 from eddyvigil.stats.kernels import (
+    BlockingLevels,
+    CentralSums,
+    Segments,
     blocking_push,
     influence_autocovariances,
     ingest_block,
@@ -174,12 +177,12 @@ def _recentring_map(lay, shift: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     A monomial of the shifted vector is a product of ``y_i + shift_i``; expanding it over the
     subsets of its factors (binomially) gives lower monomials of ``y`` times products of the
     shift, and the empty subset a constant. The table is the one the kernels use to move sums
-    about the block mean to sums about ``ref`` (``monomials.layout``: r_target, r_src, r_comp).
+    about the block mean to sums about ``ref`` (``monomials.layout(m).recentre``).
     """
     D = lay.n_monomials
     T = np.zeros((D, D))
     c = np.zeros(D)
-    for t, s, comp in zip(lay.r_target, lay.r_src, lay.r_comp, strict=True):
+    for t, s, comp in zip(*lay.recentre, strict=True):
         coef = 1.0
         for k in comp:
             if k >= 0:
@@ -294,10 +297,12 @@ class BlockingAccumulator:
         if n == 0:
             return self
         lay = self.layout
-        mean = np.empty(self.m)
-        s2 = np.empty(len(lay.combos[2]))
-        s3 = np.empty(len(lay.combos[3]))
-        s4 = np.empty(len(lay.combos[4]))
+        out = CentralSums(
+            np.empty(self.m),
+            np.empty(len(lay.combos[2])),
+            np.empty(len(lay.combos[3])),
+            np.empty(len(lay.combos[4])),
+        )
         if self.ref is None:
             self.ref = block.mean(axis=0, dtype=np.float64)
         self.carry_n, self.seg_full, self.seg_len, self.seg_fill = ingest_block(
@@ -306,13 +311,23 @@ class BlockingAccumulator:
             self.base,
             self.carry_n,
             self.carry_sums,
-            lay.r_target,
-            lay.r_src,
-            lay.r_comp,
-            mean,
-            s2,
-            s3,
-            s4,
+            lay.recentre,
+            out,
+            self._levels(),
+            self._segments(),
+            self.seg_full,
+            self.seg_len,
+            self.seg_fill,
+        )
+        self.n += n
+        if moments is not None:
+            moments._combine(n, *out)
+        return self
+
+    def _levels(self) -> BlockingLevels:
+        """The level arrays as the one bundle the kernels take (the arrays themselves, not
+        copies: merge and recentred replace them, so the bundle is built per call)."""
+        return BlockingLevels(
             self.count,
             self.S,
             self.Q,
@@ -322,21 +337,15 @@ class BlockingAccumulator:
             self.has_last,
             self.pending,
             self.has_pending,
-            self.seg_sums,
-            self.seg_cur,
-            self.seg_full,
-            self.seg_len,
-            self.seg_fill,
         )
-        self.n += n
-        if moments is not None:
-            moments._combine(n, mean, s2, s3, s4)
-        return self
+
+    def _segments(self) -> Segments:
+        return Segments(self.seg_sums, self.seg_cur)
 
     def _add_segments(self, means: np.ndarray) -> None:
         """Add base-block component means ``means`` (nb, m) to the segment store."""
         self.seg_full, self.seg_len, self.seg_fill = segment_push(
-            means, self.seg_sums, self.seg_cur, self.seg_full, self.seg_len, self.seg_fill
+            means, self._segments(), self.seg_full, self.seg_len, self.seg_fill
         )
 
     def segment_means(self) -> np.ndarray:
@@ -442,18 +451,7 @@ class BlockingAccumulator:
         new.carry_n, new.carry_sums = 0, np.zeros(self.D)
         if total >= self.base:
             y = (sums / total)[None, :]
-            blocking_push(
-                y,
-                new.count,
-                new.S,
-                new.Q,
-                new.P,
-                new.first,
-                new.last,
-                new.has_last,
-                new.pending,
-                new.has_pending,
-            )
+            blocking_push(y, new._levels())
             new._add_segments(y[:, : self.m])
         elif total:
             new.carry_n, new.carry_sums = total, sums

@@ -20,19 +20,92 @@ Two numerical choices are made here:
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numba
 import numpy as np
 
 __all__ = [
+    "BlockingLevels",
+    "CentralSums",
+    "RecentreTable",
+    "Segments",
+    "ShiftTable",
     "block_sums",
     "blocking_push",
     "central_sums",
+    "central_terms_and_jacobian",
+    "chain_rule",
+    "influence_autocovariances",
     "ingest_block",
+    "integral_scales",
+    "inversions",
+    "jonsson_lugsail",
     "kernel_view",
+    "merge_comoments",
     "monomial_sums",
     "segment_push",
+    "shift_comoments",
+    "trend_and_halves",
 ]
+
+
+# Bundles: the arrays of one piece of state, passed to a kernel as one argument (numba takes a
+# NamedTuple of arrays as it takes the arrays; the kernels update the arrays in place). The
+# owning class builds them from its own arrays just before the call.
+
+
+class ShiftTable(NamedTuple):
+    """Moving central sums to another centre: one row per (target combo, subset of its
+    positions with size != 1); built by ``monomials.layout``."""
+
+    order: np.ndarray  # order p of the target
+    target: np.ndarray  # index of the target combo within order p
+    src_order: np.ndarray  # size s of the subset (0 or 2..p)
+    src: np.ndarray  # index of the subset combo within order s
+    comp: np.ndarray  # (T, 4) components of the complement, -1 padded
+
+
+class RecentreTable(NamedTuple):
+    """Moving monomial sums to another centre (first-order sums need not vanish): one row per
+    (target monomial, subset of its positions); built by ``monomials.layout``."""
+
+    target: np.ndarray  # target monomial
+    src: np.ndarray  # source monomial, or -1 (the count)
+    comp: np.ndarray  # (R, 4) components of the complement, -1 padded
+
+
+class CentralSums(NamedTuple):
+    """Output of a block reduction: the block mean (m,) and central co-moment sums of order
+    2, 3 and 4 (one entry per combo of that order)."""
+
+    mean: np.ndarray
+    s2: np.ndarray
+    s3: np.ndarray
+    s4: np.ndarray
+
+
+class BlockingLevels(NamedTuple):
+    """The dyadic levels of a blocking state (L levels, D monomials); see
+    :func:`blocking_push` for what each holds."""
+
+    count: np.ndarray  # (L,) int64
+    S: np.ndarray  # (L, D)
+    Q: np.ndarray  # (L, D, D)
+    P: np.ndarray  # (L, D, D)
+    first: np.ndarray  # (L, D)
+    last: np.ndarray  # (L, D)
+    has_last: np.ndarray  # (L,) bool
+    pending: np.ndarray  # (L, D)
+    has_pending: np.ndarray  # (L,) bool
+
+
+class Segments(NamedTuple):
+    """Segment store of component means: ``sums`` (SEGMENTS, m) of the complete segments and
+    ``cur`` (m,) of the one being filled."""
+
+    sums: np.ndarray
+    cur: np.ndarray
 
 _CHUNK = 128
 
@@ -260,7 +333,7 @@ def _longest(lens):
 
 
 @numba.njit(cache=True, nogil=True)
-def block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4, R):
+def block_sums(x, ref, base, head_len, table, out, R):
     """Both reductions of a block in one sweep: moments *and* base-block monomial sums.
 
     The sweep takes every monomial (degree 1-4) of ``x - ref``, ``ref`` a fixed point near the
@@ -269,9 +342,12 @@ def block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4
     boundaries: ``head_len`` rows finish a base block begun earlier, then full blocks of
     ``base`` rows, then the tail; ``R`` (nb + 2, D) gets the chunk sums (row 0 the head,
     1..nb the full blocks, nb + 1 the tail; absent chunks are zero). Their total, re-centred
-    exactly on the block mean (the subset expansion of table ``r_*``), gives the block's
-    ``mean`` and central sums ``s2``, ``s3``, ``s4`` for the moment accumulator.
+    exactly on the block mean (the subset expansion of ``table``, a :class:`RecentreTable`),
+    gives the block's mean and central sums (``out``, a :class:`CentralSums`) for the moment
+    accumulator.
     """
+    r_target, r_src, r_comp = table
+    mean, s2, s3, s4 = out
     n, m = x.shape
     D = R.shape[1]
     h = min(head_len, n)
@@ -322,7 +398,7 @@ def _gram(rows, out):
 
 
 @numba.njit(cache=True, nogil=True)
-def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending):
+def blocking_push(y, levels):
     """Push block-mean vectors ``y`` (n, D), one row per block, into the dyadic blocking levels.
 
     Level ``k`` keeps, for the vector series of its block means: ``count[k]``, the sum
@@ -335,8 +411,10 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
     for neighbours a, b, sym(a b^T) = ((a + b)(a + b)^T - a a^T - b b^T) / 2, and a + b is
     twice a next-level row for every other neighbour pair, whose outer products are the next
     level's ``Q`` increment anyway. Only the other half of the pairs needs a Gram matrix: three
-    row-products per level-0 row in all levels together instead of four.
+    row-products per level-0 row in all levels together instead of four. ``levels`` is a
+    :class:`BlockingLevels`, updated in place.
     """
+    count, S, Q, P, first, last, has_last, pending, has_pending = levels
     D = y.shape[1]
     nlev = count.shape[0]
     cur = y
@@ -420,14 +498,16 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
 
 
 @numba.njit(cache=True, nogil=True)
-def segment_push(means, seg_sums, seg_cur, full, length, fill):
+def segment_push(means, segments, full, length, fill):
     """Add base-block component means ``means`` (nb, m) to the segment store.
 
-    ``seg_sums`` (S, m) holds ``full`` complete segments of ``length`` base blocks each;
-    ``seg_cur`` the sums of the segment being filled (``fill`` base blocks so far). When all
+    ``segments`` (a :class:`Segments`): ``sums`` (S, m) holds ``full`` complete segments of
+    ``length`` base blocks each, ``cur`` the sums of the segment being filled (``fill`` base
+    blocks so far). When all
     S slots are full, neighbours are paired and the length doubles; the partial segment keeps
     filling against the doubled length. Returns the new ``(full, length, fill)``.
     """
+    seg_sums, seg_cur = segments
     nb, m = means.shape
     S = seg_sums.shape[0]
     acc = np.empty(m)
@@ -464,37 +544,14 @@ def segment_push(means, seg_sums, seg_cur, full, length, fill):
 
 @numba.njit(cache=True, nogil=True)
 def ingest_block(
-    x,
-    ref,
-    base,
-    carry_n,
-    carry_sums,
-    r_target,
-    r_src,
-    r_comp,
-    mean,
-    s2,
-    s3,
-    s4,
-    count,
-    S,
-    Q,
-    P,
-    first,
-    last,
-    has_last,
-    pending,
-    has_pending,
-    seg_sums,
-    seg_cur,
-    seg_full,
-    seg_len,
-    seg_fill,
+    x, ref, base, carry_n, carry_sums, table, out, levels, segments, seg_full, seg_len, seg_fill
 ):
     """One block into a blocking state, in one call: :func:`block_sums`, the base block left
     unfinished by earlier blocks (``carry_n`` rows, sums ``carry_sums``, updated in place),
     :func:`blocking_push` and :func:`segment_push` (the Python glue between them cost about a
-    tenth of the block's time). Returns ``(carry_n, seg_full, seg_len, seg_fill)``.
+    tenth of the block's time). ``table`` a :class:`RecentreTable`, ``out`` a
+    :class:`CentralSums` (filled), ``levels`` a :class:`BlockingLevels` and ``segments`` a
+    :class:`Segments` (updated). Returns ``(carry_n, seg_full, seg_len, seg_fill)``.
     """
     n, m = x.shape
     D = carry_sums.shape[0]
@@ -503,7 +560,7 @@ def ingest_block(
     nb = (n - h) // base
     rest = n - h - nb * base
     R = np.empty((nb + 2, D))
-    block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4, R)
+    block_sums(x, ref, base, head_len, table, out, R)
     completes = False
     if h:
         for q in range(D):
@@ -527,30 +584,20 @@ def ingest_block(
         for q in range(D):
             carry_sums[q] = R[nb + 1, q]
     if rows:
-        blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending)
-        seg_full, seg_len, seg_fill = segment_push(
-            y[:, :m], seg_sums, seg_cur, seg_full, seg_len, seg_fill
-        )
+        blocking_push(y, levels)
+        seg_full, seg_len, seg_fill = segment_push(y[:, :m], segments, seg_full, seg_len, seg_fill)
     return carry_n, seg_full, seg_len, seg_fill
 
 
 @numba.njit(cache=True, nogil=True)
-def shift_comoments(
-    n,
-    s2,
-    s3,
-    s4,
-    shift,
-    t_order,
-    t_target,
-    t_src_order,
-    t_src,
-    t_comp,
-    o2,
-    o3,
-    o4,
-    accumulate=False,
-):
+def shift_comoments(n, sums, shift, table, out, accumulate=False):
+    """Sums of products of ``(x - c) + shift`` of order 2, 3, 4 from the central sums ``sums``
+    (the triple s2, s3, s4) of ``n`` samples about ``c``, by the subset expansion of
+    ``table`` (a :class:`ShiftTable`); written into (or, with ``accumulate``, added to) the
+    triple ``out``."""
+    s2, s3, s4 = sums
+    o2, o3, o4 = out
+    t_order, t_target, t_src_order, t_src, t_comp = table
     if not accumulate:
         for q in range(o2.shape[0]):
             o2[q] = 0.0
@@ -582,27 +629,10 @@ def shift_comoments(
 
 
 @numba.njit(cache=True, nogil=True)
-def merge_comoments(
-    na,
-    mean_a,
-    a2,
-    a3,
-    a4,
-    nb,
-    mean_b,
-    b2,
-    b3,
-    b4,
-    t_order,
-    t_target,
-    t_src_order,
-    t_src,
-    t_comp,
-    mean,
-    o2,
-    o3,
-    o4,
-):
+def merge_comoments(na, mean_a, a, nb, mean_b, b, table, mean, out):
+    """Pairwise merge of central sums (Pebay 2008): the triples ``a`` (of ``na`` samples about
+    ``mean_a``) and ``b`` re-centred on the combined mean (written to ``mean``) and added into
+    the triple ``out``."""
     n = na + nb
     m = mean_a.shape[0]
     sa = np.empty(m)
@@ -612,10 +642,8 @@ def merge_comoments(
         sa[i] = -delta * (nb / n)
         sb[i] = delta * (na / n)
         mean[i] = mean_a[i] + delta * (nb / n)
-    shift_comoments(na, a2, a3, a4, sa, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4)
-    shift_comoments(
-        nb, b2, b3, b4, sb, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4, True
-    )
+    shift_comoments(na, a, sa, table, out)
+    shift_comoments(nb, b, sb, table, out, True)
 
 
 @numba.njit(cache=True, nogil=True)
