@@ -15,7 +15,7 @@ from itertools import combinations
 
 import numpy as np
 
-from eddyvigil.stats.kernels import central_terms_and_jacobian, chain_rule
+from eddyvigil.stats.kernels import ReportOrder, central_terms_and_jacobian, chain_rule
 from eddyvigil.stats.monomials import Layout
 from eddyvigil.stats.names import (
     K_FACTORS,
@@ -67,13 +67,15 @@ class StatisticTable:
         pos = {c: i for i, c in enumerate(self.combo_list)}
         self._combo_pos = pos
         # positions in combo_list of what values_and_gradient picks, in report order
-        self._stress_pos = np.array([pos[c] for c in stress], dtype=np.int64)
-        self._normal_pos = np.array([pos[(i, i)] for i in range(m)], dtype=np.int64)
-        self._cube_pos = np.array([pos[(i, i, i)] for i in range(m)], dtype=np.int64)
-        self._quart_pos = np.array([pos[(i, i, i, i)] for i in range(m)], dtype=np.int64)
-        self._third_pos = np.array([pos[c] for c in lay.combos[3]], dtype=np.int64)
-        self._fourth_pos = np.array([pos[c] for c in lay.combos[4]], dtype=np.int64)
-        self._kfac = K_FACTORS[m]
+        self._report = ReportOrder(
+            kfac=K_FACTORS[m],
+            stress=np.array([pos[c] for c in stress], dtype=np.int64),
+            third=np.array([pos[c] for c in lay.combos[3]], dtype=np.int64),
+            fourth=np.array([pos[c] for c in lay.combos[4]], dtype=np.int64),
+            c2=np.array([pos[(i, i)] for i in range(m)], dtype=np.int64),
+            c3=np.array([pos[(i, i, i)] for i in range(m)], dtype=np.int64),
+            c4=np.array([pos[(i, i, i, i)] for i in range(m)], dtype=np.int64),
+        )
 
     def central_all(self, raw: np.ndarray) -> np.ndarray:
         """All central co-moments (..., n2 + n3 + n4) from monomial means ``raw`` (..., D)."""
@@ -119,21 +121,7 @@ class StatisticTable:
         S = len(self.names)
         values = np.empty(S)
         grad = np.empty((S, D))
-        chain_rule(
-            raw,
-            ref,
-            cen,
-            J,
-            self._kfac,
-            self._stress_pos,
-            self._third_pos,
-            self._fourth_pos,
-            self._normal_pos,
-            self._cube_pos,
-            self._quart_pos,
-            values,
-            grad,
-        )
+        chain_rule(raw, ref, cen, J, self._report, values, grad)
         return values, grad
 
     def values_and_gradient_complex_step(self, raw, ref):

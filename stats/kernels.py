@@ -29,6 +29,7 @@ __all__ = [
     "BlockingLevels",
     "CentralSums",
     "RecentreTable",
+    "ReportOrder",
     "Segments",
     "ShiftTable",
     "block_sums",
@@ -73,6 +74,19 @@ class RecentreTable(NamedTuple):
     target: np.ndarray  # target monomial
     src: np.ndarray  # source monomial, or -1 (the count)
     comp: np.ndarray  # (R, 4) components of the complement, -1 padded
+
+
+class ReportOrder(NamedTuple):
+    """Where :func:`chain_rule` finds each statistic among the central co-moments, in report
+    order; built by ``delta.StatisticTable``."""
+
+    kfac: float  # k's factor for the number of components
+    stress: np.ndarray  # positions of the Reynolds stresses
+    third: np.ndarray  # of the third-order co-moments
+    fourth: np.ndarray  # of the fourth-order co-moments
+    c2: np.ndarray  # of uu, vv, ww
+    c3: np.ndarray  # of uuu, vvv, www
+    c4: np.ndarray  # of uuuu, vvvv, wwww
 
 
 class CentralSums(NamedTuple):
@@ -694,13 +708,13 @@ def central_terms_and_jacobian(raw, m, mono, comp, owner, terms, J):
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def chain_rule(raw, ref, cen, J, kfac, stress, third, fourth, c2, c3, c4, values, grad):
+def chain_rule(raw, ref, cen, J, order, values, grad):
     """Every statistic (values (S,), gradient (S, D)) from the central co-moments ``cen`` and
     their Jacobian ``J``, in report order: means, stresses, k, third and fourth moments,
-    skewness, flatness. ``stress``, ``third``, ``fourth`` are positions in ``cen`` in report
-    order, ``c2``/``c3``/``c4`` those of uu, uuu, uuuu of each component; ``kfac`` is k's
-    factor for the number of components. Same expressions as :meth:`StatisticTable.evaluate`.
+    skewness, flatness; ``order`` (a :class:`ReportOrder`) says where each is in ``cen``.
+    Same expressions as :meth:`StatisticTable.evaluate`.
     """
+    kfac, stress, third, fourth, c2, c3, c4 = order
     m = c2.shape[0]
     D = J.shape[1]
     grad[:, :] = 0.0
