@@ -23,9 +23,6 @@ from scipy import special
 from scipy import stats as sps
 
 from eddyvigil.stats.kernels import (
-    BlockingLevels,
-    CentralSums,
-    Segments,
     blocking_push,
     influence_autocovariances,
     ingest_block,
@@ -297,7 +294,7 @@ class BlockingAccumulator:
         if n == 0:
             return self
         lay = self.layout
-        out = CentralSums(
+        out = (  # a kernels.CentralSums bundle: mean, s2, s3, s4
             np.empty(self.m),
             np.empty(len(lay.combos[2])),
             np.empty(len(lay.combos[3])),
@@ -324,10 +321,11 @@ class BlockingAccumulator:
             moments._combine(n, *out)
         return self
 
-    def _levels(self) -> BlockingLevels:
-        """The level arrays as the one bundle the kernels take (the arrays themselves, not
+    def _levels(self) -> tuple:
+        """The level arrays as the one bundle the kernels take, in
+        :class:`~eddyvigil.stats.kernels.BlockingLevels` order (the arrays themselves, not
         copies: merge and recentred replace them, so the bundle is built per call)."""
-        return BlockingLevels(
+        return (
             self.count,
             self.S,
             self.Q,
@@ -339,8 +337,9 @@ class BlockingAccumulator:
             self.has_pending,
         )
 
-    def _segments(self) -> Segments:
-        return Segments(self.seg_sums, self.seg_cur)
+    def _segments(self) -> tuple:
+        """The segment store as a :class:`~eddyvigil.stats.kernels.Segments` bundle."""
+        return (self.seg_sums, self.seg_cur)
 
     def _add_segments(self, means: np.ndarray) -> None:
         """Add base-block component means ``means`` (nb, m) to the segment store."""

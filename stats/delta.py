@@ -67,14 +67,17 @@ class StatisticTable:
         pos = {c: i for i, c in enumerate(self.combo_list)}
         self._combo_pos = pos
         # positions in combo_list of what values_and_gradient picks, in report order
-        self._report = ReportOrder(
-            kfac=K_FACTORS[m],
-            stress=np.array([pos[c] for c in stress], dtype=np.int64),
-            third=np.array([pos[c] for c in lay.combos[3]], dtype=np.int64),
-            fourth=np.array([pos[c] for c in lay.combos[4]], dtype=np.int64),
-            c2=np.array([pos[(i, i)] for i in range(m)], dtype=np.int64),
-            c3=np.array([pos[(i, i, i)] for i in range(m)], dtype=np.int64),
-            c4=np.array([pos[(i, i, i, i)] for i in range(m)], dtype=np.int64),
+        # the kernel's bundle: a plain tuple, see kernels.py
+        self._report = tuple(
+            ReportOrder(
+                kfac=K_FACTORS[m],
+                stress=np.array([pos[c] for c in stress], dtype=np.int64),
+                third=np.array([pos[c] for c in lay.combos[3]], dtype=np.int64),
+                fourth=np.array([pos[c] for c in lay.combos[4]], dtype=np.int64),
+                c2=np.array([pos[(i, i)] for i in range(m)], dtype=np.int64),
+                c3=np.array([pos[(i, i, i)] for i in range(m)], dtype=np.int64),
+                c4=np.array([pos[(i, i, i, i)] for i in range(m)], dtype=np.int64),
+            )
         )
 
     def central_all(self, raw: np.ndarray) -> np.ndarray:

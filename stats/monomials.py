@@ -27,11 +27,12 @@ class Layout:
     index: dict  # combo tuple -> index within its order
     mono_offset: tuple[int, ...]  # start of each degree (1..4) in the monomial vector
     #: central sums to another centre: one row per (target combo, subset of its positions
-    #: with size != 1)
-    shift: ShiftTable
+    #: with size != 1); a ShiftTable's fields as a plain tuple (the kernels' bundle form)
+    shift: tuple
     #: monomial sums to another centre (first-order sums need not vanish): one row per
-    #: (target monomial, subset of its positions); source monomial index or -1 (the count)
-    recentre: RecentreTable
+    #: (target monomial, subset of its positions); source monomial index or -1 (the count);
+    #: a RecentreTable's fields as a plain tuple
+    recentre: tuple
 
     @property
     def n_monomials(self) -> int:
@@ -77,17 +78,21 @@ def layout(m: int) -> Layout:
         combos=combos,
         index=index,
         mono_offset=tuple(offs),
-        shift=ShiftTable(
-            order=np.array([r[0] for r in rows], dtype=np.int64),
-            target=np.array([r[1] for r in rows], dtype=np.int64),
-            src_order=np.array([r[2] for r in rows], dtype=np.int64),
-            src=np.array([r[3] for r in rows], dtype=np.int64),
-            comp=np.array([r[4] for r in rows], dtype=np.int64),
+        shift=tuple(
+            ShiftTable(
+                order=np.array([r[0] for r in rows], dtype=np.int64),
+                target=np.array([r[1] for r in rows], dtype=np.int64),
+                src_order=np.array([r[2] for r in rows], dtype=np.int64),
+                src=np.array([r[3] for r in rows], dtype=np.int64),
+                comp=np.array([r[4] for r in rows], dtype=np.int64),
+            )
         ),
-        recentre=RecentreTable(
-            target=np.array([r[0] for r in r_rows], dtype=np.int64),
-            src=np.array([r[1] for r in r_rows], dtype=np.int64),
-            comp=np.array([r[2] for r in r_rows], dtype=np.int64),
+        recentre=tuple(
+            RecentreTable(
+                target=np.array([r[0] for r in r_rows], dtype=np.int64),
+                src=np.array([r[1] for r in r_rows], dtype=np.int64),
+                comp=np.array([r[2] for r in r_rows], dtype=np.int64),
+            )
         ),
     )
 
