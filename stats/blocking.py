@@ -18,13 +18,18 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import lru_cache
 
-import numba
 import numpy as np
 from scipy import special
 from scipy import stats as sps
 
-from eddyvigil.stats.delta import influence_autocovariances
-from eddyvigil.stats.kernels import blocking_push, ingest_block, kernel_view, segment_push
+from eddyvigil.stats.kernels import (
+    blocking_push,
+    influence_autocovariances,
+    ingest_block,
+    jonsson_lugsail,
+    kernel_view,
+    segment_push,
+)
 from eddyvigil.stats.monomials import layout
 
 __all__ = [
@@ -97,67 +102,6 @@ def _chi2_99_table(K: int) -> np.ndarray:
     return q
 
 
-@numba.njit(cache=True, error_model="numpy")
-def _jonsson_lugsail(
-    c0, gamma, n, q, fq, min_level, base, var, level, blocks, block_samples, rel, top, slow
-):
-    """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level),
-    and the rise test of the levels above j (``top``: the largest significant V_k, else NaN;
-    ``slow``: the highest level k with a significant rise, else -1).
-
-    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2); ``fq[j, k]`` is
-    the critical ratio V_k / V_j of the rise test; ``min_level`` (S,) the lowest level each row
-    may use (blocks long enough against the integral time; above K - 1: unknown).
-    """
-    S = c0.shape[0]
-    K = q.shape[0]
-    r2 = np.empty(K)
-    for s in range(S):
-        top[s] = np.nan
-        slow[s] = -1
-        for jj in range(K):
-            r = n[jj] * (gamma[s, jj] / c0[s, jj]) ** 2
-            r2[jj] = r if np.isfinite(r) else np.inf
-        # M_j = sum_{k >= j} r2_k, summed from the top level down
-        first_ok = -1
-        acc = 0.0
-        for jj in range(K - 1, -1, -1):
-            acc += r2[jj]
-            if acc < q[jj]:
-                first_ok = jj
-        j = min(max(first_ok, 1), K - 1)  # never level 0 alone
-        if min_level[s] > j:
-            j = min_level[s]
-        nj, nm = (n[j], n[j - 1]) if j < K else (0.0, 0.0)
-        if first_ok < 0 or not (nj >= 2 and nm >= 2):
-            var[s], level[s], blocks[s], block_samples[s], rel[s] = np.nan, -1, 0, 0, np.nan
-            continue
-        vj = c0[s, j] / (nj - 1)
-        vm = c0[s, j - 1] / (nm - 1)
-        # lugsail 2 V_j - V_{j-1}; never below V_j; rounding can leave c0 a hair below zero
-        # (NaN propagates, as np.maximum does)
-        v = 2.0 * vj - vm
-        if vj > v or np.isnan(vj):
-            v = vj
-        if v < 0.0:
-            v = 0.0
-        var[s] = v
-        level[s] = j
-        blocks[s] = np.int64(nj)
-        block_samples[s] = base * 2**j
-        # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n)
-        # = 5/n for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
-        # the standard error's relative error is half of its square root.
-        rel[s] = 0.5 * np.sqrt(5.0 / max(nj - 1, 1.0))
-        # slow content: a level above j whose variance is significantly above the plateau
-        for kk in range(j + 1, K):
-            vk = c0[s, kk] / (n[kk] - 1)
-            if v > 0.0 and vk > fq[j, kk] * v:
-                slow[s] = kk
-                if not (vk <= top[s]):
-                    top[s] = vk
-
-
 def choose_level(
     c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int, min_level=None
 ) -> LevelChoice:
@@ -185,7 +129,7 @@ def choose_level(
     if usable.size < 2:
         return LevelChoice(var, level, blocks, block_samples, rel, top, np.zeros(S, np.int64))
     K = int(usable[-1]) + 1
-    _jonsson_lugsail(
+    jonsson_lugsail(
         np.ascontiguousarray(c0, dtype=np.float64),
         np.ascontiguousarray(gamma, dtype=np.float64),
         np.ascontiguousarray(n, dtype=np.float64),
@@ -230,12 +174,12 @@ def _recentring_map(lay, shift: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     A monomial of the shifted vector is a product of ``y_i + shift_i``; expanding it over the
     subsets of its factors (binomially) gives lower monomials of ``y`` times products of the
     shift, and the empty subset a constant. The table is the one the kernels use to move sums
-    about the block mean to sums about ``ref`` (``monomials.layout``: r_target, r_src, r_comp).
+    about the block mean to sums about ``ref`` (``monomials.layout(m).recentre``).
     """
     D = lay.n_monomials
     T = np.zeros((D, D))
     c = np.zeros(D)
-    for t, s, comp in zip(lay.r_target, lay.r_src, lay.r_comp, strict=True):
+    for t, s, comp in zip(*lay.recentre, strict=True):
         coef = 1.0
         for k in comp:
             if k >= 0:
@@ -350,10 +294,12 @@ class BlockingAccumulator:
         if n == 0:
             return self
         lay = self.layout
-        mean = np.empty(self.m)
-        s2 = np.empty(len(lay.combos[2]))
-        s3 = np.empty(len(lay.combos[3]))
-        s4 = np.empty(len(lay.combos[4]))
+        out = (  # a kernels.CentralSums bundle: mean, s2, s3, s4
+            np.empty(self.m),
+            np.empty(len(lay.combos[2])),
+            np.empty(len(lay.combos[3])),
+            np.empty(len(lay.combos[4])),
+        )
         if self.ref is None:
             self.ref = block.mean(axis=0, dtype=np.float64)
         self.carry_n, self.seg_full, self.seg_len, self.seg_fill = ingest_block(
@@ -362,13 +308,24 @@ class BlockingAccumulator:
             self.base,
             self.carry_n,
             self.carry_sums,
-            lay.r_target,
-            lay.r_src,
-            lay.r_comp,
-            mean,
-            s2,
-            s3,
-            s4,
+            lay.recentre,
+            out,
+            self._levels(),
+            self._segments(),
+            self.seg_full,
+            self.seg_len,
+            self.seg_fill,
+        )
+        self.n += n
+        if moments is not None:
+            moments._combine(n, *out)
+        return self
+
+    def _levels(self) -> tuple:
+        """The level arrays as the one bundle the kernels take, in
+        :class:`~eddyvigil.stats.kernels.BlockingLevels` order (the arrays themselves, not
+        copies: merge and recentred replace them, so the bundle is built per call)."""
+        return (
             self.count,
             self.S,
             self.Q,
@@ -378,21 +335,16 @@ class BlockingAccumulator:
             self.has_last,
             self.pending,
             self.has_pending,
-            self.seg_sums,
-            self.seg_cur,
-            self.seg_full,
-            self.seg_len,
-            self.seg_fill,
         )
-        self.n += n
-        if moments is not None:
-            moments._combine(n, mean, s2, s3, s4)
-        return self
+
+    def _segments(self) -> tuple:
+        """The segment store as a :class:`~eddyvigil.stats.kernels.Segments` bundle."""
+        return (self.seg_sums, self.seg_cur)
 
     def _add_segments(self, means: np.ndarray) -> None:
         """Add base-block component means ``means`` (nb, m) to the segment store."""
         self.seg_full, self.seg_len, self.seg_fill = segment_push(
-            means, self.seg_sums, self.seg_cur, self.seg_full, self.seg_len, self.seg_fill
+            means, self._segments(), self.seg_full, self.seg_len, self.seg_fill
         )
 
     def segment_means(self) -> np.ndarray:
@@ -498,18 +450,7 @@ class BlockingAccumulator:
         new.carry_n, new.carry_sums = 0, np.zeros(self.D)
         if total >= self.base:
             y = (sums / total)[None, :]
-            blocking_push(
-                y,
-                new.count,
-                new.S,
-                new.Q,
-                new.P,
-                new.first,
-                new.last,
-                new.has_last,
-                new.pending,
-                new.has_pending,
-            )
+            blocking_push(y, new._levels())
             new._add_segments(y[:, : self.m])
         elif total:
             new.carry_n, new.carry_sums = total, sums

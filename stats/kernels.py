@@ -19,18 +19,109 @@ Two numerical choices are made here:
 
 from __future__ import annotations
 
+import math
+from typing import NamedTuple
+
 import numba
 import numpy as np
 
 __all__ = [
+    "BlockingLevels",
+    "CentralSums",
+    "RecentreTable",
+    "ReportOrder",
+    "Segments",
+    "ShiftTable",
     "block_sums",
     "blocking_push",
     "central_sums",
+    "central_terms_and_jacobian",
+    "chain_rule",
+    "influence_autocovariances",
     "ingest_block",
+    "integral_scales",
+    "inversions",
+    "jonsson_lugsail",
     "kernel_view",
+    "merge_comoments",
     "monomial_sums",
     "segment_push",
+    "shift_comoments",
+    "trend_and_halves",
 ]
+
+
+# Bundles: the arrays of one piece of state, passed to a kernel as one argument (the kernels
+# update the arrays in place). Each NamedTuple below names the fields and their order; the
+# owning class builds the bundle in that order and hands the kernel a *plain* tuple: numba's
+# dispatcher types an exact tuple of arrays on its fast path, a NamedTuple on the slow one
+# (measured about 4 us more per BlockingAccumulator.update, -18 % at 512-row blocks).
+
+
+class ShiftTable(NamedTuple):
+    """Moving central sums to another centre: one row per (target combo, subset of its
+    positions with size != 1); built by ``monomials.layout``."""
+
+    order: np.ndarray  # order p of the target
+    target: np.ndarray  # index of the target combo within order p
+    src_order: np.ndarray  # size s of the subset (0 or 2..p)
+    src: np.ndarray  # index of the subset combo within order s
+    comp: np.ndarray  # (T, 4) components of the complement, -1 padded
+
+
+class RecentreTable(NamedTuple):
+    """Moving monomial sums to another centre (first-order sums need not vanish): one row per
+    (target monomial, subset of its positions); built by ``monomials.layout``."""
+
+    target: np.ndarray  # target monomial
+    src: np.ndarray  # source monomial, or -1 (the count)
+    comp: np.ndarray  # (R, 4) components of the complement, -1 padded
+
+
+class ReportOrder(NamedTuple):
+    """Where :func:`chain_rule` finds each statistic among the central co-moments, in report
+    order; built by ``delta.StatisticTable``."""
+
+    kfac: float  # k's factor for the number of components
+    stress: np.ndarray  # positions of the Reynolds stresses
+    third: np.ndarray  # of the third-order co-moments
+    fourth: np.ndarray  # of the fourth-order co-moments
+    c2: np.ndarray  # of uu, vv, ww
+    c3: np.ndarray  # of uuu, vvv, www
+    c4: np.ndarray  # of uuuu, vvvv, wwww
+
+
+class CentralSums(NamedTuple):
+    """Output of a block reduction: the block mean (m,) and central co-moment sums of order
+    2, 3 and 4 (one entry per combo of that order)."""
+
+    mean: np.ndarray
+    s2: np.ndarray
+    s3: np.ndarray
+    s4: np.ndarray
+
+
+class BlockingLevels(NamedTuple):
+    """The dyadic levels of a blocking state (L levels, D monomials); see
+    :func:`blocking_push` for what each holds."""
+
+    count: np.ndarray  # (L,) int64
+    S: np.ndarray  # (L, D)
+    Q: np.ndarray  # (L, D, D)
+    P: np.ndarray  # (L, D, D)
+    first: np.ndarray  # (L, D)
+    last: np.ndarray  # (L, D)
+    has_last: np.ndarray  # (L,) bool
+    pending: np.ndarray  # (L, D)
+    has_pending: np.ndarray  # (L,) bool
+
+
+class Segments(NamedTuple):
+    """Segment store of component means: ``sums`` (SEGMENTS, m) of the complete segments and
+    ``cur`` (m,) of the one being filled."""
+
+    sums: np.ndarray
+    cur: np.ndarray
 
 _CHUNK = 128
 
@@ -258,7 +349,7 @@ def _longest(lens):
 
 
 @numba.njit(cache=True, nogil=True)
-def block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4, R):
+def block_sums(x, ref, base, head_len, table, out, R):
     """Both reductions of a block in one sweep: moments *and* base-block monomial sums.
 
     The sweep takes every monomial (degree 1-4) of ``x - ref``, ``ref`` a fixed point near the
@@ -267,9 +358,12 @@ def block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4
     boundaries: ``head_len`` rows finish a base block begun earlier, then full blocks of
     ``base`` rows, then the tail; ``R`` (nb + 2, D) gets the chunk sums (row 0 the head,
     1..nb the full blocks, nb + 1 the tail; absent chunks are zero). Their total, re-centred
-    exactly on the block mean (the subset expansion of table ``r_*``), gives the block's
-    ``mean`` and central sums ``s2``, ``s3``, ``s4`` for the moment accumulator.
+    exactly on the block mean (the subset expansion of ``table``, a :class:`RecentreTable`
+    bundle), gives the block's mean and central sums (``out``, a :class:`CentralSums` bundle)
+    for the moment accumulator.
     """
+    r_target, r_src, r_comp = table
+    mean, s2, s3, s4 = out
     n, m = x.shape
     D = R.shape[1]
     h = min(head_len, n)
@@ -320,7 +414,7 @@ def _gram(rows, out):
 
 
 @numba.njit(cache=True, nogil=True)
-def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending):
+def blocking_push(y, levels):
     """Push block-mean vectors ``y`` (n, D), one row per block, into the dyadic blocking levels.
 
     Level ``k`` keeps, for the vector series of its block means: ``count[k]``, the sum
@@ -333,8 +427,10 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
     for neighbours a, b, sym(a b^T) = ((a + b)(a + b)^T - a a^T - b b^T) / 2, and a + b is
     twice a next-level row for every other neighbour pair, whose outer products are the next
     level's ``Q`` increment anyway. Only the other half of the pairs needs a Gram matrix: three
-    row-products per level-0 row in all levels together instead of four.
+    row-products per level-0 row in all levels together instead of four. ``levels`` is a
+    :class:`BlockingLevels`, updated in place.
     """
+    count, S, Q, P, first, last, has_last, pending, has_pending = levels
     D = y.shape[1]
     nlev = count.shape[0]
     cur = y
@@ -418,14 +514,16 @@ def blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending
 
 
 @numba.njit(cache=True, nogil=True)
-def segment_push(means, seg_sums, seg_cur, full, length, fill):
+def segment_push(means, segments, full, length, fill):
     """Add base-block component means ``means`` (nb, m) to the segment store.
 
-    ``seg_sums`` (S, m) holds ``full`` complete segments of ``length`` base blocks each;
-    ``seg_cur`` the sums of the segment being filled (``fill`` base blocks so far). When all
+    ``segments`` (a :class:`Segments` bundle): ``sums`` (S, m) holds ``full`` complete
+    segments of ``length`` base blocks each, ``cur`` the sums of the segment being filled
+    (``fill`` base blocks so far). When all
     S slots are full, neighbours are paired and the length doubles; the partial segment keeps
     filling against the doubled length. Returns the new ``(full, length, fill)``.
     """
+    seg_sums, seg_cur = segments
     nb, m = means.shape
     S = seg_sums.shape[0]
     acc = np.empty(m)
@@ -462,37 +560,14 @@ def segment_push(means, seg_sums, seg_cur, full, length, fill):
 
 @numba.njit(cache=True, nogil=True)
 def ingest_block(
-    x,
-    ref,
-    base,
-    carry_n,
-    carry_sums,
-    r_target,
-    r_src,
-    r_comp,
-    mean,
-    s2,
-    s3,
-    s4,
-    count,
-    S,
-    Q,
-    P,
-    first,
-    last,
-    has_last,
-    pending,
-    has_pending,
-    seg_sums,
-    seg_cur,
-    seg_full,
-    seg_len,
-    seg_fill,
+    x, ref, base, carry_n, carry_sums, table, out, levels, segments, seg_full, seg_len, seg_fill
 ):
     """One block into a blocking state, in one call: :func:`block_sums`, the base block left
     unfinished by earlier blocks (``carry_n`` rows, sums ``carry_sums``, updated in place),
     :func:`blocking_push` and :func:`segment_push` (the Python glue between them cost about a
-    tenth of the block's time). Returns ``(carry_n, seg_full, seg_len, seg_fill)``.
+    tenth of the block's time). Bundles: ``table`` a :class:`RecentreTable`, ``out`` a
+    :class:`CentralSums` (filled), ``levels`` a :class:`BlockingLevels` and ``segments`` a
+    :class:`Segments` (updated). Returns ``(carry_n, seg_full, seg_len, seg_fill)``.
     """
     n, m = x.shape
     D = carry_sums.shape[0]
@@ -501,7 +576,7 @@ def ingest_block(
     nb = (n - h) // base
     rest = n - h - nb * base
     R = np.empty((nb + 2, D))
-    block_sums(x, ref, base, head_len, r_target, r_src, r_comp, mean, s2, s3, s4, R)
+    block_sums(x, ref, base, head_len, table, out, R)
     completes = False
     if h:
         for q in range(D):
@@ -525,8 +600,361 @@ def ingest_block(
         for q in range(D):
             carry_sums[q] = R[nb + 1, q]
     if rows:
-        blocking_push(y, count, S, Q, P, first, last, has_last, pending, has_pending)
-        seg_full, seg_len, seg_fill = segment_push(
-            y[:, :m], seg_sums, seg_cur, seg_full, seg_len, seg_fill
-        )
+        blocking_push(y, levels)
+        seg_full, seg_len, seg_fill = segment_push(y[:, :m], segments, seg_full, seg_len, seg_fill)
     return carry_n, seg_full, seg_len, seg_fill
+
+
+@numba.njit(cache=True, nogil=True)
+def shift_comoments(n, sums, shift, table, out, accumulate=False):
+    """Sums of products of ``(x - c) + shift`` of order 2, 3, 4 from the central sums ``sums``
+    (the triple s2, s3, s4) of ``n`` samples about ``c``, by the subset expansion of
+    ``table`` (a :class:`ShiftTable`); written into (or, with ``accumulate``, added to) the
+    triple ``out``."""
+    s2, s3, s4 = sums
+    o2, o3, o4 = out
+    t_order, t_target, t_src_order, t_src, t_comp = table
+    if not accumulate:
+        for q in range(o2.shape[0]):
+            o2[q] = 0.0
+        for q in range(o3.shape[0]):
+            o3[q] = 0.0
+        for q in range(o4.shape[0]):
+            o4[q] = 0.0
+    for r in range(t_order.shape[0]):
+        so = t_src_order[r]
+        if so == 0:
+            v = n
+        elif so == 2:
+            v = s2[t_src[r]]
+        elif so == 3:
+            v = s3[t_src[r]]
+        else:
+            v = s4[t_src[r]]
+        for j in range(4):
+            c = t_comp[r, j]
+            if c >= 0:
+                v *= shift[c]
+        p = t_order[r]
+        if p == 2:
+            o2[t_target[r]] += v
+        elif p == 3:
+            o3[t_target[r]] += v
+        else:
+            o4[t_target[r]] += v
+
+
+@numba.njit(cache=True, nogil=True)
+def merge_comoments(na, mean_a, a, nb, mean_b, b, table, mean, out):
+    """Pairwise merge of central sums (Pebay 2008): the triples ``a`` (of ``na`` samples about
+    ``mean_a``) and ``b`` re-centred on the combined mean (written to ``mean``) and added into
+    the triple ``out``."""
+    n = na + nb
+    m = mean_a.shape[0]
+    sa = np.empty(m)
+    sb = np.empty(m)
+    for i in range(m):
+        delta = mean_b[i] - mean_a[i]
+        sa[i] = -delta * (nb / n)
+        sb[i] = delta * (na / n)
+        mean[i] = mean_a[i] + delta * (nb / n)
+    shift_comoments(na, a, sa, table, out)
+    shift_comoments(nb, b, sb, table, out, True)
+
+
+@numba.njit(cache=True, nogil=True)
+def central_terms_and_jacobian(raw, m, mono, comp, owner, terms, J):
+    """Terms of the central co-moments (T,) and their Jacobian ``J`` (C, D) from monomial means.
+
+    ``raw`` (D,) are the monomial means of ``x - ref``; ``delta = raw[:m]``. Term ``t`` of the
+    expansion table (see :class:`StatisticTable`) is ``raw[mono[t]] * prod(-delta[comp[t]])``
+    and belongs to co-moment ``owner[t]``; index D of ``raw`` and index m of ``-delta`` stand
+    for 1. The Jacobian collects d/d raw[mono] (the product) and d/d delta_i (-1 times the
+    product of the other factors), in that order.
+    """
+    D = raw.shape[0]
+    T = mono.shape[0]
+    J[:, :] = 0.0
+    f = np.empty(4)
+    for t in range(T):
+        for p in range(4):
+            c = comp[t, p]
+            f[p] = -raw[c] if c < m else 1.0
+        coef = f[0] * f[1] * f[2] * f[3]
+        mo = mono[t]
+        if mo < D:
+            terms[t] = raw[mo] * coef
+            J[owner[t], mo] += coef
+        else:
+            terms[t] = coef
+    for p in range(4):
+        for t in range(T):
+            c = comp[t, p]
+            if c >= m:
+                continue
+            others = 1.0
+            first = True
+            for q in range(4):
+                if q == p:
+                    continue
+                cq = comp[t, q]
+                fq = -raw[cq] if cq < m else 1.0
+                if first:
+                    others = fq
+                    first = False
+                else:
+                    others = others * fq
+            mo = mono[t]
+            r = raw[mo] if mo < D else 1.0
+            J[owner[t], c] += -r * others
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def chain_rule(raw, ref, cen, J, order, values, grad):
+    """Every statistic (values (S,), gradient (S, D)) from the central co-moments ``cen`` and
+    their Jacobian ``J``, in report order: means, stresses, k, third and fourth moments,
+    skewness, flatness; ``order`` (a :class:`ReportOrder` bundle) says where each is in ``cen``.
+    Same expressions as :meth:`StatisticTable.evaluate`.
+    """
+    kfac, stress, third, fourth, c2, c3, c4 = order
+    m = c2.shape[0]
+    D = J.shape[1]
+    grad[:, :] = 0.0
+    r = 0
+    for i in range(m):  # means: ref + first-order monomial mean
+        values[r] = ref[i] + raw[i]
+        grad[r, i] = 1.0
+        r += 1
+    for q in stress:
+        values[r] = cen[q]
+        grad[r, :] = J[q, :]
+        r += 1
+    k = 0.0
+    for i in range(m):
+        k += cen[c2[i]]
+    values[r] = kfac * k
+    for d in range(D):
+        acc = J[c2[0], d]
+        for i in range(1, m):
+            acc += J[c2[i], d]
+        grad[r, d] = kfac * acc
+    r += 1
+    for pos in (third, fourth):
+        for q in pos:
+            values[r] = cen[q]
+            grad[r, :] = J[q, :]
+            r += 1
+    # skewness uuu / uu^1.5, then flatness uuuu / uu^2: s_k / s2^p and its gradient
+    for ck, p in ((c3, 1.5), (c4, 2.0)):
+        for i in range(m):
+            s2, sk = cen[c2[i]], cen[ck[i]]
+            a, b = s2**p, p * sk / s2 ** (p + 1.0)
+            values[r] = sk / a
+            for d in range(D):
+                grad[r, d] = J[ck[i], d] / a - b * J[c2[i], d]
+            r += 1
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def influence_autocovariances(grad, n, S, Q, P, first, last, mu, c0, gamma):
+    """Lag-0 and lag-1 autocovariances of every statistic's influence series, per level.
+
+    The influence series of statistic ``s`` is ``grad[s] @ y`` over the monomial block means
+    ``y``; a blocking level ``k`` keeps ``n[k]`` of them as sums: ``S`` (L, D), outer-product
+    sums ``Q`` and symmetrised lag-one sums ``P`` (L, D, D), ``first``/``last`` (L, D). With
+    ``g = grad[s]``, ``zq = g Q_k g``, ``zp = g P_k g``, ``zs``, ``zf``, ``zl`` the projections
+    of ``S``, ``first``, ``last``, and ``zmu = g @ mu`` the global mean (all base blocks):
+
+        c0[s, k]    = (zq - 2 zmu zs + n zmu^2) / n
+        gamma[s, k] = (zp - zmu (2 zs - zf - zl) + (n - 1) zmu^2) / n
+
+    i.e. about the *global* mean, not each level's own (REFERENCES §2 pitfall). A gradient
+    touches only the monomials of its statistic's components and order, so only its nonzero
+    entries enter the products (exact zeros add nothing; a NaN entry is kept).
+    """
+    n_stat, D = grad.shape
+    L = Q.shape[0]
+    idx = np.empty(D, dtype=np.int64)
+    g = np.empty(D)
+    for s in range(n_stat):
+        nz = 0
+        for a in range(D):
+            if grad[s, a] != 0.0:
+                idx[nz] = a
+                g[nz] = grad[s, a]
+                nz += 1
+        zmu = 0.0
+        for i in range(nz):
+            zmu += g[i] * mu[idx[i]]
+        for k in range(L):
+            zq = 0.0
+            zp = 0.0
+            zs = 0.0
+            zf = 0.0
+            zl = 0.0
+            for i in range(nz):
+                a = idx[i]
+                ga = g[i]
+                rq = 0.0
+                rp = 0.0
+                for j in range(nz):
+                    b = idx[j]
+                    rq += Q[k, a, b] * g[j]
+                    rp += P[k, a, b] * g[j]
+                zq += ga * rq
+                zp += ga * rp
+                zs += ga * S[k, a]
+                zf += ga * first[k, a]
+                zl += ga * last[k, a]
+            nk = n[k]
+            c0[s, k] = (zq - 2.0 * zmu * zs + nk * zmu**2) / nk
+            gamma[s, k] = (zp - zmu * (2.0 * zs - zf - zl) + (nk - 1.0) * zmu**2) / nk
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def jonsson_lugsail(
+    c0, gamma, n, q, fq, min_level, base, var, level, blocks, block_samples, rel, top, slow
+):
+    """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level),
+    and the rise test of the levels above j (``top``: the largest significant V_k, else NaN;
+    ``slow``: the highest level k with a significant rise, else -1).
+
+    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2); ``fq[j, k]`` is
+    the critical ratio V_k / V_j of the rise test; ``min_level`` (S,) the lowest level each row
+    may use (blocks long enough against the integral time; above K - 1: unknown).
+    """
+    S = c0.shape[0]
+    K = q.shape[0]
+    r2 = np.empty(K)
+    for s in range(S):
+        top[s] = np.nan
+        slow[s] = -1
+        for jj in range(K):
+            r = n[jj] * (gamma[s, jj] / c0[s, jj]) ** 2
+            r2[jj] = r if np.isfinite(r) else np.inf
+        # M_j = sum_{k >= j} r2_k, summed from the top level down
+        first_ok = -1
+        acc = 0.0
+        for jj in range(K - 1, -1, -1):
+            acc += r2[jj]
+            if acc < q[jj]:
+                first_ok = jj
+        j = min(max(first_ok, 1), K - 1)  # never level 0 alone
+        if min_level[s] > j:
+            j = min_level[s]
+        nj, nm = (n[j], n[j - 1]) if j < K else (0.0, 0.0)
+        if first_ok < 0 or not (nj >= 2 and nm >= 2):
+            var[s], level[s], blocks[s], block_samples[s], rel[s] = np.nan, -1, 0, 0, np.nan
+            continue
+        vj = c0[s, j] / (nj - 1)
+        vm = c0[s, j - 1] / (nm - 1)
+        # lugsail 2 V_j - V_{j-1}; never below V_j; rounding can leave c0 a hair below zero
+        # (NaN propagates, as np.maximum does)
+        v = 2.0 * vj - vm
+        if vj > v or np.isnan(vj):
+            v = vj
+        if v < 0.0:
+            v = 0.0
+        var[s] = v
+        level[s] = j
+        blocks[s] = np.int64(nj)
+        block_samples[s] = base * 2**j
+        # relative SE of the lugsail variance: 4*2/n + 2/(2n) - 4*0.707*sqrt(2/n)*sqrt(1/n)
+        # = 5/n for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
+        # the standard error's relative error is half of its square root.
+        rel[s] = 0.5 * np.sqrt(5.0 / max(nj - 1, 1.0))
+        # slow content: a level above j whose variance is significantly above the plateau
+        for kk in range(j + 1, K):
+            vk = c0[s, kk] / (n[kk] - 1)
+            if v > 0.0 and vk > fq[j, kk] * v:
+                slow[s] = kk
+                if not (vk <= top[s]):
+                    top[s] = vk
+
+
+@numba.njit(cache=True, nogil=True, error_model="numpy")
+def integral_scales(duration_s, var, rel, m, values, se):
+    """Append Tint, Neff and L of each component to ``values`` and fill ``se`` (S,).
+
+    ``values`` holds the moment statistics followed by 3 m free places; ``var`` and ``rel``
+    are the variances and relative standard errors of the moment statistics. From the error
+    of the mean: Var(mean) = 2 sigma^2 Tint / T, N_eff = sigma^2 / Var(mean) (REFERENCES §1);
+    the integral length by Taylor's hypothesis, convected at the local mean speed |U|. The
+    relative error of a variance estimate is twice that of its square root; the mean speed's
+    own relative error adds in quadrature for the length.
+    """
+    k = var.shape[0]
+    for i in range(k):
+        se[i] = np.sqrt(var[i])
+    speed2 = 0.0
+    spread2 = 0.0
+    for i in range(m):
+        speed2 += values[i] ** 2
+        spread2 += (values[i] * se[i]) ** 2
+    speed = np.sqrt(speed2)
+    rel_speed = np.sqrt(spread2) / speed**2
+    for i in range(m):
+        sig2 = values[m + i]
+        tint = duration_s * var[i] / (2.0 * sig2)
+        neff = sig2 / var[i]
+        length = speed * tint
+        rel_t = 2 * rel[i]
+        values[k + i] = tint
+        values[k + m + i] = neff
+        values[k + 2 * m + i] = length
+        se[k + i] = rel_t * tint
+        se[k + m + i] = rel_t * neff
+        se[k + 2 * m + i] = np.sqrt(rel_t**2 + rel_speed**2) * length
+
+
+@numba.njit(cache=True, nogil=True)
+def inversions(x, out):
+    """``out[c] = #{i < j : x[i, c] > x[j, c]}`` for every column ``c`` of ``x`` (n, k)."""
+    n, k = x.shape
+    for c in range(k):
+        a = 0
+        for i in range(n - 1):
+            xi = x[i, c]
+            for j in range(i + 1, n):
+                if xi > x[j, c]:
+                    a += 1
+        out[c] = a
+
+
+@numba.njit(cache=True, nogil=True)
+def trend_and_halves(x, t, slope, first, second):
+    """Per column ``c`` of ``x`` (n, k): the regression ``t`` and ``slope`` of the values against
+    their centred index (NaN when n < 3 or the fit is perfect), and the means ``first`` and
+    ``second`` of the first and last ``n // 2`` values (NaN when n < 2)."""
+    n, k = x.shape
+    h = n // 2
+    sxx = 0.0
+    for r in range(n):
+        i = r - 0.5 * (n - 1)
+        sxx += i * i
+    for c in range(k):
+        s = 0.0
+        for r in range(n):
+            s += x[r, c]
+        mean = s / n if n > 0 else np.nan
+        sxy = 0.0
+        for r in range(n):
+            sxy += (r - 0.5 * (n - 1)) * (x[r, c] - mean)
+        b = sxy / sxx if n >= 3 else np.nan
+        ss = 0.0
+        for r in range(n):
+            e = (x[r, c] - mean) - b * (r - 0.5 * (n - 1))
+            ss += e * e
+        slope[c] = b
+        t[c] = np.nan
+        if n >= 3:
+            s2 = ss / (n - 2)
+            if s2 > 0.0:
+                t[c] = b / math.sqrt(s2 / sxx)
+        f = 0.0
+        g = 0.0
+        for r in range(h):
+            f += x[r, c]
+            g += x[n - h + r, c]
+        first[c] = f / h if h > 0 else np.nan
+        second[c] = g / h if h > 0 else np.nan

@@ -13,8 +13,9 @@ from dataclasses import dataclass
 from functools import lru_cache
 from itertools import combinations, combinations_with_replacement
 
-import numba
 import numpy as np
+
+from eddyvigil.stats.kernels import RecentreTable, ShiftTable, merge_comoments, shift_comoments
 
 __all__ = ["Layout", "layout", "merge_sums", "shift_sums"]
 
@@ -25,17 +26,13 @@ class Layout:
     combos: tuple[tuple[tuple[int, ...], ...], ...]  # combos[p] for p = 0..4 (0: (), 1: (i,))
     index: dict  # combo tuple -> index within its order
     mono_offset: tuple[int, ...]  # start of each degree (1..4) in the monomial vector
-    # shift tables: one row per (target combo, subset of its positions with size != 1)
-    t_order: np.ndarray  # order p of the target
-    t_target: np.ndarray  # index of the target combo within order p
-    t_src_order: np.ndarray  # size s of the subset (0 or 2..p)
-    t_src: np.ndarray  # index of the subset combo within order s
-    t_comp: np.ndarray  # (T, 4) components of the complement, -1 padded
-    # raw shift table over monomials (first-order sums need not vanish): one row per
-    # (target monomial, subset of its positions); source monomial index or -1 (the count)
-    r_target: np.ndarray
-    r_src: np.ndarray
-    r_comp: np.ndarray  # (R, 4), -1 padded
+    #: central sums to another centre: one row per (target combo, subset of its positions
+    #: with size != 1); a ShiftTable's fields as a plain tuple (the kernels' bundle form)
+    shift: tuple
+    #: monomial sums to another centre (first-order sums need not vanish): one row per
+    #: (target monomial, subset of its positions); source monomial index or -1 (the count);
+    #: a RecentreTable's fields as a plain tuple
+    recentre: tuple
 
     @property
     def n_monomials(self) -> int:
@@ -81,98 +78,22 @@ def layout(m: int) -> Layout:
         combos=combos,
         index=index,
         mono_offset=tuple(offs),
-        t_order=np.array([r[0] for r in rows], dtype=np.int64),
-        t_target=np.array([r[1] for r in rows], dtype=np.int64),
-        t_src_order=np.array([r[2] for r in rows], dtype=np.int64),
-        t_src=np.array([r[3] for r in rows], dtype=np.int64),
-        t_comp=np.array([r[4] for r in rows], dtype=np.int64),
-        r_target=np.array([r[0] for r in r_rows], dtype=np.int64),
-        r_src=np.array([r[1] for r in r_rows], dtype=np.int64),
-        r_comp=np.array([r[2] for r in r_rows], dtype=np.int64),
-    )
-
-
-@numba.njit(cache=True)
-def _shift_kernel(
-    n,
-    s2,
-    s3,
-    s4,
-    shift,
-    t_order,
-    t_target,
-    t_src_order,
-    t_src,
-    t_comp,
-    o2,
-    o3,
-    o4,
-    accumulate=False,
-):
-    if not accumulate:
-        for q in range(o2.shape[0]):
-            o2[q] = 0.0
-        for q in range(o3.shape[0]):
-            o3[q] = 0.0
-        for q in range(o4.shape[0]):
-            o4[q] = 0.0
-    for r in range(t_order.shape[0]):
-        so = t_src_order[r]
-        if so == 0:
-            v = n
-        elif so == 2:
-            v = s2[t_src[r]]
-        elif so == 3:
-            v = s3[t_src[r]]
-        else:
-            v = s4[t_src[r]]
-        for j in range(4):
-            c = t_comp[r, j]
-            if c >= 0:
-                v *= shift[c]
-        p = t_order[r]
-        if p == 2:
-            o2[t_target[r]] += v
-        elif p == 3:
-            o3[t_target[r]] += v
-        else:
-            o4[t_target[r]] += v
-
-
-@numba.njit(cache=True)
-def _merge_kernel(
-    na,
-    mean_a,
-    a2,
-    a3,
-    a4,
-    nb,
-    mean_b,
-    b2,
-    b3,
-    b4,
-    t_order,
-    t_target,
-    t_src_order,
-    t_src,
-    t_comp,
-    mean,
-    o2,
-    o3,
-    o4,
-):
-    n = na + nb
-    m = mean_a.shape[0]
-    sa = np.empty(m)
-    sb = np.empty(m)
-    for i in range(m):
-        delta = mean_b[i] - mean_a[i]
-        sa[i] = -delta * (nb / n)
-        sb[i] = delta * (na / n)
-        mean[i] = mean_a[i] + delta * (nb / n)
-    _shift_kernel(na, a2, a3, a4, sa, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4)
-    _shift_kernel(
-        nb, b2, b3, b4, sb, t_order, t_target, t_src_order, t_src, t_comp, o2, o3, o4, True
+        shift=tuple(
+            ShiftTable(
+                order=np.array([r[0] for r in rows], dtype=np.int64),
+                target=np.array([r[1] for r in rows], dtype=np.int64),
+                src_order=np.array([r[2] for r in rows], dtype=np.int64),
+                src=np.array([r[3] for r in rows], dtype=np.int64),
+                comp=np.array([r[4] for r in rows], dtype=np.int64),
+            )
+        ),
+        recentre=tuple(
+            RecentreTable(
+                target=np.array([r[0] for r in r_rows], dtype=np.int64),
+                src=np.array([r[1] for r in r_rows], dtype=np.int64),
+                comp=np.array([r[2] for r in r_rows], dtype=np.int64),
+            )
+        ),
     )
 
 
@@ -180,28 +101,11 @@ def merge_sums(lay: Layout, na, mean_a, a2, a3, a4, nb, mean_b, b2, b3, b4):
     """Pairwise merge of two sets of central sums (Pébay 2008): both re-centred on the
     combined mean, then added. Returns (mean, s2, s3, s4) as new arrays."""
     mean = np.empty_like(mean_a)
-    o2, o3, o4 = np.empty_like(a2), np.empty_like(a3), np.empty_like(a4)
-    _merge_kernel(
-        float(na),
-        mean_a,
-        a2,
-        a3,
-        a4,
-        float(nb),
-        mean_b,
-        b2,
-        b3,
-        b4,
-        lay.t_order,
-        lay.t_target,
-        lay.t_src_order,
-        lay.t_src,
-        lay.t_comp,
-        mean,
-        o2,
-        o3,
-        o4,
+    out = (np.empty_like(a2), np.empty_like(a3), np.empty_like(a4))
+    merge_comoments(
+        float(na), mean_a, (a2, a3, a4), float(nb), mean_b, (b2, b3, b4), lay.shift, mean, out
     )
+    o2, o3, o4 = out
     return mean, o2, o3, o4
 
 
@@ -211,22 +115,7 @@ def shift_sums(lay: Layout, n: float, s2, s3, s4, shift):
     Central sums (first-order sums zero) of ``n`` samples about their mean ``c`` become sums
     about ``c - shift``. Returns new arrays (inputs untouched).
     """
-    o2 = np.empty_like(s2)
-    o3 = np.empty_like(s3)
-    o4 = np.empty_like(s4)
-    _shift_kernel(
-        float(n),
-        s2,
-        s3,
-        s4,
-        np.asarray(shift, dtype=np.float64),
-        lay.t_order,
-        lay.t_target,
-        lay.t_src_order,
-        lay.t_src,
-        lay.t_comp,
-        o2,
-        o3,
-        o4,
-    )
+    out = (np.empty_like(s2), np.empty_like(s3), np.empty_like(s4))
+    shift_comoments(float(n), (s2, s3, s4), np.asarray(shift, dtype=np.float64), lay.shift, out)
+    o2, o3, o4 = out
     return o2, o3, o4

@@ -11,7 +11,6 @@ import math
 from dataclasses import dataclass
 from functools import lru_cache
 
-import numba
 import numpy as np
 from scipy import special
 
@@ -27,6 +26,7 @@ from eddyvigil.stats.convergence import (
     trustworthy,
 )
 from eddyvigil.stats.delta import StatisticTable
+from eddyvigil.stats.kernels import integral_scales
 from eddyvigil.stats.moments import MomentAccumulator
 from eddyvigil.stats.names import components_of, family, statistic_names
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
@@ -91,41 +91,6 @@ def _t_quantiles(p: float, blocks: np.ndarray) -> np.ndarray:
     the whole array of them was a fifth of a checkpoint evaluation.
     """
     return np.array([_t_quantile(p, b) for b in blocks.tolist()], dtype=np.float64)
-
-
-@numba.njit(cache=True, error_model="numpy")
-def _integral_scales(duration_s, var, rel, m, values, se):
-    """Append Tint, Neff and L of each component to ``values`` and fill ``se`` (S,).
-
-    ``values`` holds the moment statistics followed by 3 m free places; ``var`` and ``rel``
-    are the variances and relative standard errors of the moment statistics. From the error
-    of the mean: Var(mean) = 2 sigma^2 Tint / T, N_eff = sigma^2 / Var(mean) (REFERENCES §1);
-    the integral length by Taylor's hypothesis, convected at the local mean speed |U|. The
-    relative error of a variance estimate is twice that of its square root; the mean speed's
-    own relative error adds in quadrature for the length.
-    """
-    k = var.shape[0]
-    for i in range(k):
-        se[i] = np.sqrt(var[i])
-    speed2 = 0.0
-    spread2 = 0.0
-    for i in range(m):
-        speed2 += values[i] ** 2
-        spread2 += (values[i] * se[i]) ** 2
-    speed = np.sqrt(speed2)
-    rel_speed = np.sqrt(spread2) / speed**2
-    for i in range(m):
-        sig2 = values[m + i]
-        tint = duration_s * var[i] / (2.0 * sig2)
-        neff = sig2 / var[i]
-        length = speed * tint
-        rel_t = 2 * rel[i]
-        values[k + i] = tint
-        values[k + m + i] = neff
-        values[k + 2 * m + i] = length
-        se[k + i] = rel_t * tint
-        se[k + m + i] = rel_t * neff
-        se[k + 2 * m + i] = np.sqrt(rel_t**2 + rel_speed**2) * length
 
 
 @dataclass(frozen=True)
@@ -397,7 +362,7 @@ class PointStatistics:
         # append integral time scales, effective sample counts and integral lengths
         values = np.concatenate([values, np.empty(3 * m)])
         se = np.empty(S)
-        _integral_scales(self.duration_s, choice.variance, choice.relative_error, m, values, se)
+        integral_scales(self.duration_s, choice.variance, choice.relative_error, m, values, se)
         # blocks at least MIN_BLOCK_TINTS integral times long (the lugsail estimate is 6 % low
         # in variance at 4 T_int for an exponential correlation, 23 % low at 2 T_int): raise
         # the level where Jonsson's choice is shorter, and evaluate again (at most twice)
@@ -406,7 +371,7 @@ class PointStatistics:
             if min_level is None:
                 break
             choice = self.blocking.analyse(grad, min_level)
-            _integral_scales(
+            integral_scales(
                 self.duration_s, choice.variance, choice.relative_error, m, values, se
             )
         blocks = choice.blocks[self._source]

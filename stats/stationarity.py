@@ -58,8 +58,9 @@ from functools import lru_cache
 from itertools import accumulate
 from types import MappingProxyType
 
-import numba
 import numpy as np
+
+from eddyvigil.stats.kernels import inversions, trend_and_halves
 
 __all__ = [
     "reverse_arrangements",
@@ -97,22 +98,8 @@ def reverse_arrangements(x: np.ndarray) -> int:
     if a.size < 2:
         return 0
     out = np.empty(1, dtype=np.int64)
-    _inversions(np.ascontiguousarray(a.reshape(-1, 1)), out)
+    inversions(np.ascontiguousarray(a.reshape(-1, 1)), out)
     return int(out[0])
-
-
-@numba.njit(cache=True)
-def _inversions(x, out):
-    """``out[c] = #{i < j : x[i, c] > x[j, c]}`` for every column ``c`` of ``x`` (n, k)."""
-    n, k = x.shape
-    for c in range(k):
-        a = 0
-        for i in range(n - 1):
-            xi = x[i, c]
-            for j in range(i + 1, n):
-                if xi > x[j, c]:
-                    a += 1
-        out[c] = a
 
 
 @lru_cache(maxsize=256)
@@ -175,53 +162,14 @@ def reverse_arrangement_acceptance(n: int, alpha: float) -> tuple[int, int]:
     return lo, top - lo - 1 if lo >= 0 else top
 
 
-@numba.njit(cache=True)
-def _trend_and_halves(x, t, slope, first, second):
-    """Per column ``c`` of ``x`` (n, k): the regression ``t`` and ``slope`` of the values against
-    their centred index (NaN when n < 3 or the fit is perfect), and the means ``first`` and
-    ``second`` of the first and last ``n // 2`` values (NaN when n < 2)."""
-    n, k = x.shape
-    h = n // 2
-    sxx = 0.0
-    for r in range(n):
-        i = r - 0.5 * (n - 1)
-        sxx += i * i
-    for c in range(k):
-        s = 0.0
-        for r in range(n):
-            s += x[r, c]
-        mean = s / n if n > 0 else np.nan
-        sxy = 0.0
-        for r in range(n):
-            sxy += (r - 0.5 * (n - 1)) * (x[r, c] - mean)
-        b = sxy / sxx if n >= 3 else np.nan
-        ss = 0.0
-        for r in range(n):
-            e = (x[r, c] - mean) - b * (r - 0.5 * (n - 1))
-            ss += e * e
-        slope[c] = b
-        t[c] = np.nan
-        if n >= 3:
-            s2 = ss / (n - 2)
-            if s2 > 0.0:
-                t[c] = b / math.sqrt(s2 / sxx)
-        f = 0.0
-        g = 0.0
-        for r in range(h):
-            f += x[r, c]
-            g += x[n - h + r, c]
-        first[c] = f / h if h > 0 else np.nan
-        second[c] = g / h if h > 0 else np.nan
-
-
 def _column_tests(x: np.ndarray):
     """(t, slope, first-half mean, second-half mean, reverse arrangements) per column of x."""
     x = np.ascontiguousarray(x, dtype=np.float64)
     k = x.shape[1]
     t, slope, first, second = (np.empty(k) for _ in range(4))
-    _trend_and_halves(x, t, slope, first, second)
+    trend_and_halves(x, t, slope, first, second)
     inv = np.empty(k, dtype=np.int64)
-    _inversions(x, inv)
+    inversions(x, inv)
     return t, slope, first, second, inv
 
 

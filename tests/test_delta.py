@@ -4,7 +4,8 @@ import numpy as np
 import pytest
 
 from eddyvigil.stats.blocking import BlockingAccumulator
-from eddyvigil.stats.delta import StatisticTable, central_terms_and_jacobian, influence_autocovariances
+from eddyvigil.stats.delta import StatisticTable
+from eddyvigil.stats.kernels import central_terms_and_jacobian, influence_autocovariances
 from eddyvigil.stats.moments import MomentAccumulator
 from eddyvigil.stats.monomials import layout
 

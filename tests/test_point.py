@@ -11,7 +11,8 @@ from processes import ar1, turbulence
 from eddyvigil.stats import PointStatistics, Targets, statistic_names
 from eddyvigil.stats.blocking import _chi2_99, choose_level
 from eddyvigil.stats.convergence import STOP_MARGIN
-from eddyvigil.stats.point import _integral_scales, _t_quantiles
+from eddyvigil.stats.kernels import integral_scales
+from eddyvigil.stats.point import _t_quantiles
 from eddyvigil.stats.stationarity import assess, assess_columns, reverse_arrangements
 
 
@@ -372,7 +373,7 @@ def test_integral_scales_kernel_matches_numpy(m):
         T = 12.5
         out_v = np.concatenate([values, np.empty(3 * m)])
         out_se = np.empty(k + 3 * m)
-        _integral_scales(T, var, rel, m, out_v, out_se)
+        integral_scales(T, var, rel, m, out_v, out_se)
         with np.errstate(invalid="ignore", divide="ignore"):
             se = np.sqrt(var)
             sig2, var_mean = values[m : 2 * m], var[:m]
