@@ -19,11 +19,11 @@ import numpy as np
 
 from eddyvigil.stats.arrivals import ArrivalCheck
 from eddyvigil.stats.convergence import CHECKPOINT_GROWTH, MIN_RECORD_TINTS, STOP_MARGIN, STREAK
+from eddyvigil.stats.kernels import integral_scales
 from eddyvigil.stats.point import (
     INTERVAL_INFLATION,
     PointStatistics,
     _Evaluation,
-    _integral_scales,
     _t_quantiles,
 )
 from eddyvigil.stats.slotting import SlottedCorrelation
@@ -146,7 +146,7 @@ class WeightedPointStatistics(PointStatistics):
         rel = np.full(nm, choice.relative_error)
         values = np.concatenate([values, np.empty(3 * m)])
         se = np.empty(S)
-        _integral_scales(self.duration_s, choice.variance, rel, m, values, se)
+        integral_scales(self.duration_s, choice.variance, rel, m, values, se)
         # Tint from the slotted autocorrelation (no honest interval known: NaN), L from it
         tints = self.integral_times(values[:m])
         speed = float(np.sqrt(np.sum(values[:m] ** 2)))
