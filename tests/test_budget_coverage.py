@@ -58,11 +58,14 @@ def test_budget_intervals_cover_the_wake_truth(tmp_path):
     sc = load_scenario(str(path))
     truth = [point_truth(sc, pt) for pt in sc.points]
     hits = {"production": [], "turbulent_transport": [], "residual": []}
+    shown = {name: [] for name in hits}
     for seed in range(SEEDS):
         lines = [x for x in _summary(sc, seed) if x["kind"] == "point"]
-        # the summaries carry no eps yet: the known dissipation is given with no error, so
-        # the residual's interval is that of eps - P - T with a known eps
+        # the known dissipation is given with no error (the spectra's own eps row is dropped:
+        # at 2 kHz this flow has no inertial range), so the residual's interval is that of
+        # eps - P - T with a known eps
         for line, t in zip(lines, truth, strict=True):
+            line["statistics"] = [e for e in line["statistics"] if e["name"] != "eps"]
             line["statistics"].append({"name": "eps", "value": t["budget"]["dissipation"],
                                        "stderr": 0.0})
         b = budget_line("probe-a", lines)
@@ -70,9 +73,17 @@ def test_budget_intervals_cover_the_wake_truth(tmp_path):
             lo = np.array(b[name]["ci_low"], dtype=float)
             hi = np.array(b[name]["ci_high"], dtype=float)
             true = np.array([t["budget"][name] for t in truth])
-            h.extend(((lo <= true) & (true <= hi)).tolist())
+            ok = np.isfinite(lo) & np.isfinite(hi)
+            shown[name].extend(ok.tolist())
+            h.extend(((lo <= true) & (true <= hi))[ok].tolist())
     rates = {k: float(np.mean(v)) for k, v in hits.items()}
-    print("coverage", rates)
-    allhits = sum(hits.values(), [])
-    assert np.mean(allhits) >= 0.90, rates
-    assert min(rates.values()) >= 0.85, rates
+    shares = {k: float(np.mean(v)) for k, v in shown.items()}
+    print("coverage of the intervals shown", rates, "share shown", shares)
+    # an interval shown must hold the truth at the nominal rate
+    assert min(rates.values()) >= 0.90, rates
+    # Where a point's triple moments have no honest interval (the tail guard, stats/tails.py,
+    # withholds them on this skewed flow at 12 000 samples per point), the transport term and
+    # the residual get none either: measured 57 % of points shown (8 seeds, 17 points); the
+    # production term needs no triple moment and is always shown.
+    assert shares["production"] == 1.0, shares
+    assert min(shares.values()) >= 0.5, shares
