@@ -160,18 +160,26 @@ def test_live_run_control_signals_and_replay_give_identical_summaries(procs, tmp
         assert p["samples"] == len(x) and p["lost_messages"] == 0
         u_mean = next(s["value"] for s in p["statistics"] if s["name"] == "U")
         np.testing.assert_allclose(u_mean, x[:, 0].mean(), rtol=1e-12)
-        assert p["converged"] is True
-    # one converged signal per point, at the moment the summary says
-    assert sorted((t, s["point"]["id"]) for t, s in signals) == sorted(
-        (p["stream"], p["point"]["id"]) for p in points
-    )
+    # Loose targets on white noise: every point meets them early, but the stationarity guard's
+    # false flags (a few per cent of looks, README) can restart a point's streak late, so a
+    # point may end unconfirmed (seed 50 of probe-b P1 does: met at 1.43 s, reset at a later
+    # checkpoint). At least three of the four converge; every signal matches its summary line.
+    assert sum(p["converged"] for p in points) >= 3
+    by_point = {}
     for topic, s in signals:
-        assert s["kind"] == "converged" and s["stream"] == topic and s["v"] == 1
-        line = next(
-            p for p in points if (p["stream"], p["point"]["id"]) == (topic, s["point"]["id"])
-        )
-        assert s["at_s"] == line["converged_at_s"]
+        assert s["stream"] == topic and s["v"] == 1 and s["kind"] in ("converged", "withdrawn")
         assert missing_fields(s["summary"]) == []
+        by_point.setdefault((topic, s["point"]["id"]), []).append(s)
+    for p in points:
+        sent = by_point.get((p["stream"], p["point"]["id"]), [])
+        converged = [s for s in sent if s["kind"] == "converged"]
+        withdrawn = [s for s in sent if s["kind"] == "withdrawn"]
+        if p["converged"]:
+            assert converged, p["point"]
+        if converged:  # the moment of the last converged signal is the line's
+            assert converged[-1]["at_s"] == p["signalled_at_s"]
+        if withdrawn:
+            assert withdrawn[-1]["at_s"] == p["withdrawn_at_s"]
 
     replay = procs.eddyvigil(
         "replay",
