@@ -486,6 +486,29 @@ def generate(generator, n: int, block: int = 65536) -> np.ndarray:
 POPE_C, POPE_BETA, POPE_P0 = 1.5, 5.2, 2.0
 
 
+def _filtered_noise(gen, n: int) -> np.ndarray:
+    """The next ``n`` rows of white noise convolved with ``gen.kernels`` (one FIR filter per
+    component, overlap-save across chunks of ``gen._chunk`` rows); the rest is kept for the
+    next call, so the series does not depend on the block sizes asked for."""
+    parts, have = [gen._ready], gen._ready.shape[0]
+    while have < n:
+        noise = gen._rng.standard_normal((gen._chunk, gen.m))
+        buf = np.concatenate([gen._history, noise])
+        gen._history = buf[-(gen.taps - 1) :].copy()
+        c = np.stack(
+            [
+                sps.fftconvolve(buf[:, i], gen.kernels[:, i], mode="valid")
+                for i in range(gen.m)
+            ],
+            axis=1,
+        )
+        parts.append(c)
+        have += c.shape[0]
+    pool = np.concatenate(parts) if len(parts) > 1 else gen._ready
+    gen._ready = pool[n:]
+    return pool[:n]
+
+
 class PopeSpectrum:
     """Pope's model energy spectrum for given ``k``, ``eps``, ``nu`` and its 1-D spectra.
 
@@ -638,23 +661,7 @@ class PopeGenerator(TurbulenceGenerator):
         }
 
     def _fill(self, n, out):
-        parts, have = [self._ready], self._ready.shape[0]
-        while have < n:
-            noise = self._rng.standard_normal((self._chunk, self.m))
-            buf = np.concatenate([self._history, noise])
-            self._history = buf[-(self.taps - 1) :].copy()
-            c = np.stack(
-                [
-                    sps.fftconvolve(buf[:, i], self.kernels[:, i], mode="valid")
-                    for i in range(self.m)
-                ],
-                axis=1,
-            )
-            parts.append(c)
-            have += c.shape[0]
-        pool = np.concatenate(parts) if len(parts) > 1 else self._ready
-        out[:] = pool[:n] * self.spectrum.u_rms + self.mean
-        self._ready = pool[n:]
+        out[:] = _filtered_noise(self, n) * self.spectrum.u_rms + self.mean
 
     def unit_acf(self, lags: int) -> np.ndarray:
         h = self.kernels[:, 0]
@@ -734,25 +741,10 @@ class PopeShapeGenerator(TurbulenceGenerator):
         return s
 
     def _fill(self, n, out):
-        parts, have = [self._ready], self._ready.shape[0]
-        while have < n:
-            noise = self._rng.standard_normal((self._chunk, self.m))
-            buf = np.concatenate([self._history, noise])
-            self._history = buf[-(self.taps - 1) :].copy()
-            c = np.stack(
-                [
-                    sps.fftconvolve(buf[:, i], self.kernels[:, i], mode="valid")
-                    for i in range(self.m)
-                ],
-                axis=1,
-            )
-            parts.append(c)
-            have += c.shape[0]
-        pool = np.concatenate(parts) if len(parts) > 1 else self._ready
+        rows = _filtered_noise(self, n)
         skew_mix(
-            np.ascontiguousarray(pool[:n]), self.skew_a, self._skew_norm, self.chol, self.mean, out
+            np.ascontiguousarray(rows), self.skew_a, self._skew_norm, self.chol, self.mean, out
         )
-        self._ready = pool[n:]
 
     def _kernel_acf(self, i: int, lags: int) -> np.ndarray:
         spec = np.abs(np.fft.rfft(self.kernels[:, i], 2 * self.taps)) ** 2
