@@ -272,16 +272,25 @@ def _none(v):
     return float(v) if isinstance(v, int | float) and math.isfinite(v) else None
 
 
-def run(args) -> int:
+def read_point_lines(command: str, path):
+    """``(lines, points per stream)`` of a summary file for ``command`` (budget, plan,
+    report), or ``(None, exit code)`` once it has said why the file cannot be used."""
     try:
-        lines = read_summary(args.summary)
+        lines = read_summary(path)
     except OSError as e:
-        return fail("budget", ExitCode.INPUT_FILE, f"cannot read {args.summary}: {e.strerror}")
+        return None, fail(command, ExitCode.INPUT_FILE, f"cannot read {path}: {e.strerror}")
     except ValueError as e:
-        return fail("budget", ExitCode.INPUT_FILE, f"{args.summary}: {e}")
+        return None, fail(command, ExitCode.INPUT_FILE, f"{path}: {e}")
     counts = Counter(ln.get("stream") for ln in lines if ln.get("kind") == "point")
     if not counts:
-        return fail("budget", ExitCode.INPUT_FILE, f"{args.summary} holds no point lines")
+        return None, fail(command, ExitCode.INPUT_FILE, f"{path} holds no point lines")
+    return lines, counts
+
+
+def run(args) -> int:
+    lines, counts = read_point_lines("budget", args.summary)
+    if lines is None:
+        return counts
     stream = args.stream if args.stream is not None else counts.most_common(1)[0][0]
     if stream not in counts:
         return fail("budget", ExitCode.USAGE, f"no stream {stream!r} in {args.summary} "

@@ -200,21 +200,13 @@ def _read_points(path, axis):
 
 
 def run(args) -> int:
-    from collections import Counter
-
-    from eddyvigil.monitor.budget_cmd import read_summary
+    from eddyvigil.monitor.budget_cmd import read_point_lines
 
     if not (math.isfinite(args.hours) and args.hours > 0):
         return fail("plan", ExitCode.USAGE, "--hours must be a positive number")
-    try:
-        lines = read_summary(args.summary)
-    except OSError as e:
-        return fail("plan", ExitCode.INPUT_FILE, f"cannot read {args.summary}: {e.strerror}")
-    except ValueError as e:
-        return fail("plan", ExitCode.INPUT_FILE, f"{args.summary}: {e}")
-    counts = Counter(ln.get("stream") for ln in lines if ln.get("kind") == "point")
-    if not counts:
-        return fail("plan", ExitCode.INPUT_FILE, f"{args.summary} holds no point lines")
+    lines, counts = read_point_lines("plan", args.summary)
+    if lines is None:
+        return counts
     stream = args.stream if args.stream is not None else counts.most_common(1)[0][0]
     wanted = None
     if args.points:

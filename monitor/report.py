@@ -174,16 +174,11 @@ def report_html(lines, axis: str = "y", source: str = "") -> str:
 
 
 def run(args) -> int:
-    from eddyvigil.monitor.budget_cmd import read_summary
+    from eddyvigil.monitor.budget_cmd import read_point_lines
 
-    try:
-        lines = read_summary(args.summary)
-    except OSError as e:
-        return fail("report", ExitCode.INPUT_FILE, f"cannot read {args.summary}: {e.strerror}")
-    except ValueError as e:
-        return fail("report", ExitCode.INPUT_FILE, f"{args.summary}: {e}")
-    if not any(ln.get("kind") == "point" for ln in lines):
-        return fail("report", ExitCode.INPUT_FILE, f"{args.summary} holds no point lines")
+    lines, code = read_point_lines("report", args.summary)
+    if lines is None:
+        return code
     page = report_html(lines, args.axis, os.path.basename(args.summary))
     tmp = f"{args.output}.tmp"
     try:
