@@ -10,6 +10,10 @@ point: ``{"v": 1, "kind": "combined", "point": {...}, "parts": N, "sources": [..
 followed by the fields of a summary point line's statistics part (DESIGN §4). ``--save DIR``
 writes each merged point's state, which a later ``combine`` can extend.
 
+Points of randomly sampled (laser-Doppler) data merge too, as independent records
+(:meth:`eddyvigil.stats.weighted_point.WeightedPointStatistics.merge`; ``--sequential`` is
+refused for them), and their lines carry ``weighting`` and ``random_sampling`` (DESIGN §10).
+
 A summary line cannot be an input: it holds values and error bars, not the sums they came
 from, and error bars do not merge exactly.
 
@@ -224,6 +228,8 @@ def run(args: argparse.Namespace) -> int:
             "rate_hz": ps.rate_hz,
         }
         line.update(ps.snapshot().summary_fields())
+        if hasattr(ps, "random_sampling_fields"):  # laser-Doppler points (DESIGN §10)
+            line.update(ps.random_sampling_fields())
         line["statistics"] = line.pop("statistics")
         lines.append(dumps_line(line))
         if args.save:

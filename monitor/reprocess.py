@@ -174,6 +174,8 @@ def merge_repeats(results: list[dict]) -> list[dict]:
             "independent": True,
         })
         line.update(g["stats"].snapshot().summary_fields())
+        if hasattr(g["stats"], "random_sampling_fields"):  # laser-Doppler points
+            line.update(g["stats"].random_sampling_fields())
         line["statistics"] = line.pop("statistics")
         out.append(line)
     return out

@@ -37,6 +37,16 @@ class ArrivalCheck:
         new.shortest_s, new.last_t = self.shortest_s, self.last_t
         return new
 
+    def merge(self, other: ArrivalCheck) -> ArrivalCheck:
+        """Both records' gaps (independent records: no gap across them); a new object."""
+        new = self.copy()
+        new.counts = self.counts + other.counts
+        new.n_gaps = self.n_gaps + other.n_gaps
+        new.total_s = self.total_s + other.total_s
+        new.shortest_s = min(self.shortest_s, other.shortest_s)
+        new.last_t = None
+        return new
+
     def update(self, t: np.ndarray) -> None:
         t = np.asarray(t, dtype=np.float64)
         if t.shape[0] == 0:

@@ -307,6 +307,11 @@ class PointStatistics:
         new.blocking = self.blocking.merge(other.blocking, independent=independent)
         new.tails = self.tails.merge(other.tails)
         new._duration_s = self._duration_s + other._duration_s
+        self._carry_streaks(other, new)
+        return new
+
+    def _carry_streaks(self, other: PointStatistics, new: PointStatistics) -> None:
+        """The checkpoint rule of :meth:`merge` on the merged point ``new`` (in place)."""
         if new.checkpoints.due(new.n):
             names = self._plan.targeted
             streak = {
@@ -320,7 +325,6 @@ class PointStatistics:
             ev = new._evaluate(new._checkpoint_rows)
             new._checkpoint_ev = ev
             new.checkpoints.record(new.n, new._passes(ev), new.duration_s)
-        return new
 
     # ------------------------------------------------------------- evaluation
     def _evaluate(self, rows: np.ndarray | None = None) -> _Evaluation:

@@ -13,12 +13,20 @@ arrays ``moments.mean``, ``moments.s2``, ``moments.s3``, ``moments.s4`` and ``bl
 for every array of :class:`~eddyvigil.stats.blocking.BlockingAccumulator` (``ref`` absent while
 empty); scalars in ``meta["moments"]``, ``meta["blocking"]``, ``meta["checkpoints"]``.
 
+Version 2 adds points of randomly sampled (laser-Doppler) data,
+:class:`~eddyvigil.stats.weighted_point.WeightedPointStatistics`, marked by
+``meta["sampling"] == "random"`` (and ``weighting``): arrays ``wmom.*`` (weighted mean and
+co-moment sums), ``tblocks.ref/Wb/Sb`` (time blocks), ``slots.ref/groups/tail_t/tail_a/tail_w``
+(slotted pair sums per time group and the tail kept for pairs across blocks),
+``arrivals.counts`` (gap histogram); their scalars in ``meta`` under the same prefixes. A
+uniform point's state is the same as in version 1, which is still read.
+
 >>> import numpy as np
 >>> from eddyvigil.stats.point import PointStatistics
 >>> ps = PointStatistics(("u", "v"), rate_hz=100.0).update(np.ones((5, 2)))
 >>> meta, arrays = to_state(ps)
 >>> meta["version"], meta["columns"], meta["moments"]["n"], arrays["moments.mean"].tolist()
-(1, ['u', 'v'], 5, [1.0, 1.0])
+(2, ['u', 'v'], 5, [1.0, 1.0])
 >>> from_state(meta, arrays) == ps
 True
 """
@@ -32,7 +40,9 @@ import numpy as np
 __all__ = ["FORMAT", "VERSION", "StateError", "to_state", "from_state", "same_state"]
 
 FORMAT = "eddyvigil-point-state"
-VERSION = 1
+VERSION = 2
+#: versions this module reads
+READS = (1, 2)
 
 _MOMENT_ARRAYS = ("mean", "s2", "s3", "s4")
 
@@ -51,8 +61,109 @@ def _scalar(v):
     return v
 
 
+def _checkpoints_meta(ps) -> dict:
+    checkpoints = {
+        f.name: _scalar(getattr(ps.checkpoints, f.name)) for f in dataclasses.fields(ps.checkpoints)
+    }
+    checkpoints["trusted"] = sorted(checkpoints["trusted"])  # a set: JSON has lists
+    return checkpoints
+
+
+def _checkpoints_from(meta):
+    from eddyvigil.stats.convergence import Checkpoints
+
+    cp = dict(meta["checkpoints"])
+    cp["trusted"] = set(cp.get("trusted", ()))
+    return Checkpoints(**cp)
+
+
+# the scalars of each part of a random-sampling point kept in meta (the rest are arrays)
+_RANDOM_SCALARS = {
+    "wmom": ("n", "weight"),
+    "tblocks": ("capacity", "samples_per_block", "t_start", "tau", "used", "merged"),
+    "slots": ("dtau", "nslots", "capacity", "used", "t0", "group_s", "merged"),
+    "arrivals": ("n_gaps", "total_s", "shortest_s", "last_t"),
+}
+_RANDOM_ARRAYS = {
+    "wmom": ("mean", "s2", "s3", "s4"),
+    "tblocks": ("ref", "Wb", "Sb"),
+    "slots": ("ref", "groups", "_tail_t", "_tail_a", "_tail_w"),
+    "arrivals": ("counts",),
+}
+
+
+def _random_to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
+    arrays: dict[str, np.ndarray] = {}
+    parts: dict[str, dict | None] = {}
+    for part, scalars in _RANDOM_SCALARS.items():
+        obj = getattr(ps, part)
+        if obj is None:  # no slots before the first block
+            parts[part] = None
+            continue
+        parts[part] = {k: _scalar(getattr(obj, k)) for k in scalars}
+        for k in _RANDOM_ARRAYS[part]:
+            v = getattr(obj, k)
+            if v is not None:
+                arrays[f"{part}.{k.lstrip('_')}"] = np.array(v, copy=True)
+    if parts["arrivals"]["shortest_s"] == float("inf"):
+        parts["arrivals"]["shortest_s"] = None  # strict JSON has no infinity
+    meta = {
+        "format": FORMAT,
+        "version": VERSION,
+        "sampling": "random",
+        "weighting": ps.weighting,
+        "columns": list(ps.columns),
+        "confidence": ps.confidence,
+        "targets": ps.targets.to_dict(),
+        "duration_s": float(ps._duration_s),
+        "merged": bool(ps.merged),
+        **parts,
+        "checkpoints": _checkpoints_meta(ps),
+    }
+    return meta, arrays
+
+
+def _random_from_state(meta: dict, arrays):
+    from eddyvigil.stats.slotting import SlottedCorrelation
+    from eddyvigil.stats.weighted_point import WeightedPointStatistics
+
+    ps = WeightedPointStatistics(
+        tuple(meta["columns"]), meta["weighting"], _targets(meta["targets"]), meta["confidence"]
+    )
+    sl = meta["slots"]
+    if sl is not None:
+        ps.slots = SlottedCorrelation(len(ps.columns), sl["dtau"], sl["nslots"], sl["capacity"])
+    for part, scalars in _RANDOM_SCALARS.items():
+        obj = getattr(ps, part)
+        if obj is None:
+            continue
+        for k in scalars:
+            setattr(obj, k, meta[part][k])
+        for k in _RANDOM_ARRAYS[part]:
+            name = f"{part}.{k.lstrip('_')}"
+            old = getattr(obj, k)
+            if name not in arrays:
+                if k != "ref":
+                    raise StateError(f"incomplete point state: {name} missing")
+                continue
+            a = np.array(arrays[name])
+            if k != "ref" and (a.ndim != old.ndim or a.shape[1:] != old.shape[1:]):
+                raise StateError(f"{name}: unexpected shape {a.shape}")
+            if k not in ("_tail_t", "_tail_a", "_tail_w") and k != "ref" and a.shape != old.shape:
+                raise StateError(f"{name}: shape {a.shape}, expected {old.shape}")
+            setattr(obj, k, a.astype(old.dtype if old is not None else np.float64))
+    if ps.arrivals.shortest_s is None:
+        ps.arrivals.shortest_s = float("inf")
+    ps._duration_s = float(meta["duration_s"])
+    ps.merged = bool(meta["merged"])
+    ps.checkpoints = _checkpoints_from(meta)
+    return ps
+
+
 def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
     """``(meta, arrays)`` of a :class:`PointStatistics` (copies; ``ps`` untouched)."""
+    if getattr(ps, "weighting", None) is not None:
+        return _random_to_state(ps)
     arrays: dict[str, np.ndarray] = {}
     for k in _MOMENT_ARRAYS:
         arrays[f"moments.{k}"] = np.array(getattr(ps.moments, k), copy=True)
@@ -66,10 +177,7 @@ def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
             blocking[k] = _scalar(v)
     arrays["tails.high"] = np.sort(ps.tails.high, axis=1)  # order carries no meaning: canonical
     arrays["tails.low"] = np.sort(ps.tails.low, axis=1)
-    checkpoints = {
-        f.name: _scalar(getattr(ps.checkpoints, f.name)) for f in dataclasses.fields(ps.checkpoints)
-    }
-    checkpoints["trusted"] = sorted(checkpoints["trusted"])  # a set: JSON has lists
+    checkpoints = _checkpoints_meta(ps)
     meta = {
         "format": FORMAT,
         "version": VERSION,
@@ -96,16 +204,18 @@ def _targets(d: dict):
 
 def from_state(meta: dict, arrays) -> object:
     """The :class:`PointStatistics` a ``(meta, arrays)`` pair describes."""
-    from eddyvigil.stats.convergence import Checkpoints
     from eddyvigil.stats.point import PointStatistics
 
     if meta.get("format") != FORMAT:
         raise StateError(f"not an eddyvigil point state (format {meta.get('format')!r})")
-    if meta.get("version") != VERSION:
+    if meta.get("version") not in READS:
         raise StateError(
-            f"point state version {meta.get('version')!r}; this eddyvigil reads version {VERSION}"
+            f"point state version {meta.get('version')!r}; this eddyvigil reads versions "
+            f"{', '.join(map(str, READS))}"
         )
     try:
+        if meta.get("sampling") == "random":
+            return _random_from_state(meta, arrays)
         blocking = meta["blocking"]
         ps = PointStatistics(
             tuple(meta["columns"]),
@@ -143,10 +253,10 @@ def from_state(meta: dict, arrays) -> object:
                 raise StateError(f"tails.{k}: shape {a.shape}, expected ({tails.m}, n)")
             setattr(tails, k, a)
         ps._duration_s = float(meta["duration_s"])
-        cp = dict(meta["checkpoints"])
-        cp["trusted"] = set(cp.get("trusted", ()))
-        ps.checkpoints = Checkpoints(**cp)
-    except (KeyError, TypeError) as exc:
+        ps.checkpoints = _checkpoints_from(meta)
+    except StateError:
+        raise
+    except (KeyError, TypeError, ValueError) as exc:
         raise StateError(f"incomplete point state: {exc!r}") from None
     return ps
 

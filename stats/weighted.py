@@ -216,17 +216,55 @@ class TimeBlocks:
         self.Wb = np.zeros(self.capacity)
         self.Sb = np.zeros((self.capacity, self.D))
         self.used = 0  # blocks up to and including the latest one touched
+        self.merged = False  # a union of independent records: takes no more samples
 
     def copy(self) -> TimeBlocks:
         new = TimeBlocks(self.m, self.capacity, self.samples_per_block)
         new.ref = None if self.ref is None else self.ref.copy()
         new.t_start, new.tau, new.used = self.t_start, self.tau, self.used
         new.Wb, new.Sb = self.Wb.copy(), self.Sb.copy()
+        new.merged = self.merged
+        return new
+
+    def merge(self, other: TimeBlocks) -> TimeBlocks:
+        """Both records' blocks as independent records: a new object holding ``self``'s blocks
+        then ``other``'s (its sums moved exactly to ``self``'s reference, the binomial map of
+        ``stats.blocking``). The record with the shorter blocks is first coarsened while that
+        brings the two durations closer; neighbours are then joined while more than
+        ``capacity`` blocks remain. Blocks of unequal weight are what the ratio estimator of
+        :meth:`analyse` is for."""
+        from eddyvigil.stats.blocking import _recentring_map
+
+        if other.m != self.m or other.capacity != self.capacity:
+            raise ValueError("cannot merge time blocks of different shapes")
+        if other.ref is None or self.ref is None:
+            new = (self if other.ref is None else other).copy()
+            new.merged = True
+            return new
+        a, b = self.copy(), other.copy()
+        short, long_ = (a, b) if a.tau < b.tau else (b, a)
+        while abs(np.log(2.0 * short.tau / long_.tau)) < abs(np.log(short.tau / long_.tau)):
+            short._coarsen()
+        T, c = _recentring_map(layout(self.m), b.ref - a.ref)
+        Sb = np.concatenate([a.Sb[: a.used], b.Sb[: b.used] @ T.T + b.Wb[: b.used, None] * c])
+        Wb = np.concatenate([a.Wb[: a.used], b.Wb[: b.used]])
+        tau = max(a.tau, b.tau)
+        while Wb.shape[0] > self.capacity:
+            k = Wb.shape[0]
+            Sb = np.concatenate([Sb[0 : k - 1 : 2] + Sb[1:k:2], Sb[k - 1 :] if k % 2 else Sb[:0]])
+            Wb = np.concatenate([Wb[0 : k - 1 : 2] + Wb[1:k:2], Wb[k - 1 :] if k % 2 else Wb[:0]])
+            tau *= 2.0
+        new = a
+        new.Sb, new.Wb = np.zeros_like(self.Sb), np.zeros_like(self.Wb)
+        new.Sb[: Wb.shape[0]], new.Wb[: Wb.shape[0]] = Sb, Wb
+        new.used, new.tau, new.merged = Wb.shape[0], tau, True
         return new
 
     def update(self, x: np.ndarray, w: np.ndarray, t: np.ndarray) -> None:
         if x.shape[0] == 0:
             return
+        if self.merged:
+            raise ValueError("merged time blocks take no more samples")
         if self.ref is None:
             self.ref = np.array(x[0], dtype=np.float64)
             self.t_start = float(t[0])

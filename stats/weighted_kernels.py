@@ -302,3 +302,33 @@ def weighted_mean(x, wt, mean):
     for i in range(m):
         mean[i] = x[0, i] + acc[i] / W if W > 0.0 else np.nan
     return W
+
+
+@numba.njit(cache=True, nogil=True)
+def slot_pairs(t, a, w, group, first_new, dtau, nslots, sums):
+    """Pairs (i < j, j >= first_new) with lag in slots 1..nslots-1, added to the time group
+    of the later sample: ``sums[group[j], c, k, :]`` += (ww, ww a_i, ww a_j, ww a_i a_j,
+    ww a_i^2, ww a_j^2) with ``ww = w_i w_j``; ``sums`` is (groups, m, nslots, 6)."""
+    n, m = a.shape
+    max_lag = (nslots - 0.5) * dtau
+    for j in range(first_new, n):
+        g = group[j]
+        i = j - 1
+        while i >= 0:
+            lag = t[j] - t[i]
+            if lag >= max_lag:
+                break
+            k = int(lag / dtau + 0.5)
+            if k >= 1:
+                ww = w[i] * w[j]
+                for c in range(m):
+                    ai = a[i, c]
+                    aj = a[j, c]
+                    s = sums[g, c, k]
+                    s[0] += ww
+                    s[1] += ww * ai
+                    s[2] += ww * aj
+                    s[3] += ww * ai * aj
+                    s[4] += ww * ai * ai
+                    s[5] += ww * aj * aj
+            i -= 1

@@ -6,8 +6,9 @@ names, targets, stopping rule, checkpoints and snapshot; only ``update`` (rows w
 times and weights) and ``_evaluate`` differ. Values: weighted moments about a reference, fed
 to the same delta-method table as uniform data. Errors: the ratio-estimator variance of the
 time blocks (``TimeBlocks.analyse``). ``Tint_c``: the slotted, locally normalised
-autocorrelation (``stats.slotting``) when its lag range reaches a zero crossing, with no
-interval (none honest is known here); ``Neff_c = sigma^2 / Var(mean)`` and ``L_c = |U| Tint_c``.
+autocorrelation (``stats.slotting``) summed over five pilot integral times, its error by the
+jackknife over time groups (the method is in ``stats.slotting``'s docstring);
+``Neff_c = sigma^2 / Var(mean)`` and ``L_c = |U| Tint_c``.
 """
 
 from __future__ import annotations
@@ -38,13 +39,6 @@ MIN_SAMPLES_PER_TINT = 10.0
 SLOTS = 128
 
 
-class _NotKept:
-    def __getattr__(self, name):
-        if name.startswith("__"):
-            raise AttributeError(name)
-        raise ValueError("points of randomly sampled data cannot be saved or merged yet")
-
-
 class WeightedPointStatistics(PointStatistics):
     """Statistics of one randomly sampled point.
 
@@ -64,25 +58,55 @@ class WeightedPointStatistics(PointStatistics):
         self.tblocks = TimeBlocks(m)
         self.slots: SlottedCorrelation | None = None
         self.arrivals = ArrivalCheck()
-        # the unweighted accumulators of PointStatistics are not kept: saving a state
-        # (stats.pointstate.to_state) or merging refuses instead of writing an empty point
-        self.moments = self.blocking = _NotKept()
+        self.merged = False  # a union of independent records: takes no more samples
+        # the unweighted accumulators of PointStatistics are not kept
+        self.moments = self.blocking = None
 
     def copy(self) -> WeightedPointStatistics:
-        new = WeightedPointStatistics(self.columns, self.weighting, self.targets, self.confidence)
+        new = self._like()
         new.wmom, new.tblocks = self.wmom.copy(), self.tblocks.copy()
-        new.slots = None
-        if self.slots is not None:
-            import copy as _copy
-
-            new.slots = _copy.deepcopy(self.slots)
+        new.slots = None if self.slots is None else self.slots.copy()
         new.arrivals = self.arrivals.copy()
         new.checkpoints = self.checkpoints.copy()
         new._duration_s = self._duration_s
+        new.merged = self.merged
         return new
 
+    def _like(self) -> WeightedPointStatistics:
+        return WeightedPointStatistics(self.columns, self.weighting, self.targets, self.confidence)
+
     def merge(self, other, independent=True):
-        raise ValueError("points of randomly sampled data cannot be merged yet")
+        """A new point holding both records (inputs untouched), as independent records only.
+
+        Exact: weighted moments (weighted Pébay merge), the time blocks (``other``'s moved to
+        ``self``'s reference, then appended: ``TimeBlocks.merge``), the slotted pair sums per
+        time group (``SlottedCorrelation.merge``; slot widths must agree) and the arrival
+        histogram. No pair or gap is formed across the records. Checkpoint streaks follow
+        :meth:`PointStatistics.merge`'s rule. A merged point takes no more samples.
+        """
+        if not isinstance(other, WeightedPointStatistics):
+            raise ValueError("cannot merge a randomly sampled point with a uniformly sampled one")
+        if not independent:
+            raise ValueError("randomly sampled points merge as independent records only")
+        if other.columns != self.columns:
+            raise ValueError("cannot merge points with different columns")
+        if other.weighting != self.weighting:
+            raise ValueError(
+                f"cannot merge points weighted differently ({self.weighting} vs {other.weighting})"
+            )
+        new = self._like()
+        new.wmom = self.wmom.merge(other.wmom)
+        new.tblocks = self.tblocks.merge(other.tblocks)
+        if self.slots is None or other.slots is None:
+            one = self.slots if other.slots is None else other.slots
+            new.slots = None if one is None else one.merge(SlottedCorrelation(one.m, one.dtau, one.nslots))
+        else:
+            new.slots = self.slots.merge(other.slots)
+        new.arrivals = self.arrivals.merge(other.arrivals)
+        new._duration_s = self._duration_s + other._duration_s
+        new.merged = True
+        self._carry_streaks(other, new)
+        return new
 
     @property
     def n(self) -> int:
@@ -90,6 +114,8 @@ class WeightedPointStatistics(PointStatistics):
 
     def update(self, block, duration_s=None, *, times=None, weights=None):
         """Add rows (n, m) with their ``times`` (s) and, for transit weighting, ``weights``."""
+        if self.merged:
+            raise ValueError("a merged point of randomly sampled data takes no more samples")
         block = np.asarray(block, dtype=np.float64)
         if block.ndim != 2 or block.shape[1] != len(self.columns):
             raise ValueError(f"expected a block of shape (n, {len(self.columns)})")
@@ -108,7 +134,10 @@ class WeightedPointStatistics(PointStatistics):
         if self.slots is None:
             span = float(t[-1] - t[0])
             gap = span / (t.shape[0] - 1) if t.shape[0] > 1 and span > 0 else 1e-3
-            self.slots = SlottedCorrelation(len(self.columns), dtau=gap, nslots=SLOTS)
+            # the mean gap to the nearest power of two seconds: repeats of a point at about
+            # the same data rate get the same slots, so they merge (SlottedCorrelation.merge)
+            dtau = 2.0 ** round(math.log2(gap))
+            self.slots = SlottedCorrelation(len(self.columns), dtau=dtau, nslots=SLOTS)
         self.arrivals.update(t)
         self.wmom.update(block, w)
         self.tblocks.update(block, w, t)
@@ -147,17 +176,22 @@ class WeightedPointStatistics(PointStatistics):
         values = np.concatenate([values, np.empty(3 * m)])
         se = np.empty(S)
         integral_scales(self.duration_s, choice.variance, rel, m, values, se)
-        # Tint from the slotted autocorrelation (no honest interval known: NaN), L from it
-        tints = self.integral_times(values[:m])
+        # Tint from the slotted autocorrelation with its jackknife error over time groups
+        # (stats.slotting), L = |U| Tint with the mean speed's error added in quadrature
+        tints, tint_se, groups = self._slotted(values[:m])
         speed = float(np.sqrt(np.sum(values[:m] ** 2)))
+        rel_speed = float(np.sqrt(np.sum((values[:m] * se[:m]) ** 2))) / speed**2
+        blocks = np.full(S, choice.blocks, dtype=np.int64)
+        rel_all = np.full(S, choice.relative_error)
         k = nm
         for i in range(m):
             values[k + i] = tints[i]
-            se[k + i] = np.nan
+            se[k + i] = tint_se[i]
             values[k + 2 * m + i] = speed * tints[i]
-            se[k + 2 * m + i] = np.nan
-        blocks = np.full(S, choice.blocks, dtype=np.int64)
-        rel_all = np.full(S, choice.relative_error)
+            se[k + 2 * m + i] = math.hypot(tint_se[i] / tints[i], rel_speed) * speed * tints[i]
+            for row in (k + i, k + 2 * m + i):
+                blocks[row] = groups
+                rel_all[row] = math.sqrt(0.5 / (groups - 1)) if groups > 1 else math.nan
         hw = INTERVAL_INFLATION * _t_quantiles(0.5 * (1.0 + self.confidence), blocks) * se
         suspect = {}
         verdicts = assess_columns(self.tblocks.block_means(), se[:m].tolist())
@@ -229,10 +263,16 @@ class WeightedPointStatistics(PointStatistics):
             out.append(e)
         return dataclasses.replace(snap, estimates=tuple(out))
 
-    def integral_times(self, mean) -> np.ndarray:
+    def _slotted(self, mean) -> tuple[np.ndarray, np.ndarray, int]:
+        """``(tint, se, groups)`` from the slotted autocorrelation (NaN before any data)."""
         if self.slots is None:
-            return np.full(len(self.columns), np.nan)
-        return self.slots.integral_times(mean)
+            nan = np.full(len(self.columns), np.nan)
+            return nan, nan.copy(), 0
+        return self.slots.integral_times_with_errors(mean)
+
+    def integral_times(self, mean) -> np.ndarray:
+        """T_int of each component as the Tint rows report it (stats.slotting)."""
+        return self._slotted(mean)[0]
 
     def random_sampling_fields(self) -> dict:
         """Summary point-line fields (DESIGN §10): ``weighting`` and ``random_sampling``."""
