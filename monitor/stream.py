@@ -15,6 +15,7 @@ from collections import Counter
 
 from eddyvigil.monitor.display import History, Trace, quality_view
 from eddyvigil.monitor.point_run import PointRun
+from eddyvigil.monitor.random_sampling import random_sampling_view
 from eddyvigil.monitor.rate import ReceiveRate
 from eddyvigil.monitor.sequence import SequenceAccount
 from eddyvigil.monitor.state import StreamView
@@ -127,4 +128,5 @@ class StreamState:
             converged_wall_age_s=converged_age,
             spectrum=spectrum,
             quality=quality_view(point_run),
+            random_sampling=random_sampling_view(point_run),
         )

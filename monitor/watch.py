@@ -249,6 +249,10 @@ def status_line(snapshot) -> str:
         text += quality_note(getattr(sv, "quality", None))
         if sv.point is not None and pid is None and samples:
             text += " [data before any point message: counted under point null]"
+        if getattr(sv, "random_sampling", None):
+            from eddyvigil.monitor.random_sampling import random_sampling_status
+
+            text += " " + random_sampling_status(sv.random_sampling)
         if sv.stats is not None:
             text += " " + point_verdict(sv.stats).text()
         parts.append(text)

@@ -244,7 +244,26 @@ def health_html(snapshot: RunSnapshot) -> str:
             extra += f'<div style="font-size:12px;padding:2px 6px">transport: {text}</div>'
     table = (f'<table style="border-collapse:collapse;font-size:13px">{head}{"".join(rows)}'
              "</table>")
-    return table + extra
+    return table + extra + random_sampling_html(snapshot)
+
+
+def random_sampling_html(snapshot: RunSnapshot) -> str:
+    """Notes of every randomly sampled stream's current point (monitor.random_sampling's
+    wording: weighting, data rate per T_int, dead-time check, no spectrum); a warning is
+    flagged with "!" as well as colour. Empty when no stream is randomly sampled."""
+    from eddyvigil.monitor.random_sampling import random_sampling_notes
+
+    out = []
+    for name, v in snapshot.streams.items():
+        if not v.random_sampling:
+            continue
+        for text, flag in random_sampling_notes(v.random_sampling):
+            words = f"{html.escape(name)}: {html.escape(text)}"
+            if flag:
+                out.append(f'<div style="{_FLAG}">! {words}</div>')
+            else:
+                out.append(f'<div style="font-size:12px;padding:2px 6px">{words}</div>')
+    return "".join(out)
 
 
 def _nominal_rate(v: StreamView) -> str:
