@@ -180,7 +180,8 @@ class WeightedPointStatistics(PointStatistics):
         # (stats.slotting), L = |U| Tint with the mean speed's error added in quadrature
         tints, tint_se, groups = self._slotted(values[:m])
         speed = float(np.sqrt(np.sum(values[:m] ** 2)))
-        rel_speed = float(np.sqrt(np.sum((values[:m] * se[:m]) ** 2))) / speed**2
+        spread = float(np.sqrt(np.sum((values[:m] * se[:m]) ** 2)))
+        rel_speed = spread / speed**2 if speed > 0 else math.nan
         blocks = np.full(S, choice.blocks, dtype=np.int64)
         rel_all = np.full(S, choice.relative_error)
         k = nm
@@ -188,7 +189,11 @@ class WeightedPointStatistics(PointStatistics):
             values[k + i] = tints[i]
             se[k + i] = tint_se[i]
             values[k + 2 * m + i] = speed * tints[i]
-            se[k + 2 * m + i] = math.hypot(tint_se[i] / tints[i], rel_speed) * speed * tints[i]
+            length = speed * tints[i]
+            if math.isfinite(length) and length != 0.0:
+                se[k + 2 * m + i] = math.hypot(tint_se[i] / tints[i], rel_speed) * abs(length)
+            else:
+                se[k + 2 * m + i] = math.nan
             for row in (k + i, k + 2 * m + i):
                 blocks[row] = groups
                 rel_all[row] = math.sqrt(0.5 / (groups - 1)) if groups > 1 else math.nan

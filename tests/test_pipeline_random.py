@@ -51,6 +51,12 @@ def test_lda_scenario_transit_weighting_recovers_the_truth():
     for name in ("U", "V", "uu", "vv", "uv"):
         s = st[name]
         assert abs(s["value"] - truth[name]) < 4 * s["stderr"], name
+    # T_int and L with their errors (slotted ACF, jackknife over time groups; the truth is the
+    # generator's exact integral time, L = U T_int by Taylor's hypothesis)
+    for name in ("Tint_u", "Tint_v", "L_u"):  # the truth names L of u only
+        s = st[name]
+        assert s["stderr"] is not None and s["ci_low"] < s["value"] < s["ci_high"], name
+        assert abs(s["value"] - truth[name]) < 4 * s["stderr"], name
     # arithmetic averages of the same rows lean to high speeds by about sigma_u^2 / U
     _, plain = _run(rows, "none", with_weights=False)
     bias = truth["uu"] / truth["U"]
