@@ -97,9 +97,10 @@ class WeightedPointStatistics(PointStatistics):
         new = self._like()
         new.wmom = self.wmom.merge(other.wmom)
         new.tblocks = self.tblocks.merge(other.tblocks)
-        if self.slots is None or other.slots is None:
+        if self.slots is None or other.slots is None:  # a point with no sample has no slots
             one = self.slots if other.slots is None else other.slots
-            new.slots = None if one is None else one.merge(SlottedCorrelation(one.m, one.dtau, one.nslots))
+            if one is not None:
+                new.slots = one.merge(SlottedCorrelation(one.m, one.dtau, one.nslots))
         else:
             new.slots = self.slots.merge(other.slots)
         new.arrivals = self.arrivals.merge(other.arrivals)

@@ -45,7 +45,8 @@ def test_merge_equals_one_accumulator_over_the_concatenation_where_exact():
     assert merged.wmom.mean[0] == pytest.approx(mean, rel=1e-13)
     for p, sums in ((2, merged.wmom.s2), (3, merged.wmom.s3), (4, merged.wmom.s4)):
         assert sums[0] == pytest.approx(np.sum(w * (x[:, 0] - mean) ** p), rel=1e-9, abs=1e-9)
-    assert merged.n == x.shape[0] and merged.duration_s == pytest.approx(a.duration_s + b.duration_s)
+    assert merged.n == x.shape[0]
+    assert merged.duration_s == pytest.approx(a.duration_s + b.duration_s)
     # slotted pair sums: one accumulator over both records (the pause forms no pair)
     one = _fed(x, t, w, parts=11)
     assert merged.slots.dtau == one.slots.dtau
@@ -139,3 +140,13 @@ def test_combine_and_merge_repeats_accept_laser_doppler_points(tmp_path, capsys)
     assert rep["parts"] == 2 and rep["random_sampling"] == merged.random_sampling_fields()[
         "random_sampling"
     ]
+
+
+def test_a_point_with_no_sample_merges_as_nothing():
+    # merging with an empty point leaves the values as they were (common practice)
+    a = _fed(*_record(9, 1.0))
+    empty = WeightedPointStatistics(("u",), "transit")
+    for merged in (a.merge(empty), empty.merge(a)):
+        assert merged.n == a.n and merged.merged
+        assert merged.snapshot().estimate("U").value == a.snapshot().estimate("U").value
+        assert merged.slots.pairs().tolist() == a.slots.pairs().tolist()
