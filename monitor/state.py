@@ -61,6 +61,8 @@ class StreamView:
     #: (SpectrumSnapshot | None, Dissipation | None) of the current point (stats.point_spectra)
     spectrum: tuple | None = None
     quality: Mapping | None = None  # the point's "quality" object (DESIGN §9) + recent "marks"
+    #: the current point's targets from a [budget] table (the point line's "derived_targets")
+    derived_targets: Mapping | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

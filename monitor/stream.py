@@ -127,4 +127,6 @@ class StreamState:
             converged_wall_age_s=converged_age,
             spectrum=spectrum,
             quality=quality_view(point_run),
+            derived_targets=(point_run.derived.to_json()
+                             if point_run is not None and point_run.derived is not None else None),
         )

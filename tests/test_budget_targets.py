@@ -239,3 +239,32 @@ def test_malformed_neighbours_never_crash_the_derivation():
     bad.append({"kind": "point", "stream": "s", "point": "nonsense"})
     d = derive_point_targets(t, bad, "s", {"id": "P9", "y": 0.04})
     assert d.targets.targets == t.targets  # nothing derived from garbage: plain targets
+
+
+def test_the_dashboard_shows_the_current_points_derived_targets():
+    """The status board notes a target set by a term, and the budget panel's title says the
+    current point's derived tolerances (pure functions on the published snapshot)."""
+    from eddyvigil.monitor import Pipeline
+    from eddyvigil.monitor.dashboard import views
+    from eddyvigil.monitor.dashboard.budget_panel import BudgetPanel, derived_text
+
+    t = _targets({"production": {"absolute": 0.2}}, {"U": {"relative": 0.05}})
+    rng = np.random.default_rng(12)
+    p = Pipeline(t)
+    for i, y in enumerate((0.0, 0.01, 0.02)):
+        p.begin_point("probe-a", {"id": f"P{i}", "x": 1.0, "y": y, "z": 0.0})
+        block = rng.normal(size=(4000, 3)) * [0.5, 0.4, 0.4]
+        block[:, 1] += 0.5 * block[:, 0]
+        p.feed("probe-a", block + [5.0 + 20.0 * y, 0.0, 0.0], rate_hz=1000.0)
+    view = p.publish().streams["probe-a"]
+    assert view.derived_targets["basis"] == "interpolation of the neighbours"
+    cols = views.status_columns(p.snapshot)
+    notes = dict(zip(cols["name"], cols["target"], strict=True))
+    applied = {s["name"] for s in view.derived_targets["statistics"] if s["applied"]}
+    assert applied and all(notes[n].endswith("(from production)") for n in applied)
+    text = derived_text(view)
+    assert text.startswith("point P2: production ±0.2 -> ")
+    panel = BudgetPanel(height=300)
+    panel.update(view, "y")
+    assert panel.figure.title.text.endswith(text)
+    p.close()
