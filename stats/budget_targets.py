@@ -29,8 +29,13 @@ How, for the point about to be measured at position ``y_p``:
    grid (its sharing of the noise budget between the statistics; a statistic in several
    stencils takes the smallest tolerance). The discretisation estimate is the finished
    traverse's (four finished points or more), interpolated in position; before that the whole
-   tolerance goes to noise. Where the discretisation alone exceeds the tolerance, no time can
-   meet it: no derived target, and the point line says so.
+   tolerance goes to noise. The estimate takes at most half of the term's variance budget
+   (:data:`MAX_DISCRETISATION_SHARE`): it is itself noisy (mostly the finished points' noise
+   where the profile is well resolved), and taken at face value it asked for hours of record
+   at points of the plane wake. Where it takes more, the term's interval may come out wider
+   than the tolerance (up to sqrt(1.5) times, more where it alone exceeds the tolerance: no
+   time can meet that, more points can); the point line says so, and the point is still
+   asked for the noise share.
 5. **Combination.** A plain target of the same statistic is resolved at the point's
    interpolated U and k; the tighter of the two is the point's target.
 
@@ -59,6 +64,10 @@ __all__ = ["FEEDS", "DerivedTargets", "derive"]
 
 #: statistics (tke_budget's names: v = the traverse-axis component) feeding each term
 FEEDS = {"production": ("U", "uv"), "turbulent_transport": ("uuv", "vvv", "vww")}
+
+#: the largest share of a term's variance budget, (H/z)^2, left to the discretisation
+#: estimate when per-point noise tolerances are derived (module docstring, step 4)
+MAX_DISCRETISATION_SHARE = 0.5
 
 #: finished points a tolerance needs: absolute (values to extrapolate), relative (+ a scale)
 MIN_FINISHED = {"absolute": 2, "relative": 3}
@@ -215,21 +224,32 @@ def derive(
             disc = np.zeros(len(grid))
             notes.append(f"{term}: no discretisation estimate yet (four finished points "
                          "needed): the whole tolerance goes to noise")
-        half = np.where(required, h, np.inf)
-        try:
-            with np.errstate(all="ignore"):
-                tol, unreachable = derived_tolerances(grid, fill, term, half, targets.confidence,
-                                                      discretisation=disc)
-        except (ValueError, ArithmeticError, np.linalg.LinAlgError) as e:
-            notes.append(f"{term}: no tolerances ({e}): plain targets only")
-            continue
+        # the estimate is itself noisy (mostly the points' noise where the profile is well
+        # resolved): it takes at most MAX_DISCRETISATION_SHARE of the variance budget, so a
+        # noisy estimate neither asks for days of record nor leaves the point untargeted
+        cap = (h / z) * math.sqrt(MAX_DISCRETISATION_SHARE)
         i = int(np.argmin(np.abs(grid - position)))
-        stencil = range(max(i - 1, 0), min(i + 2, len(grid)))
-        entry["reachable"] = not bool(np.any(unreachable[list(stencil)] & required[list(stencil)]))
+        stencil = [j for j in range(max(i - 1, 0), min(i + 2, len(grid))) if required[j]]
+        entry["reachable"] = not bool(np.any(disc[stencil] >= h / z))
         if not entry["reachable"]:
             notes.append(f"{term}: the discretisation estimate alone exceeds ±{h:.3g} m^2/s^3 "
                          f"(at z = {z:.2f}) near this point: time cannot meet it, more points "
-                         "can")
+                         f"can; noise is asked for {1 - MAX_DISCRETISATION_SHARE:.0%} of the "
+                         "variance budget")
+        elif np.any(disc[stencil] > cap):
+            notes.append(f"{term}: the discretisation estimate takes more than "
+                         f"{MAX_DISCRETISATION_SHARE:.0%} of the tolerance near this point; "
+                         f"noise gets {1 - MAX_DISCRETISATION_SHARE:.0%} of it (more points "
+                         "there would help more than time)")
+        disc = np.minimum(disc, cap)
+        half = np.where(required, h, np.inf)
+        try:
+            with np.errstate(all="ignore"):
+                tol, _ = derived_tolerances(grid, fill, term, half, targets.confidence,
+                                            discretisation=disc)
+        except (ValueError, ArithmeticError, np.linalg.LinAlgError) as e:
+            notes.append(f"{term}: no tolerances ({e}): plain targets only")
+            continue
         for name, arr in tol.items():
             x = float(arr[i])
             if math.isfinite(x) and x > 0 and (name not in derived or x < derived[name][0]):

@@ -178,16 +178,20 @@ def test_without_a_plan_the_traverse_is_assumed_to_go_on_at_its_spacing():
 
 def test_a_discretisation_estimate_above_the_tolerance_is_unreachable():
     """A profile with a kink (|y|): the four-point estimate alone exceeds a tiny tolerance,
-    so no time can meet it; the point keeps its plain targets and is told why."""
+    so no time can meet it; the point is told why, and still asked for the noise share."""
     u = 8.0 + 40.0 * np.abs(Y)
     stats = {"U": (u[:8], np.full(8, 0.01)), "uv": (np.full(8, -0.02), np.full(8, 0.001))}
     b = tke_budget(Y[:8], stats)
     assert np.nanmax(b.terms["production"].discretisation) > 0.01
-    d = derive(_targets({"production": {"absolute": 1e-4}}), Y[5], np.delete(Y[:8], 5),
-               {k: (np.delete(v, 5), np.delete(s, 5)) for k, (v, s) in stats.items()}, NAMES,
-               own={"U": u[5], "uv": -0.02})
+    d = derive(_targets({"production": {"absolute": 1e-4}}), Y[6], np.delete(Y[:8], 6),
+               {k: (np.delete(v, 6), np.delete(s, 6)) for k, (v, s) in stats.items()}, NAMES,
+               own={"U": u[6], "uv": -0.02})
     assert d.terms["production"]["reachable"] is False
     assert any("time cannot meet it" in n for n in d.notes)
+    # noise still gets half the variance budget, and uv half of that (stats/budget.py):
+    # z SE(uv) |dU/dy| = z (H/z) sqrt(1/2) / sqrt(2), dU/dy = 40 exactly (a straight line)
+    tol = {s["name"]: s["half_width"] for s in d.statistics}
+    assert tol["uv"] == pytest.approx(1e-4 * math.sqrt(0.5) / (math.sqrt(2) * 40.0), rel=1e-9)
 
 
 # ------------------------------------------------------------------------------ pipeline
