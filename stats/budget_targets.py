@@ -36,6 +36,9 @@ How, for the point about to be measured at position ``y_p``:
    than the tolerance (up to sqrt(1.5) times, more where it alone exceeds the tolerance: no
    time can meet that, more points can); the point line says so, and the point is still
    asked for the noise share.
+   The flux's tolerance is shared among ``<uuv>``, ``<vvv>`` and ``<vww>`` in proportion to
+   their standard errors at the neighbours (they share one record, so they then meet their
+   tolerances together; equal shares made ``<vvv>`` alone set the time on the wake).
 5. **Combination.** A plain target of the same statistic is resolved at the point's
    interpolated U and k; the tighter of the two is the point's target.
 
@@ -108,6 +111,35 @@ def _interp(xs: np.ndarray, fs: np.ndarray, x: float) -> float:
         return float(np.interp(x, xs, fs))
     a, b = (0, 1) if x < xs[0] else (-2, -1)
     return float(fs[a] + (fs[b] - fs[a]) * (x - xs[a]) / (xs[b] - xs[a]))
+
+
+def _split_flux(equal: dict, xf, finished, position: float, notes: list) -> dict:
+    """The flux's tolerance shared among its triple moments in proportion to their standard
+    errors at the finished neighbours (interpolated shares), not equally: the three share
+    one record, so this makes them meet their tolerances together (the slowest, ``<vvv>`` on
+    the wake, no longer sets the time alone). ``SE(F) = (SE(uuv) + SE(vvv) + SE(vww))/2``
+    (``<vvv>`` twice when ``<vww>`` stands in for an unmeasured w) stays what the term needs.
+    """
+    names = [n for n in ("uuv", "vvv", "vww") if n in equal]
+    coef = {n: 1.0 for n in names}
+    if "vww" not in names and "vvv" in coef:
+        coef["vvv"] = 2.0  # <wwv> taken as <vvv> (stats/budget.py WWV_ASSUMPTIONS)
+    ses = [np.asarray(finished[n][1], dtype=np.float64) for n in names]
+    shares = []
+    for k in range(len(names)):
+        with np.errstate(all="ignore"):
+            r = ses[k] / sum(ses)
+        ok = np.isfinite(r)
+        if not np.any(ok):
+            return equal
+        shares.append(float(np.interp(position, np.asarray(xf)[ok], r[ok])))
+    total = float(sum(equal[n] * coef[n] for n in names))  # = 2 x the flux's tolerance
+    norm = sum(c * r for c, r in zip(coef.values(), shares, strict=True))
+    if not (math.isfinite(total) and norm > 0):
+        return equal
+    notes.append("turbulent_transport: the flux's tolerance shared among "
+                 + ", ".join(names) + " in proportion to their neighbours' standard errors")
+    return {n: total * r / norm for n, r in zip(names, shares, strict=True)}
 
 
 def _grid(finished: np.ndarray, position: float, planned, assume: bool
@@ -250,8 +282,10 @@ def derive(
         except (ValueError, ArithmeticError, np.linalg.LinAlgError) as e:
             notes.append(f"{term}: no tolerances ({e}): plain targets only")
             continue
-        for name, arr in tol.items():
-            x = float(arr[i])
+        here = {name: float(arr[i]) for name, arr in tol.items()}
+        if term == "turbulent_transport":
+            here = _split_flux(here, xf, finished, float(position), notes)
+        for name, x in here.items():
             if math.isfinite(x) and x > 0 and (name not in derived or x < derived[name][0]):
                 derived[name] = (x, term)
     rows, chosen = [], dict(targets.targets)

@@ -272,3 +272,22 @@ def test_the_dashboard_shows_the_current_points_derived_targets():
     panel.update(view, "y")
     assert panel.figure.title.text.endswith(text)
     p.close()
+
+
+def test_the_flux_tolerance_is_shared_in_proportion_to_the_neighbours_errors():
+    """Transport: the three triple moments' half-widths keep (SE(uuv) + SE(vvv) + SE(vww))/2
+    at what the term needs (the sum of the equal split, stats/budget.py) and stand in the
+    ratio of the neighbours' standard errors (1 : 3 : 0.5 here)."""
+    flux = 0.01 + 0.2 * Y + 3.0 * Y**2
+    rest = [j for j in range(11) if j != 5]
+    stats = {n: (flux[rest] / 3, np.full(10, se)) for n, se in
+             (("uuv", 1e-4), ("vvv", 3e-4), ("vww", 0.5e-4))}
+    own = {n: flux[5] / 3 for n in stats}
+    d = derive(_targets({"turbulent_transport": {"absolute": 0.05}}), Y[5], Y[rest], stats,
+               NAMES, own=own)
+    tol = {s["name"]: s["half_width"] for s in d.statistics}
+    full, _ = derived_tolerances(Y, {n: (flux / 3, np.full(11, 1e-4)) for n in stats},
+                                 "turbulent_transport", 0.05)
+    assert sum(tol.values()) == pytest.approx(3 * full["uuv"][5], rel=1e-9)
+    assert tol["vvv"] / tol["uuv"] == pytest.approx(3.0, rel=1e-9)
+    assert tol["vww"] / tol["uuv"] == pytest.approx(0.5, rel=1e-9)
