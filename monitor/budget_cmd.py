@@ -40,7 +40,7 @@ def add_arguments(p) -> None:
     p.add_argument("--target", action="append", default=[], metavar="TERM=TOL",
                    help="derive per-point tolerances on the statistics feeding TERM "
                    "(production or turbulent_transport) so its half-width is TOL: a number "
-                   "in m^2/s^3, or a percentage of the term's largest magnitude across the "
+                   "in m^2/s^3, or a percentage of the term's RMS across the "
                    "traverse (e.g. production=10%%); repeatable")
 
 
@@ -329,7 +329,8 @@ def tolerance_table(lines, stream, axis, spec: str, line) -> str:
         raise ValueError(f"the summary gives no {term}")
     values = np.array([np.nan if v is None else v for v in line[term]["value"]])
     try:
-        h = (float(tol[:-1]) / 100 * np.nanmax(np.abs(values)) if tol.endswith("%")
+        # a percentage is of the RMS across the traverse, as a [budget] relative tolerance
+        h = (float(tol[:-1]) / 100 * np.sqrt(np.nanmean(values**2)) if tol.endswith("%")
              else float(tol))
     except ValueError:
         raise ValueError(f"{tol!r} is not a number or a percentage") from None
