@@ -291,3 +291,18 @@ def test_the_flux_tolerance_is_shared_in_proportion_to_the_neighbours_errors():
     assert sum(tol.values()) == pytest.approx(3 * full["uuv"][5], rel=1e-9)
     assert tol["vvv"] / tol["uuv"] == pytest.approx(3.0, rel=1e-9)
     assert tol["vww"] / tol["uuv"] == pytest.approx(0.5, rel=1e-9)
+
+
+def test_a_point_on_derived_targets_saves_and_loads_with_them():
+    """combine's saved states keep the point's targets, [budget] table included (round trip
+    through plain data, stats/pointstate.py)."""
+    from eddyvigil.stats import PointStatistics
+    from eddyvigil.stats.pointstate import from_state, to_state
+
+    rest = [j for j in range(11) if j != 5]
+    d = derive(_targets({"production": {"absolute": 0.05}}), Y[5], Y[rest], _stats(rest), NAMES,
+               own={"U": U[5], "uv": UV[5]})
+    ps = PointStatistics(("u", "v"), 1000.0, targets=d.targets)
+    ps.update(np.random.default_rng(2).normal(size=(3000, 2)))
+    back = from_state(*to_state(ps))
+    assert back.targets == d.targets and back == ps
