@@ -21,7 +21,8 @@ from collections.abc import Iterable, Mapping
 
 from eddyvigil.monitor.exitcodes import ExitCode, epilog, fail
 
-__all__ = ["add_arguments", "run", "read_summary", "traverse", "budget_line", "budget_table"]
+__all__ = ["add_arguments", "run", "read_summary", "traverse", "budget_line", "budget_table",
+           "budget_names", "derive_point_targets"]
 
 EPILOG = epilog("budget")
 
@@ -39,7 +40,7 @@ def add_arguments(p) -> None:
     p.add_argument("--target", action="append", default=[], metavar="TERM=TOL",
                    help="derive per-point tolerances on the statistics feeding TERM "
                    "(production or turbulent_transport) so its half-width is TOL: a number "
-                   "in m^2/s^3, or a percentage of the term's largest magnitude across the "
+                   "in m^2/s^3, or a percentage of the term's RMS across the "
                    "traverse (e.g. production=10%%); repeatable")
 
 
@@ -148,13 +149,18 @@ def _streamwise(lines, stream, axis, points, notes) -> dict:
     return out
 
 
-def _statistics(points: list[Mapping], axis: str) -> dict:
-    """``name -> (values, stderrs)`` under the names tke_budget expects (v = axis component)."""
+def budget_names(axis: str) -> dict[str, str]:
+    """tke_budget's names -> the statistics' names along ``axis`` (v = the axis component)."""
     a = _COMPONENT[axis]
     o = next(c for c in "vw" if c != a) if a != "u" else "v"
-    wanted = {"U": "U", "V": a.upper(), "uv": _name("u" + a), "uuv": _name("uu" + a),
-              "vvv": a * 3, "vww": _name(a + o + o), "eps": "eps", "uu": "uu", "vv": a * 2,
-              "k": "k"}
+    return {"U": "U", "V": a.upper(), "uv": _name("u" + a), "uuv": _name("uu" + a),
+            "vvv": a * 3, "vww": _name(a + o + o), "eps": "eps", "uu": "uu", "vv": a * 2,
+            "k": "k"}
+
+
+def _statistics(points: list[Mapping], axis: str) -> dict:
+    """``name -> (values, stderrs)`` under the names tke_budget expects (v = axis component)."""
+    wanted = budget_names(axis)
     per_point = []
     for line in points:
         table = {}
@@ -323,7 +329,8 @@ def tolerance_table(lines, stream, axis, spec: str, line) -> str:
         raise ValueError(f"the summary gives no {term}")
     values = np.array([np.nan if v is None else v for v in line[term]["value"]])
     try:
-        h = (float(tol[:-1]) / 100 * np.nanmax(np.abs(values)) if tol.endswith("%")
+        # a percentage is of the RMS across the traverse, as a [budget] relative tolerance
+        h = (float(tol[:-1]) / 100 * np.sqrt(np.nanmean(values**2)) if tol.endswith("%")
              else float(tol))
     except ValueError:
         raise ValueError(f"{tol!r} is not a number or a percentage") from None
@@ -335,10 +342,7 @@ def tolerance_table(lines, stream, axis, spec: str, line) -> str:
     with np.errstate(all="ignore"):
         tolerances, unreachable = derived_tolerances(position, stats, term, h,
                                                      float(line.get("confidence", 0.95)))
-    a = _COMPONENT[axis]
-    o = next(c for c in "vw" if c != a) if a != "u" else "v"
-    real = {"U": "U", "uv": _name("u" + a), "uuv": _name("uu" + a), "vvv": a * 3,
-            "vww": _name(a + o + o)}
+    real = budget_names(axis)
     out = [f"{term} within ±{h:.3g} m^2/s^3 at every point needs, per point, half-widths "
            "(present -> needed; 'met', or the record length that meets it at the present "
            "rate; '-' where no tolerance follows):"]
@@ -366,6 +370,43 @@ def tolerance_table(lines, stream, axis, spec: str, line) -> str:
                    "discretisation estimate alone exceeds the tolerance (measure more points "
                    "there)")
     return "\n".join(out)
+
+
+def derive_point_targets(targets, lines: Iterable[Mapping], stream: str, meta: Mapping):
+    """The ``[budget]`` targets of the point ``meta`` of ``stream`` about to be measured, from
+    the stream's finished point lines at the same station (stats.budget_targets.derive); a
+    finished line of the same point id or position is this point measured before: its
+    values stand for the point's own (``own``), it is not a neighbour."""
+    from eddyvigil.stats.budget_targets import DerivedTargets, derive
+
+    axis = targets.budget.axis
+    pos = _coord({"point": meta}, axis)
+    if pos is None:
+        return DerivedTargets(targets, None, {}, (), (
+            f"the point has no {axis} position: plain targets only",))
+    others = [a for a in AXES if a != axis]
+    station = tuple(_coord({"point": meta}, a) for a in others)
+    by_pos, own_line = {}, None
+    for line in _latest(lines, stream).values():
+        q = _coord(line, axis)
+        if q is None or tuple(_coord(line, a) for a in others) != station:
+            continue
+        same_id = meta.get("id") is not None and line["point"].get("id") == meta.get("id")
+        if same_id or abs(q - pos) <= 1e-9:
+            own_line = line
+            continue
+        by_pos[round(q, 9)] = line
+    points = [by_pos[p] for p in sorted(by_pos)]
+    names = budget_names(axis)
+    stats, _ = _statistics(points, axis) if points else ({}, [])
+    own = None
+    if own_line is not None:
+        rows = {r.get("name"): r for r in own_line.get("statistics") or ()
+                if isinstance(r, Mapping)}
+        own = {k: _num((rows.get(n) or {}).get("value")) for k, n in names.items()}
+        own = {k: v for k, v in own.items() if math.isfinite(v)}
+    position = [_coord(p, axis) for p in points]
+    return derive(targets, pos, position, stats, names, own)
 
 
 def _confidence(lines) -> float:

@@ -76,6 +76,9 @@ def point_line(
         if run.random is not None:
             line.update(run.statistics.random_sampling_fields())  # DESIGN §10
         line["statistics"] = line.pop("statistics") + rows
+    if getattr(run, "derived", None) is not None:  # [budget] targets (stats/budget_targets.py)
+        line["derived_targets"] = run.derived.to_json()
+        line["statistics"] = line.pop("statistics")  # still last
     return line
 
 

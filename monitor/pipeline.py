@@ -363,7 +363,10 @@ class Pipeline:
         self._start_point(st, meta)
 
     def _start_point(self, st: StreamState, meta: dict | None) -> PointRun:
-        return st.start_point(meta, history_rows=HISTORY_ROWS)
+        point_run = st.start_point(meta, history_rows=HISTORY_ROWS)
+        if self.targets.budget is not None:  # [budget]: targets from the finished neighbours
+            point_run.derive_targets(self.targets, st.finished, st.name)
+        return point_run
 
     def _on_end(self, st: StreamState, counts_message: bool = False) -> None:
         if st.current is not None:

@@ -75,6 +75,8 @@ class PointRun:
         self.layout_rake, self.layout_grid, self.layout_probes = None, None, None
         self.field = None  # stats.field.FieldStatistics
         self.targets = None  # stats.Targets, fixed with the layout
+        #: stats.budget_targets.DerivedTargets: this point's targets from a [budget] table
+        self.derived = None
 
     @property
     def point_id(self):
@@ -87,6 +89,21 @@ class PointRun:
 
     # ------------------------------------------------------------------ input
 
+    def derive_targets(self, targets, finished_lines, stream: str) -> None:
+        """The target hook of a ``[budget]`` table: this point's targets from the stream's
+        finished points (stats/budget_targets.py), before its first samples. A failure leaves
+        the plain targets and says why (bad input never crashes the monitor)."""
+        if targets.budget is None or self.statistics is not None:
+            return
+        from eddyvigil.monitor.budget_cmd import derive_point_targets
+        from eddyvigil.stats.budget_targets import DerivedTargets
+
+        try:
+            self.derived = derive_point_targets(targets, finished_lines, stream, self.meta)
+        except (ValueError, ArithmeticError, TypeError, KeyError) as e:
+            self.derived = DerivedTargets(targets, None, {}, (),
+                                          (f"budget targets not derived ({e}): plain targets",))
+
     def accept_layout(
         self, columns, rate_hz, units, t0, targets, quality_policy, weighting="arrival",
         weights=None,
@@ -97,6 +114,9 @@ class PointRun:
             return "units_changed"  # never converted, never mixed in
         if self.statistics is None:
             from eddyvigil import stats  # the numba-compiled core loads with the first point
+
+            if self.derived is not None:  # a [budget] table: derive_targets()
+                targets = self.derived.targets
             from eddyvigil.stats import point_spectra, quality
 
             self.units = units

@@ -63,6 +63,8 @@ class StreamView:
     quality: Mapping | None = None  # the point's "quality" object (DESIGN §9) + recent "marks"
     #: the point's DESIGN §10 fields (``weighting``, ``random_sampling``); random sampling only
     random_sampling: Mapping | None = None
+    #: the current point's targets from a [budget] table (the point line's "derived_targets")
+    derived_targets: Mapping | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

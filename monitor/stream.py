@@ -129,4 +129,6 @@ class StreamState:
             spectrum=spectrum,
             quality=quality_view(point_run),
             random_sampling=random_sampling_view(point_run),
+            derived_targets=(point_run.derived.to_json()
+                             if point_run is not None and point_run.derived is not None else None),
         )

@@ -442,9 +442,15 @@ def tke_budget(
 # --------------------------------------------------------------------------- term tolerances
 
 
-def derived_tolerances(position, stats, term: str, half_width, confidence: float = 0.95):
+def derived_tolerances(position, stats, term: str, half_width, confidence: float = 0.95,
+                       discretisation=None):
     """Per-point half-widths on the statistics feeding ``term`` that give ``term`` an interval
-    of half-width ``half_width`` (scalar or per point, m^2/s^3) at every point.
+    of half-width ``half_width`` (scalar or per point, m^2/s^3) at every point (``inf`` at a
+    point: nothing asked there).
+
+    ``discretisation``: the term's discretisation estimate per point when the caller knows a
+    better one than these values give (``stats/budget_targets.py``: the finished points',
+    where some values are only interpolated); default: the four-point estimate of ``stats``.
 
     The noise budget at point ``i`` is what the discretisation estimate leaves,
     ``(H/z)^2 - disc_i^2`` (nothing: time cannot help there, more points can), shared
@@ -469,7 +475,8 @@ def derived_tolerances(position, stats, term: str, half_width, confidence: float
     if term not in ("production", "turbulent_transport") or t is None:
         raise ValueError(f"no tolerances for {term!r} from these statistics")
     h = np.broadcast_to(np.asarray(half_width, dtype=np.float64), (n,))
-    disc = np.nan_to_num(t.discretisation, nan=0.0)
+    disc = np.nan_to_num(t.discretisation if discretisation is None
+                         else np.asarray(discretisation, dtype=np.float64), nan=0.0)
     room = (h / z) ** 2 - disc**2
     unreachable = room <= 0
     s = np.sqrt(np.where(unreachable, np.nan, room))  # noise SE allowed at each point

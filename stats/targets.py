@@ -31,6 +31,15 @@ the facility's unsteadiness, e.g. a pump or the speed control hunting; it is the
 the longest integral time present: blocks of at least 4 and a record of at least 100 of it) and ``accept_modelled_k = true`` (give k measured with fewer than three components an
 interval; by default such a k is reported without one, as it rests on an isotropy model).
 
+A ``[budget]`` table asks for k-budget terms directly (``stats/budget_targets.py`` turns it,
+point by point, into tolerances on the statistics that feed each term; README, targets file)::
+
+    [budget]
+    production = { relative = 0.1 }            # +-10 % of the term's RMS across the traverse
+    turbulent_transport = { absolute = 0.5 }   # m^2/s^3
+    axis = "y"                                 # traverse axis (default y)
+    positions = [-0.1, -0.05, 0.0, 0.05, 0.1]  # the planned traverse (optional)
+
 A file replaces the default list as a whole: its ``[targets]`` table is the complete list of
 targets. A file without a ``[targets]`` table keeps the default targets and only sets the
 confidence. Example (DESIGN §5)::
@@ -75,6 +84,8 @@ __all__ = [
     "TargetPlan",
     "DEFAULT_CONFIDENCE",
     "DEFAULT_TARGETS",
+    "BUDGET_TERMS",
+    "BudgetRequest",
 ]
 
 #: Confidence level of the intervals when the file does not say.
@@ -150,7 +161,14 @@ _UNITS = {
     "dissipation": "m^2/s^3",
 }
 
-_TOP_KEYS = ("confidence", "targets", "min_record_s", "slowest_period_s", "accept_modelled_k")
+_TOP_KEYS = ("confidence", "targets", "min_record_s", "slowest_period_s", "accept_modelled_k",
+             "budget")
+
+#: k-budget terms a ``[budget]`` table may ask for (the ones the statistics of a point feed
+#: through a derivative across the traverse: stats.budget.derived_tolerances)
+BUDGET_TERMS = ("production", "turbulent_transport")
+
+_BUDGET_KEYS = (*BUDGET_TERMS, "axis", "positions")
 
 _TARGET_KEYS = ("relative", "absolute")
 
@@ -184,6 +202,71 @@ class Target:
             return f"±{self.absolute:g} {_UNITS.get(fam, '')}".rstrip()
         scale = _SCALE_TEXT.get(fam, f"of |{self.name}|")
         return f"±{100.0 * self.relative:g} % {scale}"
+
+
+@dataclass(frozen=True, slots=True)
+class BudgetRequest:
+    """The ``[budget]`` table: tolerances on k-budget terms (``Target`` named by the term;
+    relative: to the term's RMS across the traverse so far, absolute: m^2/s^3), the traverse
+    axis and, optionally, the planned positions along it (m)."""
+
+    terms: Mapping[str, Target]
+    axis: str = "y"
+    positions: tuple[float, ...] | None = None
+
+    def describe(self, term: str) -> str:
+        t = self.terms[term]
+        if t.absolute is not None:
+            return f"±{t.absolute:g} m^2/s^3"
+        return f"±{100.0 * t.relative:g} % of its RMS across the traverse"
+
+    def to_dict(self) -> dict:
+        out: dict = {name: ({"absolute": t.absolute} if t.absolute is not None
+                            else {"relative": t.relative}) for name, t in self.terms.items()}
+        out["axis"] = self.axis
+        if self.positions is not None:
+            out["positions"] = list(self.positions)
+        return out
+
+
+def _parse_budget(source: str, table) -> BudgetRequest:
+    where = f"{source}: [budget]"
+    if not isinstance(table, Mapping):
+        raise TargetsError(f"{where} must be a table, got {type(table).__name__}")
+    unknown = [k for k in table if k not in _BUDGET_KEYS]
+    if unknown:
+        raise TargetsError(
+            f"{where}: unknown key {unknown[0]!r}{_suggest(str(unknown[0]), _BUDGET_KEYS)}; "
+            "terms that can be asked for: production, turbulent_transport (dissipation, "
+            "advection and the residual are not fed by a point's moments); also axis, positions"
+        )
+    terms = {}
+    for name in BUDGET_TERMS:
+        if name not in table:
+            continue
+        spec = table[name]
+        if not isinstance(spec, Mapping) or len(spec) != 1 \
+                or next(iter(spec)) not in _TARGET_KEYS:
+            raise TargetsError(f"{where} {name}: expected {{ relative = 0.1 }} or "
+                               f"{{ absolute = 0.5 }} (m^2/s^3), got {spec!r}")
+        ((key, value),) = spec.items()
+        if not _is_number(value) or not (math.isfinite(value) and value > 0):
+            raise TargetsError(f"{where} {name}: {key} must be a positive number, got {value!r}")
+        terms[name] = Target(name=name, **{key: float(value)})
+    if not terms:
+        raise TargetsError(f"{where}: name at least one term (production, turbulent_transport)")
+    axis = table.get("axis", "y")
+    if axis not in ("x", "y", "z"):
+        raise TargetsError(f"{where}: axis must be \"x\", \"y\" or \"z\", got {axis!r}")
+    positions = table.get("positions")
+    if positions is not None:
+        ok = isinstance(positions, list) and len(positions) >= 3 and all(
+            _is_number(p) and math.isfinite(p) for p in positions)
+        if not ok or len({round(float(p), 9) for p in positions}) != len(positions):
+            raise TargetsError(f"{where}: positions must be a list of at least three distinct "
+                               "numbers (m along the axis)")
+        positions = tuple(sorted(float(p) for p in positions))
+    return BudgetRequest(terms, axis, positions)
 
 
 def _is_number(x) -> bool:
@@ -256,6 +339,8 @@ class Targets:
     slowest_period_s: float | None = None
     #: give k from fewer than three components an interval (it rests on an isotropy model)
     accept_modelled_k: bool = False
+    #: the [budget] table (stats/budget_targets.py), None when the file has none
+    budget: BudgetRequest | None = None
 
     @property
     def required_record_s(self) -> float:
@@ -322,6 +407,8 @@ class Targets:
                     f"got {d['accept_modelled_k']!r}"
                 )
             record["accept_modelled_k"] = d["accept_modelled_k"]
+        if "budget" in d:
+            record["budget"] = _parse_budget(source, d["budget"])
         if "targets" not in d:
             return cls(confidence=float(confidence), targets=cls.defaults().targets, **record)
         table = d["targets"]
@@ -366,6 +453,8 @@ class Targets:
                 d[key] = getattr(self, key)
         if self.accept_modelled_k:
             d["accept_modelled_k"] = True
+        if self.budget is not None:
+            d["budget"] = self.budget.to_dict()
         return d
 
     # ----------------------------------------------------------------- resolving
@@ -411,6 +500,10 @@ class Targets:
         for name, t in self.targets.items():
             lines.append(f"  {name:<{width}}  {t.describe()}")
         lines.append("Other statistics are reported without a target.")
+        if self.budget is not None:
+            for term in self.budget.terms:
+                lines.append(f"Budget: {term} {self.budget.describe(term)} along "
+                             f"{self.budget.axis} (per-point tolerances derived as points finish)")
         return "\n".join(lines)
 
 

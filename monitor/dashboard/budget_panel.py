@@ -8,7 +8,9 @@ from __future__ import annotations
 
 import math
 
-__all__ = ["BUDGET_TERMS", "BudgetPanel", "budget_columns"]
+__all__ = ["BUDGET_TERMS", "BudgetPanel", "budget_columns", "derived_text"]
+
+TITLE = "k budget across the traverse (95 % intervals)"
 
 #: terms drawn, with their colours
 BUDGET_TERMS = {"production": "#1f5f8b", "turbulent_transport": "#c0392b",
@@ -49,6 +51,23 @@ def budget_columns(view, axis: str = "y", confidence: float = 0.95) -> dict:
     return cols
 
 
+def derived_text(view) -> str:
+    """The current point's budget-derived targets in words (stats/budget_targets.py), e.g.
+    ``"point P07: production ±0.25 -> uv ±0.011, U ±0.024"``; "" without a [budget] table."""
+    d = getattr(view, "derived_targets", None) if view is not None else None
+    if not d:
+        return ""
+    pid = (view.point or {}).get("id")
+    parts = []
+    for term, entry in d.get("terms", {}).items():
+        used = [f"{s['name']} ±{s['half_width']:.2g}" for s in d.get("statistics", ())
+                if s.get("term") == term and s.get("applied")]
+        h = entry.get("half_width")
+        head = term.replace("_", " ") + (f" ±{h:.2g}" if h is not None else "")
+        parts.append(head + (" -> " + ", ".join(used) if used else ": plain targets"))
+    return f"point {pid}: " + "; ".join(parts)
+
+
 class BudgetPanel:
     """A figure of the budget terms with interval whiskers; ``update(view, axis)`` per tick."""
 
@@ -57,7 +76,7 @@ class BudgetPanel:
         from bokeh.plotting import figure
 
         self.source = ColumnDataSource(budget_columns(None), name="budget_source")
-        self.figure = figure(title="k budget across the traverse (95 % intervals)",
+        self.figure = figure(title=TITLE,
                              x_axis_label="y (m)", y_axis_label="m²/s³", name="budget",
                              **plot)
         for t, colour in BUDGET_TERMS.items():
@@ -79,9 +98,12 @@ class BudgetPanel:
     def update(self, view, axis: str) -> None:
         """Recompute when the set of finished points (or the axis) changed."""
         key = (axis, len(view.finished) if view is not None else -1,
-               view.finished[-1].get("point", {}).get("id") if view and view.finished else None)
+               view.finished[-1].get("point", {}).get("id") if view and view.finished else None,
+               derived_text(view))
         if key == self._shown:
             return
         self._shown = key
+        note = key[-1]  # the current point's budget-derived targets, in the title
+        self.figure.title.text = TITLE + (f" | {note}" if note else "")
         self.figure.xaxis.axis_label = f"{axis} (m)"
         self.source.data = budget_columns(view, axis)

@@ -301,18 +301,28 @@ def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
         if v.stats is None:
             continue
         pid = str((v.point or {}).get("id", "–"))
+        derived = derived_terms(v)
         for e in v.stats.targeted():
             cols["stream"].append(name)
             cols["point"].append(pid)
             cols["name"].append(e.name)
             cols["value"].append(f"{format_value(e.value)} ± {format_value(e.half_width, 2)}")
-            cols["target"].append(f"± {format_value(e.target, 2)}")
+            cols["target"].append(f"± {format_value(e.target, 2)}"
+                                  + (f" ({derived[e.name]})" if e.name in derived else ""))
             state = display_state(e)
             cols["state"].append(state_words(state))
             cols["eta"].append("done" if e.converged else _eta(e.eta_s))
             cols["colour"].append(STATE_COLOURS.get(state, GREY))
         _spectral_status_rows(cols, name, pid, v)
     return cols
+
+
+def derived_terms(view: StreamView | None) -> dict[str, str]:
+    """``name -> "from production"`` for the current point's targets that a ``[budget]`` term
+    set (stats/budget_targets.py); the status board notes them beside the target."""
+    derived = getattr(view, "derived_targets", None) or {}
+    return {s["name"]: f"from {s['term'].replace('_', ' ')}"
+            for s in derived.get("statistics", ()) if s.get("applied")}
 
 
 #: Rows of the status board from the spectra (ε targeted or not, then the scales it sets).
