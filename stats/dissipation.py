@@ -23,8 +23,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from eddyvigil.stats.spectra import SpectrumSnapshot, _bin_correlations, log_bin
-from scipy import ndimage
-from scipy import stats as sst
+from eddyvigil.stats.spectral_kernels import flattest_run
+from scipy import ndimage, special
 
 __all__ = [
     "C1_DEFAULT",
@@ -165,7 +165,15 @@ class Dissipation:
 
 
 def _z(confidence: float) -> float:
-    return float(sst.norm.ppf(0.5 + confidence / 2.0))
+    # scipy.stats.norm.ppf's own formula (ndtri) without its argument checks, which cost 30x
+    return float(special.ndtri(0.5 + confidence / 2.0))
+
+
+def _chi2_quantile(p: float, dof) -> np.ndarray | float:
+    """scipy.stats.chi2.ppf(p, dof) for 0 < p < 1 and dof > 0: its own formula,
+    ``2 gammaincinv(dof/2, p)`` (scipy's chi2._ppf), the same bits without the argument checks
+    (which cost 50x the value)."""
+    return 2 * special.gammaincinv(np.asarray(dof, dtype=np.float64) / 2, p)
 
 
 # ---------------------------------------------------------------- noise floor
@@ -318,7 +326,8 @@ def _flattest_band(f, comp, dof, usable):
     dof/2, since var log S = 2/dof); the run is flat when the quadratic, widened by two standard
     errors, stays within log(1.05) of the run's mean level at both ends and at its vertex (so
     neither a slope nor a hump nor noise passes for flatness), and the scatter about it is
-    chi^2-like. Prefix sums make every (start, end) pair O(1); the ends loop in numpy.
+    chi^2-like. Prefix sums make every (start, end) pair O(1); the pairs loop in a numba
+    kernel (``spectral_kernels.flattest_run``; vectorised numpy cost 10x more).
     """
     idx = np.flatnonzero(usable)
     if idx.size < 5:
@@ -330,57 +339,19 @@ def _flattest_band(f, comp, dof, usable):
     pw = [np.r_[0.0, np.cumsum(w * x**p)] for p in range(5)]
     py = [np.r_[0.0, np.cumsum(w * y * x**p)] for p in range(3)]
     pyy = np.r_[0.0, np.cumsum(w * y * y)]
-    # a run may not cross an unusable band
-    bad = np.r_[0, np.cumsum(~usable)]
-    tol = math.log1p(FLAT_TOLERANCE)
-    # every (start, end) pair at once: ends at least 4 bands on, spanning MIN_FIT_SPAN, no unusable
-    # band inside
-    a, b = np.triu_indices(f.size, 4)
-    keep = (
-        usable[a]
-        & usable[b]
-        & ((bad[b + 1] - bad[a]) == 0)
-        & (x[b] - x[a] >= math.log(MIN_FIT_SPAN))
+    limit = _chi2_quantile(0.999, np.arange(f.size + 1).clip(1))  # once per dof, not per run
+    a, b = flattest_run(
+        x,
+        np.stack(pw),
+        np.stack(py),
+        pyy,
+        np.asarray(usable, dtype=np.bool_),
+        math.log(MIN_FIT_SPAN),
+        math.log1p(FLAT_TOLERANCE),
+        WIDEN,
+        limit,
     )
-    a, b = a[keep], b[keep]
-    if a.size == 0:
-        return None
-    s0, s1, s2, s3, s4 = (pw[p][b + 1] - pw[p][a] for p in range(5))
-    r0, r1, r2 = (py[p][b + 1] - py[p][a] for p in range(3))
-    # the normal equations' matrix [[s0 s1 s2] [s1 s2 s3] [s2 s3 s4]] inverted in closed form
-    # (adjugate / determinant, vectorised over the pairs: numpy.linalg.inv per 3x3 cost 20x more)
-    c00, c01, c02 = s2 * s4 - s3 * s3, s2 * s3 - s1 * s4, s1 * s3 - s2 * s2
-    c11, c12, c22 = s0 * s4 - s2 * s2, s1 * s2 - s0 * s3, s0 * s2 - s1 * s1
-    det = s0 * c00 + s1 * c01 + s2 * c02
-    scale = np.maximum.reduce([np.abs(v) for v in (s0, s1, s2, s3, s4)])
-    good = np.abs(det) > 1e-12 * scale**3
-    if not good.any():
-        return None
-    a, b, det = a[good], b[good], det[good]
-    s0, s1, s2 = s0[good], s1[good], s2[good]
-    r0, r1, r2 = r0[good], r1[good], r2[good]
-    i00, i01, i02, i11, i12, i22 = (v[good] / det for v in (c00, c01, c02, c11, c12, c22))
-    beta1 = i01 * r0 + i11 * r1 + i12 * r2
-    beta2 = i02 * r0 + i12 * r1 + i22 * r2
-    beta0 = i00 * r0 + i01 * r1 + i02 * r2
-    chi2 = (pyy[b + 1] - pyy[a]) - (beta0 * r0 + beta1 * r1 + beta2 * r2)
-    xm, x2m = s1 / s0, s2 / s0
-    c2 = np.where(beta2 != 0, beta2, 1.0)
-    vertex = np.clip(np.where(beta2 != 0, -beta1 / (2 * c2), x[a]), x[a], x[b])
-    worst = np.zeros(a.size)
-    for xe in (x[a], x[b], vertex):
-        g1, g2 = xe - xm, xe**2 - x2m  # the gradient (0, g1, g2) of the level at xe
-        dev = np.abs(g1 * beta1 + g2 * beta2)
-        sd = np.sqrt(np.maximum(g1 * g1 * i11 + 2.0 * g1 * g2 * i12 + g2 * g2 * i22, 0.0))
-        worst = np.maximum(worst, dev + WIDEN * sd)
-    n = np.maximum(b - a - 2, 1)  # bands minus the quadratic's three parameters
-    limit = sst.chi2.ppf(0.999, np.arange(n.max() + 1).clip(1))  # once per dof, not per pair
-    ok = (worst <= tol) & (chi2 <= limit[n])
-    if not ok.any():
-        return None
-    span = np.where(ok, x[b] - x[a], -np.inf)
-    k = int(np.argmax(span))  # the widest (first of equals: the lowest start)
-    return int(a[k]), int(b[k])
+    return None if a < 0 else (int(a), int(b))
 
 
 # ---------------------------------------------------------------- scales
@@ -437,8 +408,8 @@ def find_peaks(
     dof = float(spec.dof[1])
     if stop < 2 * (flank + gap) + 4 or not dof > 0:
         return ()
-    thr = sst.chi2.ppf(1.0 - alpha / (stop - 2), dof) / dof
-    med_corr = sst.chi2.median(dof) / dof
+    thr = _chi2_quantile(1.0 - alpha / (stop - 2), dof) / dof
+    med_corr = _chi2_quantile(0.5, dof) / dof  # scipy.stats.chi2.median
     for c, name in enumerate(spec.columns):
         s = spec.psd[1:stop, c]
         if not np.all(s > 0):

@@ -86,15 +86,15 @@ def integral_time_estimate(x: np.ndarray, rate_hz: float) -> float:
     n = x.shape[0]
     if n < 16:
         return float("nan")
-    y = x - x.mean(axis=0)
+    y = (x - x.mean(axis=0)).T  # (m, n): each column's transform on contiguous rows
     nfft = scipy.fft.next_fast_len(2 * n)
-    spec = scipy.fft.rfft(y, nfft, axis=0)
-    acf = scipy.fft.irfft(np.abs(spec) ** 2, nfft, axis=0)[:n]
+    spec = scipy.fft.rfft(y, nfft, axis=1)
+    acf = scipy.fft.irfft(np.abs(spec) ** 2, nfft, axis=1)[:, :n]
     out = 0.0
-    for j in range(acf.shape[1]):
-        if acf[0, j] <= 0:
+    for j in range(acf.shape[0]):
+        if acf[j, 0] <= 0:
             continue
-        r = acf[:, j] / acf[0, j]
+        r = acf[j] / acf[j, 0]
         neg = np.flatnonzero(r <= 0)
         stop = int(neg[0]) if neg.size else n
         out = max(out, (r[:stop].sum() - 0.5) / rate_hz)

@@ -14,7 +14,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["accumulate_power", "segment_sum", "window_segments"]
+__all__ = ["accumulate_power", "flattest_run", "segment_sum", "window_segments"]
 
 
 @numba.njit(cache=True, nogil=True)
@@ -86,3 +86,73 @@ def accumulate_power(spec: np.ndarray, out: np.ndarray) -> None:  # pragma: no c
                 re = z[f].real
                 im = z[f].imag
                 o[f] += re * re + im * im
+
+
+@numba.njit(cache=True, nogil=True)
+def flattest_run(
+    x: np.ndarray,
+    pw: np.ndarray,
+    py: np.ndarray,
+    pyy: np.ndarray,
+    usable: np.ndarray,
+    min_span: float,
+    tol: float,
+    widen: float,
+    limit: np.ndarray,
+) -> tuple:  # pragma: no cover - compiled
+    """The widest flat run of bands for ``dissipation._flattest_band``; (-1, -1) when none.
+
+    x (nb,) centred log frequencies; pw (5, nb + 1), py (3, nb + 1), pyy (nb + 1) prefix sums
+    of w x^p, w y x^p and w y^2; usable (nb,) bool; limit[n] the 0.999 chi^2 quantile with n
+    dof. Every run a..b of usable bands, b - a >= 4 and x[b] - x[a] >= min_span: the weighted
+    quadratic in x through y from the 3x3 normal equations (adjugate over determinant), its
+    largest deviation from the run's level at the ends and the vertex widened by ``widen``
+    standard errors, against ``tol``, and the scatter against ``limit``. The widest passing
+    run wins, the lowest start of equals.
+    """
+    nb = x.size
+    best_a, best_b, best = -1, -1, -np.inf
+    for a in range(nb):
+        if not usable[a]:
+            continue
+        for b in range(a + 1, nb):
+            if not usable[b]:
+                break  # a run may not cross an unusable band
+            if b - a < 4 or x[b] - x[a] < min_span:
+                continue
+            s0 = pw[0, b + 1] - pw[0, a]
+            s1 = pw[1, b + 1] - pw[1, a]
+            s2 = pw[2, b + 1] - pw[2, a]
+            s3 = pw[3, b + 1] - pw[3, a]
+            s4 = pw[4, b + 1] - pw[4, a]
+            r0 = py[0, b + 1] - py[0, a]
+            r1 = py[1, b + 1] - py[1, a]
+            r2 = py[2, b + 1] - py[2, a]
+            c00, c01, c02 = s2 * s4 - s3 * s3, s2 * s3 - s1 * s4, s1 * s3 - s2 * s2
+            c11, c12, c22 = s0 * s4 - s2 * s2, s1 * s2 - s0 * s3, s0 * s2 - s1 * s1
+            det = s0 * c00 + s1 * c01 + s2 * c02
+            scale = max(abs(s0), abs(s1), abs(s2), abs(s3), abs(s4))
+            if not abs(det) > 1e-12 * scale**3:
+                continue
+            i00, i01, i02 = c00 / det, c01 / det, c02 / det
+            i11, i12, i22 = c11 / det, c12 / det, c22 / det
+            beta0 = i00 * r0 + i01 * r1 + i02 * r2
+            beta1 = i01 * r0 + i11 * r1 + i12 * r2
+            beta2 = i02 * r0 + i12 * r1 + i22 * r2
+            chi2 = (pyy[b + 1] - pyy[a]) - (beta0 * r0 + beta1 * r1 + beta2 * r2)
+            xm, x2m = s1 / s0, s2 / s0
+            vertex = -beta1 / (2 * beta2) if beta2 != 0 else x[a]
+            vertex = min(max(vertex, x[a]), x[b])
+            worst = 0.0
+            for e in range(3):
+                xe = x[a] if e == 0 else (x[b] if e == 1 else vertex)
+                g1, g2 = xe - xm, xe * xe - x2m  # the gradient (0, g1, g2) of the level at xe
+                q = g1 * g1 * i11 + 2.0 * g1 * g2 * i12 + g2 * g2 * i22
+                w = abs(g1 * beta1 + g2 * beta2) + widen * np.sqrt(max(q, 0.0))
+                if w > worst or w != w:  # a NaN stays (and fails the test below)
+                    worst = w
+            n = max(b - a - 2, 1)  # bands minus the quadratic's three parameters
+            span = x[b] - x[a]
+            if worst <= tol and chi2 <= limit[n] and span > best:
+                best_a, best_b, best = a, b, span
+    return best_a, best_b

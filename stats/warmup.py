@@ -60,6 +60,11 @@ def exercise(dtype, columns) -> None:
         quality.flush()
     # the Welch kernels (window_segments, accumulate_power) for this dtype, through the class
     SpectrumAccumulator(columns, 1000.0, segment=256).update(block[:1500]).snapshot()
+    if dtype is np.float64 and len(columns) == 3:  # dissipation's flat-range search (float64)
+        from eddyvigil.stats.dissipation import _flattest_band
+
+        f = np.geomspace(1.0, 100.0, 12)
+        _flattest_band(f, np.ones(12), np.full(12, 400.0), np.ones(12, dtype=bool))
 
 
 def prepare_kernels() -> float:
