@@ -11,6 +11,8 @@ round, the arms interleaved:
   - ``off``: the spectra switched off (the pipeline's PointSpectra replaced by nothing);
   - ``on``: the spectra as the monitor runs them (Welch on every 50 %-overlapped segment,
     eps/scales/peaks at each point end and for the dashboard's live view);
+  - ``welch only``: the Welch spectra without eps/scales/peaks (what is per sample; the
+    evaluations are per point and per live view);
   - ``stride 4``: transforming only every 4th segment (fewer dof; not the default);
   - ``before`` (with ``--baseline DIR``): the same with the spectra modules of another checkout
     (``DIR/stats/{spectral_kernels,spectra,dissipation,point_spectra}.py``, loaded under private
@@ -75,6 +77,14 @@ def frames_of(x: np.ndarray, rows: int, points: int) -> list[list[bytes]]:
             seq += 1
     out.append(wire.encode_end("bench", "s1", seq))
     return out
+
+
+class WelchOnly(_PointSpectra):
+    """The spectra without eps, scales and peaks (to split the cost: Welch per sample, the
+    evaluations per point); a benchmark arm only, its summary carries no eps."""
+
+    def evaluate(self, moments, nu=None):
+        return self.welch.snapshot(), None
 
 
 def load_baseline(root: Path):
@@ -151,6 +161,7 @@ def main() -> None:
     arms = {
         "off": ("f4", None),
         "on": ("f4", _PointSpectra),
+        "welch only": ("f4", WelchOnly),
         "stride 4": ("f4", functools.partial(_PointSpectra, stride=4)),
         "off f8": ("f8", None),
         "on f8": ("f8", _PointSpectra),
@@ -175,9 +186,21 @@ def main() -> None:
         ref = times["off f8" if v.endswith("f8") else "off"]
         extra = [100 * (t / b - 1) for t, b in zip(times[v], ref, strict=True)]
         print(
-            f"spectra + eps, {v:9s}: median extra CPU {statistics.median(extra):5.1f} % "
+            f"spectra + eps, {v:10s}: median extra CPU {statistics.median(extra):5.1f} % "
             f"(rounds {min(extra):.0f}-{max(extra):.0f} %) over the path without spectra"
         )
+    for kind in ("", " f8"):
+        if f"before{kind}" in times:  # the spectra's own CPU, now over before, round by round
+            off = times[f"off{kind}"]
+            share = [
+                (t - o) / (b - o)
+                for t, b, o in zip(times[f"on{kind}"], times[f"before{kind}"], off, strict=True)
+            ]
+            med = statistics.median(share)
+            print(
+                f"spectra's own CPU{kind}, now / before: median {med:.2f} "
+                f"(rounds {min(share):.2f}-{max(share):.2f})"
+            )
     print(
         f"(off: {x.shape[0] / statistics.median(times['off']) / 1e6:.1f} M samples/CPU s; "
         f"{a.points} points of {a.seconds:g} s, 3 columns at 20 kHz, {a.rows} rows/message)"

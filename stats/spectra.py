@@ -274,7 +274,8 @@ class SpectrumAccumulator:
             else int(min(max(4 * MIN_SEGMENT, 2 * rate_hz), 1 << 18))
         )
         self._buf = np.zeros((self._m, 0))  # column-major samples not yet past a segment start
-        self._fill = 0
+        self._head = 0  # the first held sample's column in _buf
+        self._fill = 0  # samples held, from _head on
         self._work = np.empty(0)  # windowed segments of one batch, reused
         self.segment = None
         self._sum = None
@@ -315,7 +316,7 @@ class SpectrumAccumulator:
         if self.segment is None:
             if self._fill < self._probe:
                 return self
-            held = self._buf[:, : self._fill].T
+            held = self._buf[:, self._head : self._head + self._fill].T
             self._set_segment(
                 segment_length(self.rate_hz, integral_time_estimate(held, self.rate_hz))
             )
@@ -342,13 +343,13 @@ class SpectrumAccumulator:
         if self._work.size < size or self._work.dtype != self._buf.dtype:
             self._work = np.empty(size, dtype=self._buf.dtype)
         work = self._work[:size].reshape(self._m, k, n)
-        window_segments(self._buf, step, self.window, work)
+        window_segments(self._buf, self._head, step, self.window, work)
         # one batched transform for the whole batch (m k segments, contiguous rows)
         accumulate_power(scipy.fft.rfft(work, axis=2, overwrite_x=True), self._sum)
         self._done += k
         self._skip = max(0, k * step - have)  # a stride may step past the data held
         keep = max(0, have - k * step)
-        self._buf[:, :keep] = self._buf[:, have - keep : have]  # numpy handles the overlap
+        self._head = self._head + have - keep if keep else 0  # no copy: _append compacts
         self._fill = keep
 
     def flush(self) -> SpectrumAccumulator:
@@ -376,16 +377,23 @@ class SpectrumAccumulator:
         the data's own float32 rounding); float64 from the first float64 block on. Segment
         means, the windowing and the sums of periodograms are float64 either way.
         """
+        head, fill = self._head, self._fill
         if self._buf.dtype != np.float64 and x.dtype != np.float32:
-            self._buf = self._buf[:, : self._fill].astype(np.float64)
-        elif self._fill == 0 and self._done == 0 and x.dtype == np.float32:
-            self._buf = self._buf[:, :0].astype(np.float32)
-        need = self._fill + x.shape[0]
-        if need > self._buf.shape[1]:
-            grown = np.empty((self._m, max(need, 2 * self._buf.shape[1])), dtype=self._buf.dtype)
-            grown[:, : self._fill] = self._buf[:, : self._fill]
-            self._buf = grown
-        self._buf[:, self._fill : need] = x.T
+            self._buf, self._head = self._buf[:, head : head + fill].astype(np.float64), 0
+        elif fill == 0 and self._done == 0 and x.dtype == np.float32:
+            self._buf, self._head = self._buf[:, :0].astype(np.float32), 0
+        head, need = self._head, fill + x.shape[0]
+        if head + need > self._buf.shape[1]:
+            # held samples move to the front, into a buffer of twice what is needed: they move
+            # once per several blocks, not at every block
+            if 2 * need > self._buf.shape[1]:
+                grown = np.empty((self._m, 2 * need), dtype=self._buf.dtype)
+                grown[:, :fill] = self._buf[:, head : head + fill]
+                self._buf = grown
+            else:
+                self._buf[:, :fill] = self._buf[:, head : head + fill]  # numpy minds the overlap
+            self._head = head = 0
+        self._buf[:, head + fill : head + need] = x.T
         self._fill = need
 
     def merge(self, other: SpectrumAccumulator) -> SpectrumAccumulator:
@@ -408,7 +416,7 @@ class SpectrumAccumulator:
         )
         out._sum = self._sum + other._sum
         out._done = self._done + other._done
-        out._buf = other._buf[:, : other._fill].copy()
+        out._buf = other._buf[:, other._head : other._head + other._fill].copy()
         out._fill = other._fill
         out._skip = other._skip
         return out

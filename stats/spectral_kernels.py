@@ -42,9 +42,9 @@ def segment_sum(x: np.ndarray, start: int, n: int) -> float:  # pragma: no cover
 
 @numba.njit(cache=True, nogil=True)
 def window_segments(
-    buf: np.ndarray, step: int, window: np.ndarray, out: np.ndarray
+    buf: np.ndarray, first: int, step: int, window: np.ndarray, out: np.ndarray
 ) -> None:  # pragma: no cover - compiled
-    """``out[j, s, t] = window[t] * (buf[j, s step + t] - mean_t buf[j, s step + t])``.
+    """``out[j, s, t] = window[t] * (x[s step + t] - mean_t x[s step + t])``, x = buf[j, first:].
 
     buf (m, rows) column-major samples, out (m, k, n) of buf's dtype, window (n,) float64. The
     windowed difference is formed in float64 and rounded once to out's dtype. A segment gives
@@ -60,10 +60,10 @@ def window_segments(
         x = buf[j]
         nxt = 0.0
         for s in range(k):
-            r0 = s * step
-            first = nxt if shared and s > 0 else segment_sum(x, r0, half)
+            r0 = first + s * step
+            head = nxt if shared and s > 0 else segment_sum(x, r0, half)
             nxt = segment_sum(x, r0 + half, n - half)
-            mean = (first + nxt) / n
+            mean = (head + nxt) / n
             seg = x[r0 : r0 + n]
             o = out[j, s]
             for t in range(n):
