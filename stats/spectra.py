@@ -377,12 +377,15 @@ class SpectrumAccumulator:
         the data's own float32 rounding); float64 from the first float64 block on. Segment
         means, the windowing and the sums of periodograms are float64 either way.
         """
-        head, fill = self._head, self._fill
         if self._buf.dtype != np.float64 and x.dtype != np.float32:
+            # complete segments still waiting go in float32, as a snapshot would have sent them
+            self._transform(flush=True)
+            head, fill = self._head, self._fill
             self._buf, self._head = self._buf[:, head : head + fill].astype(np.float64), 0
-        elif fill == 0 and self._done == 0 and x.dtype == np.float32:
+        elif self._fill == 0 and self._done == 0 and x.dtype == np.float32:
             self._buf, self._head = self._buf[:, :0].astype(np.float32), 0
-        head, need = self._head, fill + x.shape[0]
+        head, fill = self._head, self._fill
+        need = fill + x.shape[0]
         if head + need > self._buf.shape[1]:
             # held samples move to the front, into a buffer of twice what is needed: they move
             # once per several blocks, not at every block

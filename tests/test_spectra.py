@@ -244,3 +244,23 @@ def test_float32_blocks_with_a_large_mean_keep_float32_precision_in_every_bin():
         acc.update(x[i : i + 7001])
     _, ref = sps.welch(x.astype(np.float64), fs=1000.0, nperseg=1024, axis=0)
     np.testing.assert_allclose(acc.snapshot().psd, ref, rtol=5e-6, atol=0)
+
+
+def test_a_float64_block_after_float32_ones_gives_the_same_bits_with_or_without_snapshots():
+    # live = replay (common practice) across the switch to float64: segments complete before it
+    # are transformed in float32 whether or not a snapshot flushed them first
+    rng = np.random.default_rng(24)
+    x = ar1(rng, 30_000, 2, 0.9) + [3.0, 0.0]
+    parts = [x[:9_700].astype(np.float32), x[9_700:].astype(np.float64)]
+    plain = SpectrumAccumulator(("u", "v"), 1000.0, segment=1024)
+    watched = SpectrumAccumulator(("u", "v"), 1000.0, segment=1024)
+    for part in parts:
+        for i in range(0, part.shape[0], 1500):
+            plain.update(part[i : i + 1500])
+            watched.update(part[i : i + 1500])
+            watched.snapshot()
+    np.testing.assert_array_equal(watched.snapshot().psd, plain.snapshot().psd)
+    # and the result is Welch's (scipy.signal.welch of the float64 samples) within float32
+    # rounding for the segments that were float32
+    _, ref = sps.welch(x, fs=1000.0, nperseg=1024, axis=0)
+    np.testing.assert_allclose(plain.snapshot().psd, ref, rtol=1e-5)
