@@ -211,15 +211,16 @@ def test_float32_blocks_take_the_float32_transform_and_match_scipy():
     assert acc._buf.dtype == np.float64
 
 
+@pytest.mark.parametrize("segment", [1024, 301])
 @pytest.mark.parametrize("dtype", [np.float32, np.float64])
-def test_same_bits_whatever_the_blocks_and_the_snapshots(dtype):
+def test_same_bits_whatever_the_blocks_and_the_snapshots(dtype, segment):
     # live = replay (common practice: block-splitting invariance): segments wait for a batch of
     # FFT_BATCH, a snapshot flushes them, and neither the blocks nor when snapshots are taken
     # (the dashboard's wall clock) may change a bit of the sums
     rng = np.random.default_rng(23)
     x = (ar1(rng, 50_000, 3, 0.9) + [5.0, 0.0, 0.0]).astype(dtype)
-    whole = SpectrumAccumulator(("u", "v", "w"), 1000.0, segment=1024).update(x).snapshot()
-    acc = SpectrumAccumulator(("u", "v", "w"), 1000.0, segment=1024)
+    whole = SpectrumAccumulator(("u", "v", "w"), 1000.0, segment=segment).update(x).snapshot()
+    acc = SpectrumAccumulator(("u", "v", "w"), 1000.0, segment=segment)
     i = 0
     while i < x.shape[0]:
         j = i + int(rng.integers(1, 4000))
@@ -228,7 +229,8 @@ def test_same_bits_whatever_the_blocks_and_the_snapshots(dtype):
             acc.snapshot()
         i = j
     snap = acc.snapshot()
-    assert snap.segments == whole.segments == 1 + (50_000 - 1024) // 512
+    hop = segment - segment // 2
+    assert snap.segments == whole.segments == 1 + (50_000 - segment) // hop
     np.testing.assert_array_equal(snap.psd, whole.psd)
 
 
