@@ -56,8 +56,8 @@ MIN_SEGMENT = 256
 MAX_SEGMENT = 1 << 16
 #: segments transformed per column in one scipy.fft call (a multiple of it): pocketfft runs
 #: float32 transforms 4 at a time in SIMD lanes (float64: 2), so a batch of 4 segments per
-#: column costs ~13 us per 8192-point float32 segment where 1 or 2 cost ~28 us
-#: (benchmarks/bench_spectra.py --fft); the others wait in the buffer for the next block
+#: column costs ~13 us per 8192-point float32 segment where 1 or 2 cost ~28 us (scipy 1.17
+#: on this project's CI machine); the others wait in the buffer for the next block
 FFT_BATCH = 4
 
 
