@@ -1,20 +1,29 @@
 """Cost of spectra + dissipation on the monitor's ingest path, side by side in one run.
 
-    python benchmarks/bench_spectra.py [--seconds 60] [--repeat 3] [--rows 16384]
+    python benchmarks/bench_spectra.py [--seconds 60] [--repeat 5] [--rows 16384]
+                                       [--baseline DIR]
 
 The frames ``watch`` receives (3 float32 columns at 20 kHz, ``--rows`` per message, points of
 ``--seconds``) are encoded once, then fed through ``Pipeline.handle_frames`` (decode, every
-statistic, the summary line at each point end, snapshots on the real clock) twice per round:
+statistic, the summary line at each point end, snapshots on the real clock) once per arm and
+round, the arms interleaved:
 
-  - with the spectra switched off (the pipeline's PointSpectra replaced by nothing);
-  - with the spectra as the monitor runs them (Welch on every 50 %-overlapped segment,
-    eps/scales/peaks at each point end and for the dashboard's live view), stride 1;
-  - the same transforming only every 4th / 16th segment (``stride``);
-  - the same samples sent as float64 (the spectra's float64 FFT), against float64 "off".
+  - ``off``: the spectra switched off (the pipeline's PointSpectra replaced by nothing);
+  - ``on``: the spectra as the monitor runs them (Welch on every 50 %-overlapped segment,
+    eps/scales/peaks at each point end and for the dashboard's live view);
+  - ``welch only``: the Welch spectra without eps/scales/peaks (what is per sample; the
+    evaluations are per point and per live view);
+  - ``stride 4``: transforming only every 4th segment (fewer dof; not the default);
+  - ``before`` (with ``--baseline DIR``): the same with the spectra modules of another checkout
+    (``DIR/stats/{spectral_kernels,spectra,dissipation,point_spectra}.py``, loaded under private
+    names, numba without its disk cache so nothing is written there), e.g. the main branch;
+  - ``off f8`` / ``on f8`` (and ``before f8``): the same samples sent as float64 (the spectra's
+    float64 FFT).
 
-Prints samples per CPU second of each per round (interleaved), the median extra cost over
-"off" in %,
-and the time of one ``dissipation()`` evaluation. No assertions.
+Prints samples per CPU second of each arm per round, the median extra CPU over ``off`` in %
+with its range over the rounds, the largest relative difference of the summary's ``eps``,
+``eps_inertial`` and ``eps_iso`` between ``before`` and ``on``, and the CPU time of one
+``dissipation()`` evaluation and of the Welch update of one point. No assertions.
 """
 
 from __future__ import annotations
@@ -22,10 +31,12 @@ from __future__ import annotations
 import argparse
 import functools
 import io
+import json
 import os
 import statistics
 import sys
 import time
+import types
 from pathlib import Path
 
 os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
@@ -39,10 +50,12 @@ from eddyvigil.monitor.pipeline import Pipeline  # noqa: E402
 from eddyvigil.simulator.signals import PopeGenerator, generate  # noqa: E402
 from eddyvigil.stats import point_spectra  # noqa: E402
 from eddyvigil.stats.dissipation import dissipation  # noqa: E402
+from eddyvigil.stats.spectra import SpectrumAccumulator  # noqa: E402
 
 _PointSpectra = point_spectra.PointSpectra
 
 RATE = 20_000.0
+EPS_ROWS = ("eps", "eps_inertial", "eps_iso")
 
 
 def frames_of(x: np.ndarray, rows: int, points: int) -> list[list[bytes]]:
@@ -66,18 +79,38 @@ def frames_of(x: np.ndarray, rows: int, points: int) -> list[list[bytes]]:
     return out
 
 
-def run(frames, stride: int | None) -> float:
-    """Seconds to feed ``frames``; ``stride`` None switches the spectra off."""
-    if stride is None:
-        factory = lambda *a, **k: None  # noqa: E731
-    elif stride == 1:
-        factory = _PointSpectra
-    else:
-        factory = functools.partial(_PointSpectra, stride=stride)
+class WelchOnly(_PointSpectra):
+    """The spectra without eps, scales and peaks (to split the cost: Welch per sample, the
+    evaluations per point); a benchmark arm only, its summary carries no eps."""
+
+    def evaluate(self, moments, nu=None):
+        return self.welch.snapshot(), None
+
+
+def load_baseline(root: Path):
+    """PointSpectra of another checkout's spectra modules (private module names, no disk cache)."""
+    mods = ("spectral_kernels", "spectra", "dissipation", "point_spectra")
+    alias = {m: f"_before_{m}" for m in mods}
+    for m in mods:
+        path = root / "stats" / f"{m}.py"
+        src = path.read_text().replace("cache=True", "cache=False")
+        for other in mods:
+            src = src.replace(f"eddyvigil.stats.{other} import", f"{alias[other]} import")
+        module = types.ModuleType(alias[m])
+        module.__file__ = str(path)
+        sys.modules[alias[m]] = module
+        exec(compile(src, str(path), "exec"), module.__dict__)  # noqa: S102 - a local checkout
+    return sys.modules[alias["point_spectra"]].PointSpectra
+
+
+def run(frames, factory) -> tuple[float, str]:
+    """CPU seconds to feed ``frames`` and the summary written; ``factory`` builds each point's
+    spectra (None: spectra off)."""
     # monitor.point_run builds each point's spectra through this module attribute
-    point_spectra.PointSpectra = factory
+    point_spectra.PointSpectra = factory if factory is not None else (lambda *a, **k: None)
     try:
-        p = Pipeline(summary=io.StringIO())
+        out = io.StringIO()
+        p = Pipeline(summary=out)
         # CPU time of this process (the path is single-threaded): on a machine shared with
         # other jobs, wall-clock rounds differed by 5x, CPU time far less
         t = time.process_time()
@@ -85,73 +118,116 @@ def run(frames, stride: int | None) -> float:
             p.handle_frames(f)
             p.snapshot  # noqa: B018 - what a reader does
         p.close()
-        return time.process_time() - t
+        return time.process_time() - t, out.getvalue()
     finally:
         point_spectra.PointSpectra = _PointSpectra
+
+
+def eps_values(summary: str) -> list[float]:
+    vals = []
+    for line in summary.splitlines():
+        rec = json.loads(line)
+        for row in rec.get("statistics") or ():
+            if row.get("name") in EPS_ROWS and row.get("value") is not None:
+                vals.append(float(row["value"]))
+    return vals
+
+
+def cpu_per_call(fn, calls: int = 5) -> float:
+    fn()
+    best = float("inf")
+    for _ in range(3):
+        t = time.process_time()
+        for _ in range(calls):
+            fn()
+        best = min(best, (time.process_time() - t) / calls)
+    return best
 
 
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, default=60.0, help="point length (s of data)")
     ap.add_argument("--points", type=int, default=2)
-    ap.add_argument("--repeat", type=int, default=3)
+    ap.add_argument("--repeat", type=int, default=5)
     ap.add_argument("--rows", type=int, default=16384)
+    ap.add_argument("--baseline", type=Path, help="a checkout whose spectra modules are 'before'")
     a = ap.parse_args()
     n = int(a.seconds * RATE) * a.points
     gen = PopeGenerator([5.0, 0.0, 0.0], 1.5, 4.0, 1.5e-5, RATE, 1)
     x = generate(gen, n).astype("<f4")
-    frames = frames_of(x, a.rows, a.points)
+    frames = {"f4": frames_of(x, a.rows, a.points)}
     # the same samples sent as float64: the spectra then take the float64 FFT
-    frames64 = frames_of(x.astype("<f8"), a.rows, a.points)
-    samples = sum(1 for f in frames) and x.shape[0]
-    variants = (None, 1, 4, 16, "f8")
-    off64 = "off f8"
-
-    def feed(v):
-        if v == "f8":
-            return run(frames64, 1)
-        if v == off64:
-            return run(frames64, None)
-        return run(frames, v)
-
-    for v in variants:
-        run(frames[:40], v if v != "f8" else 1)  # compile and warm every path once
-    run(frames64[:40], 1)
-    order = (*variants, off64)
-    times = {v: [] for v in order}
+    frames["f8"] = frames_of(x.astype("<f8"), a.rows, a.points)
+    arms = {
+        "off": ("f4", None),
+        "on": ("f4", _PointSpectra),
+        "welch only": ("f4", WelchOnly),
+        "stride 4": ("f4", functools.partial(_PointSpectra, stride=4)),
+        "off f8": ("f8", None),
+        "on f8": ("f8", _PointSpectra),
+    }
+    if a.baseline is not None:
+        before = load_baseline(a.baseline.resolve())
+        arms["before"] = ("f4", before)
+        arms["before f8"] = ("f8", before)
+    for kind, factory in arms.values():
+        run(frames[kind][:40], factory)  # compile and warm every path once
+    times = {v: [] for v in arms}
+    summaries = {}
     for r in range(a.repeat):
-        for v in order:  # side by side, interleaved
-            times[v].append(feed(v))
-        row = ", ".join(
-            f"{'off' if v is None else v if isinstance(v, str) else f'stride {v}'} "
-            f"{samples / times[v][-1] / 1e6:6.2f}"
-            for v in order
-        )
-        print(f"round {r + 1} (M samples/s): {row}")
-    base = statistics.median(times[None])
-    for v in variants[1:]:
-        ref = times[off64] if v == "f8" else times[None]
-        extra = statistics.median(t / b for t, b in zip(times[v], ref, strict=True))
-        what = "float64 frames, stride 1" if v == "f8" else f"float32 frames, stride {v:2d}"
+        for v, (kind, factory) in arms.items():  # side by side, interleaved
+            t, summaries[v] = run(frames[kind], factory)
+            times[v].append(t)
+        row = ", ".join(f"{v} {x.shape[0] / times[v][-1] / 1e6:5.2f}" for v in arms)
+        print(f"round {r + 1} (M samples/CPU s): {row}")
+    for v in arms:
+        if v.startswith("off"):
+            continue
+        ref = times["off f8" if v.endswith("f8") else "off"]
+        extra = [100 * (t / b - 1) for t, b in zip(times[v], ref, strict=True)]
         print(
-            f"spectra + eps, {what}: median extra cost {100 * (extra - 1):6.1f} % "
-            "of the ingest path without spectra "
-            f"(off: {samples / base / 1e6:.1f} M samples/s)"
+            f"spectra + eps, {v:10s}: median extra CPU {statistics.median(extra):5.1f} % "
+            f"(rounds {min(extra):.0f}-{max(extra):.0f} %) over the path without spectra"
         )
+    for kind in ("", " f8"):
+        if f"before{kind}" in times:  # the spectra's own CPU, now over before, round by round
+            off = times[f"off{kind}"]
+            share = [
+                (t - o) / (b - o)
+                for t, b, o in zip(times[f"on{kind}"], times[f"before{kind}"], off, strict=True)
+            ]
+            med = statistics.median(share)
+            print(
+                f"spectra's own CPU{kind}, now / before: median {med:.2f} "
+                f"(rounds {min(share):.2f}-{max(share):.2f})"
+            )
     print(
-        f"({a.points} points of {a.seconds:g} s, 3 float32 columns at 20 kHz, "
-        f"{a.rows} rows/message)"
+        f"(off: {x.shape[0] / statistics.median(times['off']) / 1e6:.1f} M samples/CPU s; "
+        f"{a.points} points of {a.seconds:g} s, 3 columns at 20 kHz, {a.rows} rows/message)"
     )
-    from eddyvigil.stats.spectra import SpectrumAccumulator
+    for kind in ("", " f8"):
+        if f"before{kind}" in summaries:
+            old, new = eps_values(summaries[f"before{kind}"]), eps_values(summaries[f"on{kind}"])
+            if len(old) == len(new) and old:
+                rel = max(abs(q / p - 1) for p, q in zip(old, new, strict=True))
+                what = f"{len(new)} values, largest |new/before - 1| {rel:.1e}"
+                print(f"eps rows{kind or ' f4'}: {what}")
+            else:
+                print(f"eps rows{kind or ' f4'}: {len(old)} before, {len(new)} now")
+    point = x[: int(a.seconds * RATE)]
+    blocks = [point[i : i + a.rows] for i in range(0, point.shape[0], a.rows)]
 
-    spec = SpectrumAccumulator(("u", "v", "w"), RATE).update(x[: int(a.seconds * RATE)]).snapshot()
-    dissipation(spec, 5.0)
-    t = time.perf_counter()
-    for _ in range(5):
-        dissipation(spec, 5.0)
+    def welch():
+        acc = SpectrumAccumulator(("u", "v", "w"), RATE)
+        for b in blocks:
+            acc.update(b)
+        return acc.snapshot()
+
+    spec = welch()
     print(
-        f"one dissipation() evaluation (segment {spec.segment}, 3 columns): "
-        f"{(time.perf_counter() - t) / 5 * 1e3:.0f} ms"
+        f"one point's Welch update (segment {spec.segment}, 3 columns, float32): "
+        f"{cpu_per_call(welch, 2) * 1e3:.1f} ms CPU; one dissipation() evaluation: "
+        f"{cpu_per_call(lambda: dissipation(spec, 5.0)) * 1e3:.1f} ms CPU"
     )
 
 

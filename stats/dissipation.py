@@ -23,8 +23,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from eddyvigil.stats.spectra import SpectrumSnapshot, _bin_correlations, log_bin
-from scipy import ndimage
-from scipy import stats as sst
+from eddyvigil.stats.spectral_kernels import flattest_run
+from scipy import ndimage, special
 
 __all__ = [
     "C1_DEFAULT",
@@ -165,7 +165,15 @@ class Dissipation:
 
 
 def _z(confidence: float) -> float:
-    return float(sst.norm.ppf(0.5 + confidence / 2.0))
+    # scipy.stats.norm.ppf's own formula (ndtri) without its argument checks, which cost 30x
+    return float(special.ndtri(0.5 + confidence / 2.0))
+
+
+def _chi2_quantile(p: float, dof) -> np.ndarray | float:
+    """scipy.stats.chi2.ppf(p, dof) for 0 < p < 1 and dof > 0: its own formula,
+    ``2 gammaincinv(dof/2, p)`` (scipy's chi2._ppf), the same bits without the argument checks
+    (which cost 50x the value)."""
+    return 2 * special.gammaincinv(np.asarray(dof, dtype=np.float64) / 2, p)
 
 
 # ---------------------------------------------------------------- noise floor
@@ -318,7 +326,8 @@ def _flattest_band(f, comp, dof, usable):
     dof/2, since var log S = 2/dof); the run is flat when the quadratic, widened by two standard
     errors, stays within log(1.05) of the run's mean level at both ends and at its vertex (so
     neither a slope nor a hump nor noise passes for flatness), and the scatter about it is
-    chi^2-like. Prefix sums make every (start, end) pair O(1); the ends loop in numpy.
+    chi^2-like. Prefix sums make every (start, end) pair O(1); the pairs loop in a numba
+    kernel (``spectral_kernels.flattest_run``; vectorised numpy cost 10x more).
     """
     idx = np.flatnonzero(usable)
     if idx.size < 5:
@@ -330,56 +339,19 @@ def _flattest_band(f, comp, dof, usable):
     pw = [np.r_[0.0, np.cumsum(w * x**p)] for p in range(5)]
     py = [np.r_[0.0, np.cumsum(w * y * x**p)] for p in range(3)]
     pyy = np.r_[0.0, np.cumsum(w * y * y)]
-    # a run may not cross an unusable band
-    bad = np.r_[0, np.cumsum(~usable)]
-    tol = math.log1p(FLAT_TOLERANCE)
-    # every (start, end) pair at once: ends at least 4 bands on, spanning MIN_FIT_SPAN, no unusable
-    # band inside
-    a, b = np.triu_indices(f.size, 4)
-    keep = (
-        usable[a]
-        & usable[b]
-        & ((bad[b + 1] - bad[a]) == 0)
-        & (x[b] - x[a] >= math.log(MIN_FIT_SPAN))
+    limit = _chi2_quantile(0.999, np.arange(f.size + 1).clip(1))  # once per dof, not per run
+    a, b = flattest_run(
+        x,
+        np.stack(pw),
+        np.stack(py),
+        pyy,
+        np.asarray(usable, dtype=np.bool_),
+        math.log(MIN_FIT_SPAN),
+        math.log1p(FLAT_TOLERANCE),
+        WIDEN,
+        limit,
     )
-    a, b = a[keep], b[keep]
-    if a.size == 0:
-        return None
-    s = [pw[p][b + 1] - pw[p][a] for p in range(5)]
-    m = np.stack(
-        [
-            np.stack([s[0], s[1], s[2]], -1),
-            np.stack([s[1], s[2], s[3]], -1),
-            np.stack([s[2], s[3], s[4]], -1),
-        ],
-        -2,
-    )
-    r = np.stack([py[p][b + 1] - py[p][a] for p in range(3)], -1)
-    det = np.linalg.det(m)
-    good = np.abs(det) > 1e-12 * np.abs(m).max(axis=(1, 2)) ** 3
-    a, b, m, r, s = a[good], b[good], m[good], r[good], [v[good] for v in s]
-    if a.size == 0:
-        return None
-    cov = np.linalg.inv(m)
-    beta = np.einsum("kij,kj->ki", cov, r)
-    chi2 = (pyy[b + 1] - pyy[a]) - np.einsum("ki,ki->k", beta, r)
-    xm, x2m = s[1] / s[0], s[2] / s[0]
-    c2 = np.where(beta[:, 2] != 0, beta[:, 2], 1.0)
-    vertex = np.clip(np.where(beta[:, 2] != 0, -beta[:, 1] / (2 * c2), x[a]), x[a], x[b])
-    worst = np.zeros(a.size)
-    for xe in (x[a], x[b], vertex):
-        g = np.stack([np.zeros(a.size), xe - xm, xe**2 - x2m], -1)
-        dev = np.abs(np.einsum("ki,ki->k", g, beta))
-        sd = np.sqrt(np.maximum(np.einsum("ki,kij,kj->k", g, cov, g), 0.0))
-        worst = np.maximum(worst, dev + WIDEN * sd)
-    n = np.maximum(b - a - 2, 1)  # bands minus the quadratic's three parameters
-    limit = sst.chi2.ppf(0.999, np.arange(n.max() + 1).clip(1))  # once per dof, not per pair
-    ok = (worst <= tol) & (chi2 <= limit[n])
-    if not ok.any():
-        return None
-    span = np.where(ok, x[b] - x[a], -np.inf)
-    k = int(np.argmax(span))  # the widest (first of equals: the lowest start)
-    return int(a[k]), int(b[k])
+    return None if a < 0 else (int(a), int(b))
 
 
 # ---------------------------------------------------------------- scales
@@ -436,8 +408,8 @@ def find_peaks(
     dof = float(spec.dof[1])
     if stop < 2 * (flank + gap) + 4 or not dof > 0:
         return ()
-    thr = sst.chi2.ppf(1.0 - alpha / (stop - 2), dof) / dof
-    med_corr = sst.chi2.median(dof) / dof
+    thr = _chi2_quantile(1.0 - alpha / (stop - 2), dof) / dof
+    med_corr = _chi2_quantile(0.5, dof) / dof  # scipy.stats.chi2.median
     for c, name in enumerate(spec.columns):
         s = spec.psd[1:stop, c]
         if not np.all(s > 0):

@@ -3,9 +3,10 @@
 Welch (1967, IEEE Trans. Audio Electroacoust. 15:70) averages the periodograms of windowed,
 overlapping segments. Here the average is kept as a *sum* of periodograms and a count, so a
 point's spectrum is updated block by block and two records merge exactly (sums add). Each
-segment is detrended by its own mean (as ``scipy.signal.welch``'s default), windowed with a
-periodic Hann window, and every complete segment of a block goes through ``scipy.fft.rfft`` in
-one batch: no per-sample Python.
+segment is detrended by its own mean (as ``scipy.signal.welch``'s default) and windowed with a
+periodic Hann window in one numba pass (``spectral_kernels.window_segments``); complete segments
+go through ``scipy.fft.rfft`` in batches of :data:`FFT_BATCH` per column (a snapshot takes the
+rest): no per-sample Python.
 
 Uncertainty: the Welch average of ``K`` segments at 50 % overlap is ~ ``S chi2_nu / nu`` with
 the equivalent degrees of freedom (Percival & Walden 1993, *Spectral Analysis for Physical
@@ -31,7 +32,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.fft
-from eddyvigil.stats.spectral_kernels import accumulate_power
+from eddyvigil.stats.spectral_kernels import accumulate_power, window_segments
 from scipy import signal as sps
 from scipy import stats as sst
 
@@ -53,6 +54,11 @@ __all__ = [
 RESOLUTION_FACTOR = 20.0
 MIN_SEGMENT = 256
 MAX_SEGMENT = 1 << 16
+#: segments transformed per column in one scipy.fft call (a multiple of it): pocketfft runs
+#: float32 transforms 4 at a time in SIMD lanes (float64: 2), so a batch of 4 segments per
+#: column costs ~13 us per 8192-point float32 segment where 1 or 2 cost ~28 us (scipy 1.17
+#: on this project's CI machine); the others wait in the buffer for the next block
+FFT_BATCH = 4
 
 
 def segment_length(rate_hz: float, tint_s: float | None) -> int:
@@ -80,15 +86,15 @@ def integral_time_estimate(x: np.ndarray, rate_hz: float) -> float:
     n = x.shape[0]
     if n < 16:
         return float("nan")
-    y = x - x.mean(axis=0)
+    y = (x - x.mean(axis=0)).T  # (m, n): each column's transform on contiguous rows
     nfft = scipy.fft.next_fast_len(2 * n)
-    spec = scipy.fft.rfft(y, nfft, axis=0)
-    acf = scipy.fft.irfft(np.abs(spec) ** 2, nfft, axis=0)[:n]
+    spec = scipy.fft.rfft(y, nfft, axis=1)
+    acf = scipy.fft.irfft(np.abs(spec) ** 2, nfft, axis=1)[:, :n]
     out = 0.0
-    for j in range(acf.shape[1]):
-        if acf[0, j] <= 0:
+    for j in range(acf.shape[0]):
+        if acf[j, 0] <= 0:
             continue
-        r = acf[:, j] / acf[0, j]
+        r = acf[j] / acf[j, 0]
         neg = np.flatnonzero(r <= 0)
         stop = int(neg[0]) if neg.size else n
         out = max(out, (r[:stop].sum() - 0.5) / rate_hz)
@@ -114,15 +120,16 @@ def welch_dof(window: np.ndarray, hop: int, segments: int) -> float:
 def _bin_correlations(window: np.ndarray, reach: int = 4) -> np.ndarray:
     """Squared correlation of periodogram ordinates j = 1..reach bins apart (smooth spectrum):
     ``|sum_t h_t^2 e^{-2 pi i j t/N}|^2 / (sum h_t^2)^2`` (4/9, 1/36, 0, 0 for Hann)."""
-    h2 = np.asarray(window, dtype=np.float64) ** 2
-    t = np.arange(h2.size) * (2.0 * np.pi / h2.size)
-    total = float(h2.sum())
+    h = np.asarray(window, dtype=np.float64)
+    size = h.size
+    total = float((h**2).sum())
     # the few coefficients wanted, by a direct sum over a strided sample of the phases: h^2 of a
     # periodic Hann window is a trigonometric polynomial of degree 2, so 16 points per period are
-    # exact
-    step = max(1, h2.size // 64) if h2.size % max(1, h2.size // 64) == 0 else 1
-    hs, ts = h2[::step], t[::step]
-    scale = h2.size / hs.size
+    # exact (only the sampled points are squared and given a phase)
+    step = max(1, size // 64) if size % max(1, size // 64) == 0 else 1
+    hs = h[::step] ** 2
+    ts = np.arange(0, size, step) * (2.0 * np.pi / size)
+    scale = size / hs.size
     out = np.empty(reach)
     for j in range(1, reach + 1):
         c = scale * float(np.dot(hs, np.cos(j * ts)))
@@ -185,11 +192,13 @@ def log_bin(f_hz, psd, dof, window: np.ndarray | None = None, max_bins: int = 20
     fb = np.add.reduceat(f[1:], starts) / count
     pb = np.add.reduceat(p[1:], starts, axis=0) / (count if p.ndim == 1 else count[:, None])
     db = np.add.reduceat(d[1:], starts) / count
-    factor = np.empty(count.size)
-    for mcount in np.unique(count):  # depends on the band's bin count only
-        js = np.arange(1, min(mcount, r.size + 1))
-        corr = np.sum((1.0 - js / mcount) * r[js - 1]) if js.size else 0.0
-        factor[count == mcount] = mcount / (1.0 + 2.0 * corr)
+    # the factor depends on the band's bin count M only: sum_{j=1}^{min(M-1, reach)} (1 - j/M) r_j,
+    # for every distinct M at once (terms with j >= M are zeros)
+    sizes, which = np.unique(count, return_inverse=True)
+    js = np.arange(1, r.size + 1)
+    terms = np.where(js < sizes[:, None], (1.0 - js / sizes[:, None]) * r, 0.0)
+    corr = terms.sum(axis=1) if r.size else np.zeros(sizes.size)
+    factor = (sizes / (1.0 + 2.0 * corr))[which]
     return LogSpectrum(fb, pb, db * factor, first, count)
 
 
@@ -265,10 +274,12 @@ class SpectrumAccumulator:
             else int(min(max(4 * MIN_SEGMENT, 2 * rate_hz), 1 << 18))
         )
         self._buf = np.zeros((self._m, 0))  # column-major samples not yet past a segment start
-        self._fill = 0
+        self._head = 0  # the first held sample's column in _buf
+        self._fill = 0  # samples held, from _head on
+        self._work = np.empty(0)  # windowed segments of one batch, reused
         self.segment = None
         self._sum = None
-        self.segments = 0
+        self._done = 0  # segments in the sums
         if segment is not None:
             self._set_segment(int(segment))
         elif tint_s is not None:
@@ -284,11 +295,8 @@ class SpectrumAccumulator:
         self.segment = n
         self.hop = n - n // 2  # scipy.signal.welch's default overlap n // 2
         self.window = sps.get_window("hann", n)  # periodic Hann, as scipy.signal.welch
-        self._window32 = self.window.astype(np.float32)
         self._scale = 1.0 / (self.rate_hz * float(np.dot(self.window, self.window)))
-        self._window_ft = scipy.fft.rfft(self.window)
-        self._window_bins = np.flatnonzero(np.abs(self._window_ft) > 1e-9 * abs(self._window_ft[0]))
-        self._sum = np.zeros((n // 2 + 1, self._m))
+        self._sum = np.zeros((self._m, n // 2 + 1))  # per column, transposed by snapshot()
 
     @property
     def n(self) -> int:
@@ -308,34 +316,57 @@ class SpectrumAccumulator:
         if self.segment is None:
             if self._fill < self._probe:
                 return self
-            held = self._buf[:, : self._fill].T
+            held = self._buf[:, self._head : self._head + self._fill].T
             self._set_segment(
                 segment_length(self.rate_hz, integral_time_estimate(held, self.rate_hz))
             )
-        n, step = self.segment, self.hop * self.stride
-        have = self._fill
-        k = 0 if have < n else 1 + (have - n) // step
-        if k:
-            # (m, k, n) view of the segments on the column-major buffer: the window product reads
-            # memory in order, and one batched FFT serves the whole block
-            segs = np.lib.stride_tricks.sliding_window_view(
-                self._buf[:, : (k - 1) * step + n], n, axis=1
-            )[:, ::step]
-            window = self.window if segs.dtype == np.float64 else self._window32
-            spec = scipy.fft.rfft(segs * window, axis=2)
-            # each segment's own mean removed after the transform, FFT(h (x - m)) = FFT(h x) - m
-            # FFT(h);
-            # the periodic Hann window's transform is non-zero in bins 0 and 1 only
-            mean = segs.mean(axis=2)  # contiguous rows: a fast reduce
-            for b in self._window_bins:
-                spec[:, :, b] -= mean * self._window_ft[b]
-            accumulate_power(spec, self._sum)
-            self.segments += k
-            self._skip = max(0, k * step - have)  # a stride may step past the data held
-            keep = max(0, have - k * step)
-            self._buf[:, :keep] = self._buf[:, have - keep : have].copy()
-            self._fill = keep
+        self._transform(flush=False)
         return self
+
+    def _complete(self) -> int:
+        """Complete segments held in the buffer, not yet in the sums."""
+        n, step = self.segment, self.hop * self.stride
+        return 0 if self._fill < n else 1 + (self._fill - n) // step
+
+    def _transform(self, flush: bool) -> None:
+        """Window, transform and add to the sums the complete segments held (``flush`` False: a
+        multiple of :data:`FFT_BATCH` of them, the rest wait for the next block)."""
+        if self.segment is None:
+            return
+        k = self._complete()
+        if not flush:
+            k -= k % FFT_BATCH
+        if k == 0:
+            return
+        n, step, have = self.segment, self.hop * self.stride, self._fill
+        size = self._m * k * n
+        if self._work.size < size or self._work.dtype != self._buf.dtype:
+            self._work = np.empty(size, dtype=self._buf.dtype)
+        work = self._work[:size].reshape(self._m, k, n)
+        window_segments(self._buf, self._head, step, self.window, work)
+        # one batched transform for the whole batch (m k segments, contiguous rows)
+        accumulate_power(scipy.fft.rfft(work, axis=2, overwrite_x=True), self._sum)
+        self._done += k
+        self._skip = max(0, k * step - have)  # a stride may step past the data held
+        keep = max(0, have - k * step)
+        self._head = self._head + have - keep if keep else 0  # no copy: _append compacts
+        self._fill = keep
+
+    def flush(self) -> SpectrumAccumulator:
+        """Add the complete segments still waiting for a full batch to the sums.
+
+        Not an observable change: every segment's window, transform and power are the same bits
+        whichever batch carries it, and the sums add segment by segment in order (the tests of
+        block-splitting invariance check it), so a snapshot taken at any moment does not change
+        later results (live = replay).
+        """
+        self._transform(flush=True)
+        return self
+
+    @property
+    def segments(self) -> int:
+        """Complete segments seen (those waiting for a full batch included)."""
+        return self._done + (self._complete() if self.segment is not None else 0)
 
     def _append(self, x: np.ndarray) -> None:
         """Copy rows into the column-major buffer (growing it by doubling).
@@ -343,19 +374,29 @@ class SpectrumAccumulator:
         The buffer, and so the windowed segments and their FFT, are float32 while every block
         has been float32 (what the wire carries from most acquisitions: the transform then
         costs about half, and its rounding, ~1e-7 of the segment's r.m.s. per bin, sits below
-        the data's own float32 rounding); float64 from the first float64 block on. The sums of
-        periodograms are float64 either way.
+        the data's own float32 rounding); float64 from the first float64 block on. Segment
+        means, the windowing and the sums of periodograms are float64 either way.
         """
         if self._buf.dtype != np.float64 and x.dtype != np.float32:
-            self._buf = self._buf.astype(np.float64)
-        elif self._fill == 0 and self.segments == 0 and x.dtype == np.float32:
-            self._buf = self._buf.astype(np.float32)
-        need = self._fill + x.shape[0]
-        if need > self._buf.shape[1]:
-            grown = np.zeros((self._m, max(need, 2 * self._buf.shape[1])), dtype=self._buf.dtype)
-            grown[:, : self._fill] = self._buf[:, : self._fill]
-            self._buf = grown
-        self._buf[:, self._fill : need] = x.T
+            # complete segments still waiting go in float32, as a snapshot would have sent them
+            self._transform(flush=True)
+            head, fill = self._head, self._fill
+            self._buf, self._head = self._buf[:, head : head + fill].astype(np.float64), 0
+        elif self._fill == 0 and self._done == 0 and x.dtype == np.float32:
+            self._buf, self._head = self._buf[:, :0].astype(np.float32), 0
+        head, fill = self._head, self._fill
+        need = fill + x.shape[0]
+        if head + need > self._buf.shape[1]:
+            # held samples move to the front, into a buffer of twice what is needed: they move
+            # once per several blocks, not at every block
+            if 2 * need > self._buf.shape[1]:
+                grown = np.empty((self._m, 2 * need), dtype=self._buf.dtype)
+                grown[:, :fill] = self._buf[:, head : head + fill]
+                self._buf = grown
+            else:
+                self._buf[:, :fill] = self._buf[:, head : head + fill]  # numpy minds the overlap
+            self._head = head = 0
+        self._buf[:, head + fill : head + need] = x.T
         self._fill = need
 
     def merge(self, other: SpectrumAccumulator) -> SpectrumAccumulator:
@@ -371,22 +412,25 @@ class SpectrumAccumulator:
             )
         if self.stride != other.stride:
             raise ValueError("spectra taken with different strides cannot be merged")
+        self.flush()
+        other.flush()  # not an observable change (see flush)
         out = SpectrumAccumulator(
             self.columns, self.rate_hz, segment=self.segment, stride=self.stride
         )
         out._sum = self._sum + other._sum
-        out.segments = self.segments + other.segments
-        out._buf = other._buf[:, : other._fill].copy()
+        out._done = self._done + other._done
+        out._buf = other._buf[:, other._head : other._head + other._fill].copy()
         out._fill = other._fill
         out._skip = other._skip
         return out
 
     def snapshot(self) -> SpectrumSnapshot | None:
         """The current estimate, or None before the first complete segment."""
+        self.flush()
         if not self.segments:
             return None
         n = self.segment
-        psd = self._sum * (self._scale / self.segments)
+        psd = np.ascontiguousarray(self._sum.T) * (self._scale / self.segments)  # (nfreq, m)
         psd[1 : (n + 1) // 2] *= 2.0  # one-sided: all but DC (and Nyquist for even n)
         dof = np.full(psd.shape[0], welch_dof(self.window, self.hop * self.stride, self.segments))
         dof[0] /= 2.0

@@ -39,7 +39,7 @@ def exercise(dtype, columns) -> None:
     uniform and random sampling, checkpoints and a snapshot."""
     from eddyvigil.stats.point import PointStatistics
     from eddyvigil.stats.quality import SignalQuality
-    from eddyvigil.stats.spectral_kernels import accumulate_power
+    from eddyvigil.stats.spectra import SpectrumAccumulator
 
     rng = np.random.default_rng(0)
     block = (1.0 + rng.standard_normal((9000, len(columns)))).astype(dtype)
@@ -58,8 +58,13 @@ def exercise(dtype, columns) -> None:
         quality = SignalQuality(columns, "exclude")
         quality.update(block[:4200])
         quality.flush()
-    accumulate_power(np.zeros((1, 1, 2), dtype=np.complex128), np.zeros((2, 1)))  # Welch sums
-    accumulate_power(np.zeros((1, 1, 2), dtype=np.complex64), np.zeros((2, 1)))  # float32 data
+    # the Welch kernels (window_segments, accumulate_power) for this dtype, through the class
+    SpectrumAccumulator(columns, 1000.0, segment=256).update(block[:1500]).snapshot()
+    if dtype is np.float64 and len(columns) == 3:  # dissipation's flat-range search (float64)
+        from eddyvigil.stats.dissipation import _flattest_band
+
+        f = np.geomspace(1.0, 100.0, 12)
+        _flattest_band(f, np.ones(12), np.full(12, 400.0), np.ones(12, dtype=bool))
 
 
 def prepare_kernels() -> float:

@@ -235,3 +235,19 @@ def test_user_fit_range_is_used_as_given():
     assert 100.0 <= rng[0] < rng[1] <= 300.0
     q2, rng2 = inertial_fit(model_snapshot(f, psd, 20_000.0), U, fit_range_hz=(100.0, 100.5))
     assert q2.value is None and "given range" in q2.reason and rng2 is None
+
+
+def test_quantiles_without_scipy_checks_are_scipys_to_the_bit():
+    # reference: scipy.stats.chi2.ppf / chi2.median / norm.ppf (the dissipation code calls their
+    # formulas directly, skipping argument checks that cost 30-50x the value)
+    from eddyvigil.stats.dissipation import _chi2_quantile, _z
+    from scipy import stats as sst
+
+    for c in (0.6827, 0.9, 0.95, 0.99):
+        assert _z(c) == float(sst.norm.ppf(0.5 + c / 2))
+    for dof in (1.0, 3.7, 200.0, 569.4, 1e4):
+        for p in (0.5, 0.999, 1 - 0.01 / 8190):
+            assert float(_chi2_quantile(p, dof)) == float(sst.chi2.ppf(p, dof))
+        assert float(_chi2_quantile(0.5, dof)) == float(sst.chi2.median(dof))
+    d = np.arange(201).clip(1)
+    np.testing.assert_array_equal(_chi2_quantile(0.999, d), sst.chi2.ppf(0.999, d))
