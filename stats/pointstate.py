@@ -12,13 +12,16 @@ Format version 1 (``meta["format"] == "eddyvigil-point-state"``, ``meta["version
 arrays ``moments.mean``, ``moments.s2``, ``moments.s3``, ``moments.s4`` and ``blocking.<name>``
 for every array of :class:`~eddyvigil.stats.blocking.BlockingAccumulator` (``ref`` absent while
 empty); scalars in ``meta["moments"]``, ``meta["blocking"]``, ``meta["checkpoints"]``.
+Version 2 adds the periodic row store (``periodic.<name>`` arrays, ``meta["periodic"]``
+scalars; absent for random sampling). A version 1 state still loads: its point has no rows
+and no clock, so no line is ever fitted on it (its errors are blocking's, as they were).
 
 >>> import numpy as np
 >>> from eddyvigil.stats.point import PointStatistics
 >>> ps = PointStatistics(("u", "v"), rate_hz=100.0).update(np.ones((5, 2)))
 >>> meta, arrays = to_state(ps)
 >>> meta["version"], meta["columns"], meta["moments"]["n"], arrays["moments.mean"].tolist()
-(1, ['u', 'v'], 5, [1.0, 1.0])
+(2, ['u', 'v'], 5, [1.0, 1.0])
 >>> from_state(meta, arrays) == ps
 True
 """
@@ -32,7 +35,9 @@ import numpy as np
 __all__ = ["FORMAT", "VERSION", "StateError", "to_state", "from_state", "same_state"]
 
 FORMAT = "eddyvigil-point-state"
-VERSION = 1
+VERSION = 2
+#: versions from_state reads
+READABLE = (1, 2)
 
 _MOMENT_ARRAYS = ("mean", "s2", "s3", "s4")
 
@@ -70,6 +75,14 @@ def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
         f.name: _scalar(getattr(ps.checkpoints, f.name)) for f in dataclasses.fields(ps.checkpoints)
     }
     checkpoints["trusted"] = sorted(checkpoints["trusted"])  # a set: JSON has lists
+    periodic = None
+    if ps.periodic is not None:
+        periodic = {}
+        for k, v in vars(ps.periodic).items():
+            if isinstance(v, np.ndarray):
+                arrays[f"periodic.{k}"] = v.copy()
+            elif v is not None:
+                periodic[k] = _scalar(v)
     meta = {
         "format": FORMAT,
         "version": VERSION,
@@ -82,6 +95,7 @@ def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
         "blocking": blocking,
         "tails": {"n": int(ps.tails.n), "keep": int(ps.tails.keep)},
         "checkpoints": checkpoints,
+        "periodic": periodic,
     }
     return meta, arrays
 
@@ -101,7 +115,7 @@ def from_state(meta: dict, arrays) -> object:
 
     if meta.get("format") != FORMAT:
         raise StateError(f"not an eddyvigil point state (format {meta.get('format')!r})")
-    if meta.get("version") != VERSION:
+    if meta.get("version") not in READABLE:
         raise StateError(
             f"point state version {meta.get('version')!r}; this eddyvigil reads version {VERSION}"
         )
@@ -142,6 +156,7 @@ def from_state(meta: dict, arrays) -> object:
             if a.ndim != 2 or a.shape[0] != tails.m:
                 raise StateError(f"tails.{k}: shape {a.shape}, expected ({tails.m}, n)")
             setattr(tails, k, a)
+        _load_periodic(ps, meta, arrays)
         ps._duration_s = float(meta["duration_s"])
         cp = dict(meta["checkpoints"])
         cp["trusted"] = set(cp.get("trusted", ()))
@@ -149,6 +164,28 @@ def from_state(meta: dict, arrays) -> object:
     except (KeyError, TypeError) as exc:
         raise StateError(f"incomplete point state: {exc!r}") from None
     return ps
+
+
+def _load_periodic(ps, meta, arrays) -> None:
+    """The row store of a saved point (version 2), or, from version 1, an empty store without
+    a clock (no line is fitted on a record whose rows were not kept)."""
+    st = ps.periodic
+    if st is None:
+        return
+    if meta["version"] == 1:
+        st.clock = False
+        return
+    for k, v in meta["periodic"].items():
+        setattr(st, k, v)
+    st.ref = None
+    for name in arrays:
+        if name.startswith("periodic."):
+            k = name.removeprefix("periodic.")
+            old = getattr(st, k, None)
+            a = np.array(arrays[name])
+            if k != "ref" and (old is None or a.shape != old.shape or a.dtype != old.dtype):
+                raise StateError(f"{name}: unexpected shape or type {a.shape} {a.dtype}")
+            setattr(st, k, a)
 
 
 def same_state(a, b) -> bool:
