@@ -48,6 +48,7 @@ from scipy.fft import rfft
 from eddyvigil.stats.blocking import choose_level
 from eddyvigil.stats.kernels import kernel_view
 from eddyvigil.stats.periodic_kernels import row_push
+from eddyvigil.stats.protocol import same_fields
 
 __all__ = [
     "RowStore",
@@ -332,20 +333,10 @@ class RowStore:
         return new
 
     def __eq__(self, other) -> bool:
+        """Same state, array for array (bit for bit)."""
         if not isinstance(other, RowStore):
             return NotImplemented
-        if self.__dict__.keys() != other.__dict__.keys():
-            return False
-        for k, v in self.__dict__.items():
-            w = other.__dict__[k]
-            if isinstance(v, np.ndarray) or isinstance(w, np.ndarray):
-                if not (isinstance(v, np.ndarray) and isinstance(w, np.ndarray)):
-                    return False
-                if v.shape != w.shape or not np.array_equal(v, w, equal_nan=v.dtype.kind == "f"):
-                    return False
-            elif v != w:
-                return False
-        return True
+        return same_fields(self, other)
 
     def _tau(self) -> np.ndarray:
         """Row times in rows from the first row."""

@@ -139,16 +139,7 @@ def from_state(meta: dict, arrays) -> object:
         bl = ps.blocking
         for k, v in blocking.items():
             setattr(bl, k, v)
-        bl.ref = None
-        for name in arrays:
-            if name.startswith("blocking."):
-                k = name.removeprefix("blocking.")
-                old = getattr(bl, k, None)
-                a = np.array(arrays[name])
-                if k != "ref":
-                    if old is None or a.shape[1:] != old.shape[1:] or a.dtype != old.dtype:
-                        raise StateError(f"{name}: unexpected shape or type {a.shape} {a.dtype}")
-                setattr(bl, k, a)
+        _load_arrays(bl, "blocking.", arrays, trailing=True)
         tails = ps.tails
         tails.n, tails.keep = int(meta["tails"]["n"]), int(meta["tails"]["keep"])
         for k in ("high", "low"):
@@ -177,15 +168,26 @@ def _load_periodic(ps, meta, arrays) -> None:
         return
     for k, v in meta["periodic"].items():
         setattr(st, k, v)
-    st.ref = None
+    _load_arrays(st, "periodic.", arrays, trailing=False)
+
+
+def _load_arrays(obj, prefix: str, arrays, trailing: bool) -> None:
+    """Set the arrays named ``prefix + attribute`` on ``obj`` (``ref`` unset when absent),
+    each checked against the empty object's array: its shape (with ``trailing``, all but the
+    first axis, which may grow) and type."""
+    obj.ref = None
     for name in arrays:
-        if name.startswith("periodic."):
-            k = name.removeprefix("periodic.")
-            old = getattr(st, k, None)
+        if name.startswith(prefix):
+            k = name.removeprefix(prefix)
+            old = getattr(obj, k, None)
             a = np.array(arrays[name])
-            if k != "ref" and (old is None or a.shape != old.shape or a.dtype != old.dtype):
-                raise StateError(f"{name}: unexpected shape or type {a.shape} {a.dtype}")
-            setattr(st, k, a)
+            if k != "ref":
+                if old is None:
+                    raise StateError(f"{name}: not part of a point state")
+                same = (a.shape[1:] == old.shape[1:]) if trailing else (a.shape == old.shape)
+                if not same or a.dtype != old.dtype:
+                    raise StateError(f"{name}: unexpected shape or type {a.shape} {a.dtype}")
+            setattr(obj, k, a)
 
 
 def same_state(a, b) -> bool:
