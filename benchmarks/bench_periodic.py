@@ -2,10 +2,11 @@
 
 The same 3-component float32 blocks of 16384 rows go through ``PointStatistics.update`` (with
 its geometric checkpoints) and a final snapshot, with and without the row store
-(``ps.periodic = None``), in interleaved rounds (the line: 1 Hz at 20 kHz, 0.5 sigma); prints each round's rates and their ratio,
+(``ps.periodic = None``), in interleaved rounds; prints each round's rates and their ratio,
 and the cost of the means' correction at one evaluation on a full store (a checkpoint's or
-snapshot's extra work where a line was found). Two
-processes: broadband AR(1) (no line: the search alone) and the same with a line on u and v.
+snapshot's extra work where a line was found). Two processes: broadband AR(1) (no line: the
+row store and the searches alone) and the same with a line on u and v (1 Hz at 20 kHz,
+0.5 sigma).
 
     python benchmarks/bench_periodic.py [--blocks 400] [--repeat 5]
 """

@@ -11,25 +11,26 @@ deterministic and blocks the remainder:
    (with each row's centre time), halving the count by pairing neighbours when full: bounded
    memory (ROWS x (m + 1) doubles), mergeable, and it always spans the whole record, so a line
    with up to ~ROWS/4 periods in the record is resolved.
-2. :func:`find_lines` (run again each time the record has grown by SEARCH_GROWTH, the
-   frequencies kept in the state): a Hann-tapered, twice zero-padded periodogram of the rows; a bin is a
-   line when it exceeds the broadband level (the larger median of the flanks, de-biased by the
-   exponential median ln 2) by the ``1 - ALPHA / bins`` quantile of the exponential
-   distribution (Bonferroni over the bins searched), at least MIN_PERIODS periods in the
-   record and at most a quarter cycle per row. Its frequency is refined on a fine grid of the
-   plain periodogram (the least-squares frequency of one sinusoid in noise). Up to MAX_LINES,
-   each searched in the remainder of the previous.
+2. :func:`find_lines`, run again each time the record has grown by SEARCH_GROWTH (the
+   frequencies kept in the state): a twice zero-padded Hann periodogram of the rows; a bin is
+   a line when it stands above the larger of the mean levels of FLANK natural bins on either
+   side by the F(2, 2 FLANK) quantile at 1 - ALPHA / bins (Bonferroni over the bins
+   searched), with at least ~23 periods in the record and at most a quarter cycle per row.
+   Its frequency is refined on a fine grid of the plain periodogram (the least-squares
+   frequency of one sinusoid in noise). Up to MAX_LINES, each searched in the remainder of
+   the ones before.
 3. :func:`line_mean_error`: least squares of the rows on a constant and cos/sin of each line.
    The record mean is exactly ``beta_0 + d`` (residuals sum to zero), ``d`` the fitted
    sinusoids' average over the record. The remainder is blocked level by level and the level
    chosen as everywhere (blocking.choose_level: Jonsson + lugsail, the point's minimum block
    length); each level's sums are scaled by (n_k - 1)/(n_k - d_k), d_k = tr(P M_k) the
    degrees of freedom the fit took from that level's block means (P: the fit's hat matrix,
-   M_k: block averaging; exact for white block means, e.g. Seber & Lee 2003, Linear
-   Regression Analysis, §3.3, residual sum of squares), and by the intercept's variance
-   inflation N [(X'X)^-1]_00. The error of the mean is then sqrt(VIF V + d^2): the known
-   partial-period average is added in quadrature (a bias of known size: quadrature keeps a 95 %
-   interval at >= 0.95 whatever its ratio to V, from the normal distribution).
+   M_k: block averaging; exact for white block means: the expected residual sum of squares of
+   a linear fit, Seber & Lee 2003, Linear Regression Analysis, from memory), and by the
+   intercept's variance inflation N [(X'X)^-1]_00. The error of the mean is then
+   sqrt(VIF V + d^2): the known partial-period average is added in quadrature (for a bias of
+   known size d, a normal error and the interval 1.96 sqrt(V + d^2) cover 0.950 or more
+   whatever d / sqrt(V); from the normal distribution).
 
 Only the means (U, V, W) are corrected: the stresses' influence series need every monomial's
 rows, ~10x the memory, and a fitted line changes the stresses themselves. With no line found

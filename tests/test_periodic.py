@@ -1,7 +1,8 @@
 """Periodic content: the row store, the line test and the error of a mean with a line taken out.
 
 Checks against numpy (row means), the exponential/F distribution of periodogram ordinates of
-Gaussian noise (Priestley 1981, Spectral Analysis and Time Series, §6.2: the false-alarm rate),
+Gaussian noise (Priestley 1981, Spectral Analysis and Time Series, from memory: the false-alarm
+rate),
 the variance of the mean of white noise sigma^2 / N (common practice), and the rule that a point
 with no line keeps its blocking errors bit for bit.
 """
@@ -59,7 +60,7 @@ def test_merge_of_a_record_cut_on_a_row_boundary_equals_one_pass():
 
 
 def test_false_lines_in_noise_at_most_alpha():
-    # white and AR(1) noise: Priestley 1981 §6.2, the line test's level is ALPHA (Bonferroni:
+    # white and AR(1) noise: Priestley 1981, the line test's level is ALPHA (Bonferroni:
     # at most); 300 records each, binomial sd of a 1 % rate: 0.6 %
     for rho in (0.0, np.exp(-1 / 20)):
         hits = sum(
