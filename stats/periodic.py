@@ -140,9 +140,8 @@ def find_lines(y: np.ndarray, tau: np.ndarray, max_lines: int = MAX_LINES) -> li
         return []
     cand = np.arange(2 * lo, 2 * hi)  # padded bins
     thr = FLANK * ((ALPHA / cand.size) ** (-1.0 / FLANK) - 1.0)
-    # flank sums from running sums over every other natural bin: ``run[q]`` sums bins of the
-    # parity of ``q`` below ``q``, so the FLANK bins q, q - 2, ..., q - 2 (FLANK - 1) sum to
-    # run[q + 2] - run[q + 2 - 2 FLANK]
+    # flank sums: W[b] = nat[b] + nat[b + 2] + ... + nat[b + 2 (FLANK - 1)] by shifted adds
+    # (no running sum: a strong line would swamp the differences of one in rounding)
     left_top = cand // 2 - GAP
     right_low = (cand + 1) // 2 + GAP
     w = _hann(N)
@@ -151,12 +150,18 @@ def find_lines(y: np.ndarray, tau: np.ndarray, max_lines: int = MAX_LINES) -> li
     for _ in range(max_lines):
         p = np.abs(rfft(w * r, 2 * N)) ** 2
         nat = p[::2]
-        run = np.zeros(nat.size + 2)
-        run[2::2] = np.cumsum(nat[0::2])
-        run[3::2] = np.cumsum(nat[1::2])[: run[3::2].size]
-        left = run[left_top + 2] - run[left_top + 2 - 2 * FLANK]
-        right = run[right_low + 2 * FLANK] - run[right_low]
-        ratio = p[cand] * FLANK / np.maximum(left, right)
+        width = nat.size - 2 * (FLANK - 1)
+        W = np.zeros(width)
+        for i in range(FLANK):
+            W += nat[2 * i : 2 * i + width]
+        left = W[left_top - 2 * (FLANK - 1)]
+        right = W[right_low]
+        level = np.maximum(left, right)
+        # no broadband power beside a bin (a constant or noiseless record): a line only where
+        # the bin itself has power
+        ratio = np.divide(
+            p[cand] * FLANK, level, out=np.where(p[cand] > 0, np.inf, 0.0), where=level > 0
+        )
         k = int(np.argmax(ratio))
         if not ratio[k] > thr:
             break

@@ -159,6 +159,13 @@ def test_version_1_state_loads_without_a_clock():
     assert not back.periodic.clock
 
 
+def test_a_constant_record_has_no_line():
+    # nothing varies: no power anywhere, so no line and no correction (no 0/0 either: numpy
+    # warnings are errors in the tests)
+    st = RowStore(2).update(np.full((20_000, 2), 3.0))
+    assert np.isnan(st.lines).all() and st.mean_errors(1e-3, [1.0, 1.0], 4.0) == {}
+
+
 @pytest.mark.parametrize("n", [0, 1, 63])
 def test_short_records_have_no_correction(n):
     ps = PointStatistics(("u",), rate_hz=1000.0)
