@@ -31,6 +31,7 @@ from eddyvigil.stats.kernels import (
     segment_push,
 )
 from eddyvigil.stats.monomials import layout
+from eddyvigil.stats.protocol import same_fields
 
 __all__ = [
     "BlockingAccumulator",
@@ -262,20 +263,7 @@ class BlockingAccumulator:
         """Same state, array for array (bit for bit)."""
         if not isinstance(other, BlockingAccumulator):
             return NotImplemented
-        if self.__dict__.keys() != other.__dict__.keys():
-            return False
-        for k, v in self.__dict__.items():
-            if k == "layout":
-                continue
-            w = other.__dict__[k]
-            if isinstance(v, np.ndarray) or isinstance(w, np.ndarray):
-                if not (isinstance(v, np.ndarray) and isinstance(w, np.ndarray)):
-                    return False
-                if v.shape != w.shape or not np.array_equal(v, w, equal_nan=v.dtype.kind == "f"):
-                    return False
-            elif v != w:
-                return False
-        return True
+        return same_fields(self, other, skip=("layout",))
 
     __hash__ = None  # mutable
 

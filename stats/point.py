@@ -29,6 +29,7 @@ from eddyvigil.stats.delta import StatisticTable
 from eddyvigil.stats.kernels import integral_scales
 from eddyvigil.stats.moments import MomentAccumulator
 from eddyvigil.stats.names import components_of, family, statistic_names
+from eddyvigil.stats.periodic import RowStore, method_text
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 from eddyvigil.stats.stationarity import assess_columns
 from eddyvigil.stats.tails import TAIL_MARGIN, TailAccumulator, needed_order
@@ -108,6 +109,7 @@ class _Evaluation:
     held: list  # None, or (reason, least total record in s) of a guard's hold (slow content)
     no_interval: list  # None, or why no honest interval exists
     unresolved: np.ndarray  # standard error the record does not resolve yet (0 when none)
+    error_method: dict | None = None  # row -> how its error was found, where not by blocking
 
 
 class PointStatistics:
@@ -160,6 +162,9 @@ class PointStatistics:
         self.moments = MomentAccumulator(m)
         self.blocking = BlockingAccumulator(m, base=base, ref=ref)
         self.tails = TailAccumulator(m)
+        # row means of the whole record for the periodic correction of the means (regular
+        # sampling only: the rows need a time axis)
+        self.periodic = RowStore(m, ref=ref) if self.rate_hz is not None else None
         self.table = StatisticTable(self.columns, self.moments.layout)
         # the moment statistics (table.names), then Tint_c, Neff_c, L_c: the one name table's order
         self.names = tuple(statistic_names(self.columns))
@@ -196,6 +201,7 @@ class PointStatistics:
         new.moments = self.moments.copy()
         new.blocking = self.blocking.copy()
         new.tails = self.tails.copy()
+        new.periodic = None if self.periodic is None else self.periodic.copy()
         new.checkpoints = self.checkpoints.copy()
         new._duration_s = self._duration_s
         return new
@@ -262,6 +268,8 @@ class PointStatistics:
         # one sweep: the blocking kernel also hands the block's central sums to the moments
         self.blocking.update(block, moments=self.moments)
         self.tails.update(block)
+        if self.periodic is not None:
+            self.periodic.update(block)
         self._cache = None
         self._checkpoint_ev = None
         if self.checkpoints.due(self.n):
@@ -306,6 +314,8 @@ class PointStatistics:
         new.moments = self.moments.merge(other.moments)
         new.blocking = self.blocking.merge(other.blocking, independent=independent)
         new.tails = self.tails.merge(other.tails)
+        if self.periodic is not None and other.periodic is not None:
+            new.periodic = self.periodic.merge(other.periodic, independent=independent)
         new._duration_s = self._duration_s + other._duration_s
         self._carry_streaks(other, new)
         return new
@@ -378,20 +388,51 @@ class PointStatistics:
             integral_scales(
                 self.duration_s, choice.variance, choice.relative_error, m, values, se
             )
-        blocks = choice.blocks[self._source]
-        rel = choice.relative_error[self._source]
+        se_blocking = se[:m].tolist()  # the stationarity guard's scale: the line is in segments
+        plain = choice
+        choice, methods = self._periodic(values, choice, se)
+        blocks = self._by_row(choice, plain, "blocks")
+        rel = self._by_row(choice, plain, "relative_error")
         hw = INTERVAL_INFLATION * _t_quantiles(0.5 * (1.0 + self.confidence), blocks) * se
         suspect = {}
-        verdicts = assess_columns(self.blocking.segment_means(), se[:m].tolist())
+        verdicts = assess_columns(self.blocking.segment_means(), se_blocking)
         for c, verdict in zip(self.columns, verdicts, strict=True):
             if not verdict.stationary:
                 suspect[c] = verdict.reason or "not stationary"
         targets = self._plan.resolve(values.tolist())
-        guards = self._guards(values, se, hw, choice, blocks, targets)
-        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, *guards)
+        guards = self._guards(values, se, hw, choice, plain, targets)
+        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, *guards, methods)
         if rows is None:
             self._cache = ev
         return ev
+
+    def _periodic(self, values, choice, se):
+        """The means' errors with identified lines taken out (stats.periodic), in place of
+        blocking's for the components with a line: ``(choice, {row: method})``; unchanged
+        (the same ``choice``, ``{}``) when no line is found. Tint, N_eff and L keep the
+        blocking variance."""
+        if self.periodic is None:
+            return choice, {}
+        m = len(self.columns)
+        k_stats = len(self.table.names)
+        tint = values[k_stats : k_stats + m].tolist()
+        fixes = self.periodic.mean_errors(1.0 / self.rate_hz, tint, MIN_BLOCK_TINTS)
+        if not fixes:
+            return choice, {}
+        fields = {
+            f: np.array(getattr(choice, f), copy=True)
+            for f in (
+                "variance", "level", "blocks", "block_samples", "relative_error",
+                "top_variance", "slow_block_samples",
+            )
+        }
+        methods = {}
+        for c, err in fixes.items():
+            for f, a in fields.items():
+                a[c] = getattr(err, f)
+            se[c] = math.sqrt(err.variance)
+            methods[c] = method_text(err, self.rate_hz)
+        return type(choice)(**fields), methods
 
     def _slowest_scale(self, tint, comps) -> float:
         """The integral time (s) that statistic rows with components ``comps`` must respect:
@@ -424,7 +465,17 @@ class PointStatistics:
                 raise_any = True
         return out if raise_any else None
 
-    def _guards(self, values, se, hw, choice, blocks, targets):
+    def _by_row(self, choice, plain, field: str) -> np.ndarray:
+        """``field`` of the level choice for every statistic: the moment rows from ``choice``
+        (the means possibly with a line taken out), Tint, N_eff and L from blocking's
+        ``plain`` choice of their mean."""
+        k = len(self.table.names)
+        out = getattr(choice, field)[self._source]
+        if choice is not plain:
+            out[k:] = getattr(plain, field)[self._source[k:]]
+        return out
+
+    def _guards(self, values, se, hw, choice, plain, targets):
         """Minimum record, slow content and tails for every statistic (see _Evaluation).
 
         Sets the half-width of rows without an honest interval to NaN (in place).
@@ -436,10 +487,10 @@ class PointStatistics:
         tint = values[k_stats : k_stats + m].tolist()  # Tint of each component, s
         alpha = self.tails.tail_index(values[:m]).tolist()
         need_user = self.targets.required_record_s
-        block_samples = choice.block_samples[self._source].tolist()
-        slow_samples = choice.slow_block_samples[self._source].tolist()
-        top = choice.top_variance[self._source].tolist()
-        var = choice.variance[self._source].tolist()
+        block_samples = self._by_row(choice, plain, "block_samples").tolist()
+        slow_samples = self._by_row(choice, plain, "slow_block_samples").tolist()
+        top = self._by_row(choice, plain, "top_variance").tolist()
+        var = self._by_row(choice, plain, "variance").tolist()
         hw_list = hw.tolist()
         S = len(self.names)
         long_enough, min_total, held, no_interval = [], [], [], []
@@ -530,6 +581,7 @@ class PointStatistics:
         half_width, block_counts = ev.half_width.tolist(), ev.blocks.tolist()
         se_rel_err = ev.se_rel_err.tolist()
         unresolved = ev.unresolved.tolist()
+        methods = ev.error_method or {}
         cp = self.checkpoints
         for i in indices:
             name = ev.names[i]
@@ -589,6 +641,7 @@ class PointStatistics:
                     blocks=blocks,
                     reason=reason,
                     unresolved=unresolved[i],
+                    error_method=methods.get(i),
                 )
             )
         converged = any_target and all_conv

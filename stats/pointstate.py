@@ -12,8 +12,11 @@ Format version 1 (``meta["format"] == "eddyvigil-point-state"``, ``meta["version
 arrays ``moments.mean``, ``moments.s2``, ``moments.s3``, ``moments.s4`` and ``blocking.<name>``
 for every array of :class:`~eddyvigil.stats.blocking.BlockingAccumulator` (``ref`` absent while
 empty); scalars in ``meta["moments"]``, ``meta["blocking"]``, ``meta["checkpoints"]``.
+Version 2 adds the periodic row store (``periodic.<name>`` arrays, ``meta["periodic"]``
+scalars; absent for random sampling). A version 1 state still loads: its point has no rows
+and no clock, so no line is ever fitted on it (its errors are blocking's, as they were).
 
-Version 2 adds points of randomly sampled (laser-Doppler) data,
+Version 2 also adds points of randomly sampled (laser-Doppler) data,
 :class:`~eddyvigil.stats.weighted_point.WeightedPointStatistics`, marked by
 ``meta["sampling"] == "random"`` (and ``weighting``): arrays ``wmom.*`` (weighted mean and
 co-moment sums), ``tblocks.ref/Wb/Sb`` (time blocks), ``slots.ref/groups/tail_t/tail_a/tail_w``
@@ -178,6 +181,14 @@ def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
     arrays["tails.high"] = np.sort(ps.tails.high, axis=1)  # order carries no meaning: canonical
     arrays["tails.low"] = np.sort(ps.tails.low, axis=1)
     checkpoints = _checkpoints_meta(ps)
+    periodic = None
+    if ps.periodic is not None:
+        periodic = {}
+        for k, v in vars(ps.periodic).items():
+            if isinstance(v, np.ndarray):
+                arrays[f"periodic.{k}"] = v.copy()
+            elif v is not None:
+                periodic[k] = _scalar(v)
     meta = {
         "format": FORMAT,
         "version": VERSION,
@@ -190,6 +201,7 @@ def to_state(ps) -> tuple[dict, dict[str, np.ndarray]]:
         "blocking": blocking,
         "tails": {"n": int(ps.tails.n), "keep": int(ps.tails.keep)},
         "checkpoints": checkpoints,
+        "periodic": periodic,
     }
     return meta, arrays
 
@@ -235,16 +247,7 @@ def from_state(meta: dict, arrays) -> object:
         bl = ps.blocking
         for k, v in blocking.items():
             setattr(bl, k, v)
-        bl.ref = None
-        for name in arrays:
-            if name.startswith("blocking."):
-                k = name.removeprefix("blocking.")
-                old = getattr(bl, k, None)
-                a = np.array(arrays[name])
-                if k != "ref":
-                    if old is None or a.shape[1:] != old.shape[1:] or a.dtype != old.dtype:
-                        raise StateError(f"{name}: unexpected shape or type {a.shape} {a.dtype}")
-                setattr(bl, k, a)
+        _load_arrays(bl, "blocking.", arrays, trailing=True)
         tails = ps.tails
         tails.n, tails.keep = int(meta["tails"]["n"]), int(meta["tails"]["keep"])
         for k in ("high", "low"):
@@ -252,6 +255,7 @@ def from_state(meta: dict, arrays) -> object:
             if a.ndim != 2 or a.shape[0] != tails.m:
                 raise StateError(f"tails.{k}: shape {a.shape}, expected ({tails.m}, n)")
             setattr(tails, k, a)
+        _load_periodic(ps, meta, arrays)
         ps._duration_s = float(meta["duration_s"])
         ps.checkpoints = _checkpoints_from(meta)
     except StateError:
@@ -259,6 +263,39 @@ def from_state(meta: dict, arrays) -> object:
     except (KeyError, TypeError, ValueError) as exc:
         raise StateError(f"incomplete point state: {exc!r}") from None
     return ps
+
+
+def _load_periodic(ps, meta, arrays) -> None:
+    """The row store of a saved point (version 2), or, from version 1, an empty store without
+    a clock (no line is fitted on a record whose rows were not kept)."""
+    st = ps.periodic
+    if st is None:
+        return
+    if meta["version"] == 1:
+        st.clock = False
+        return
+    for k, v in meta["periodic"].items():
+        setattr(st, k, v)
+    _load_arrays(st, "periodic.", arrays, trailing=False)
+
+
+def _load_arrays(obj, prefix: str, arrays, trailing: bool) -> None:
+    """Set the arrays named ``prefix + attribute`` on ``obj`` (``ref`` unset when absent),
+    each checked against the empty object's array: its shape (with ``trailing``, all but the
+    first axis, which may grow) and type."""
+    obj.ref = None
+    for name in arrays:
+        if name.startswith(prefix):
+            k = name.removeprefix(prefix)
+            old = getattr(obj, k, None)
+            a = np.array(arrays[name])
+            if k != "ref":
+                if old is None:
+                    raise StateError(f"{name}: not part of a point state")
+                same = (a.shape[1:] == old.shape[1:]) if trailing else (a.shape == old.shape)
+                if not same or a.dtype != old.dtype:
+                    raise StateError(f"{name}: unexpected shape or type {a.shape} {a.dtype}")
+            setattr(obj, k, a)
 
 
 def same_state(a, b) -> bool:

@@ -30,7 +30,7 @@ from __future__ import annotations
 
 from typing import Any, Protocol, Self, runtime_checkable
 
-__all__ = ["Accumulator"]
+__all__ = ["Accumulator", "same_fields"]
 
 
 @runtime_checkable
@@ -49,3 +49,25 @@ class Accumulator(Protocol):
 
     @classmethod
     def empty(cls, *args: Any, **kwargs: Any) -> Self: ...
+
+
+def same_fields(a: object, b: object, skip: tuple[str, ...] = ()) -> bool:
+    """True when ``a`` and ``b`` hold the same attributes, array for array bit for bit (NaN
+    equal to NaN) and the rest by ``==``; attributes named in ``skip`` are not compared (the
+    ``__eq__`` of a state-holding class)."""
+    import numpy as np
+
+    if a.__dict__.keys() != b.__dict__.keys():
+        return False
+    for k, v in a.__dict__.items():
+        if k in skip:
+            continue
+        w = b.__dict__[k]
+        if isinstance(v, np.ndarray) or isinstance(w, np.ndarray):
+            if not (isinstance(v, np.ndarray) and isinstance(w, np.ndarray)):
+                return False
+            if v.shape != w.shape or not np.array_equal(v, w, equal_nan=v.dtype.kind == "f"):
+                return False
+        elif v != w:
+            return False
+    return True

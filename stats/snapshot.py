@@ -66,10 +66,13 @@ class Estimate(NamedTuple):
     #: standard error the record does not resolve yet (slow content: sqrt(V_top - V) of the
     #: blocking curve's rise above the chosen level); ``stderr`` is the resolved part
     unresolved: float = 0.0
+    #: how the error was found where it was not by plain blocking (None: blocking), e.g. a
+    #: line taken out first (stats.periodic)
+    error_method: str | None = None
 
     def to_json(self) -> dict:
         """The entry of DESIGN §4 ``statistics`` (non-finite numbers become null)."""
-        return {
+        out = {
             "name": self.name,
             "value": _finite_or_none(self.value),
             "stderr": _finite_or_none(self.stderr),
@@ -81,6 +84,9 @@ class Estimate(NamedTuple):
             "state": self.state,
             "blocks": int(self.blocks),
         }
+        if self.error_method is not None:
+            out["error_method"] = self.error_method
+        return out
 
 
 @dataclass(frozen=True, slots=True)

@@ -25,6 +25,7 @@ from scipy import stats as sps
 from eddyvigil.stats.blocking import BlockingAccumulator
 from eddyvigil.stats.moments import MomentAccumulator
 from eddyvigil.stats.names import k_from_normal_stresses
+from eddyvigil.stats.periodic import RowStore
 from eddyvigil.stats.point import PointStatistics
 from eddyvigil.stats.protocol import Accumulator
 
@@ -110,6 +111,25 @@ def _point_observed(acc: PointStatistics) -> dict[str, np.ndarray]:
     return out
 
 
+ROWS = 16  # a small row store so short hypothesis streams halve it several times
+
+
+def _rows_reference(x: np.ndarray) -> dict[str, np.ndarray]:
+    # numpy reshape-and-mean: rows of L samples, L doubling once the store's ROWS rows are
+    # full and one more row completes
+    n = x.shape[0]
+    L = 1
+    while n >= (ROWS + 1) * L:
+        L *= 2
+    full = n // L
+    return {"n": np.array(n), "rows": x[: full * L].reshape(full, L, x.shape[1]).mean(axis=1)}
+
+
+def _rows_observed(acc: RowStore) -> dict[str, np.ndarray]:
+    snap = acc.snapshot()
+    return {"n": np.array(snap.n), "rows": snap.rows}
+
+
 @dataclass(frozen=True)
 class Entry:
     make: Callable[[], Accumulator]
@@ -117,6 +137,7 @@ class Entry:
     observed: Callable[[Accumulator], dict]
     m: int
     exact_merge: bool  # does A(part1).merge(A(part2)) equal A(all) (to rounding)?
+    associative: bool = True  # (a + b) + c == a + (b + c) (to rounding)?
 
 
 REGISTRY = {
@@ -131,8 +152,14 @@ REGISTRY = {
         3,
         True,  # the values (moments) merge exactly; errors do not (checked elsewhere)
     ),
+    # a merge leaves out the earlier part's unfinished row: not exact
+    # and rows are paired across a join in an order that depends on the grouping of merges
+    "rows": Entry(
+        lambda: RowStore(2, rows=ROWS), _rows_reference, _rows_observed, 2, False, False
+    ),
 }
 ALL = pytest.mark.parametrize("name", list(REGISTRY))
+ASSOCIATIVE = pytest.mark.parametrize("name", [k for k, e in REGISTRY.items() if e.associative])
 
 
 def _data(seed: int, n: int, m: int) -> np.ndarray:
@@ -200,7 +227,7 @@ def test_split_invariance_and_untouched_inputs(name, seed, n, f):
         _assert_close(e.observed(merged), e.reference(x))
 
 
-@ALL
+@ASSOCIATIVE
 @settings(max_examples=10, deadline=None)
 @given(seed=st.integers(0, 2**32 - 1), sizes=st.tuples(*[st.integers(0, 20)] * 3))
 def test_merge_is_associative(name, seed, sizes):
