@@ -29,7 +29,7 @@ import math
 import numba
 import numpy as np
 
-__all__ = ["count_flags", "extremes", "judge_window", "universal_threshold"]
+__all__ = ["STATE_SLOTS", "append_rows", "judge_held", "universal_threshold"]
 
 #: Expected number of naturally occurring dropouts of the flagged length per window.
 DROPOUT_ALPHA = 1e-3
@@ -46,6 +46,15 @@ FLAG_NONE = 0
 FLAG_SPIKE = 1
 FLAG_DROPOUT = 2
 
+#: Rows per vectorised ellipse test (a chunk with a candidate is scanned row by row).
+_CHUNK = 32
+#: Reassociated sums and min/max of finite samples (the pipeline rejects non-finite ones
+#: before the checks): the window pass vectorises.
+_SUMS = {"reassoc", "nsz", "nnan"}
+#: Slots of judge_held's integer state.
+_BASE, _FILL, _JUDGED, _WINDOWS, _ESTIMATES, _N_OUT, _MARKS, _VAR_N = range(8)
+STATE_SLOTS = 8
+
 
 def universal_threshold(n: int) -> float:
     """λ_U = √(2 ln N) (Goring & Nikora 2002); NaN below 2 samples."""
@@ -53,64 +62,9 @@ def universal_threshold(n: int) -> float:
 
 
 @numba.njit(cache=True, nogil=True)
-def extremes(block):
-    """Per column: min, max and how many samples equal each (for pile-up at a rail)."""
-    n, m = block.shape
-    mn = np.full(m, np.inf)
-    mx = np.full(m, -np.inf)
-    cmin = np.zeros(m, dtype=np.int64)
-    cmax = np.zeros(m, dtype=np.int64)
-    for i in range(n):  # row-major: one pass in memory order
-        for c in range(m):
-            v = block[i, c]
-            if v <= mn[c]:
-                if v < mn[c]:
-                    mn[c] = v
-                    cmin[c] = 0
-                cmin[c] += 1
-            if v >= mx[c]:
-                if v > mx[c]:
-                    mx[c] = v
-                    cmax[c] = 0
-                cmax[c] += 1
-    return mn, mx, cmin, cmax
-
-
-@numba.njit(cache=True, nogil=True)
-def count_flags(flags):
-    """Per column: spikes and dropout samples among ``flags`` (n, m); and (row, column) of
-    every flag, in row order."""
-    n, m = flags.shape
-    spikes = np.zeros(m, dtype=np.int64)
-    drops = np.zeros(m, dtype=np.int64)
-    where = np.empty((0, 2), dtype=np.int64)
-    total = 0
-    for i in range(n):
-        for c in range(m):
-            f = flags[i, c]
-            if f == FLAG_SPIKE:
-                spikes[c] += 1
-                total += 1
-            elif f == FLAG_DROPOUT:
-                drops[c] += 1
-                total += 1
-    if total:
-        where = np.empty((total, 2), dtype=np.int64)
-        k = 0
-        for i in range(n):
-            for c in range(m):
-                if flags[i, c] != FLAG_NONE:
-                    where[k, 0] = i
-                    where[k, 1] = c
-                    k += 1
-    return spikes, drops, where
-
-
-@numba.njit(cache=True, nogil=True)
-def _median_sorted(v):
-    v.sort()
-    k = v.shape[0]
-    return 0.5 * (v[(k - 1) // 2] + v[k // 2])
+def _median(v):
+    """The median (mean of the two middle values for an even count), by selection."""
+    return np.median(v)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -118,7 +72,7 @@ def _mad_sigma(v, centre):
     """1.4826 x median |v - centre| (v is overwritten)."""
     for i in range(v.shape[0]):
         v[i] = abs(v[i] - centre)
-    return _median_sorted(v) * _MAD_TO_SIGMA
+    return _median(v) * _MAD_TO_SIGMA
 
 
 @numba.njit(cache=True, nogil=True)
@@ -126,7 +80,7 @@ def _window_estimates(y, w0, w1, est):
     """From an evenly strided subsample: est = [median u, 1.4826 MAD of u, median and MAD of
     Δu, median and MAD of Δ²u].
 
-    Subsamples keep the sorts cheap; the scales are then averaged over the last windows
+    Subsamples keep the selections cheap; the scales are then averaged over the last windows
     (see ``judge_window``), so their noise stays small."""
     nw = w1 - w0
     step = max(1, nw // _SCALE_SAMPLES)
@@ -139,13 +93,13 @@ def _window_estimates(y, w0, w1, est):
         a[i] = y[r]
         b[i] = 0.5 * (y[r + 1] - y[r - 1])
         c[i] = 0.25 * (y[r + 2] - 2.0 * y[r] + y[r - 2])
-    med = _median_sorted(a.copy())
+    med = _median(a.copy())
     est[0] = med
     est[1] = _mad_sigma(a, med)
-    m1 = _median_sorted(b.copy())
+    m1 = _median(b.copy())
     est[2] = m1
     est[3] = _mad_sigma(b, m1)
-    m2 = _median_sorted(c.copy())
+    m2 = _median(c.copy())
     est[4] = m2
     est[5] = _mad_sigma(c, m2)
 
@@ -204,7 +158,8 @@ def _dropouts(raw, flags, lo, hi, w0, w1, run_min):
 
 @numba.njit(cache=True, nogil=True)
 def _fill_run(y, fl, i):
-    """Interpolate the flagged run around row i between its unflagged neighbours.
+    """Interpolate the flagged run around row i between its unflagged neighbours; return
+    the run's last row.
 
     Unflagged rows of y hold raw values, so the anchors are samples (held at the end)."""
     n = y.shape[0]
@@ -218,13 +173,14 @@ def _fill_run(y, fl, i):
     hi = b + 1
     for k in range(a, b + 1):
         if lo < 0 and hi >= n:
-            return
+            return b
         if lo < 0:
             y[k] = y[hi]
         elif hi >= n:
             y[k] = y[lo]
         else:
             y[k] = y[lo] + (y[hi] - y[lo]) * (k - lo) / (hi - lo)
+    return b
 
 
 @numba.njit(cache=True, nogil=True)
@@ -238,179 +194,382 @@ def _peak(y, i):
     return True
 
 
+
+
 @numba.njit(cache=True, nogil=True)
-def judge_window(buf, flags, work, w0, w1, lam, stats, hist, nest, estimate):
-    """Judge rows w0..w1 of ``buf`` (n, m) for spikes and its rows 2..w1 for dropouts.
+def _outside(y, i, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
+    """Is row i of y outside any of the three ellipses? (the same arithmetic whether the
+    scan is vectorised or not; ia = ib = 0 turns the rotated one off)"""
+    xu = y[i] - centre
+    g1 = (0.5 * (y[i + 1] - y[i - 1]) - m1) * i1
+    g2r = 0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) - m2
+    g2 = g2r * i2
+    x0 = xu * iu
+    q1 = g1 * g1
+    r1 = xu * ct + g2r * st
+    r2 = g2r * ct - xu * st
+    return (x0 * x0 + q1 > 1.0) | (q1 + g2 * g2 > 1.0) | (r1 * r1 * ia + r2 * r2 * ib > 1.0)
 
-    ``buf`` rows 0-1 are cleaned context (already output), rows 2..w0 pending rows judged
-    before, w0..w1 the new window, w1..n the lookahead (raw). ``flags`` (n, m) int8 holds the
-    pending rows' flags on entry and all of them on return; ``work`` (n, m) receives the
-    cleaned values. ``stats`` (m, 7) receives per component: new spikes, new dropout
-    samples, the window's smallest non-zero |Δu|, the fraction of non-zero |Δu| that are
-    whole multiples of it, the window's sum and sum of squares about its centre, the centre.
-    ``hist`` (m, SCALE_WINDOWS, 6) holds the scale estimates of earlier windows, ``nest`` of
-    them made so far; with ``estimate`` this window adds one (slot ``nest % SCALE_WINDOWS``).
-    The ellipses use the window's own mean of u as centre and the mean of the held
-    estimates as scales (a median centre would cost a sort per window; spikes below the 1 %
-    suspect threshold move the mean by less than 0.1 σ).
 
-    A window costs a few scans of each column; dropout runs are looked for only where the
-    longest run of repeats is long enough, or rows are pending from the window before.
-    """
-    n, m = buf.shape
-    nw = w1 - w0
-    for c in range(m):
-        col = buf[:, c]
-        fl = flags[:, c]
-        # --- pass 1: centre; tan θ = Σ u Δ²u / Σ u² over the whole window (u about its
-        # centre, as Goring & Nikora define the angle; sums about the first value, for
-        # round-off); repeats of the previous value (for p̂); the quantisation step
-        zeros = 0
-        long_zeros = 0
-        run = 0
-        longest = 0
-        qmin = np.inf
-        s0 = col[w0]
-        sa = 0.0
-        sb = 0.0
-        sc = 0.0
-        sd = 0.0
-        prev = col[w0 - 1]
-        for i in range(w0, w1):
-            x = col[i]
-            a = x - s0
-            g = 0.25 * (col[i + 2] - 2.0 * x + col[i - 2])
-            sa += a
-            sb += a * a
-            sc += a * g
-            sd += g
-            d = abs(x - prev)
-            prev = x
-            if i == w0:
+@numba.njit(cache=True, nogil=True, fastmath=_SUMS)
+def _window_sums(col, w0, w1):
+    """One pass over a window: sums about its first value of u, u², u Δ²u, Δ²u; zero first
+    differences; the smallest non-zero |Δu|; the least and greatest value (reassociated:
+    vectorised, and the same bits for the same window wherever it sits in memory)."""
+    s0 = col[w0]
+    sa = 0.0
+    sb = 0.0
+    sc = 0.0
+    sd = 0.0
+    zeros = 0
+    qmin = np.inf
+    lo = s0
+    hi = s0
+    for i in range(w0, w1):
+        x = col[i]
+        a = x - s0
+        g = 0.25 * (col[i + 2] - 2.0 * x + col[i - 2])
+        sa += a
+        sb += a * a
+        sc += a * g
+        sd += g
+        lo = min(lo, x)
+        hi = max(hi, x)
+        d = abs(x - col[i - 1]) if i > w0 else np.inf  # no difference across the window's start
+        zeros += d == 0.0
+        qmin = min(qmin, d if d > 0.0 else np.inf)
+    return s0, sa, sb, sc, sd, zeros, qmin, lo, hi
+
+
+@numba.njit(cache=True, nogil=True)
+def _zero_runs(col, w0, w1):
+    """Longest run of zero differences in the window, and the zeros inside long runs."""
+    run = 0
+    longest = 0
+    long_zeros = 0
+    for i in range(w0 + 1, w1):
+        if col[i] == col[i - 1]:
+            run += 1
+        else:
+            if run >= _LONG_ZERO_RUN:
+                long_zeros += run
+            if run > longest:
+                longest = run
+            run = 0
+    if run >= _LONG_ZERO_RUN:
+        long_zeros += run
+    if run > longest:
+        longest = run
+    return longest, long_zeros
+
+
+@numba.njit(cache=True, nogil=True)
+def _chunk_hits(y, i, j, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
+    """How many of rows i..j lie outside an ellipse (a branch-free, vectorised count)."""
+    hits = 0
+    for k in range(i, j):
+        hits += _outside(y, k, centre, m1, m2, iu, i1, i2, ct, st, ia, ib)
+    return hits
+
+
+@numba.njit(cache=True, nogil=True)
+def _spike_scan(y, fl, w0, w1, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
+    """Flag and replace the spikes of rows w0..w1 of y; return how many.
+
+    The ellipse test runs vectorised over 32-row chunks; a chunk with a candidate is
+    scanned row by row: a confirmed spike is replaced at once (interpolation over its
+    flagged run) and the scan steps back two rows (Goring & Nikora's iteration done
+    locally; with the scales fixed only rows within ±2 of a replacement change, so the scan
+    runs on past the chunk while a replacement reaches beyond it)."""
+    found = 0
+    i = w0
+    while i < w1:
+        j = min(i + _CHUNK, w1)
+        if _chunk_hits(y, i, j, centre, m1, m2, iu, i1, i2, ct, st, ia, ib) == 0:
+            i = j
+            continue
+        r = i
+        while r < j:
+            if (
+                fl[r] == FLAG_NONE
+                and _outside(y, r, centre, m1, m2, iu, i1, i2, ct, st, ia, ib)
+                and _peak(y, r)
+            ):
+                fl[r] = FLAG_SPIKE
+                found += 1
+                b = _fill_run(y, fl, r)
+                j = max(j, min(b + 3, w1))
+                r = max(w0, r - 2)
                 continue
-            if d == 0.0:
-                zeros += 1
-                run += 1
-            else:
-                if run >= _LONG_ZERO_RUN:
-                    long_zeros += run
-                if run > longest:
-                    longest = run
-                run = 0
-                if d < qmin:
-                    qmin = d
-        if run >= _LONG_ZERO_RUN:
-            long_zeros += run
-        if run > longest:
-            longest = run
-        centre = s0 + sa / nw
-        var = sb / nw - (sa / nw) ** 2
-        tan_theta = (sc / nw - (sa / nw) * (sd / nw)) / var if var > 0.0 else 0.0
-        usable = (nw - 1) - long_zeros
-        p = (zeros - long_zeros) / usable if usable > 0 else 0.0
-        run_min = 3
-        if p > 0.0 and p < 1.0:
-            need = 1.0 + math.log(DROPOUT_ALPHA / max(nw, 2)) / math.log(p)
-            run_min = max(3, int(math.ceil(need)))
-        elif p >= 1.0:
-            run_min = n + 1  # nothing but repeats: no basis for calling a run too long
-        # --- scales: the mean of the held estimates
-        if estimate:
-            _window_estimates(col, w0, w1, hist[c, nest % SCALE_WINDOWS])
-        held = min(nest + (1 if estimate else 0), SCALE_WINDOWS)
-        su = 0.0
-        m1 = 0.0
-        s1 = 0.0
-        m2 = 0.0
-        s2 = 0.0
-        for h in range(held):
-            su += hist[c, h, 1] / held
-            m1 += hist[c, h, 2] / held
-            s1 += hist[c, h, 3] / held
-            m2 += hist[c, h, 4] / held
-            s2 += hist[c, h, 5] / held
-        judge = su > 0.0 and s1 > 0.0 and s2 > 0.0 and nw >= 8
-        ct = 1.0
-        st = 0.0
+            r += 1
+        i = j
+    return found
+
+
+@numba.njit(cache=True, nogil=True)
+def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
+    """Judge rows w0..w1 of one component (``col`` raw, rows 0-1 cleaned context, w1..
+    lookahead) for spikes and rows 2..w1 for dropouts; ``y`` receives the cleaned values,
+    ``fl`` the flags (the pending rows' on entry). ``res`` receives: new spikes, new dropout
+    samples, the smallest non-zero |Δu|, the share of sampled non-zero |Δu| on whole
+    multiples of it, the window's centre and its sum of squares about it, its least and
+    greatest value.
+
+    Cost: two vectorised passes (sums and extremes; the ellipse test, 32 rows at a time), one scalar
+    pass only over the 32-row chunks that hold a candidate, a strided sample for the step
+    and, when due, the scale estimates; dropout runs only where repeats are long enough.
+    """
+    n = col.shape[0]
+    nw = w1 - w0
+    s0, sa, sb, sc, sd, zeros, qmin, lo, hi = _window_sums(col, w0, w1)
+    longest, long_zeros = _zero_runs(col, w0, w1) if zeros > 0 else (0, 0)
+    centre = s0 + sa / nw
+    var = sb / nw - (sa / nw) ** 2
+    tan_theta = (sc / nw - (sa / nw) * (sd / nw)) / var if var > 0.0 else 0.0
+    usable = (nw - 1) - long_zeros
+    p = (zeros - long_zeros) / usable if usable > 0 else 0.0
+    run_min = 3
+    if p > 0.0 and p < 1.0:
+        need = 1.0 + math.log(DROPOUT_ALPHA / max(nw, 2)) / math.log(p)
+        run_min = max(3, int(math.ceil(need)))
+    elif p >= 1.0:
+        run_min = n + 1  # nothing but repeats: no basis for calling a run too long
+    # --- scales: the mean of the held estimates
+    if estimate:
+        _window_estimates(col, w0, w1, hist[nest % SCALE_WINDOWS])
+    held = min(nest + (1 if estimate else 0), SCALE_WINDOWS)
+    su = 0.0
+    m1 = 0.0
+    s1 = 0.0
+    m2 = 0.0
+    s2 = 0.0
+    for h in range(held):
+        su += hist[h, 1] / held
+        m1 += hist[h, 2] / held
+        s1 += hist[h, 3] / held
+        m2 += hist[h, 4] / held
+        s2 += hist[h, 5] / held
+    judge = su > 0.0 and s1 > 0.0 and s2 > 0.0 and nw >= 8
+    # --- whole multiples of the step, on every 8th difference (a cheap, ample sample)
+    whole = 0
+    nonzero = 0
+    for i in range(w0 + 1, w1, 8):
+        d = abs(col[i] - col[i - 1])
+        if d > 0.0:
+            nonzero += 1
+            r = d / qmin
+            if abs(r - math.floor(r + 0.5)) < 0.02:
+                whole += 1
+    # --- dropouts: only where a long enough run exists or rows are pending
+    y[:] = col
+    new_spikes = 0
+    new_drop = 0
+    if w0 > 2 or longest + 1 >= run_min:
+        old = fl[:w1].copy()
+        for i in range(2, n):  # dropout flags are recomputed over all pending rows
+            if i >= w1 or fl[i] == FLAG_DROPOUT:
+                fl[i] = FLAG_NONE
+        _dropouts(col, fl, 2, w1, w0, w1, run_min)
+        for i in range(2, w1):
+            if fl[i] == FLAG_DROPOUT and old[i] != FLAG_DROPOUT:
+                new_drop += 1
+        _interpolate(y, fl, 2, n)
+    # --- spikes: the ellipse test vectorised over 32-row chunks; a chunk with a candidate
+    # is scanned row by row: a confirmed spike is replaced at once (interpolation over its
+    # flagged run) and the scan steps back two rows (Goring & Nikora's iteration done
+    # locally; with the scales fixed only rows within ±2 of a replacement change, so the
+    # scan runs on past the chunk while a replacement reaches beyond it)
+    if judge:
+        theta = math.atan(tan_theta)
+        ct = math.cos(theta)
+        st = math.sin(theta)
+        c2 = ct * ct - st * st
+        au = (lam * su) ** 2
+        a2 = (lam * s2) ** 2
         aa = -1.0
         bb = -1.0
-        iu = 0.0
-        i1 = 0.0
-        i2 = 0.0
-        if judge:
-            theta = math.atan(tan_theta)
-            ct = math.cos(theta)
-            st = math.sin(theta)
-            c2 = ct * ct - st * st
-            au = (lam * su) ** 2
-            a2 = (lam * s2) ** 2
-            if c2 != 0.0:
-                aa = (au * ct * ct - a2 * st * st) / c2
-                bb = (a2 * ct * ct - au * st * st) / c2
-            iu = 1.0 / (lam * su)
-            i1 = 1.0 / (lam * s1)
-            i2 = 1.0 / (lam * s2)
+        if c2 != 0.0:
+            aa = (au * ct * ct - a2 * st * st) / c2
+            bb = (a2 * ct * ct - au * st * st) / c2
         rotated = aa > 0.0 and bb > 0.0
-        # --- whole multiples of the step, on every 8th difference (a cheap, ample sample)
-        whole = 0
-        nonzero = 0
-        for i in range(w0 + 1, w1, 8):
-            d = abs(col[i] - col[i - 1])
-            if d > 0.0:
-                nonzero += 1
-                r = d / qmin
-                if abs(r - math.floor(r + 0.5)) < 0.02:
-                    whole += 1
-        # --- dropouts: only where a long enough run exists or rows are pending
-        y = col.copy()
-        new_spikes = 0
-        new_drop = 0
-        if w0 > 2 or longest + 1 >= run_min:
-            old = fl.copy()
-            for i in range(2, n):  # dropout flags are recomputed over all pending rows
-                if i >= w1 or fl[i] == FLAG_DROPOUT:
-                    fl[i] = FLAG_NONE
-            _dropouts(col, fl, 2, w1, w0, w1, run_min)
-            for i in range(2, w1):
-                if fl[i] == FLAG_DROPOUT and old[i] != FLAG_DROPOUT:
-                    new_drop += 1
-            _interpolate(y, fl, 2, n)
-        # --- spikes: one scan; a confirmed spike is replaced at once (interpolation over its
-        # flagged run) and the scan steps back two rows, which is Goring & Nikora's iteration
-        # done locally (with the scales fixed only rows within ±2 of a replacement change)
-        if judge:
-            ia = 1.0 / aa if rotated else 0.0
-            ib = 1.0 / bb if rotated else 0.0
-            i = w0
-            while i < w1:
-                # the three ellipses, written out (this loop is most of a window's cost)
-                xu = y[i] - centre
-                g1 = (0.5 * (y[i + 1] - y[i - 1]) - m1) * i1
-                g2r = 0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) - m2
-                g2 = g2r * i2
-                x0 = xu * iu
-                q1 = g1 * g1
-                out = x0 * x0 + q1 > 1.0 or q1 + g2 * g2 > 1.0
-                if not out and rotated:
-                    r1 = xu * ct + g2r * st
-                    r2 = g2r * ct - xu * st
-                    out = r1 * r1 * ia + r2 * r2 * ib > 1.0
-                if out and fl[i] == FLAG_NONE and _peak(y, i):
-                    fl[i] = FLAG_SPIKE
-                    new_spikes += 1
-                    _fill_run(y, fl, i)
-                    i = max(w0, i - 2)
+        ia = 1.0 / aa if rotated else 0.0
+        ib = 1.0 / bb if rotated else 0.0
+        iu = 1.0 / (lam * su)
+        i1 = 1.0 / (lam * s1)
+        i2 = 1.0 / (lam * s2)
+        new_spikes = _spike_scan(y, fl, w0, w1, centre, m1, m2, iu, i1, i2, ct, st, ia, ib)
+    res[0] = new_spikes
+    res[1] = new_drop
+    res[2] = qmin
+    res[3] = whole / nonzero if nonzero > 0 else np.nan
+    res[4] = centre
+    res[5] = max(sb - sa * sa / nw, 0.0)
+    res[6] = lo
+    res[7] = hi
+
+
+@numba.njit(cache=True, nogil=True)
+def append_rows(block, buf, start):
+    """Copy ``block`` (n, m; rows) into the column-major ``buf`` (m, ·) from column ``start``."""
+    n, m = block.shape
+    for c in range(m):
+        for i in range(n):
+            buf[c, start + i] = block[i, c]
+
+
+@numba.njit(cache=True, nogil=True)
+def _rails(col, lo, hi, rails, at_rails):
+    """Fold a window's least and greatest value into the point's extremes ``rails`` (2,)
+    and the counts of samples equal to each ``at_rails`` (2,): samples are counted only
+    when the window reaches a rail (rarely, once the point's range is set)."""
+    if lo < rails[0]:
+        rails[0] = lo
+        at_rails[0] = 0
+    if hi > rails[1]:
+        rails[1] = hi
+        at_rails[1] = 0
+    if lo == rails[0] or hi == rails[1]:
+        cmin = 0
+        cmax = 0
+        for i in range(col.shape[0]):
+            cmin += col[i] == lo
+            cmax += col[i] == hi
+        if lo == rails[0]:
+            at_rails[0] += cmin
+        if hi == rails[1]:
+            at_rails[1] += cmax
+
+
+@numba.njit(cache=True, nogil=True)
+def _releasable(buf, flags, base, stop, limit):
+    """Rows 0..end may go: none inside a trailing flagged run or an open run of repeats."""
+    m = buf.shape[0]
+    end = stop
+    while end > limit:
+        i = base + 2 + end - 1
+        bad = False
+        for c in range(m):
+            if flags[c, i] != FLAG_NONE or buf[c, i] == buf[c, i + 1]:
+                bad = True
+        if not bad:
+            break
+        end -= 1
+    return end if end > limit else stop
+
+
+@numba.njit(cache=True, nogil=True)
+def _release(buf, flags, work, base, end, st, counts, exclude, out, out_n, marks, mark_values):
+    """Count the flags of released rows 0..end (row order into the ``marks`` ring), copy
+    their cleaned values to ``out`` under "exclude"; the last two become the context."""
+    m = buf.shape[0]
+    any_flag = False
+    for c in range(m):
+        f = flags[c, base + 2 : base + 2 + end]
+        s = 0
+        for i in range(end):
+            s += f[i] != FLAG_NONE
+        any_flag = any_flag or s > 0
+    if any_flag:
+        kept = marks.shape[0]
+        for i in range(end):
+            for c in range(m):
+                f = flags[c, base + 2 + i]
+                if f == FLAG_NONE:
                     continue
-                i += 1
-        work[:, c] = y
-        med = centre
-        # sums about the window's centre for the point's r.m.s. (σ/q̂), from pass 1's
-        s = 0.0
-        ss = max(sb - sa * sa / nw, 0.0)
-        stats[c, 0] = new_spikes
-        stats[c, 1] = new_drop
-        stats[c, 2] = qmin
-        stats[c, 3] = whole / nonzero if nonzero > 0 else np.nan
-        stats[c, 4] = s
-        stats[c, 5] = ss
-        stats[c, 6] = med
+                counts[c, 0 if f == FLAG_SPIKE else 1] += 1
+                if exclude:
+                    counts[c, 2] += 1
+                slot = st[_MARKS] % kept
+                marks[slot, 0] = st[_N_OUT] + i
+                marks[slot, 1] = c
+                marks[slot, 2] = f
+                mark_values[slot] = buf[c, base + 2 + i]
+                st[_MARKS] += 1
+    if exclude:
+        for i in range(end):
+            for c in range(m):
+                out[out_n + i, c] = work[c, base + 2 + i]
+    for c in range(m):  # the last two released rows, cleaned, are the next context
+        buf[c, base + end] = work[c, base + end]
+        buf[c, base + end + 1] = work[c, base + end + 1]
+    st[_N_OUT] += end
+
+
+@numba.njit(cache=True, nogil=True)
+def judge_held(buf, flags, work, st, hist, acc, counts, rails, at_rails, marks, mark_values,
+               out, window, max_pending, final, exclude):
+    """Judge every complete window held in the column-major ``buf`` (all that is held when
+    ``final``) and release what can be released; returns the rows written to ``out``.
+
+    ``st`` (int64): base column of the context, rows held, of those judged, windows,
+    scale estimates, rows released, marks made, rows in the r.m.s. record. ``hist`` (m,
+    SCALE_WINDOWS, 6) the scale estimates; ``acc`` (m, 4): quantised windows, their
+    smallest step, the r.m.s. record's mean and M2 (Chan et al. 1979 pairwise merge);
+    ``counts`` (m, 3): spikes, dropout samples, replaced; ``rails``, ``at_rails`` (m, 2) the
+    extremes of the judged rows and how many samples equal each. Buffer columns base, base+1 hold
+    the context (the last two released rows, cleaned), then the held rows.
+    """
+    m = buf.shape[0]
+    res = np.empty(8)
+    out_n = 0
+    while True:
+        base, fill, judged = st[_BASE], st[_FILL], st[_JUDGED]
+        if final:
+            if fill == 0:
+                break
+            stop = fill
+            for c in range(m):  # the last row, held twice, is the lookahead
+                buf[c, base + 2 + fill] = buf[c, base + 1 + fill]
+                buf[c, base + 3 + fill] = buf[c, base + 1 + fill]
+        elif fill - judged >= window + 2:
+            stop = judged + window
+        else:
+            break
+        n = stop + 4
+        w0 = 2 + judged
+        w1 = 2 + stop
+        nw = stop - judged
+        for c in range(m):
+            fl = flags[c, base : base + n]
+            fl[0] = FLAG_NONE
+            fl[1] = FLAG_NONE
+            fl[w0:] = FLAG_NONE
+        if nw > 0:
+            lam = math.sqrt(2.0 * math.log(nw)) if nw >= 2 else np.nan
+            due = st[_ESTIMATES] < SCALE_WINDOWS or st[_WINDOWS] % SCALE_WINDOWS == 0
+            var_n = st[_VAR_N]
+            for c in range(m):
+                _judge_column(
+                    buf[c, base : base + n], flags[c, base : base + n],
+                    work[c, base : base + n], w0, w1, lam, hist[c], st[_ESTIMATES], due, res,
+                )
+                _rails(buf[c, base + w0 : base + w1], res[6], res[7], rails[c], at_rails[c])
+                # quantisation record: q̂ where the differences sit on whole steps
+                if math.isfinite(res[2]) and res[3] >= 0.99:
+                    acc[c, 0] += 1
+                    acc[c, 1] = min(acc[c, 1], res[2])
+                # r.m.s. record: Chan et al. (1979) pairwise merge of the window's
+                delta = res[4] - acc[c, 2]
+                tot = var_n + nw
+                acc[c, 2] += delta * nw / tot
+                acc[c, 3] += res[5] + delta * delta * var_n * nw / tot
+            st[_VAR_N] += nw
+            st[_ESTIMATES] += 1 if due else 0
+            st[_WINDOWS] += 1
+        else:
+            for c in range(m):
+                y = work[c, base : base + n]
+                y[:] = buf[c, base : base + n]
+                _interpolate(y, flags[c, base : base + n], 2, n)
+        end = stop if final else _releasable(
+            buf, flags, base, stop, max(0, stop - max_pending * window)
+        )
+        _release(buf, flags, work, base, end, st, counts, exclude, out, out_n, marks,
+                 mark_values)
+        out_n += end if exclude else 0
+        st[_BASE] = base + end
+        st[_FILL] = fill - end
+        st[_JUDGED] = stop - end
+        if final:
+            break
+    return out_n
