@@ -47,7 +47,7 @@ FLAG_SPIKE = 1
 FLAG_DROPOUT = 2
 
 #: Rows per vectorised ellipse test (a chunk with a candidate is scanned row by row).
-_CHUNK = 32
+_CHUNK = 64
 #: Reassociated sums and min/max of finite samples (the pipeline rejects non-finite ones
 #: before the checks): the window pass vectorises.
 _SUMS = {"reassoc", "nsz", "nnan"}
@@ -213,32 +213,48 @@ def _outside(y, i, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
 
 @numba.njit(cache=True, nogil=True, fastmath=_SUMS)
 def _window_sums(col, w0, w1):
-    """One pass over a window: sums about its first value of u, u², u Δ²u, Δ²u; zero first
-    differences; the smallest non-zero |Δu|; the least and greatest value (reassociated:
-    vectorised, and the same bits for the same window wherever it sits in memory)."""
-    s0 = col[w0]
+    """Sums over a window about its first value of u, u², u Δ²u, Δ²u (reassociated over
+    shifted views indexed from 0: vectorised, and the same bits for the same window
+    wherever it sits in memory)."""
+    c = col[w0:w1]
+    cm2 = col[w0 - 2 : w1 - 2]
+    cp2 = col[w0 + 2 : w1 + 2]
+    s0 = c[0]
     sa = 0.0
     sb = 0.0
     sc = 0.0
     sd = 0.0
-    zeros = 0
-    qmin = np.inf
-    lo = s0
-    hi = s0
-    for i in range(w0, w1):
-        x = col[i]
-        a = x - s0
-        g = 0.25 * (col[i + 2] - 2.0 * x + col[i - 2])
+    for i in range(c.shape[0]):
+        a = c[i] - s0
+        g = 0.25 * (cp2[i] - 2.0 * c[i] + cm2[i])
         sa += a
         sb += a * a
         sc += a * g
         sd += g
-        lo = min(lo, x)
-        hi = max(hi, x)
-        d = abs(x - col[i - 1]) if i > w0 else np.inf  # no difference across the window's start
-        zeros += d == 0.0
-        qmin = min(qmin, d if d > 0.0 else np.inf)
-    return s0, sa, sb, sc, sd, zeros, qmin, lo, hi
+    return s0, sa, sb, sc, sd
+
+
+@numba.njit(cache=True, nogil=True)
+def _window_scan(col, w0, w1):
+    """Zero first differences within a window, the smallest non-zero |Δu|, the least and
+    greatest value (compare-and-branch: rarely taken, so cheap though not vectorised)."""
+    zeros = 0
+    qmin = np.inf
+    lo = col[w0]
+    hi = col[w0]
+    for i in range(w0 + 1, w1):
+        x = col[i]
+        if x < lo:
+            lo = x
+        elif x > hi:
+            hi = x
+        d = abs(x - col[i - 1])
+        if d < qmin:
+            if d == 0.0:
+                zeros += 1
+            else:
+                qmin = d
+    return zeros, qmin, lo, hi
 
 
 @numba.njit(cache=True, nogil=True)
@@ -264,11 +280,42 @@ def _zero_runs(col, w0, w1):
 
 
 @numba.njit(cache=True, nogil=True)
+def _whole_share(col, w0, w1, step):
+    """Share of non-zero |Δu| that are whole multiples of ``step``, on every 8th difference
+    (a cheap, ample sample); NaN with none."""
+    whole = 0
+    nonzero = 0
+    for i in range(w0 + 1, w1, 8):
+        d = abs(col[i] - col[i - 1])
+        if d > 0.0:
+            nonzero += 1
+            r = d / step
+            if abs(r - math.floor(r + 0.5)) < 0.02:
+                whole += 1
+    return whole / nonzero if nonzero > 0 else np.nan
+
+
+@numba.njit(cache=True, nogil=True)
 def _chunk_hits(y, i, j, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
     """How many of rows i..j lie outside an ellipse (a branch-free, vectorised count)."""
+    # shifted views indexed from 0: no negative-index wraparound test, so LLVM vectorises;
+    # the arithmetic is _outside's, term for term
+    c = y[i:j]
+    cm2 = y[i - 2 : j - 2]
+    cm1 = y[i - 1 : j - 1]
+    cp1 = y[i + 1 : j + 1]
+    cp2 = y[i + 2 : j + 2]
     hits = 0
-    for k in range(i, j):
-        hits += _outside(y, k, centre, m1, m2, iu, i1, i2, ct, st, ia, ib)
+    for k in range(c.shape[0]):
+        xu = c[k] - centre
+        g1 = (0.5 * (cp1[k] - cm1[k]) - m1) * i1
+        g2r = 0.25 * (cp2[k] - 2.0 * c[k] + cm2[k]) - m2
+        g2 = g2r * i2
+        x0 = xu * iu
+        q1 = g1 * g1
+        r1 = xu * ct + g2r * st
+        r2 = g2r * ct - xu * st
+        hits += (x0 * x0 + q1 > 1.0) | (q1 + g2 * g2 > 1.0) | (r1 * r1 * ia + r2 * r2 * ib > 1.0)
     return hits
 
 
@@ -276,7 +323,7 @@ def _chunk_hits(y, i, j, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
 def _spike_scan(y, fl, w0, w1, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
     """Flag and replace the spikes of rows w0..w1 of y; return how many.
 
-    The ellipse test runs vectorised over 32-row chunks; a chunk with a candidate is
+    The ellipse test runs vectorised over 64-row chunks; a chunk with a candidate is
     scanned row by row: a confirmed spike is replaced at once (interpolation over its
     flagged run) and the scan steps back two rows (Goring & Nikora's iteration done
     locally; with the scales fixed only rows within ±2 of a replacement change, so the scan
@@ -315,13 +362,14 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
     multiples of it, the window's centre and its sum of squares about it, its least and
     greatest value.
 
-    Cost: two vectorised passes (sums and extremes; the ellipse test, 32 rows at a time), one scalar
-    pass only over the 32-row chunks that hold a candidate, a strided sample for the step
+    Cost: two vectorised passes (sums and extremes; the ellipse test, 64 rows at a time), one scalar
+    pass only over the 64-row chunks that hold a candidate, a strided sample for the step
     and, when due, the scale estimates; dropout runs only where repeats are long enough.
     """
     n = col.shape[0]
     nw = w1 - w0
-    s0, sa, sb, sc, sd, zeros, qmin, lo, hi = _window_sums(col, w0, w1)
+    s0, sa, sb, sc, sd = _window_sums(col, w0, w1)
+    zeros, qmin, lo, hi = _window_scan(col, w0, w1)
     longest, long_zeros = _zero_runs(col, w0, w1) if zeros > 0 else (0, 0)
     centre = s0 + sa / nw
     var = sb / nw - (sa / nw) ** 2
@@ -350,16 +398,7 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
         m2 += hist[h, 4] / held
         s2 += hist[h, 5] / held
     judge = su > 0.0 and s1 > 0.0 and s2 > 0.0 and nw >= 8
-    # --- whole multiples of the step, on every 8th difference (a cheap, ample sample)
-    whole = 0
-    nonzero = 0
-    for i in range(w0 + 1, w1, 8):
-        d = abs(col[i] - col[i - 1])
-        if d > 0.0:
-            nonzero += 1
-            r = d / qmin
-            if abs(r - math.floor(r + 0.5)) < 0.02:
-                whole += 1
+    whole = _whole_share(col, w0, w1, qmin)
     # --- dropouts: only where a long enough run exists or rows are pending
     y[:] = col
     new_spikes = 0
@@ -374,7 +413,7 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
             if fl[i] == FLAG_DROPOUT and old[i] != FLAG_DROPOUT:
                 new_drop += 1
         _interpolate(y, fl, 2, n)
-    # --- spikes: the ellipse test vectorised over 32-row chunks; a chunk with a candidate
+    # --- spikes: the ellipse test vectorised over 64-row chunks; a chunk with a candidate
     # is scanned row by row: a confirmed spike is replaced at once (interpolation over its
     # flagged run) and the scan steps back two rows (Goring & Nikora's iteration done
     # locally; with the scales fixed only rows within ±2 of a replacement change, so the
@@ -401,7 +440,7 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
     res[0] = new_spikes
     res[1] = new_drop
     res[2] = qmin
-    res[3] = whole / nonzero if nonzero > 0 else np.nan
+    res[3] = whole
     res[4] = centre
     res[5] = max(sb - sa * sa / nw, 0.0)
     res[6] = lo
