@@ -88,6 +88,7 @@ class SignalQuality:
         self.window = int(window)
         m = len(self.columns)
         self.n = 0  # rows received
+        self._dtype = np.dtype(np.float64)  # of the rows handed on under "exclude"
         # column-major: columns base, base+1 the context (the last two released rows,
         # cleaned), then the held rows (st[1] of them, st[2] judged); base is 0 between calls
         self._buf = np.empty((m, 2 * self.window + 8))
@@ -122,6 +123,8 @@ class SignalQuality:
         self._reserve(fill + n)
         rows = np.ascontiguousarray(block)
         if self.n == 0:  # no context yet: the first row, twice
+            if rows.dtype.kind == "f":  # replaced rows go on in the input's precision
+                self._dtype = rows.dtype
             self._buf[:, :2] = rows[0][:, None]
         qk.append_rows(rows, self._buf, 2 + fill)
         self.n += n
@@ -151,7 +154,7 @@ class SignalQuality:
         ("exclude"; empty under "flag"), and move the held rows to the buffer's front."""
         m = len(self.columns)
         exclude = self.policy == "exclude"
-        out = np.empty((int(self._st[qk._FILL]) if exclude else 0, m))
+        out = np.empty((int(self._st[qk._FILL]) if exclude else 0, m), dtype=self._dtype)
         marks_before = int(self._st[qk._MARKS])
         got = qk.judge_held(
             self._buf, self._flags, self._work, self._st, self._scales, self._acc,
