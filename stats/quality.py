@@ -65,6 +65,12 @@ MARKS_KEPT = 2000
 #: Share of windows whose differences must sit on whole steps for q̂ to be reported.
 QUANTISED_WINDOWS = 0.9
 
+#: Why random sampling has no spike count (the summary's ``spikes_note``).
+NO_SPIKE_CHECK = (
+    "not checked: randomly sampled (t column); differences in arrival order are not time "
+    "derivatives, so the phase-space method does not apply"
+)
+
 universal_threshold = qk.universal_threshold
 
 
@@ -80,12 +86,13 @@ class SignalQuality:
         Rows per judged window (default :data:`WINDOW`).
     """
 
-    def __init__(self, columns, policy: str = "flag", window: int = WINDOW):
+    def __init__(self, columns, policy: str = "flag", window: int = WINDOW, spikes: bool = True):
         if policy not in POLICIES:
             raise ValueError(f"quality policy must be one of {POLICIES}, not {policy!r}")
         self.columns = tuple(columns)
         self.policy = policy
         self.window = int(window)
+        self.spike_check = bool(spikes)  # False: random sampling, no spikes in arrival order
         m = len(self.columns)
         self.n = 0  # rows received
         self._dtype = np.dtype(np.float64)  # of the rows handed on under "exclude"
@@ -158,8 +165,8 @@ class SignalQuality:
         marks_before = int(self._st[qk._MARKS])
         got = qk.judge_held(
             self._buf, self._flags, self._work, self._st, self._scales, self._acc,
-            self._counts, self._rails, self._at_rails, self._marks, self._mark_values, out, self.window,
-            MAX_PENDING_WINDOWS, final, exclude,
+            self._counts, self._rails, self._at_rails, self._marks, self._mark_values, out,
+            self.window, MAX_PENDING_WINDOWS, final, exclude, self.spike_check,
         )
         base, fill, judged = (int(v) for v in self._st[: qk._JUDGED + 1])
         if base:
@@ -190,7 +197,7 @@ class SignalQuality:
             raise ValueError("cannot merge the quality of different components")
         if self._st[qk._FILL] or other._st[qk._FILL]:
             raise ValueError("flush() both before merging")
-        out = SignalQuality(self.columns, self.policy, self.window)
+        out = SignalQuality(self.columns, self.policy, self.window, self.spike_check)
         out.n = self.n + other.n
         for slot in (qk._N_OUT, qk._WINDOWS, qk._MARKS):
             out._st[slot] = self._st[slot] + other._st[slot]
@@ -272,11 +279,13 @@ class SignalQuality:
         sig = self.sigma()
         clipped = self.clipped_samples()
         out: dict = {"policy": self.policy}
+        if not self.spike_check:
+            out["spikes_note"] = NO_SPIKE_CHECK
         for j, c in enumerate(self.columns):
             qj = float(q[j]) if math.isfinite(q[j]) else None
             ratio = float(sig[j] / q[j]) if qj is not None and math.isfinite(sig[j]) else None
             out[c] = {
-                "spikes": int(self.spikes[j]),
+                "spikes": int(self.spikes[j]) if self.spike_check else None,
                 "dropout_samples": int(self.dropout_samples[j]),
                 "clipped_samples": int(clipped[j]),
                 "quantisation_step": qj,

@@ -197,41 +197,28 @@ def _peak(y, i):
 
 
 @numba.njit(cache=True, nogil=True)
-def _outside(y, i, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
-    """Is row i of y outside any of the three ellipses? (the same arithmetic whether the
-    scan is vectorised or not; ia = ib = 0 turns the rotated one off)"""
-    xu = y[i] - centre
+def _candidate(y, i, jump, m1, m2, i1, i2):
+    """Is row i a spike candidate: a jump from its neighbours' mean beyond ``jump`` (λ_U σ_u)
+    and (Δu, Δ²u) outside their ellipse? (the same arithmetic as _chunk_hits)"""
+    e = y[i] - 0.5 * (y[i - 1] + y[i + 1])
     g1 = (0.5 * (y[i + 1] - y[i - 1]) - m1) * i1
-    g2r = 0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) - m2
-    g2 = g2r * i2
-    x0 = xu * iu
-    q1 = g1 * g1
-    r1 = xu * ct + g2r * st
-    r2 = g2r * ct - xu * st
-    return (x0 * x0 + q1 > 1.0) | (q1 + g2 * g2 > 1.0) | (r1 * r1 * ia + r2 * r2 * ib > 1.0)
+    g2 = (0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) - m2) * i2
+    return (abs(e) > jump) & (g1 * g1 + g2 * g2 > 1.0)
 
 
 @numba.njit(cache=True, nogil=True, fastmath=_SUMS)
 def _window_sums(col, w0, w1):
-    """Sums over a window about its first value of u, u², u Δ²u, Δ²u (reassociated over
-    shifted views indexed from 0: vectorised, and the same bits for the same window
-    wherever it sits in memory)."""
+    """Sums over a window of u and u² about its first value (reassociated: vectorised, and
+    the same bits for the same window wherever it sits in memory)."""
     c = col[w0:w1]
-    cm2 = col[w0 - 2 : w1 - 2]
-    cp2 = col[w0 + 2 : w1 + 2]
     s0 = c[0]
     sa = 0.0
     sb = 0.0
-    sc = 0.0
-    sd = 0.0
     for i in range(c.shape[0]):
         a = c[i] - s0
-        g = 0.25 * (cp2[i] - 2.0 * c[i] + cm2[i])
         sa += a
         sb += a * a
-        sc += a * g
-        sd += g
-    return s0, sa, sb, sc, sd
+    return s0, sa, sb
 
 
 @numba.njit(cache=True, nogil=True)
@@ -296,10 +283,10 @@ def _whole_share(col, w0, w1, step):
 
 
 @numba.njit(cache=True, nogil=True)
-def _chunk_hits(y, i, j, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
-    """How many of rows i..j lie outside an ellipse (a branch-free, vectorised count)."""
+def _chunk_hits(y, i, j, jump, m1, m2, i1, i2):
+    """How many of rows i..j are spike candidates (a branch-free, vectorised count)."""
     # shifted views indexed from 0: no negative-index wraparound test, so LLVM vectorises;
-    # the arithmetic is _outside's, term for term
+    # the arithmetic is _candidate's, term for term
     c = y[i:j]
     cm2 = y[i - 2 : j - 2]
     cm1 = y[i - 1 : j - 1]
@@ -307,20 +294,15 @@ def _chunk_hits(y, i, j, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
     cp2 = y[i + 2 : j + 2]
     hits = 0
     for k in range(c.shape[0]):
-        xu = c[k] - centre
+        e = c[k] - 0.5 * (cm1[k] + cp1[k])
         g1 = (0.5 * (cp1[k] - cm1[k]) - m1) * i1
-        g2r = 0.25 * (cp2[k] - 2.0 * c[k] + cm2[k]) - m2
-        g2 = g2r * i2
-        x0 = xu * iu
-        q1 = g1 * g1
-        r1 = xu * ct + g2r * st
-        r2 = g2r * ct - xu * st
-        hits += (x0 * x0 + q1 > 1.0) | (q1 + g2 * g2 > 1.0) | (r1 * r1 * ia + r2 * r2 * ib > 1.0)
+        g2 = (0.25 * (cp2[k] - 2.0 * c[k] + cm2[k]) - m2) * i2
+        hits += (abs(e) > jump) & (g1 * g1 + g2 * g2 > 1.0)
     return hits
 
 
 @numba.njit(cache=True, nogil=True)
-def _spike_scan(y, fl, w0, w1, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
+def _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2):
     """Flag and replace the spikes of rows w0..w1 of y; return how many.
 
     The ellipse test runs vectorised over 64-row chunks; a chunk with a candidate is
@@ -332,14 +314,14 @@ def _spike_scan(y, fl, w0, w1, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
     i = w0
     while i < w1:
         j = min(i + _CHUNK, w1)
-        if _chunk_hits(y, i, j, centre, m1, m2, iu, i1, i2, ct, st, ia, ib) == 0:
+        if _chunk_hits(y, i, j, jump, m1, m2, i1, i2) == 0:
             i = j
             continue
         r = i
         while r < j:
             if (
                 fl[r] == FLAG_NONE
-                and _outside(y, r, centre, m1, m2, iu, i1, i2, ct, st, ia, ib)
+                and _candidate(y, r, jump, m1, m2, i1, i2)
                 and _peak(y, r)
             ):
                 fl[r] = FLAG_SPIKE
@@ -354,7 +336,7 @@ def _spike_scan(y, fl, w0, w1, centre, m1, m2, iu, i1, i2, ct, st, ia, ib):
 
 
 @numba.njit(cache=True, nogil=True)
-def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
+def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
     """Judge rows w0..w1 of one component (``col`` raw, rows 0-1 cleaned context, w1..
     lookahead) for spikes and rows 2..w1 for dropouts; ``y`` receives the cleaned values,
     ``fl`` the flags (the pending rows' on entry). ``res`` receives: new spikes, new dropout
@@ -368,12 +350,10 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
     """
     n = col.shape[0]
     nw = w1 - w0
-    s0, sa, sb, sc, sd = _window_sums(col, w0, w1)
+    s0, sa, sb = _window_sums(col, w0, w1)
     zeros, qmin, lo, hi = _window_scan(col, w0, w1)
     longest, long_zeros = _zero_runs(col, w0, w1) if zeros > 0 else (0, 0)
     centre = s0 + sa / nw
-    var = sb / nw - (sa / nw) ** 2
-    tan_theta = (sc / nw - (sa / nw) * (sd / nw)) / var if var > 0.0 else 0.0
     usable = (nw - 1) - long_zeros
     p = (zeros - long_zeros) / usable if usable > 0 else 0.0
     run_min = 3
@@ -397,7 +377,7 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
         s1 += hist[h, 3] / held
         m2 += hist[h, 4] / held
         s2 += hist[h, 5] / held
-    judge = su > 0.0 and s1 > 0.0 and s2 > 0.0 and nw >= 8
+    judge = spikes and su > 0.0 and s1 > 0.0 and s2 > 0.0 and nw >= 8
     whole = _whole_share(col, w0, w1, qmin)
     # --- dropouts: only where a long enough run exists or rows are pending
     y[:] = col
@@ -419,24 +399,10 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, res):
     # locally; with the scales fixed only rows within ±2 of a replacement change, so the
     # scan runs on past the chunk while a replacement reaches beyond it)
     if judge:
-        theta = math.atan(tan_theta)
-        ct = math.cos(theta)
-        st = math.sin(theta)
-        c2 = ct * ct - st * st
-        au = (lam * su) ** 2
-        a2 = (lam * s2) ** 2
-        aa = -1.0
-        bb = -1.0
-        if c2 != 0.0:
-            aa = (au * ct * ct - a2 * st * st) / c2
-            bb = (a2 * ct * ct - au * st * st) / c2
-        rotated = aa > 0.0 and bb > 0.0
-        ia = 1.0 / aa if rotated else 0.0
-        ib = 1.0 / bb if rotated else 0.0
-        iu = 1.0 / (lam * su)
+        jump = lam * su
         i1 = 1.0 / (lam * s1)
         i2 = 1.0 / (lam * s2)
-        new_spikes = _spike_scan(y, fl, w0, w1, centre, m1, m2, iu, i1, i2, ct, st, ia, ib)
+        new_spikes = _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2)
     res[0] = new_spikes
     res[1] = new_drop
     res[2] = qmin
@@ -452,8 +418,10 @@ def append_rows(block, buf, start):
     """Copy ``block`` (n, m; rows) into the column-major ``buf`` (m, ·) from column ``start``."""
     n, m = block.shape
     for c in range(m):
+        dst = buf[c, start : start + n]
+        src = block[:, c]
         for i in range(n):
-            buf[c, start + i] = block[i, c]
+            dst[i] = src[i]
 
 
 @numba.njit(cache=True, nogil=True)
@@ -536,7 +504,7 @@ def _release(buf, flags, work, base, end, st, counts, exclude, out, out_n, marks
 
 @numba.njit(cache=True, nogil=True)
 def judge_held(buf, flags, work, st, hist, acc, counts, rails, at_rails, marks, mark_values,
-               out, window, max_pending, final, exclude):
+               out, window, max_pending, final, exclude, spikes):
     """Judge every complete window held in the column-major ``buf`` (all that is held when
     ``final``) and release what can be released; returns the rows written to ``out``.
 
@@ -580,7 +548,8 @@ def judge_held(buf, flags, work, st, hist, acc, counts, rails, at_rails, marks, 
             for c in range(m):
                 _judge_column(
                     buf[c, base : base + n], flags[c, base : base + n],
-                    work[c, base : base + n], w0, w1, lam, hist[c], st[_ESTIMATES], due, res,
+                    work[c, base : base + n], w0, w1, lam, hist[c], st[_ESTIMATES], due, spikes,
+                    res,
                 )
                 _rails(buf[c, base + w0 : base + w1], res[6], res[7], rails[c], at_rails[c])
                 # quantisation record: q̂ where the differences sit on whole steps
