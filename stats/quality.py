@@ -5,10 +5,12 @@ them in fixed windows of :data:`WINDOW` rows counted from the point's first row 
 verdicts do not depend on how the stream was cut into messages). The per-window work is in
 :mod:`eddyvigil.stats.quality_kernels` (what is detected and how is described there):
 
-- **spikes**: Goring & Nikora (2002) phase-space method, median/MAD variant of Wahl (2003),
-  λ_U = √(2 ln N) with N the window length (4096 rows: λ_U = 4.0787); scales from strided
-  subsamples, averaged over the last 8 estimates (one per window for the first 8 windows,
-  then one every 8th window);
+- **spikes** (uniform sampling only; ``spikes=False`` for a ``t`` column, whose arrival
+  order is not a time series): isolated excursions after Goring & Nikora (2002) with the
+  median/MAD scales of Wahl (2003): a jump from the neighbours' mean beyond λ_U σ_u and
+  (Δu, Δ²u) outside their ellipse, λ_U = √(2 ln N) with N the window length (4096 rows:
+  λ_U = 4.0787); scales from strided subsamples, averaged over the last 8 estimates (one
+  per window for the first 8 windows, then one every 8th window);
 - **dropouts**: runs of identical values longer than the window's own repeat rate allows;
 - **clipping**: pile-up at the point's extreme values (at least :data:`PILE_UP_MIN` samples
   and 1e-4 of them sharing the minimum or the maximum exactly);
@@ -24,7 +26,7 @@ Policies (``policy``):
   returned only once it is judged and every flagged run before it has a good sample after
   it, so the statistics lag the stream by up to one window (plus any open flagged run);
   :meth:`flush` returns the rest at the point's end (a flagged run still open there is held
-  at the last good value). Clipped samples are not replaced: interpolating between two rail
+  at the last good value). Released rows keep the input's floating-point dtype. Clipped samples are not replaced: interpolating between two rail
   values cannot restore what the rail cut off; they count towards the suspect threshold.
 
 A point is *suspect* (:meth:`suspect_reasons`) when, in any component, spikes and dropout
@@ -84,6 +86,9 @@ class SignalQuality:
     policy : {"flag", "exclude"}
     window : int
         Rows per judged window (default :data:`WINDOW`).
+    spikes : bool
+        Look for spikes (uniform sampling); False for random sampling: the summary's
+        spike counts are null with :data:`NO_SPIKE_CHECK` as ``spikes_note``.
     """
 
     def __init__(self, columns, policy: str = "flag", window: int = WINDOW, spikes: bool = True):
@@ -126,59 +131,59 @@ class SignalQuality:
         n = block.shape[0]
         if n == 0:
             return block if self.policy == "flag" else np.empty((0, len(self.columns)))
-        fill = int(self._st[qk._FILL])
-        self._reserve(fill + n)
         rows = np.ascontiguousarray(block)
         if self.n == 0:  # no context yet: the first row, twice
             if rows.dtype.kind == "f":  # replaced rows go on in the input's precision
                 self._dtype = rows.dtype
             self._buf[:, :2] = rows[0][:, None]
-        qk.append_rows(rows, self._buf, 2 + fill)
         self.n += n
-        self._st[qk._FILL] = fill + n
-        out = self._run(final=False)
-        return block if self.policy == "flag" else out
+        out = self._new_out(int(self._st[qk._FILL]) + n)
+        marks_before = int(self._st[qk._MARKS])
+        got = taken = 0
+        while taken < n:
+            wrote, took = qk.feed_block(
+                rows[taken:], self._buf, self._flags, self._work, self._st, self._scales,
+                self._acc, self._counts, self._rails, self._at_rails, self._marks,
+                self._mark_values, out[got:], self.window, MAX_PENDING_WINDOWS,
+                self.policy == "exclude", self.spike_check,
+            )
+            got, taken = got + wrote, taken + took
+            if taken < n:
+                self._grow()
+        self._record_marks(marks_before)
+        return block if self.policy == "flag" else out[:got]
 
     def flush(self) -> np.ndarray:
         """Judge and release every row still held (the point is over)."""
-        out = self._run(final=True)
-        return out if self.policy == "exclude" else out[:0]
-
-    def _reserve(self, rows: int) -> None:
-        """Room for ``rows`` held rows, their context and a two-row lookahead."""
-        need = rows + 4
-        if need > self._buf.shape[1]:
-            m, old = self._buf.shape
-            size = max(need, 2 * old)
-            for name in ("_buf", "_flags", "_work"):
-                held = getattr(self, name)
-                grown = np.zeros((m, size), dtype=held.dtype)
-                grown[:, :old] = held
-                setattr(self, name, grown)
-
-    def _run(self, final: bool) -> np.ndarray:
-        """Judge what is ready (everything if ``final``); return the rows released, cleaned
-        ("exclude"; empty under "flag"), and move the held rows to the buffer's front."""
-        m = len(self.columns)
-        exclude = self.policy == "exclude"
-        out = np.empty((int(self._st[qk._FILL]) if exclude else 0, m), dtype=self._dtype)
+        out = self._new_out(int(self._st[qk._FILL]))
         marks_before = int(self._st[qk._MARKS])
         got = qk.judge_held(
             self._buf, self._flags, self._work, self._st, self._scales, self._acc,
             self._counts, self._rails, self._at_rails, self._marks, self._mark_values, out,
-            self.window, MAX_PENDING_WINDOWS, final, exclude, self.spike_check,
+            self.window, MAX_PENDING_WINDOWS, True, self.policy == "exclude", self.spike_check,
         )
-        base, fill, judged = (int(v) for v in self._st[: qk._JUDGED + 1])
-        if base:
-            self._buf[:, : 2 + fill] = self._buf[:, base : base + 2 + fill]
-            self._flags[:, 2 : 2 + judged] = self._flags[:, base + 2 : base + 2 + judged]
-            self._st[qk._BASE] = 0
-        new = int(self._st[qk._MARKS]) - marks_before
-        if new:
-            self._record_marks(marks_before, new)
-        return out[:got]
+        self._st[qk._BASE] = 0  # nothing is held any more
+        self._record_marks(marks_before)
+        return out[:got] if self.policy == "exclude" else out[:0]
 
-    def _record_marks(self, first: int, new: int) -> None:
+    def _new_out(self, rows: int) -> np.ndarray:
+        """Room for the rows "exclude" may release (none under "flag")."""
+        return np.empty((rows if self.policy == "exclude" else 0, len(self.columns)), self._dtype)
+
+    def _grow(self) -> None:
+        """Twice the buffer (rows held back behind a flagged run filled it)."""
+        m, old = self._buf.shape
+        for name in ("_buf", "_flags", "_work"):
+            held = getattr(self, name)
+            grown = np.zeros((m, 2 * old), dtype=held.dtype)
+            grown[:, :old] = held
+            setattr(self, name, grown)
+
+    def _record_marks(self, first: int) -> None:
+        """Copy the marks made since ``first`` from the kernels' ring to :attr:`marks`."""
+        new = int(self._st[qk._MARKS]) - first
+        if not new:
+            return
         kept = MARKS_KEPT
         order = [(first + k) % kept for k in range(max(0, new - kept), new)]
         rows = self._marks[order].tolist()
