@@ -499,9 +499,11 @@ def _release(buf, flags, work, base, end, st, counts, exclude, out, out_n, marks
                 mark_values[slot] = buf[c, base + 2 + i]
                 st[_MARKS] += 1
     if exclude:
-        for i in range(end):
-            for c in range(m):
-                out[out_n + i, c] = work[c, base + 2 + i]
+        for c in range(m):
+            src = work[c, base + 2 : base + 2 + end]
+            dst = out[out_n : out_n + end, c]
+            for i in range(end):
+                dst[i] = src[i]
     for c in range(m):  # the last two released rows, cleaned, are the next context
         buf[c, base + end] = work[c, base + end]
         buf[c, base + end + 1] = work[c, base + end + 1]
