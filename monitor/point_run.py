@@ -133,7 +133,10 @@ class PointRun:
                 if rate_hz is None
                 else point_spectra.PointSpectra(columns, rate_hz, targets=targets)
             )
-            self.quality = quality.SignalQuality(columns, quality_policy)
+            # spikes only for uniform sampling: arrival order is not a time series
+            self.quality = quality.SignalQuality(
+                columns, quality_policy, spikes=rate_hz is not None
+            )
             self.t0 = float(t0) if rate_hz is not None and t0 is not None else None
         elif columns != self.columns or rate_hz != self.rate_hz:
             return "layout_changed"
