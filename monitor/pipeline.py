@@ -45,6 +45,10 @@ Choices made where DESIGN leaves room (also stated in README's summary section):
   restart and starts fresh sequence expectations.
 - Point ``messages`` counts accepted messages while the point was current (its ``point``
   message, samples, ``end``); the run line's ``messages`` counts every message received.
+- Consecutive accepted blocks of a point (uniform sampling) go to its accumulators together
+  once they span ``coalesce_s`` (0.5 s) of data (:mod:`~eddyvigil.monitor.coalesce`): the
+  statistics, and so the snapshots and the converged signal, lag the received rows by less
+  than that; the trace and the counts do not. The groups depend on the rows alone.
 - Convergence and ``converged_at_s`` are decided by the statistics at their own checkpoints
   of the sample count, from the data alone, so a replay reproduces a live run's summaries bit
   for bit whatever its pace. The pipeline takes a statistics snapshot right after each
