@@ -70,8 +70,9 @@ def publish(endpoint: str, messages: int, seconds: float, rows: int = ROWS) -> N
         seq += 1
         i += 1
     sock.send_multipart(wire.encode_end("bench", "b1", seq))
-    time.sleep(1.0)  # the PULL side reads the tail before this socket goes
-    sock.close(linger=0)
+    # a slow receiver may have thousands of messages queued (its RCVHWM and this SNDHWM):
+    # linger until the end message is delivered, or a cut-off tail leaves it waiting forever
+    sock.close(linger=120_000)
     ctx.term()
 
 
