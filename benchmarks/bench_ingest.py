@@ -252,7 +252,8 @@ def per_message(repeat: int, samples: float, sizes=(1024, 4096, 16384)) -> None:
     a. In process, prepared messages through ``Pipeline.handle_frames``: every block alone
        (``coalesce_s=0``, the path before monitor.coalesce) against joined blocks (the
        default), ``repeat`` interleaved rounds; CPU per message, and its fixed part: the CPU
-       per message less rows x the CPU per row of 65536-row messages (joined path).
+       per message less rows x the CPU per row, both from a straight line fitted to the
+       every-block-alone costs at the three sizes (one path at every size).
     b. Over tcp loopback (PUSH/PULL): the bare receiver, ``watch`` with every block alone and
        ``watch`` as it is, side by side in each of ``repeat`` rounds; medians.
     """
@@ -260,16 +261,18 @@ def per_message(repeat: int, samples: float, sizes=(1024, 4096, 16384)) -> None:
 
     print(f"per-message cost, {samples / 1e6:g} M samples per run, {repeat} interleaved "
           f"rounds, medians (load average {os.getloadavg()[0]:.1f})")
-    prepared = {rows: prepared_messages(rows, samples) for rows in (*sizes, 65536)}
+    prepared = {rows: prepared_messages(rows, samples) for rows in sizes}
     cost: dict = {}
     for i in range(repeat):
         for rows, msgs in prepared.items():
             arms = (0.0, COALESCE_S) if i % 2 == 0 else (COALESCE_S, 0.0)
             for c in arms:
                 cost.setdefault((rows, c), []).append(in_process(msgs, c))
-    per_row = float(np.median(cost[(65536, COALESCE_S)])) / 65536
-    print(f"  a. in process (Pipeline.handle_frames), CPU per message; per row "
-          f"{per_row * 1e9:.0f} ns (65536-row messages)")
+    # every block alone is one path at every size: CPU per message = fixed + rows x per_row
+    alone_fit = [float(np.median(cost[(rows, 0.0)])) for rows in sizes]
+    per_row, fixed = np.polyfit(np.array(sizes, float), alone_fit, 1)
+    print(f"  a. in process (Pipeline.handle_frames), CPU per message; every block alone fits "
+          f"{fixed * 1e6:.0f} us + {per_row * 1e9:.0f} ns per row (least squares over the sizes)")
     print("   rows   every block alone   joined blocks   fixed part alone   fixed part joined")
     for rows in sizes:
         alone = float(np.median(cost[(rows, 0.0)]))
