@@ -14,6 +14,9 @@
 2. The recording of 1c replayed at max speed through a fresh Pipeline (samples/s, best run).
 3. RSS of the full path (no recorder, RCVHWM 64 so that ZeroMQ's queue does not dominate)
    over a long max-speed stream (``--long-seconds``), sampled once a second: start, end, peak.
+4. ``--per-message`` (only this): the cost per message at 1024, 4096 and 16384 rows, in
+   process and over loopback, with every block alone (the path before monitor.coalesce)
+   beside joined blocks (see :func:`per_message`).
 Prints figures only; no assertions.
 """
 
@@ -67,8 +70,9 @@ def publish(endpoint: str, messages: int, seconds: float, rows: int = ROWS) -> N
         seq += 1
         i += 1
     sock.send_multipart(wire.encode_end("bench", "b1", seq))
-    time.sleep(1.0)  # the PULL side reads the tail before this socket goes
-    sock.close(linger=0)
+    # a slow receiver may have thousands of messages queued (its RCVHWM and this SNDHWM):
+    # linger until the end message is delivered, or a cut-off tail leaves it waiting forever
+    sock.close(linger=120_000)
     ctx.term()
 
 
@@ -146,6 +150,7 @@ def full_path(
     rss: list | None = None,
     rcvhwm: int | None = None,
     rows: int = ROWS,
+    coalesce_s: float | None = None,
 ):
     """Samples/s of Subscriber -> Pipeline (all statistics) -> Recorder; returns (rate, samples,
     CPU seconds per message of [publisher, monitor])."""
@@ -157,7 +162,8 @@ def full_path(
     kw = {} if rcvhwm is None else {"rcvhwm": rcvhwm}
     sub = Subscriber(ep, bind=True, socket="pull", **kw)
     recorder = Recorder(rec_dir) if rec_dir is not None else None
-    pipeline = Pipeline(summary=io.StringIO(), recorder=recorder)
+    opts = {} if coalesce_s is None else {"coalesce_s": coalesce_s}
+    pipeline = Pipeline(summary=io.StringIO(), recorder=recorder, **opts)
     state = {"t_first": None, "t_last": None, "cpu": None}
     proc = psutil.Process()
 
@@ -175,7 +181,7 @@ def full_path(
         if rss is not None:
             rss.append(proc.memory_info().rss)
 
-    timer = threading.Timer(max(600.0, seconds + 120.0), sub.stop)  # a safety net only
+    timer = threading.Timer(max(180.0, seconds + 120.0), sub.stop)  # a safety net only
     timer.start()
     pub = start_publisher(ep, messages, seconds, rows=rows)
     try:
@@ -192,6 +198,9 @@ def full_path(
     pipeline.close()
     if recorder is not None:
         recorder.close()
+    if state["cpu"] is None:
+        raise RuntimeError(f"the stream did not end within the safety timeout ({samples} "
+                           f"samples arrived)")
     n_msg = max(1, samples // rows)
     cpu = [(b - a) / n_msg for a, b in zip(state["cpu0"], state["cpu"], strict=True)]
     return samples / (state["t_last"] - state["t_first"]), samples, cpu
@@ -210,25 +219,84 @@ def replay_rate(rec_dir: Path) -> tuple[float, int]:
     return samples / elapsed, samples
 
 
+def prepared_messages(rows: int, samples: float) -> list:
+    """A point message, ``samples`` rows in samples messages of ``rows`` rows (as received:
+    bytes), and an end message."""
+    rng = np.random.default_rng(2)
+    block = (np.array([8.0, 0.4, 0.0]) + rng.standard_normal((rows, 3))).astype("<f4")
+    msgs = [wire.encode_point("bench", "b1", 0, {"id": "B1"})]
+    for i in range(int(samples // rows)):
+        frames = wire.encode_samples("bench", "b1", i + 1, block, ("u", "v", "w"),
+                                     rate_hz=20000.0, t0=i * rows / 20000.0)
+        msgs.append([bytes(memoryview(f).cast("B")) for f in frames])
+    msgs.append(wire.encode_end("bench", "b1", len(msgs)))
+    return msgs
+
+
+def in_process(msgs: list, coalesce_s: float) -> float:
+    """CPU seconds (this thread) per samples message of ``Pipeline.handle_frames``, from the
+    point message to the written line."""
+    from eddyvigil.monitor.pipeline import Pipeline
+
+    pipeline = Pipeline(summary=io.StringIO(), coalesce_s=coalesce_s)
+    t = time.thread_time()
+    for frames in msgs:
+        pipeline.handle_frames(frames, 0.0)
+    pipeline.close()
+    return (time.thread_time() - t) / (len(msgs) - 2)
+
+
 def per_message(repeat: int, samples: float, sizes=(1024, 4096, 16384)) -> None:
-    """Figure 4: the fixed cost per message. For each message size, ``repeat`` rounds of the
-    bare receiver and the watch path side by side; medians of rate and CPU per message."""
-    print(f"per-message cost: PUSH/PULL over tcp loopback, {samples / 1e6:g} M samples per run, "
-          f"{repeat} rounds, medians (load average {os.getloadavg()[0]:.1f})")
-    print("   rows   bare Ms/s   watch Ms/s  ratio   CPU/msg bare   CPU/msg watch   "
-          "watch per 1k rows")
+    """Figure 4: the fixed cost per message.
+
+    a. In process, prepared messages through ``Pipeline.handle_frames``: every block alone
+       (``coalesce_s=0``, the path before monitor.coalesce) against joined blocks (the
+       default), ``repeat`` interleaved rounds; CPU per message, and its fixed part: the CPU
+       per message less rows x the CPU per row, both from a straight line fitted to the
+       every-block-alone costs at the three sizes (one path at every size).
+    b. Over tcp loopback (PUSH/PULL): the bare receiver, ``watch`` with every block alone and
+       ``watch`` as it is, side by side in each of ``repeat`` rounds; medians.
+    """
+    from eddyvigil.monitor.coalesce import COALESCE_S
+
+    print(f"per-message cost, {samples / 1e6:g} M samples per run, {repeat} interleaved "
+          f"rounds, medians (load average {os.getloadavg()[0]:.1f})")
+    prepared = {rows: prepared_messages(rows, samples) for rows in sizes}
+    cost: dict = {}
+    for i in range(repeat):
+        for rows, msgs in prepared.items():
+            arms = (0.0, COALESCE_S) if i % 2 == 0 else (COALESCE_S, 0.0)
+            for c in arms:
+                cost.setdefault((rows, c), []).append(in_process(msgs, c))
+    # every block alone is one path at every size: CPU per message = fixed + rows x per_row
+    alone_fit = [float(np.median(cost[(rows, 0.0)])) for rows in sizes]
+    per_row, fixed = np.polyfit(np.array(sizes, float), alone_fit, 1)
+    print(f"  a. in process (Pipeline.handle_frames), CPU per message; every block alone fits "
+          f"{fixed * 1e6:.0f} us + {per_row * 1e9:.0f} ns per row (least squares over the sizes)")
+    print("   rows   every block alone   joined blocks   fixed part alone   fixed part joined")
+    for rows in sizes:
+        alone = float(np.median(cost[(rows, 0.0)]))
+        joined = float(np.median(cost[(rows, COALESCE_S)]))
+        print(f"  {rows:5d}   {alone * 1e6:14.0f} us   {joined * 1e6:10.0f} us   "
+              f"{(alone - rows * per_row) * 1e6:13.0f} us   "
+              f"{(joined - rows * per_row) * 1e6:14.0f} us", flush=True)
+    print("  b. PUSH/PULL over tcp loopback")
+    print("   rows   bare Ms/s   alone Ms/s (ratio)   watch Ms/s (ratio)   CPU/msg bare   "
+          "alone   watch")
     for rows in sizes:
         messages = int(samples // rows)
         res = []
         for _ in range(repeat):
             bare, cpu_bare = bare_receiver(messages, rows)
+            alone, _, cpu_alone = full_path(messages, None, rows=rows, coalesce_s=0.0)
             plain, _, cpu_plain = full_path(messages, None, rows=rows)
-            res.append((bare, plain, cpu_bare[1], cpu_plain[1]))
-        b, w, cb, cw = (float(np.median([r[k] for r in res])) for k in range(4))
-        ratio = float(np.median([r[1] / r[0] for r in res]))
-        print(f"  {rows:5d}   {b / 1e6:9.1f}   {w / 1e6:10.1f}  {ratio:5.2f}   "
-              f"{cb * 1e6:10.0f} us   {cw * 1e6:11.0f} us   {cw * 1e6 * 1024 / rows:9.0f} us",
-              flush=True)
+            res.append((bare, alone, plain, cpu_bare[1], cpu_alone[1], cpu_plain[1]))
+        b, a, w, cb, ca, cw = (float(np.median([r[k] for r in res])) for k in range(6))
+        ra = float(np.median([r[1] / r[0] for r in res]))
+        rw = float(np.median([r[2] / r[0] for r in res]))
+        print(f"  {rows:5d}   {b / 1e6:9.1f}   {a / 1e6:10.1f} ({ra:4.2f})   "
+              f"{w / 1e6:10.1f} ({rw:4.2f})   {cb * 1e6:9.0f} us   {ca * 1e6:4.0f} us   "
+              f"{cw * 1e6:4.0f} us", flush=True)
 
 
 def main() -> None:
@@ -240,7 +308,8 @@ def main() -> None:
     ap.add_argument("--seconds", type=float, default=0.0, help=argparse.SUPPRESS)
     ap.add_argument("--rows", type=int, default=ROWS, help=argparse.SUPPRESS)
     ap.add_argument("--per-message", action="store_true",
-                    help="only figure 4: watch vs bare receiver at 1024, 4096, 16384 rows")
+                    help="only figure 4: the cost per message at 1024, 4096, 16384 rows, "
+                         "in process and against a bare receiver")
     ap.add_argument("--samples", type=float, default=6.5e6,
                     help="samples per run of figure 4 (default 6.5e6)")
     args = ap.parse_args()

@@ -45,6 +45,10 @@ Choices made where DESIGN leaves room (also stated in README's summary section):
   restart and starts fresh sequence expectations.
 - Point ``messages`` counts accepted messages while the point was current (its ``point``
   message, samples, ``end``); the run line's ``messages`` counts every message received.
+- Consecutive accepted blocks of a point (uniform sampling) go to its accumulators together
+  once they span ``coalesce_s`` (0.5 s) of data (:mod:`~eddyvigil.monitor.coalesce`): the
+  statistics, and so the snapshots and the converged signal, lag the received rows by less
+  than that; the trace and the counts do not. The groups depend on the rows alone.
 - Convergence and ``converged_at_s`` are decided by the statistics at their own checkpoints
   of the sample count, from the data alone, so a replay reproduces a live run's summaries bit
   for bit whatever its pace. The pipeline takes a statistics snapshot right after each
@@ -72,6 +76,7 @@ from eddyvigil.monitor.display import (
     quality_view,
 )
 from eddyvigil.monitor.budget_cmd import budget_line
+from eddyvigil.monitor.coalesce import COALESCE_S, Coalescer, target_rows
 from eddyvigil.monitor.lines import point_line, run_line
 from eddyvigil.monitor.point_run import PointRun
 from eddyvigil.monitor.state import RunSnapshot
@@ -134,6 +139,10 @@ class Pipeline:
         Application size limit passed to :func:`eddyvigil.monitor.wire.decode`.
     quality : str
         ``"flag"`` or ``"exclude"`` (:mod:`eddyvigil.stats.quality`; README, Signal quality).
+    coalesce_s : float
+        Consecutive blocks of a point (uniform sampling) go to its accumulators together once
+        they span this much data (:mod:`eddyvigil.monitor.coalesce`); 0: every block alone.
+        A replay must use the value the live run used to reproduce it bit for bit.
     """
 
     def __init__(
@@ -149,8 +158,11 @@ class Pipeline:
         max_message_bytes: int = wire.DEFAULT_MAX_MESSAGE_BYTES,
         quality: str = "flag",
         weighting: str = "arrival",
+        coalesce_s: float = COALESCE_S,
     ):
         from eddyvigil import stats  # the numba-compiled core loads only when a pipeline is built
+
+        self._coalesce_s = float(coalesce_s)
 
         self.targets = targets if targets is not None else stats.Targets.defaults()
         self._writer = summary if isinstance(summary, SummaryWriter) else SummaryWriter(summary)
@@ -394,8 +406,17 @@ class Pipeline:
         if reason is not None:
             return reason
         mark = point_run.checkpoint_mark()
-        point_run.feed(velocity, duration_s, times, weights)
+        if point_run.random is None and self._coalesce_s > 0:  # joined blocks (monitor.coalesce)
+            if point_run.pending is None:
+                point_run.pending = Coalescer(target_rows(rate_hz, self._coalesce_s))
+            groups = point_run.pending.add(velocity)
+        else:
+            groups = (velocity,)
+        for group in groups:
+            point_run.feed(group, duration_s, times, weights)
         st.add_samples(velocity, columns, rate_hz, times, t0, self._clock())
+        if not groups:  # the rows wait for the next ones: the statistics did not change
+            return None
         # Convergence is decided at the statistics' own checkpoints (inside update, from the
         # data alone). At a checkpoint the targeted statistics come from the checkpoint's own
         # evaluation (a history row, and the converged signal at once); every other statistic

@@ -61,6 +61,9 @@ class PointRun:
         self.spectra = None  # stats.point_spectra.PointSpectra (uniform sampling only)
         self.quality = None  # stats.quality.SignalQuality
         self.random = None  # monitor.random_sampling.RandomFeed (random sampling only)
+        # blocks waiting to go to the accumulators together (monitor.coalesce; set by the
+        # pipeline for uniform sampling, None: every block goes on alone)
+        self.pending = None
         # what readers see
         self.point_snapshot = None  # latest stats.snapshot.PointSnapshot (quality guard applied)
         self.snapshot_stale = False  # data arrived since point_snapshot was taken
@@ -84,8 +87,9 @@ class PointRun:
 
     @property
     def rows_received(self) -> int:
-        """Rows received so far (the statistics may lag: "exclude" holds rows back)."""
-        return self.quality.n
+        """Rows received so far (the statistics may lag: "exclude" holds rows back, and
+        :attr:`pending` rows wait to be joined)."""
+        return self.quality.n + (self.pending.rows if self.pending is not None else 0)
 
     # ------------------------------------------------------------------ input
 
@@ -174,9 +178,13 @@ class PointRun:
             self.spectra.update(cleaned)  # the rows the statistics see: a continuous series
 
     def flush(self) -> None:
-        """At the point's end: the rows the quality checks still hold go to the statistics."""
+        """At the point's end: the pending rows, then the rows the quality checks still hold,
+        go to the statistics."""
         if self.statistics is None:
             return
+        if self.pending is not None:
+            for group in self.pending.flush():
+                self.feed(group, None)
         tail = self.quality.flush()
         if self.random is not None:
             self.random.feed(tail, np.empty(0), self.random.no_weights(), self.held_s)

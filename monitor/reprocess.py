@@ -41,6 +41,7 @@ __all__ = [
     "reprocess",
     "merge_repeats",
     "run_line_of",
+    "local_cluster",
     "EPILOG",
 ]
 
@@ -57,6 +58,18 @@ Dask is an optional dependency: pip install 'eddyvigil[dask]'.
 DASK_HINT = "--dask needs dask.distributed: pip install 'eddyvigil[dask]' (or 'dask[distributed]')"
 #: Environment of local worker processes: one BLAS thread, as ``eddyvigil`` itself runs.
 WORKER_ENV = {"OPENBLAS_NUM_THREADS": "1", "MKL_NUM_THREADS": "1", "OMP_NUM_THREADS": "1"}
+
+
+#: Dask settings of local workers. No statistical profiler: its thread takes the GIL every
+#: 10 ms to sample the stacks, and the replay's thread, which gives the GIL up at every numba
+#: call, then waits for it. No MALLOC_TRIM_THRESHOLD_ (Dask sets 64 KiB): any such setting
+#: stops glibc from raising its mmap threshold, so every array over 128 KiB (a message's
+#: samples, a joined block) would be mapped and unmapped again, page faults and all. With
+#: both, a replay took 1.3-1.5 times its CPU time in one process (benchmarks/bench_reprocess.py).
+WORKER_CONFIG = {
+    "distributed.worker.profile.enabled": False,
+    "distributed.nanny.pre-spawn-environ": dict(WORKER_ENV),
+}
 
 
 class ReprocessError(Exception):
@@ -181,23 +194,38 @@ def merge_repeats(results: list[dict]) -> list[dict]:
     return out
 
 
+def local_cluster(workers: int, **kwargs):
+    """A ``LocalCluster`` of ``workers`` single-threaded worker processes (one BLAS thread each).
+
+    Its HTTP server (Dask's metrics; no dashboard) takes a free port on 127.0.0.1: Dask's
+    default, port 8787 on every interface, fails (a warning, an error under pytest) while
+    another cluster holds it, and need not be open to the network.
+    """
+    import dask
+    from dask.distributed import LocalCluster
+
+    with dask.config.set(WORKER_CONFIG):  # the nannies hand this config to their workers
+        return LocalCluster(
+            n_workers=workers,
+            threads_per_worker=1,
+            processes=True,
+            dashboard_address="127.0.0.1:0",
+            scheduler_kwargs={"dashboard": False},
+            env=dict(WORKER_ENV),
+            **kwargs,
+        )
+
+
 def _dask_client(address: str, workers: int):
     """A ``(client, cluster or None)`` for ``--dask``; ReprocessError when it cannot be had."""
     try:
         import logging
 
-        from dask.distributed import Client, LocalCluster
+        from dask.distributed import Client
     except ImportError:
         raise ReprocessError(ExitCode.USAGE, DASK_HINT) from None
     if address == "local":
-        cluster = LocalCluster(
-            n_workers=workers,
-            threads_per_worker=1,
-            processes=True,
-            dashboard_address=None,
-            silence_logs=logging.ERROR,
-            env=dict(WORKER_ENV),
-        )
+        cluster = local_cluster(workers, silence_logs=logging.ERROR)
         return Client(cluster), cluster
     try:
         return Client(address, timeout="10s"), None

@@ -265,7 +265,9 @@ def test_snapshot_is_rebound_frozen_and_bounded(monkeypatch):
 
     monkeypatch.setattr(pipeline_module, "HISTORY_ROWS", 32)
     clock = FakeClock()
-    p = Pipeline(summary=io.StringIO(), clock=clock, snapshot_interval_s=0.25)
+    # every block alone (no joining, monitor.coalesce), so that each republication after a
+    # block finds new statistics and adds a history row: the bound is reached
+    p = Pipeline(summary=io.StringIO(), clock=clock, snapshot_interval_s=0.25, coalesce_s=0.0)
     w = StreamWriter(rate_hz=20000.0)
     first = p.snapshot
     p.handle_frames(w.point("P"))
