@@ -61,6 +61,10 @@ class StreamView:
     #: (SpectrumSnapshot | None, Dissipation | None) of the current point (stats.point_spectra)
     spectrum: tuple | None = None
     quality: Mapping | None = None  # the point's "quality" object (DESIGN §9) + recent "marks"
+    #: the traverse's campaign ETA (monitor.campaign: the summary's ``campaign`` object), or None
+    campaign: Mapping | None = None
+    #: (meta, PointSnapshot | None) of the stream's last finished point (shown after ``end``)
+    last_point: tuple | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))
