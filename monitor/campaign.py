@@ -134,17 +134,27 @@ class Campaign:
         self.gaps_s: list[float] = []
         self._last_end_s: float | None = None
         self._forecast = None
+        # the pace: wall-clock seconds (the monitor's clock) per second of the publisher's
+        # clock over the finished points, for the live display only (never in the summary)
+        self._wall_first: float | None = None
+        self._wall_last: float | None = None
+        self._record_s = 0.0
 
-    def start(self, meta: Mapping | None, header: Mapping | None) -> None:
-        """A point begins (``header``: its point message's, None for an implicit point)."""
+    def start(self, meta: Mapping | None, header: Mapping | None,
+              wall_s: float | None = None) -> None:
+        """A point begins (``header``: its point message's, None for an implicit point;
+        ``wall_s``: the monitor's clock)."""
         self.current = dict(meta or {})
+        if self._wall_first is None and wall_s is not None:
+            self._wall_first = float(wall_s)
         if header is not None:
             self.announced = announced_traverse(header)
         self._forecast = None
 
-    def finish(self, line: Mapping, t0_s: float | None) -> None:
+    def finish(self, line: Mapping, t0_s: float | None, wall_s: float | None = None) -> None:
         """The point in progress finished with summary ``line``; ``t0_s``: its first row's
-        time on the publisher's clock (uniform sampling), for the gap before it."""
+        time on the publisher's clock (uniform sampling), for the gap before it; ``wall_s``:
+        the monitor's clock."""
         from eddyvigil.stats.campaign import Finished
 
         need, blocks, tint = point_need(line)
@@ -152,10 +162,15 @@ class Campaign:
         self.finished.append(Finished(_position(point), need, blocks, tint))
         self.done_ids.append(point.get("id"))
         duration = line.get("duration_s")
+        if _number(duration):
+            self._record_s += float(duration)
         if t0_s is not None and _number(duration):
             if self._last_end_s is not None and t0_s >= self._last_end_s:
                 self.gaps_s.append(float(t0_s - self._last_end_s))
+                self._record_s += self.gaps_s[-1]
             self._last_end_s = float(t0_s) + float(duration)
+        if wall_s is not None:
+            self._wall_last = float(wall_s)
         self.current = None
         self._forecast = None
 
@@ -194,15 +209,26 @@ class Campaign:
             self._forecast = (source, f)
         return self._forecast
 
-    def view(self, elapsed_s: float = 0.0) -> dict | None:
+    def pace(self) -> float | None:
+        """Wall-clock seconds per second of record (gaps included) over the finished points;
+        None before a point has finished."""
+        if self._wall_first is None or self._wall_last is None or self._record_s <= 0:
+            return None
+        wall = self._wall_last - self._wall_first
+        return wall / self._record_s if wall > 0 else None
+
+    def view(self, elapsed_s: float = 0.0, live: bool = False) -> dict | None:
         """The ``campaign`` object (summary and readers) with ``elapsed_s`` of record on the
-        point in progress; None when the positions to come are unknown."""
+        point in progress; None when the positions to come are unknown. ``live`` adds
+        ``pace`` (:meth:`pace`), which the display multiplies the times by."""
         known = self.forecast()
         if known is None:
             return None
         source, f = known
         out = f.left(elapsed_s).to_json()
         out["source"] = source
+        if live:
+            out["pace"] = self.pace()
         return out
 
 
@@ -214,12 +240,13 @@ def _unit(seconds: float) -> tuple[float, str]:
 
 def _in(seconds: float, div: float) -> str:
     v = seconds / div
-    return f"{v:.1f}" if div == 3600.0 else f"{v:.0f}"
+    return f"{v:.1f}" if div == 3600.0 or (div == 60.0 and v < 10) else f"{v:.0f}"
 
 
 def campaign_text(c: Mapping | None) -> str | None:
     """The one wording of a ``campaign`` object (terminal status line and dashboard), e.g.
-    ``traverse: 5 of 12 points done, about 14 min left (10–19 min)``.
+    ``traverse: 5 of 12 points done, about 14 min left (10–19 min)``; times in wall-clock
+    seconds where the object carries a ``pace`` (the record seconds times the pace).
 
     >>> campaign_text({"points_done": 5, "points_left": 7, "seconds_left": 840.0,
     ...                "range_s": [600.0, 1140.0], "reason": None})
@@ -232,6 +259,10 @@ def campaign_text(c: Mapping | None) -> str | None:
     if left == 0:
         return head
     seconds, (low, high) = c.get("seconds_left"), c.get("range_s") or (None, None)
+    pace = c.get("pace")
+    if _number(pace) and pace > 0 and _number(seconds):
+        seconds = seconds * pace
+        low, high = (v * pace if _number(v) else v for v in (low, high))
     if c.get("reason") or not _number(seconds):
         return f"{head}, time left not known yet ({c.get('reason') or 'no estimate'})"
     if _number(high) and high < 1.0:

@@ -368,7 +368,7 @@ class Pipeline:
 
     def _start_point(self, st: StreamState, meta: dict | None,
                      header: Mapping | None = None) -> PointRun:
-        return st.start_point(meta, history_rows=HISTORY_ROWS, header=header)
+        return st.start_point(meta, history_rows=HISTORY_ROWS, header=header, now=self._clock())
 
     def _on_end(self, st: StreamState, counts_message: bool = False) -> None:
         if st.current is not None:
@@ -461,7 +461,8 @@ class Pipeline:
         """The one place a finished point's line is written (and kept for readers)."""
         self._writer.write(line)
         st.finished.append(line)
-        st.campaign.finish(line, st.current.t0 if st.current is not None else None)
+        st.campaign.finish(line, st.current.t0 if st.current is not None else None,
+                           self._clock())
         # DESIGN §11: the stream's k budget so far, after every point (null terms, with the
         # reason, before three positions), with the traverse's campaign ETA
         self._writer.write(budget_line(st.name, st.finished, float(self.targets.confidence),

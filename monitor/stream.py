@@ -68,7 +68,7 @@ class StreamState:
             self.carry_lost += lost
 
     def start_point(self, meta: dict | None, history_rows: int | None = None,
-                    header: dict | None = None) -> PointRun:
+                    header: dict | None = None, now: float | None = None) -> PointRun:
         """A new current point, with the losses and rejections carried so far (``header``:
         its point message's, where the publisher may announce its traverse)."""
         point_run = PointRun(self.points_started, meta, history_rows=history_rows)
@@ -78,7 +78,7 @@ class StreamState:
         self.carry_gaps, self.carry_lost, self.carry_rejected = 0, 0, Counter()
         self.current = point_run
         self.ended = False
-        self.campaign.start(meta, header)
+        self.campaign.start(meta, header, now)
         return point_run
 
     def end_point(self) -> None:
@@ -104,7 +104,7 @@ class StreamState:
             shown = self.last_history
             meta = point_snapshot = converged_age = spectrum = None
             point_index = self.points_started - 1
-            campaign = self.campaign.view()
+            campaign = self.campaign.view(live=True)
         else:
             if point_run.snapshot_stale:
                 point_run.take_snapshot()
@@ -118,7 +118,7 @@ class StreamState:
             if point_run.spectra is not None:
                 spectrum = point_run.spectra.live(point_snapshot, point_run.meta.get("nu"), now)
             elapsed = point_snapshot.duration_s if point_snapshot is not None else 0.0
-            campaign = self.campaign.view(float(elapsed))
+            campaign = self.campaign.view(float(elapsed), live=True)
         return StreamView(
             stream=self.name,
             session=self.sequence.session,

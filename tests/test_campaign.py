@@ -190,3 +190,19 @@ def test_the_campaign_forgets_an_announcement_a_later_point_does_not_repeat():
     assert c.view() is not None
     c.start({"id": "B", "y": 0.1}, {})
     assert c.view() is None
+
+
+def test_the_display_runs_at_the_pace_measured_so_far():
+    """Wall-clock seconds per second of record over the finished points (arithmetic): two
+    points of 10 s record and a 2 s gap took 44 s of wall clock, so 2 s per s of record."""
+    c = Campaign([{"id": i, "y": y} for i, y in (("A", 0.0), ("B", 0.01), ("C", 0.02))])
+    line = {"point": {"id": "A", "y": 0.0}, "duration_s": 10.0, "statistics": []}
+    c.start(line["point"], None, wall_s=100.0)
+    c.finish(line, t0_s=0.0, wall_s=120.0)
+    c.start({"id": "B", "y": 0.01}, None, wall_s=121.0)
+    c.finish({**line, "point": {"id": "B", "y": 0.01}}, t0_s=12.0, wall_s=144.0)
+    assert c.pace() == pytest.approx(44.0 / 22.0)
+    assert "pace" not in c.view() and c.view(live=True)["pace"] == pytest.approx(2.0)
+    shown = {"points_done": 2, "points_left": 1, "seconds_left": 60.0, "range_s": [50.0, 70.0],
+             "pace": 2.0}
+    assert campaign_text(shown) == "traverse: 2 of 3 points done, about 2.0 min left (1.7–2.3 min)"
