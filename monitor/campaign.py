@@ -271,4 +271,6 @@ def campaign_text(c: Mapping | None) -> str | None:
     if _number(low) and _number(high):
         div, unit = _unit(high)
         text += f" ({_in(low, div)}–{_in(high, div)} {unit})"
+    elif c.get("range_reason"):
+        text += f" (no range yet: {c['range_reason']})"
     return text

@@ -22,16 +22,29 @@ The prediction for a point still to come:
 
 The point in progress counts its prediction less the record it already has (never below 0).
 
-The range is a Monte Carlo over the finished points' needs: a need estimated from ``B`` blocks
-is ``need_true * chi^2_{B-1} / (B-1)`` (Flyvbjerg & Petersen 1989, REFERENCES §2, as
-:func:`~eddyvigil.stats.planner.need_range`), so each draw takes ``need_true = need * (B-1) /
-chi^2_{B-1}`` independently per finished point (independent records), interpolates and sums
-as above; the range is the central ``confidence`` share of ``DRAWS`` draws (seeded, so the
-same inputs give the same range, live and in a replay). Points that share neighbours share
-their draws, so their errors are correlated as they should be. Not in the range: how the
-need varies *between* measured points beyond a straight line, the spread of the moment a
-noisy stopping rule fires (its mean is in ``ETA_CALIBRATION``), the error of T_int, and
-changes of the gaps; the README says so beside the figure.
+The range is a Monte Carlo (``DRAWS`` draws, seeded, so the same inputs give the same range,
+live and in a replay; its central ``confidence`` share) of two sources of error:
+
+* the finished points' own noise: a need estimated from ``B`` blocks is ``need_true *
+  chi^2_{B-1} / (B-1)`` (Flyvbjerg & Petersen 1989, REFERENCES §2, as
+  :func:`~eddyvigil.stats.planner.need_range`), so each draw takes ``need_true = need *
+  (B-1) / chi^2_{B-1}`` independently per finished point (independent records); points to
+  come that share neighbours share these draws;
+* the profile between and beyond the measured positions, which a straight line does not
+  know: the logarithm of the need is modelled as a Brownian motion along the traverse
+  coordinate, its diffusion ``D`` estimated from the ``n`` steps between consecutive
+  finished positions (``D = mean(dlog^2 / dx)``, each draw using ``n D / chi^2_n``, so the
+  few steps' own uncertainty widens the range as a t quantile would). A point beyond the
+  last measured one drifts from it (variance ``D d`` at distance ``d``, correlated along
+  the way); a point between two measured ones follows a Brownian bridge (variance ``D g t
+  (1 - t)``). This is a model, not a law: it is honest for profiles that wander as it
+  assumes (``tests/test_campaign.py``: coverage on such profiles) and cannot foresee a
+  sharp feature that no finished point has seen. With fewer than ``MIN_POSITIONS`` (4)
+  measured positions no range is given (``range_reason``): from one or two steps the
+  diffusion's own uncertainty makes the range span orders of magnitude.
+
+Not in the range: the spread of the moment a noisy stopping rule fires (its mean is in
+``ETA_CALIBRATION``), the error of T_int, and changes of the gaps.
 
 >>> f = forecast([Finished(position={"y": 0.0}, need_s=100.0, blocks=None, tint_s=0.01)],
 ...              [{"y": 0.01}, {"y": 0.02}])
@@ -53,13 +66,16 @@ __all__ = ["DRAWS", "Finished", "Forecast", "forecast", "METHOD"]
 
 #: Monte Carlo draws of the range (a 95 % range from 2000 draws moves by about 1 %)
 DRAWS = 2000
+#: measured positions (finished points without positions) before a range is given: the
+#: profile's diffusion from fewer than 3 steps is too uncertain to bound anything useful
+MIN_POSITIONS = 4
 #: seed of the draws: the same inputs give the same range (live = replay)
 SEED = 15
 #: the method in words (the summary's ``campaign.method``)
 METHOD = ("per point still to come: max(1.1 x time to target, 200 T_int) interpolated in "
           "position from the finished points, cut at the announced time limit, plus the median "
           "gap between points; range: Monte Carlo over the chi-square spread of each finished "
-          "point's time to target")
+          "point's time to target and a Brownian profile of its logarithm along the traverse")
 
 _AXES = ("x", "y", "z")
 
@@ -91,6 +107,7 @@ class Forecast:
     confidence: float = 0.95
     reason: str | None = None
     gap_s: float = 0.0
+    range_reason: str | None = None  # why low/high are NaN while seconds is known
     _current: tuple = field(default=(), repr=False)  # (value, draws) of the point in progress
     _rest: tuple = field(default=(), repr=False)  # (value, draws) of the points after it
 
@@ -100,7 +117,7 @@ class Forecast:
             return self
         value, low, high = _combine(self._current, self._rest, float(elapsed_s), self.confidence)
         return Forecast(self.points_done, self.points_left, value, low, high, self.confidence,
-                        None, self.gap_s, self._current, self._rest)
+                        None, self.gap_s, self.range_reason, self._current, self._rest)
 
     def to_json(self) -> dict:
         """The summary's ``campaign`` object (times in s; null where not known)."""
@@ -110,7 +127,7 @@ class Forecast:
         return {"points_done": self.points_done, "points_left": self.points_left,
                 "seconds_left": num(self.seconds), "range_s": [num(self.low), num(self.high)],
                 "confidence": self.confidence, "gap_s": num(self.gap_s), "reason": self.reason,
-                "method": METHOD}
+                "range_reason": self.range_reason, "method": METHOD}
 
 
 def _combine(current, rest, elapsed, confidence):
@@ -122,6 +139,8 @@ def _combine(current, rest, elapsed, confidence):
     if rest:
         value += rest[0]
         draws = draws + rest[1]
+    if np.isnan(draws).any():  # no range (see range_reason)
+        return value, math.nan, math.nan
     a = (1.0 - confidence) / 2.0
     low, high = np.quantile(draws, [a, 1.0 - a])
     return value, float(min(low, value)), float(max(high, value))
@@ -158,6 +177,58 @@ def _weights(known_pos, wanted_pos) -> np.ndarray:
     return w
 
 
+def _brownian(xs, wanted, diffusion, rng, draws) -> np.ndarray:
+    """(Q, D) draws of a Brownian motion (variance ``diffusion`` per unit of x) pinned to 0 at
+    every ``xs`` (sorted, distinct), at the ``wanted`` positions: drift beyond the ends,
+    bridges between neighbours (module docstring)."""
+    out = np.zeros((len(wanted), draws))
+    wanted = np.asarray(wanted, float)
+    scale = np.sqrt(diffusion)  # (D,)
+
+    def walk(idx, steps, total=None):
+        """Cumulative increments over ``steps`` (sorted distances from the pin) for the
+        points ``idx``; with ``total``, pinned again there (a bridge)."""
+        if not len(idx):
+            return
+        dx = np.diff(np.concatenate([[0.0], steps]))
+        w = np.cumsum(rng.standard_normal((len(idx), draws)) * np.sqrt(dx)[:, None], axis=0)
+        if total is not None:
+            end = w[-1] + rng.standard_normal(draws) * np.sqrt(total - steps[-1])
+            w = w - (steps / total)[:, None] * end
+        out[idx] = w * scale
+
+    left = np.flatnonzero(wanted < xs[0])
+    left = left[np.argsort(xs[0] - wanted[left])]
+    walk(left, xs[0] - wanted[left])
+    right = np.flatnonzero(wanted > xs[-1])
+    right = right[np.argsort(wanted[right] - xs[-1])]
+    walk(right, wanted[right] - xs[-1])
+    for i in range(len(xs) - 1):
+        inside = np.flatnonzero((wanted > xs[i]) & (wanted < xs[i + 1]))
+        inside = inside[np.argsort(wanted[inside])]
+        walk(inside, wanted[inside] - xs[i], xs[i + 1] - xs[i])
+    return out
+
+
+def _profile(distinct, log_need, wanted_x, q, rng, draws):
+    """((Q, D) multiplicative draws of the profile between and beyond the measured positions,
+    None) or (None, reason) with fewer than two of them. ``wanted_x`` None: no positions."""
+    if len(log_need) < MIN_POSITIONS:
+        n = len(log_need)
+        what = "finished point{}" if wanted_x is None else "position{} measured"
+        return None, f"{n} {what.format('s' * (n != 1))}, a range needs {MIN_POSITIONS}"
+    if wanted_x is None:  # no positions: like the finished points, independently
+        n = len(log_need) - 1
+        s_draw = float(np.std(log_need, ddof=1)) * np.sqrt(n / rng.chisquare(n, size=draws))
+        return np.exp(rng.standard_normal((q, draws)) * s_draw), None
+    xs = np.asarray(distinct, float)
+    steps = np.diff(log_need) ** 2 / np.diff(xs)
+    n = steps.size
+    d_draw = n * float(steps.mean()) / rng.chisquare(n, size=draws)
+    # clipped where a draw is absurd anyway (exp overflows past ~700)
+    return np.exp(np.clip(_brownian(xs, wanted_x, d_draw, rng, draws), -50.0, 50.0)), None
+
+
 def forecast(finished, to_come, current=None, *, gaps_s=(), limits_s=None,
              current_limit_s=None, min_record_s: float = 0.0, confidence: float = 0.95,
              draws: int = DRAWS, seed: int = SEED) -> Forecast:
@@ -182,50 +253,56 @@ def forecast(finished, to_come, current=None, *, gaps_s=(), limits_s=None,
                         "yet", **base)
     wanted = ([dict(current)] if current is not None else []) + to_come
     axis = _axis([f.position for f in usable] + wanted)
+    need_all = np.array([f.need_s for f in usable])
     if axis is None:  # no common coordinate: every point like the finished points on average
         w = np.full((len(wanted), len(usable)), 1.0 / len(usable))
-        order = list(range(len(usable)))
+        distinct, log_need, wanted_x = None, np.log(need_all), None
     else:
         order = sorted(range(len(usable)), key=lambda j: usable[j].position[axis])
-        xs = [float(usable[j].position[axis]) for j in order]
-        # repeated positions: their mean (np.interp needs distinct abscissae)
+        # repeated positions: their mean (interpolation needs distinct abscissae)
         distinct, groups = [], []
-        for j, x in zip(order, xs, strict=True):
+        for j in order:
+            x = float(usable[j].position[axis])
             if distinct and x == distinct[-1]:
                 groups[-1].append(j)
             else:
                 distinct.append(x)
                 groups.append([j])
-        w_d = _weights(distinct, [float(p[axis]) for p in wanted])
+        wanted_x = [float(p[axis]) for p in wanted]
+        w_d = _weights(distinct, wanted_x)
         w = np.zeros((len(wanted), len(usable)))
         for g, members in enumerate(groups):
             for j in members:
                 w[:, j] = w_d[:, g] / len(members)
-        order = list(range(len(usable)))
-    need = np.array([usable[j].need_s for j in order])
-    tint = np.array([usable[j].tint_s if math.isfinite(usable[j].tint_s) else 0.0
-                     for j in order])
+        log_need = np.log([need_all[m].mean() for m in groups])
+    tint = np.array([f.tint_s if math.isfinite(f.tint_s) else 0.0 for f in usable])
     rng = np.random.default_rng(seed)
     factor = np.ones((len(usable), draws))
     for j, f in enumerate(usable):
         if isinstance(f.blocks, int | float) and f.blocks >= 3:
             dof = float(f.blocks) - 1.0
             factor[j] = dof / rng.chisquare(dof, size=draws)
+    profile, range_reason = _profile(distinct, log_need, wanted_x, len(wanted), rng, draws)
     floor = np.maximum(MIN_RECORD_INTEGRAL_TIMES * (w @ tint), float(min_record_s or 0.0))
     limits = [current_limit_s] if current is not None else []
     limits += list(limits_s) if limits_s is not None else [None] * len(to_come)
     cap = np.array([float(c) if isinstance(c, int | float) and c > 0 else np.inf
                     for c in limits])
 
-    def records(needs):  # needs: (J,) or (J, D) -> records (Q,) or (Q, D)
+    def records(needs):  # interpolated needs (Q,) or (Q, D) -> records
         shape = (-1, 1) if needs.ndim == 2 else (-1,)
-        r = np.maximum(ETA_CALIBRATION * (w @ needs), floor.reshape(shape))
+        r = np.maximum(ETA_CALIBRATION * needs, floor.reshape(shape))
         return np.minimum(r, cap.reshape(shape))
 
     gap = float(np.median(gaps_s)) if len(gaps_s) else 0.0
-    value, sample = records(need), records(need[:, None] * factor)
+    value = records(w @ need_all)
+    if profile is None:
+        sample = np.full((len(wanted), 1), np.nan)
+    else:
+        sample = records((w @ (need_all[:, None] * factor)) * profile)
     k = 1 if current is not None else 0
     cur = (float(value[0]), sample[0]) if k else ()
     rest = (float(value[k:].sum() + gap * len(to_come)),
             sample[k:].sum(axis=0) + gap * len(to_come)) if to_come else ()
-    return Forecast(gap_s=gap, _current=cur, _rest=rest, **base).left(0.0)
+    return Forecast(gap_s=gap, range_reason=range_reason, _current=cur, _rest=rest,
+                    **base).left(0.0)
