@@ -265,7 +265,7 @@ def campaign_text(c: Mapping | None) -> str | None:
         low, high = (v * pace if _number(v) else v for v in (low, high))
     if c.get("reason") or not _number(seconds):
         return f"{head}, time left not known yet ({c.get('reason') or 'no estimate'})"
-    if _number(high) and high < 1.0:
+    if seconds < 1.0 and not (_number(high) and high >= 1.0):
         return f"{head}, less than 1 s left"
     text = f"{head}, about {_in(seconds, _unit(seconds)[0])} {_unit(seconds)[1]} left"
     if _number(low) and _number(high):

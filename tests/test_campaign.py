@@ -217,3 +217,20 @@ def test_the_display_runs_at_the_pace_measured_so_far():
     shown = {"points_done": 2, "points_left": 1, "seconds_left": 60.0, "range_s": [50.0, 70.0],
              "pace": 2.0}
     assert campaign_text(shown) == "traverse: 2 of 3 points done, about 2.0 min left (1.7–2.3 min)"
+
+
+def test_budget_plan_and_report_read_a_summary_with_early_budget_lines(tmp_path, capsys):
+    """DESIGN §11's budget line after the first and second point (null terms, a reason, a
+    campaign object) is read by every command that reads a summary."""
+    from eddyvigil.monitor import cli
+
+    lines, _ = _run(_frames([0.0, 0.01, 0.02, 0.04]))
+    assert lines[1]["kind"] == "budget" and lines[1]["production"] is None
+    path = tmp_path / "s.jsonl"
+    path.write_text("".join(json.dumps(x) + "\n" for x in lines[:4]))  # two points so far
+    assert cli.main(["budget", str(path)]) == 0
+    assert "no budget yet: 2 positions along y: the derivatives need at least three" in (
+        capsys.readouterr().out)
+    assert cli.main(["plan", str(path), "--hours", "1", "-o", str(tmp_path / "p.toml")]) == 0
+    assert cli.main(["report", str(path), "-o", str(tmp_path / "r.html")]) == 0
+    assert (tmp_path / "r.html").stat().st_size > 10_000
