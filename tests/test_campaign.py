@@ -234,3 +234,14 @@ def test_budget_plan_and_report_read_a_summary_with_early_budget_lines(tmp_path,
     assert cli.main(["plan", str(path), "--hours", "1", "-o", str(tmp_path / "p.toml")]) == 0
     assert cli.main(["report", str(path), "-o", str(tmp_path / "r.html")]) == 0
     assert (tmp_path / "r.html").stat().st_size > 10_000
+
+
+def test_watch_refuses_an_unreadable_points_file_before_starting(tmp_path, capsys):
+    from eddyvigil.monitor import cli
+
+    bad = tmp_path / "points.toml"
+    bad.write_text('[[points]]\nid = "A"\ny = "high"\n')
+    args = ["watch", "--connect", "tcp://127.0.0.1:9", "--no-dashboard", "--quiet"]
+    assert cli.main([*args, "--points", str(bad)]) == 4
+    assert "'y' must be a number" in capsys.readouterr().err
+    assert cli.main([*args, "--points", str(tmp_path / "none.toml")]) == 4
