@@ -152,12 +152,17 @@ def _frames(ys, traverse=True, bad=False):
 
 
 def _run(frames, **kw):
+    """Through a pipeline whose clock runs with the publisher's (pace 1)."""
     buf = io.StringIO()
-    p = Pipeline(summary=buf, **kw)
+    now = [0.0]
+    p = Pipeline(summary=buf, clock=lambda: now[0], **kw)
     status = []
     from eddyvigil.monitor.watch import status_line
 
     for f in frames:
+        header = json.loads(f[1])
+        if header["kind"] == "samples":
+            now[0] = header["t0"] + header["n"] / header["rate_hz"]
         p.handle_frames(f)
         if json.loads(f[1])["kind"] == "point":
             status.append(status_line(p.publish()))
