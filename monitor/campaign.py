@@ -267,9 +267,10 @@ def campaign_text(c: Mapping | None) -> str | None:
         return f"{head}, time left not known yet ({c.get('reason') or 'no estimate'})"
     if seconds < 1.0 and not (_number(high) and high >= 1.0):
         return f"{head}, less than 1 s left"
-    text = f"{head}, about {_in(seconds, _unit(seconds)[0])} {_unit(seconds)[1]} left"
-    if _number(low) and _number(high):
-        div, unit = _unit(high)
+    ranged = _number(low) and _number(high)
+    div, unit = _unit(max(seconds, high) if ranged else seconds)  # one unit for all three
+    text = f"{head}, about {_in(seconds, div)} {unit} left"
+    if ranged:
         text += f" ({_in(low, div)}–{_in(high, div)} {unit})"
     elif c.get("range_reason"):
         text += f" (no range yet: {c['range_reason']})"

@@ -104,12 +104,15 @@ def test_the_same_inputs_give_the_same_range():
 
 
 def test_the_wording_of_the_status_line_and_the_dashboard():
-    """Minutes below two hours, hours above; the range in the unit of its upper end."""
+    """Seconds below two minutes, minutes below two hours, hours above; one unit for the
+    value and its range, that of the larger."""
     c = {"points_done": 5, "points_left": 7, "seconds_left": 840.0, "range_s": [600.0, 1140.0]}
     assert campaign_text(c) == "traverse: 5 of 12 points done, about 14 min left (10–19 min)"
     c = {"points_done": 1, "points_left": 2, "seconds_left": 9000.0, "range_s": [7200, 10800]}
     assert campaign_text(c) == "traverse: 1 of 3 points done, about 2.5 h left (2.0–3.0 h)"
     assert campaign_text({"points_done": 3, "points_left": 0}) == "traverse: 3 of 3 points done"
+    c = {"points_done": 4, "points_left": 5, "seconds_left": 45.0, "range_s": [18.0, 126.0]}
+    assert campaign_text(c) == "traverse: 4 of 9 points done, about 0.8 min left (0.3–2.1 min)"
     assert campaign_text(None) is None
 
 
