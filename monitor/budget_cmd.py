@@ -195,9 +195,12 @@ def _num(v) -> float:
 
 
 def budget_line(stream: str, lines: Iterable[Mapping], confidence: float = 0.95,
-                axis: str = "y", wwv: str = "vvv", minimum_points: int = 0) -> dict | None:
+                axis: str = "y", wwv: str = "vvv", minimum_points: int = 0,
+                campaign: Mapping | None = None) -> dict | None:
     """The ``budget`` summary line of DESIGN §11 for ``stream`` (None when fewer than
-    ``minimum_points`` distinct positions)."""
+    ``minimum_points`` distinct positions). ``reason``: why every term is null (fewer than
+    three positions), else null. ``campaign`` (the monitor's: the traverse's ETA,
+    :mod:`eddyvigil.monitor.campaign`) is added when given."""
     import numpy as np
 
     from eddyvigil.stats.budget import TERMS, Budget, tke_budget
@@ -234,6 +237,15 @@ def budget_line(stream: str, lines: Iterable[Mapping], confidence: float = 0.95,
         out[name] = term(b.terms[name])
     out["pressure_lumley"] = term(b.pressure_lumley)
     out["assumptions"] = list(notes) + list(b.assumptions)
+    out["reason"] = None
+    if all(b.terms[t] is None for t in TERMS):
+        n = len(points)
+        out["reason"] = (f"{n} position{'s' * (n != 1)} along {axis}: the derivatives need at "
+                         "least three" if n < 3 else next(
+                             (a for a in b.assumptions if "not computed" in a),
+                             "no term could be computed from these points"))
+    if campaign is not None:
+        out["campaign"] = dict(campaign)
     from eddyvigil.monitor.summary import json_safe
 
     return json_safe(out)  # non-finite numbers as null, as they are written
@@ -262,8 +274,8 @@ def budget_table(line: Mapping) -> str:
                         for n in names)
         rows.append(f"{str(pid):<8}{pos:>10.4g}  {cells}")
     missing = [t for t in TERMS if line.get(t) is None]
-    tail = []
-    if missing:
+    tail = [f"no budget yet: {line['reason']}"] if line.get("reason") else []
+    if missing and len(missing) < len(TERMS):
         tail.append("not available: " + ", ".join(missing))
     lum = line.get("pressure_lumley")
     if lum is not None:

@@ -131,30 +131,39 @@ class TerminalSummary:
             line = json.loads(text)
         except ValueError:
             return
-        self._stream.write(self.describe(line) + "\n")
+        sentence = self.describe(line)
+        if sentence:
+            self._stream.write(sentence + "\n")
 
     def flush(self) -> None:
         self._stream.flush()
 
     @staticmethod
     def _budget(line: dict) -> str:
-        """The budget line as a sentence: its largest production with SE.
+        """The budget line as a sentence: its largest production with SE, and the traverse's
+        campaign ETA if known ("" when it has neither: no budget yet, no traverse known).
 
         >>> TerminalSummary._budget({"stream": "a", "axis": "y", "points": ["P1", "P2", "P3"],
         ...     "production": {"value": [0.1, 1.5, None], "stderr": [0.01, 0.2, None]}})
         'budget of a along y, 3 points: largest production 1.5 ± 0.2 m²/s³ at P2'
         """
+        from eddyvigil.monitor.campaign import campaign_text
+
+        campaign = campaign_text(line.get("campaign"))
+        if line.get("reason") and not campaign:
+            return ""  # no term yet and no traverse to tell of: nothing to say
         head = f"budget of {line.get('stream')} along {line.get('axis')}, " \
                f"{len(line.get('points') or [])} points: "
         prod = line.get("production") or {}
         rows = [(abs(v), v, se, pid) for v, se, pid in
                 zip(prod.get("value") or [], prod.get("stderr") or [], line.get("points") or [],
                     strict=False) if isinstance(v, int | float)]
+        tail = f"; {campaign}" if campaign else ""
         if not rows:
-            return head + "no production yet"
+            return head + "no production yet" + tail
         _, v, se, pid = max(rows, key=lambda r: r[0])
         err = f" ± {se:.2g}" if isinstance(se, int | float) else " (no interval)"
-        return head + f"largest production {v:.3g}{err} m²/s³ at {pid}"
+        return head + f"largest production {v:.3g}{err} m²/s³ at {pid}" + tail
 
     @staticmethod
     def describe(line: dict) -> str:

@@ -77,6 +77,7 @@ from eddyvigil.monitor.display import (
 )
 from eddyvigil.monitor.budget_cmd import budget_line
 from eddyvigil.monitor.coalesce import COALESCE_S, Coalescer, target_rows
+from eddyvigil.monitor.campaign import Campaign
 from eddyvigil.monitor.lines import point_line, run_line
 from eddyvigil.monitor.point_run import PointRun
 from eddyvigil.monitor.state import RunSnapshot
@@ -159,6 +160,7 @@ class Pipeline:
         quality: str = "flag",
         weighting: str = "arrival",
         coalesce_s: float = COALESCE_S,
+        points: Sequence[Mapping] | None = None,
     ):
         from eddyvigil import stats  # the numba-compiled core loads only when a pipeline is built
 
@@ -176,6 +178,8 @@ class Pipeline:
         self.max_message_bytes = int(max_message_bytes)
         self.quality_policy = quality  # stats.quality: "flag" or "exclude" (README, Signal quality)
         self.weighting = weighting  # random sampling without a weight column (DESIGN §10)
+        # the traverse's points (watch --points; monitor.campaign), for the campaign ETA
+        self.points = [dict(p) for p in points] if points is not None else None
         self._streams: dict[str, StreamState] = {}
         self._rejected: Counter = Counter()  # of the whole run
         self._received = 0  # messages of the whole run
@@ -226,7 +230,7 @@ class Pipeline:
             if isinstance(msg, wire.SamplesMessage):
                 reason = self._on_samples_message(st, msg)
             elif isinstance(msg, wire.PointMessage):
-                self._on_point(st, msg.point)
+                self._on_point(st, msg.point, msg.header)
                 if msg.n_probes is not None:  # a rake or field (monitor.fields)
                     st.current.layout_rake, st.current.layout_grid = msg.probes, msg.grid
                     st.current.layout_probes = msg.n_probes
@@ -369,13 +373,14 @@ class Pipeline:
 
     # ------------------------------------------------------------------ a point's lifecycle
 
-    def _on_point(self, st: StreamState, meta: dict) -> None:
+    def _on_point(self, st: StreamState, meta: dict, header: Mapping | None = None) -> None:
         if st.current is not None:
             self._finish_point(st, complete=True)
-        self._start_point(st, meta)
+        self._start_point(st, meta, header)
 
-    def _start_point(self, st: StreamState, meta: dict | None) -> PointRun:
-        point_run = st.start_point(meta, history_rows=HISTORY_ROWS)
+    def _start_point(self, st: StreamState, meta: dict | None,
+                     header: Mapping | None = None) -> PointRun:
+        point_run = st.start_point(meta, history_rows=HISTORY_ROWS, header=header, now=self._clock())
         if self.targets.budget is not None:  # [budget]: targets from the finished neighbours
             point_run.derive_targets(self.targets, st.finished, st.name)
         return point_run
@@ -480,11 +485,12 @@ class Pipeline:
         """The one place a finished point's line is written (and kept for readers)."""
         self._writer.write(line)
         st.finished.append(line)
-        # DESIGN §11: the stream's k budget so far, once three positions make a traverse
-        budget = budget_line(st.name, st.finished, float(self.targets.confidence),
-                             minimum_points=3)
-        if budget is not None:
-            self._writer.write(budget)
+        st.campaign.finish(line, st.current.t0 if st.current is not None else None,
+                           self._clock())
+        # DESIGN §11: the stream's k budget so far, after every point (null terms, with the
+        # reason, before three positions), with the traverse's campaign ETA
+        self._writer.write(budget_line(st.name, st.finished, float(self.targets.confidence),
+                                       campaign=st.campaign.view()))
 
     def run_line(self) -> dict:
         """The closing ``run`` line of DESIGN §4 (totals of the whole run)."""
@@ -513,7 +519,8 @@ class Pipeline:
         if st is None:
             if len(self._streams) >= MAX_STREAMS:
                 return None
-            st = self._streams[name] = StreamState(name)
+            st = self._streams[name] = StreamState(name, Campaign(
+                self.points, self.targets.required_record_s, float(self.targets.confidence)))
         return st
 
     def _maybe_publish(self, force: bool = False) -> None:

@@ -39,20 +39,10 @@ def add_arguments(p) -> None:
 def _need_s(line) -> tuple[float, float, float, float]:
     """(time to meet every target counted from the start of the point, its 95 % range low and
     high, largest T_int)."""
-    from eddyvigil.stats.planner import need_range, seconds_to_target
+    from eddyvigil.monitor.campaign import point_need
+    from eddyvigil.stats.planner import need_range
 
-    need, tint, blocks = math.nan, math.nan, None
-    duration = line.get("duration_s")
-    for s in line.get("statistics") or ():
-        name = str(s.get("name", ""))
-        if name.startswith("Tint_") and isinstance(s.get("value"), int | float):
-            tint = s["value"] if math.isnan(tint) else max(tint, s["value"])
-        lo, hi, target = s.get("ci_low"), s.get("ci_high"), s.get("target")
-        if not all(isinstance(v, int | float) for v in (lo, hi, target, duration)):
-            continue
-        t = seconds_to_target((hi - lo) / 2, duration, target)
-        if math.isfinite(t) and (math.isnan(need) or t > need):
-            need, blocks = t, s.get("blocks")
+    need, blocks, tint = point_need(line)
     low, high = need_range(need, blocks)
     return need, low, high, tint
 
@@ -186,17 +176,13 @@ def _q(s) -> str:
 
 
 def _read_points(path, axis):
-    with open(path, "rb") as f:
-        d = tomllib.load(f)
-    pts = d.get("points")
-    if not isinstance(pts, list) or not pts:
-        raise ValueError("needs [[points]] tables")
-    out = []
-    for i, p in enumerate(pts):
-        if not isinstance(p, dict) or not isinstance(p.get(axis), int | float):
+    from eddyvigil.monitor.campaign import read_points
+
+    out = read_points(path)
+    for i, p in enumerate(out):
+        if axis not in p:
             raise ValueError(f"[[points]] #{i + 1} needs a number '{axis}'")
-        out.append({"id": str(p.get("id", f"#{i + 1}")), axis: float(p[axis])})
-    return out
+    return [{"id": p["id"], axis: p[axis]} for p in out]
 
 
 def run(args) -> int:

@@ -65,6 +65,10 @@ class StreamView:
     random_sampling: Mapping | None = None
     #: the current point's targets from a [budget] table (the point line's "derived_targets")
     derived_targets: Mapping | None = None
+    #: the traverse's campaign ETA (monitor.campaign: the summary's ``campaign`` object), or None
+    campaign: Mapping | None = None
+    #: (meta, PointSnapshot | None) of the stream's last finished point (shown after ``end``)
+    last_point: tuple | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

@@ -4,15 +4,17 @@
 rejections), its :class:`~eddyvigil.monitor.sequence.SequenceAccount`, its current
 :class:`~eddyvigil.monitor.point_run.PointRun` (``current``; None between points), the lines
 of its finished points and its display buffers (:class:`~eddyvigil.monitor.display.Trace`,
-the last finished point's history, the received rate). A loss or a rejection found while no
-point is current is carried to the next point of the stream. :meth:`StreamState.view` builds
-the stream's :class:`~eddyvigil.monitor.state.StreamView` for a published run snapshot.
+the last finished point's history and statistics, the received rate) and its traverse
+(:class:`~eddyvigil.monitor.campaign.Campaign`: the campaign ETA). A loss or a rejection
+found while no point is current is carried to the next point of the stream.
+:meth:`StreamState.view` builds the stream's :class:`~eddyvigil.monitor.state.StreamView` for a published run snapshot.
 """
 
 from __future__ import annotations
 
 from collections import Counter
 
+from eddyvigil.monitor.campaign import Campaign
 from eddyvigil.monitor.display import History, Trace, quality_view
 from eddyvigil.monitor.point_run import PointRun
 from eddyvigil.monitor.random_sampling import random_sampling_view
@@ -26,8 +28,9 @@ __all__ = ["StreamState"]
 class StreamState:
     """One stream: sequence account, totals, current point run, finished lines, display."""
 
-    def __init__(self, name: str):
+    def __init__(self, name: str, campaign: Campaign | None = None):
         self.name = name
+        self.campaign = campaign if campaign is not None else Campaign()
         self.sequence = SequenceAccount()
         self.active = False  # at least one accepted message
         self.ended = False
@@ -43,6 +46,7 @@ class StreamState:
         self.points_started = 0
         self.finished: list[dict] = []  # point lines of its finished points
         self.last_history: History | None = None  # of the last finished point (display)
+        self.last_point: tuple | None = None  # (meta, PointSnapshot) of the last finished one
         self.rate_hz: float | None = None
         self.trace = Trace()
         self.receive = ReceiveRate()
@@ -64,8 +68,10 @@ class StreamState:
             self.carry_gaps += 1
             self.carry_lost += lost
 
-    def start_point(self, meta: dict | None, history_rows: int | None = None) -> PointRun:
-        """A new current point, with the losses and rejections carried so far."""
+    def start_point(self, meta: dict | None, history_rows: int | None = None,
+                    header: dict | None = None, now: float | None = None) -> PointRun:
+        """A new current point, with the losses and rejections carried so far (``header``:
+        its point message's, where the publisher may announce its traverse)."""
         point_run = PointRun(self.points_started, meta, history_rows=history_rows)
         self.points_started += 1
         point_run.gaps, point_run.lost = self.carry_gaps, self.carry_lost
@@ -73,11 +79,14 @@ class StreamState:
         self.carry_gaps, self.carry_lost, self.carry_rejected = 0, 0, Counter()
         self.current = point_run
         self.ended = False
+        self.campaign.start(meta, header, now)
         return point_run
 
     def end_point(self) -> None:
-        """The current point is over (its line written); its history stays on screen."""
+        """The current point is over (its line written); its history and statistics stay on
+        screen."""
         self.last_history = self.current.history
+        self.last_point = (dict(self.current.meta), self.current.point_snapshot)
         self.current = None
 
     def add_samples(self, velocity, columns, rate_hz, times, t0, now: float) -> None:
@@ -96,6 +105,7 @@ class StreamState:
             shown = self.last_history
             meta = point_snapshot = converged_age = spectrum = None
             point_index = self.points_started - 1
+            campaign = self.campaign.view(live=True)
         else:
             if point_run.snapshot_stale:
                 point_run.take_snapshot()
@@ -108,6 +118,8 @@ class StreamState:
             spectrum = None
             if point_run.spectra is not None:
                 spectrum = point_run.spectra.live(point_snapshot, point_run.meta.get("nu"), now)
+            elapsed = point_snapshot.duration_s if point_snapshot is not None else 0.0
+            campaign = self.campaign.view(float(elapsed), live=True)
         return StreamView(
             stream=self.name,
             session=self.sequence.session,
@@ -131,4 +143,6 @@ class StreamState:
             random_sampling=random_sampling_view(point_run),
             derived_targets=(point_run.derived.to_json()
                              if point_run is not None and point_run.derived is not None else None),
+            campaign=campaign,
+            last_point=self.last_point,
         )

@@ -108,6 +108,9 @@ def add_arguments(p: argparse.ArgumentParser) -> None:
     p.add_argument("--summary", metavar="FILE", help="write the summary JSON lines to FILE")
     add_summary_mode(p)
     p.add_argument("--targets", metavar="FILE", help="targets file (TOML); defaults below")
+    p.add_argument("--points", metavar="FILE",
+                   help="the traverse's [[points]] (TOML, as `plan --points`), for the campaign "
+                   "ETA (default: the plan the publisher announces, if it does)")
     p.add_argument("--control", metavar="ENDPOINT", help="bind a PUB here for 'converged' signals")
     p.add_argument(
         "--no-dashboard",
@@ -227,7 +230,9 @@ def _fmt_count(n: float) -> str:
 def status_line(snapshot) -> str:
     """One line per run: per stream its point, samples, received rate (``monitor.rate``),
     lost and rejected messages, and the point's verdict (``stats.verdict``: the same words as
-    the dashboard's banner and the summary's ``"verdict"``)."""
+    the dashboard's banner and the summary's ``"verdict"``), then the traverse's campaign
+    ETA where the positions to come are known (``monitor.campaign.campaign_text``)."""
+    from eddyvigil.monitor.campaign import campaign_text
     from eddyvigil.monitor.rate import format_rate
     from eddyvigil.stats.verdict import point_verdict
 
@@ -237,6 +242,7 @@ def status_line(snapshot) -> str:
             n = len(sv.finished)
             parts.append(f"{name}: finished, {n} point{'s' * (n != 1)} (the publisher sent end)")
             continue
+        campaign = campaign_text(sv.campaign)
         pid = sv.point.get("id") if sv.point else None
         samples = sv.stats.samples if sv.stats is not None else 0
         label = f"{name} {pid}" if pid is not None else f"{name} -"
@@ -255,6 +261,8 @@ def status_line(snapshot) -> str:
             text += " " + random_sampling_status(sv.random_sampling)
         if sv.stats is not None:
             text += " " + point_verdict(sv.stats).text()
+        if campaign:
+            text += f"; {campaign}"
         parts.append(text)
     return " | ".join(parts) or "waiting for data"
 
@@ -379,6 +387,16 @@ def run(args: argparse.Namespace) -> int:
         targets = load_targets(args.targets)
     except TargetsError as exc:
         return _fail(ExitCode.INPUT_FILE, str(exc))
+    points = None
+    if getattr(args, "points", None):
+        from eddyvigil.monitor.campaign import read_points
+
+        try:
+            points = read_points(args.points)
+        except OSError as exc:
+            return _fail(ExitCode.INPUT_FILE, f"cannot read {args.points}: {exc.strerror}")
+        except ValueError as exc:
+            return _fail(ExitCode.INPUT_FILE, f"{args.points}: {exc}")
     if not args.max_message_mb > 0:
         return _fail(ExitCode.USAGE, "--max-message-mb must be positive")
     if not args.no_publisher_after > 0:
@@ -488,6 +506,7 @@ def run(args: argparse.Namespace) -> int:
             max_message_bytes=max_bytes,
             quality=args.quality,
             weighting=args.weighting,
+            points=points,
         )
         status = StatusPrinter(quiet=args.quiet, ended=lambda: pipeline.all_ended)
         started = time.monotonic()

@@ -201,6 +201,18 @@ class Publisher:
                 {"session": self.session, "seq": seq, "kind": kind, "reason": MALFORMED_KINDS[kind]}
             )
 
+    def _limit_s(self, point) -> float:
+        """The longest record point ``point`` gets (the cap with --follow-control)."""
+        return float((self.opt.plan_seconds or {}).get(point.id, self.point_seconds))
+
+    def _traverse(self, i: int) -> dict:
+        """The traverse plan announced on point ``i``'s message (README "Announcing the
+        traverse"): its place, the count, its time limit and the points after it."""
+        points = self.scenario.points
+        return {"index": i, "of": len(points), "limit_s": self._limit_s(points[i]),
+                "remaining": [{"id": p.id, "x": p.x, "y": p.y, "z": p.z,
+                               "limit_s": self._limit_s(p)} for p in points[i + 1:]]}
+
     def _run_points(self) -> None:
         sc = self.scenario
         rps = sc.rows_per_second
@@ -233,7 +245,7 @@ class Publisher:
                 break
             gen = sc.make_generator(point, int(seeds[i][0]))
             turb = gen.generator if isinstance(gen, RandomSampler) else gen
-            seconds = (self.opt.plan_seconds or {}).get(point.id, self.point_seconds)
+            seconds = self._limit_s(point)
             max_rows = int(math.ceil(seconds * rps))
             faults = SampleFaults(
                 sc.point_faults(point),
@@ -243,8 +255,10 @@ class Publisher:
                 int(seeds[i][1]),
             )
             wire_point = point.wire_point(sc.nu)
+            plan = {"traverse": self._traverse(i)}
             first = {"session": self.session, "seq": self.seq}
-            self._send(wire.encode_point(sc.stream, self.session, self._next_seq(), wire_point))
+            self._send(wire.encode_point(sc.stream, self.session, self._next_seq(), wire_point,
+                                         plan))
             self._log(f"simulate: point {point.id} (y = {point.y:g} m)")
             rows = 0  # rows on the stream clock (expected rows for random sampling)
             taken = 0  # rows actually emitted (the fault schedule's index)
@@ -257,9 +271,8 @@ class Publisher:
                     self.samples_messages
                 ):
                     self._restart()
-                    self._send(
-                        wire.encode_point(sc.stream, self.session, self._next_seq(), wire_point)
-                    )
+                    self._send(wire.encode_point(sc.stream, self.session, self._next_seq(),
+                                                 wire_point, plan))
                 n = min(self.block, max_rows - rows)
                 if isinstance(gen, RandomSampler):
                     k = int(round(n * sc.rate_hz / rps))

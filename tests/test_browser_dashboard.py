@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import logging
 import os
+import re
 import shutil
 import struct
 import tempfile
@@ -172,6 +173,15 @@ def test_dashboard_updates_live_in_a_real_browser(tmp_path):
         _wait_for(driver, f"return {model}('verdict').text != {first_verdict!r}",
                   what="the verdict to change")
         assert "point P" in driver.execute_script(f"return {model}('verdict').text")
+        # the campaign ETA is rendered in the words of monitor.campaign.campaign_text (the
+        # preview at 8x reaches its last point in seconds, where less than 1 s may be left)
+        eta = re.compile(r"traverse: [1-4] of 5 points done, (about \d+ s left "
+                         r"\((\d+–\d+ s|no range yet: [1-3] positions? measured, a range "
+                         r"needs 4)\)|less than 1 s left)")
+        _wait_for(driver, f"return {model}('campaign').text.includes('points done, ')",
+                  what="the campaign ETA")
+        text = driver.execute_script(f"return {model}('campaign').text")
+        assert eta.search(text), text
         n_lines = driver.execute_script(f"return {model}('halfwidth_source').data.xs.length")
         assert n_lines == 4  # the four of the preview's six targets furthest from target
         driver.execute_script(f"{model}('show_all').active = true")  # the rest on demand

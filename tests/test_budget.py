@@ -235,8 +235,9 @@ def test_budget_command(tmp_path, capsys):
 
 
 def test_pipeline_appends_a_budget_line_after_each_point_of_a_traverse():
-    """DESIGN §11: from the third position on, every finished point is followed by the
-    stream's budget line."""
+    """DESIGN §11: every finished point is followed by the stream's budget line; before three
+    positions its terms are null and ``reason`` says why (three-point differences, Fornberg
+    1988: a derivative needs three positions)."""
     from eddyvigil.monitor import Pipeline
 
     rng = np.random.default_rng(5)
@@ -249,7 +250,12 @@ def test_pipeline_appends_a_budget_line_after_each_point_of_a_traverse():
     p.close()
     lines = [json.loads(t) for t in buf.getvalue().splitlines()]
     kinds = [x["kind"] for x in lines]
-    assert kinds == ["point", "point", "point", "budget", "point", "budget", "run"]
+    assert kinds == ["point", "budget"] * 4 + ["run"]
+    for early, n in ((lines[1], 1), (lines[3], 2)):
+        assert missing_fields(early) == [] and len(early["points"]) == n
+        assert all(early[t] is None for t in ("production", "turbulent_transport", "residual"))
+        assert "need at least three" in early["reason"]
+    assert lines[5]["reason"] is None and lines[5]["production"] is not None
     last = lines[-2]
     assert missing_fields(last) == [] and last["points"] == ["P0", "P1", "P2", "P3"]
     assert len(last["production"]["value"]) == 4

@@ -213,6 +213,12 @@ def test_a_normal_end_looks_finished():
     snap = p.snapshot
     view = snap.streams["probe-a"]
     assert len(view.history["duration_s"]) > 0  # the plots keep the last point
+    # ... and so does the status board: the last point's rows, marked finished (they are
+    # the same statistics as its summary line)
+    board = views.status_columns(snap)
+    line = view.finished[-1]
+    targeted = [x["name"] for x in line["statistics"] if x.get("target") is not None]
+    assert board["name"] == targeted and set(board["point"]) == {"P1 (finished)"}
     badge = views.banner(view)
     assert badge.headline == "RUN ENDED" and "1 point finished" in badge.detail
     health = views.health_html(snap)
@@ -271,3 +277,16 @@ def test_status_board_and_profile_show_eps_eta_re_lambda(targeted):
         {"name": "eps", "value": 2.0, "ci_low": 1.9, "ci_high": 2.1}]}]
     prof = views.profile_columns(_view(OPEN, finished=fin), "y", ("eps",))
     assert prof["eps"] == [2.0] and prof["eps_hi"] == [2.1]
+
+
+def test_the_campaign_line_names_each_stream_with_a_known_traverse():
+    import dataclasses
+
+    campaign = {"points_done": 5, "points_left": 7, "seconds_left": 840.0,
+                "range_s": [600.0, 1140.0], "reason": None}
+    known = dataclasses.replace(_view(OPEN), campaign=campaign)
+    unknown = dataclasses.replace(_view(OPEN, name="probe-b"), campaign=None)
+    text = views.campaign_html(_run(known, unknown))
+    assert "probe-a traverse: 5 of 12 points done, about 14 min left (10–19 min)" in text
+    assert "probe-b" not in text
+    assert views.campaign_html(_run(unknown)) == ""

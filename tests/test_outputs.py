@@ -52,4 +52,4 @@ def test_a_pipe_gets_the_json_lines(monkeypatch):
     assert sink is pipe_out
     _run_into(sink)
     kinds = [json.loads(t)["kind"] for t in pipe_out.getvalue().splitlines()]
-    assert kinds == ["point", "run"]
+    assert kinds == ["point", "budget", "run"]  # DESIGN §11: a budget line after each point

@@ -35,7 +35,9 @@ def blocks(seed: int, count: int, n: int = 4096, mean=(8.0, 0.5, -0.2), std=(1.2
 
 
 def lines_of(buf: io.StringIO) -> list[dict]:
-    return [json.loads(line) for line in buf.getvalue().splitlines()]
+    """The point and run lines (the budget line after each point: tests/test_budget.py)."""
+    lines = [json.loads(line) for line in buf.getvalue().splitlines()]
+    return [x for x in lines if x["kind"] != "budget"]
 
 
 def stat(line: dict, name: str) -> float:

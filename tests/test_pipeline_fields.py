@@ -51,7 +51,8 @@ def test_a_piv_field_point_writes_its_vectors_beside_the_summary(tmp_path):
     pipe.handle_frames(wire.encode_end("piv", "s", seq))
     pipe.close()
 
-    point, run = [json.loads(t) for t in summary.read_text().splitlines()]
+    point, budget, run = [json.loads(t) for t in summary.read_text().splitlines()]
+    assert budget["kind"] == "budget"  # DESIGN §11, after every point
     assert point["samples"] == 400 and point["rejected"]["layout_changed"] == 2
     assert point["statistics"] == [] and run["samples"] == 400
     field = point["field"]

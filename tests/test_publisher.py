@@ -110,6 +110,11 @@ def test_pub_publisher_sends_the_whole_traverse(ctx, tmp_path):
     assert [m.seq for m in msgs] == list(range(len(msgs)))  # nothing lost, from 0
     points = [m.point["id"] for m in msgs if isinstance(m, wire.PointMessage)]
     assert points == [f"P{i:02d}" for i in range(1, 10)]
+    # each point message announces the traverse to come (monitor.campaign; README)
+    plans = [m.header["traverse"] for m in msgs if isinstance(m, wire.PointMessage)]
+    assert [(t["index"], t["of"], t["limit_s"]) for t in plans] == [(i, 9, 0.25) for i in range(9)]
+    assert [[r["id"] for r in t["remaining"]] for t in plans] == [points[i + 1:] for i in range(9)]
+    assert plans[0]["remaining"][0]["y"] == load_scenario("wake").points[1].y
     # 0.25 s of rows per point, uniform rate, t0 continuing across points
     sc = load_scenario("wake")
     rate, rows = sc.rate_hz, round(0.25 * sc.rate_hz)

@@ -71,7 +71,8 @@ def test_reprocess_on_a_two_worker_cluster_equals_sequential_replays(campaign, t
     args = ["reprocess", *dirs, "--summary", str(got), "--dask", "local", "--workers", "2"]
     assert cli.main([*args, "--quiet"]) == 0
     *points, run = _lines(got)
-    assert len(points) == len(want_points) == 8
+    # 8 point lines, each followed by its stream's budget line (DESIGN §11)
+    assert len(points) == len(want_points) == 16
     for line, (d, text) in zip(points, want_points, strict=True):
         assert line.pop("recording") == d
         assert dumps_line(line) == text  # bit for bit: every digit of every statistic

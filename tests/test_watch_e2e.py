@@ -36,7 +36,9 @@ uu = { relative = 0.25 }
 
 
 def read_lines(path) -> list[dict]:
-    return [json.loads(line) for line in path.read_text().splitlines()]
+    """The point and run lines (the budget line after each point: tests/test_budget.py)."""
+    lines = [json.loads(line) for line in path.read_text().splitlines()]
+    return [x for x in lines if x["kind"] != "budget"]
 
 
 def white_blocks(seed, count, n=4096, mean=(6.0, 0.3, 0.0)):

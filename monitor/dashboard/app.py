@@ -78,6 +78,7 @@ class _Page:
                              options=[], value="", width=240)
         self.select.on_change("value", self._on_select)
         self.verdict = Div(name="verdict", text="", sizing_mode="stretch_width")
+        self.campaign = Div(name="campaign", text="", sizing_mode="stretch_width")
         self.health = Div(name="health", text="", width=620)
         self.flow = Div(name="flow", text="", width=620)
 
@@ -87,12 +88,12 @@ class _Page:
         self.status = DataTable(
             name="status", source=self.status_source, height=370, width=640, index_position=None,
             columns=[TableColumn(field="stream", title="stream", width=70),
-                     TableColumn(field="point", title="point", width=60),
+                     TableColumn(field="point", title="point", width=95),
                      TableColumn(field="name", title="statistic", width=60),
                      TableColumn(field="value", title="value ± half-width", width=150),
-                     TableColumn(field="target", title="target", width=80),
+                     TableColumn(field="target", title="target", width=70),
                      TableColumn(field="state", title="state", formatter=coloured, width=120),
-                     TableColumn(field="eta", title="ETA", width=80)])
+                     TableColumn(field="eta", title="ETA", width=55)])
 
         _redraw_on_new_data(self.status_source, self.status)
 
@@ -188,6 +189,7 @@ class _Page:
         doc.add_root(column(
             row(self.header, self.select),
             self.verdict,
+            self.campaign,
             row(self.status, column(self.health, self.flow)),
             self.quality.table,
             row(self.note, self.show_all),
@@ -251,6 +253,7 @@ class _Page:
         view = snap.streams.get(name) if name is not None else None
 
         _set_text(self.verdict, views.verdict_html(snap))
+        _set_text(self.campaign, views.campaign_html(snap))
         _set_text(self.health, views.health_html(snap))
         _set_text(self.flow, views.flow_html(snap))
         status = views.status_columns(snap)

@@ -42,6 +42,7 @@ class PreviewRun:
         self.ys = np.linspace(-0.04, 0.04, points)
         self.seed = seed
         self._sequence = 0
+        self._campaign: tuple | None = None  # (index, monitor.campaign.Campaign)
 
     def _truth(self, y: float) -> dict[str, float]:
         eta = y / 0.015
@@ -89,6 +90,22 @@ class PreviewRun:
                 "rejected": {}, "confidence": 0.95, "converged": True,
                 "converged_at_s": 0.8 * self.point_s, "statistics": stats}
 
+    def _campaign_of(self, index: int, finished) -> object:
+        """The traverse's campaign ETA as the monitor makes it (monitor.campaign), the
+        preview's points being its points file; rebuilt when a point finishes."""
+        from eddyvigil.monitor.campaign import Campaign
+
+        if self._campaign is None or self._campaign[0] != index:
+            c = Campaign([{"id": f"P{i:02d}", "x": 0.3, "y": float(y), "z": 0.0}
+                          for i, y in enumerate(self.ys)])
+            for line in finished:
+                c.start(line["point"], None)
+                c.finish(line, None)
+            c.start({"id": f"P{index:02d}", "x": 0.3, "y": float(self.ys[index]), "z": 0.0},
+                    None)
+            self._campaign = (index, c)
+        return self._campaign[1]
+
     def snapshot(self, t_s: float) -> RunSnapshot:
         """The run as the monitor would publish it ``t_s`` seconds after the start."""
         self._sequence += 1
@@ -118,14 +135,16 @@ class PreviewRun:
             history[e.name] = self._truth(y)[e.name] + 0.6 * hw * np.sin(1.3 * hist_t + len(e.name))
             history[e.name + "_hw"] = hw
             history[e.name + "_target"] = np.full(hist_t.shape, e.target)
+        finished = tuple(self._summary(i, float(self.ys[i])) for i in range(index))
         view = StreamView(
             stream="probe-a", session="pv", point={"id": f"P{index:02d}", "x": 0.3, "y": y,
                                                    "z": 0.0},
             point_index=index, stats=stats, rate_hz=20_000.0, received_rate_hz=20_000.0,
             messages=int(10 * t_s), lost_messages=0, gaps=0, restarts=0,
             rejected={"non_finite": 2} if t_s > 5 else {}, trace=trace, history=history,
-            finished=tuple(self._summary(i, float(self.ys[i])) for i in range(index)),
-            converged_wall_age_s=(t - 0.8 * self.point_s) if converged else None)
+            finished=finished,
+            converged_wall_age_s=(t - 0.8 * self.point_s) if converged else None,
+            campaign=self._campaign_of(index, finished).view(t))
         return RunSnapshot(self._sequence, time.time(), {"probe-a": view},
                            rejected_total={"non_finite": 2} if t_s > 5 else {})
 

@@ -183,6 +183,22 @@ def _point_label(view: StreamView) -> str:
     return f"point {pid}" if view.point else pid
 
 
+def campaign_html(snapshot: RunSnapshot) -> str:
+    """One line per stream whose traverse is known: points done and the time left with its
+    range (the words of the terminal status line, ``monitor.campaign.campaign_text``)."""
+    from eddyvigil.monitor.campaign import campaign_text
+
+    rows = []
+    for name, v in snapshot.streams.items():
+        text = campaign_text(v.campaign)
+        if text:
+            rows.append(f"<div>{html.escape(name)} {html.escape(text)}</div>")
+    if not rows:
+        return ""
+    return ('<div style="font-size:16px;padding:2px 0" title="time left for the positions still '
+            'to come, from the finished points (README: Campaign ETA)">' + "".join(rows) + "</div>")
+
+
 def verdict_html(snapshot: RunSnapshot) -> str:
     """One large, unmistakable badge per stream (headline words, not just a colour)."""
     if not snapshot.streams:
@@ -294,15 +310,19 @@ def _cell(text: str, flag: bool = False) -> str:
 
 
 def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
-    """The status board: one row per targeted statistic of every stream's current point."""
+    """The status board: one row per targeted statistic of every stream's current point, or,
+    between points and after ``end``, of its last finished point (point "P3 (finished)")."""
     cols: dict[str, list] = {k: [] for k in (
         "stream", "point", "name", "value", "target", "state", "eta", "colour")}
     for name, v in snapshot.streams.items():
-        if v.stats is None:
+        stats, point, tag = v.stats, v.point, ""
+        if stats is None and v.last_point is not None:
+            (point, stats), tag = v.last_point, " (finished)"
+        if stats is None:
             continue
-        pid = str((v.point or {}).get("id", "–"))
-        derived = derived_terms(v)
-        for e in v.stats.targeted():
+        pid = str((point or {}).get("id", "–")) + tag
+        derived = derived_terms(v) if not tag else {}
+        for e in stats.targeted():
             cols["stream"].append(name)
             cols["point"].append(pid)
             cols["name"].append(e.name)
