@@ -58,6 +58,14 @@ def exercise(dtype, columns) -> None:
         quality = SignalQuality(columns, "exclude")
         quality.update(block[:4200])
         quality.flush()
+    if len(columns) == 2:  # rakes and fields (field_kernels): masked and unmasked ingest
+        from eddyvigil.stats.field import FieldStatistics
+
+        snaps = block[:600].reshape(300, 2, 2)
+        field = FieldStatistics(columns, 2, 1000.0)
+        field.update(snaps[:150])
+        field.update(snaps[150:], valid=np.arange(300)[150:, None] % 7 != np.array([3, 4]))
+        field.snapshot()
     accumulate_power(np.zeros((1, 1, 2), dtype=np.complex128), np.zeros((2, 1)))  # Welch sums
     accumulate_power(np.zeros((1, 1, 2), dtype=np.complex64), np.zeros((2, 1)))  # float32 data
 
