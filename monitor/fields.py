@@ -33,7 +33,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["feed", "finish", "field_file_path"]
+__all__ = ["feed", "finish", "live_line", "field_file_path"]
 
 
 def feed(pipeline, st, msg) -> str | None:
@@ -53,12 +53,17 @@ def feed(pipeline, st, msg) -> str | None:
         run.units = msg.units
         run.columns, run.rate_hz = columns, msg.rate_hz
         run.field = FieldStatistics(columns, msg.probes, msg.rate_hz, targets=pipeline.targets,
-                                    fraction=getattr(pipeline, "field_fraction", 1.0))
+                                    fraction=pipeline.targets.field_fraction)
     elif columns != run.columns or msg.rate_hz != run.rate_hz or msg.probes != run.field.P:
         return "layout_changed"
     run.field.update(msg.velocity, msg.valid)
     st.samples += msg.n
     st.rate_hz = msg.rate_hz
+    # the control signals, as decided at the field's checkpoints (stats.field transitions)
+    for _, at_s, converged in run.field.transitions[run.field_signals:]:
+        run.field_signals += 1
+        if converged != run.signalled:
+            pipeline._signal(st, run, converged=converged, at_s=at_s)
     return None
 
 
@@ -69,6 +74,14 @@ def field_file_path(summary_path, stream: str, index: int, point_id) -> Path:
     return summary_path.parent / (summary_path.name + ".fields") / f"{safe}.npz"
 
 
+def live_line(run, stream: str, line: dict) -> dict:
+    """A running rake/field point's line (a control signal's ``summary``): the scalar fields,
+    the field verdict and the ``field`` object, no file written."""
+    scalars, line["field"] = finish(run, stream, None)
+    line.update(scalars)
+    return line
+
+
 def finish(run, stream: str, summary_path) -> tuple[dict, dict]:
     """``(scalar fields, field object)`` of a finished rake/field point; writes its file."""
     snap = run.field.snapshot()
@@ -77,6 +90,7 @@ def finish(run, stream: str, summary_path) -> tuple[dict, dict]:
         "duration_s": float(snap.duration_s),
         "converged": bool(snap.field_converged),
         "converged_at_s": snap.converged_at_s,
+        "verdict": snap.verdict().to_json(),
     }
     obj = {
         "file": None,

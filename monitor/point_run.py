@@ -74,6 +74,7 @@ class PointRun:
         # rakes and fields (monitor.fields): the layout announced, the field statistics
         self.layout_rake, self.layout_grid, self.layout_probes = None, None, None
         self.field = None  # stats.field.FieldStatistics
+        self.field_signals = 0  # its verdict changes already signalled (monitor.fields)
         self.targets = None  # stats.Targets, fixed with the layout
 
     @property
@@ -212,9 +213,10 @@ class PointRun:
             return self.targets is None or "eps" not in self.targets.targets
         return self.spectra.eps_met(self.point_snapshot, self.meta.get("nu"))
 
-    def record_signal(self, converged: bool, clock: float | None) -> float:
-        """Note a converged (``clock`` = wall time) or withdrawn signal; returns its ``at_s``."""
-        at_s = float(self.point_snapshot.duration_s)
+    def record_signal(self, converged: bool, clock: float | None, at_s=None) -> float:
+        """Note a converged (``clock`` = wall time) or withdrawn signal; returns its ``at_s``
+        (the snapshot's duration unless given: a field's checkpoint time)."""
+        at_s = float(self.point_snapshot.duration_s if at_s is None else at_s)
         self.signalled = converged
         if converged:
             self.signalled_at_s, self.converged_clock = at_s, clock

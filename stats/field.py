@@ -29,7 +29,10 @@ every targeted statistic of every probe is tested with :func:`~eddyvigil.stats.c
 rule (blocks, relative error of the error, margin; no stationarity guard for fields yet) and a
 probe's statistic is converged after ``STREAK`` passes in a row. The field is converged when
 the fraction of probes with valid samples that have every target met reaches ``fraction``
-(default 1: all of them).
+(default 1: all of them; ``field_fraction`` in the targets file). Each change of that verdict
+at a checkpoint is logged in ``transitions`` (snapshot count, acquisition time, converged):
+the control signals (monitor/fields.py) are decided there, from the data alone, so a replay
+signals at the same snapshots as the live run.
 """
 
 from __future__ import annotations
@@ -52,6 +55,7 @@ from eddyvigil.stats.field_kernels import field_forms, field_ingest
 from eddyvigil.stats.kernels import kernel_view
 from eddyvigil.stats.names import K_FACTORS, mean_names, stress_combinations, stress_names
 from eddyvigil.stats.targets import Targets
+from eddyvigil.stats.verdict import Verdict
 
 __all__ = ["FieldStatistics", "FieldSnapshot", "DEFAULT_FIELD_BASE"]
 
@@ -77,6 +81,23 @@ class FieldSnapshot:
 
     def __init__(self, **kw):
         self.__dict__.update(kw)
+
+    def verdict(self) -> Verdict:
+        """The field's verdict in the words of stats/verdict.py: ``met``/``targeted`` count
+        vectors (those with valid samples), ``eta_s`` is the slowest decile's."""
+        seen = int((self.counts > 0).sum())
+        met = int(self.probe_converged.sum())
+        eta = self.eta_slowest_decile_s
+        base = dict(met=met, targeted=seen, eta_s=eta if math.isfinite(eta) else None)
+        if seen == 0:
+            return Verdict("waiting", "no valid vectors yet")
+        if not self.targeted:
+            return Verdict("no-targets", "nothing to converge", **base)
+        words = (f"{100 * self.converged_fraction:.1f} % of {seen} vectors meet every target"
+                 f" ({100 * self.fraction:g} % required)")
+        if self.field_converged:
+            return Verdict("move-on", words, **base)
+        return Verdict("keep-acquiring", words, **base)
 
     def arrays(self) -> dict[str, np.ndarray]:
         """The per-vector arrays of the summary's field file (DESIGN §13 names)."""
@@ -149,6 +170,8 @@ class FieldStatistics:
         self.streak = {name: np.zeros(P, dtype=np.int64) for name in self._targeted()}
         self.next_check = MIN_BLOCKS * 2 * self.base
         self.converged_at_s: float | None = None
+        #: (snapshots, at_s, converged) at each checkpoint where the field verdict changed
+        self.transitions: list[tuple[int, float, bool]] = []
 
     # ------------------------------------------------------------------ state
 
@@ -327,8 +350,11 @@ class FieldStatistics:
             self.streak[name] = np.where(ok, self.streak[name] + 1, 0)
         n = self.snapshots
         self.next_check = max(int(math.ceil(n * CHECKPOINT_GROWTH)), n + 1)
-        if self.converged_at_s is None and self._field_converged():
+        now = self._field_converged()
+        if self.converged_at_s is None and now:
             self.converged_at_s = self.duration_s
+        if now != (bool(self.transitions) and self.transitions[-1][2]):
+            self.transitions.append((n, self.duration_s, now))
 
     def _probe_converged(self) -> np.ndarray:
         conv = np.ones(self.P, dtype=bool)
@@ -396,5 +422,5 @@ class FieldStatistics:
             probe_converged=probe_conv, converged_fraction=self.converged_fraction(),
             fraction=self.fraction, field_converged=self._field_converged(),
             converged_at_s=self.converged_at_s, eta_slowest_decile_s=slow,
-            confidence=self.confidence,
+            confidence=self.confidence, targeted=self._targeted(),
         )

@@ -30,6 +30,8 @@ is converged before this much record, seconds), ``slowest_period_s`` (the slowes
 the facility's unsteadiness, e.g. a pump or the speed control hunting; it is then treated as
 the longest integral time present: blocks of at least 4 and a record of at least 100 of it) and ``accept_modelled_k = true`` (give k measured with fewer than three components an
 interval; by default such a k is reported without one, as it rests on an isotropy model).
+For rakes and fields, ``field_fraction`` (in (0, 1], default 1: every vector with valid
+samples) is the fraction of vectors that must meet every target for the point to converge.
 
 A file replaces the default list as a whole: its ``[targets]`` table is the complete list of
 targets. A file without a ``[targets]`` table keeps the default targets and only sets the
@@ -150,7 +152,8 @@ _UNITS = {
     "dissipation": "m^2/s^3",
 }
 
-_TOP_KEYS = ("confidence", "targets", "min_record_s", "slowest_period_s", "accept_modelled_k")
+_TOP_KEYS = ("confidence", "targets", "min_record_s", "slowest_period_s", "accept_modelled_k",
+             "field_fraction")
 
 _TARGET_KEYS = ("relative", "absolute")
 
@@ -256,6 +259,8 @@ class Targets:
     slowest_period_s: float | None = None
     #: give k from fewer than three components an interval (it rests on an isotropy model)
     accept_modelled_k: bool = False
+    #: rakes and fields: the fraction of vectors that must meet every target (stats.field)
+    field_fraction: float = 1.0
 
     @property
     def required_record_s(self) -> float:
@@ -279,6 +284,10 @@ class Targets:
             raise TargetsError(
                 f"accept_modelled_k must be true or false, got {self.accept_modelled_k!r}"
             )
+        f = self.field_fraction
+        if not (_is_number(f) and 0.0 < float(f) <= 1.0):
+            raise TargetsError(f"field_fraction must be a number in (0, 1], got {f!r}")
+        object.__setattr__(self, "field_fraction", float(f))
 
     # ----------------------------------------------------------------- constructors
     @classmethod
@@ -322,6 +331,14 @@ class Targets:
                     f"got {d['accept_modelled_k']!r}"
                 )
             record["accept_modelled_k"] = d["accept_modelled_k"]
+        if "field_fraction" in d:
+            f = d["field_fraction"]
+            if not (_is_number(f) and 0.0 < float(f) <= 1.0):
+                raise TargetsError(
+                    f"{source}: field_fraction must be a number in (0, 1] (e.g. 0.95: 95 % of "
+                    f"the vectors), got {f!r}"
+                )
+            record["field_fraction"] = float(f)
         if "targets" not in d:
             return cls(confidence=float(confidence), targets=cls.defaults().targets, **record)
         table = d["targets"]
@@ -366,6 +383,8 @@ class Targets:
                 d[key] = getattr(self, key)
         if self.accept_modelled_k:
             d["accept_modelled_k"] = True
+        if self.field_fraction != 1.0:
+            d["field_fraction"] = self.field_fraction
         return d
 
     # ----------------------------------------------------------------- resolving
