@@ -29,11 +29,13 @@ from __future__ import annotations
 
 import math
 import re
+import time
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 
-__all__ = ["feed", "finish", "live_line", "field_file_path"]
+__all__ = ["feed", "finish", "live_line", "live_view", "field_file_path", "VIEW_INTERVAL_S"]
 
 
 def feed(pipeline, st, msg) -> str | None:
@@ -74,17 +76,42 @@ def field_file_path(summary_path, stream: str, index: int, point_id) -> Path:
     return summary_path.parent / (summary_path.name + ".fields") / f"{safe}.npz"
 
 
+#: A live view of a field is redone at most this often (s), and never more often than 20x
+#: the time its snapshot took (at most 5 % of the monitor's time for a very large field).
+VIEW_INTERVAL_S = 1.0
+
+
+def live_view(run, now: float) -> MappingProxyType:
+    """What the dashboard sees of a running rake/field: ``{"snapshot", "grid", "probes",
+    "final"}``, the field snapshot redone at most every VIEW_INTERVAL_S of the clock ``now``
+    (a full field analysis is costly, the dashboard is not)."""
+    if run.field_view is None or now >= run.field_view_due:
+        start = time.perf_counter()
+        _set_view(run, run.field.snapshot(), final=False)
+        cost = time.perf_counter() - start
+        run.field_view_due = now + max(VIEW_INTERVAL_S, 20.0 * cost)
+    return run.field_view
+
+
+def _set_view(run, snap, final: bool) -> None:
+    run.field_view = MappingProxyType({"snapshot": snap, "grid": run.layout_grid,
+                                       "probes": run.layout_rake, "final": final})
+
+
 def live_line(run, stream: str, line: dict) -> dict:
     """A running rake/field point's line (a control signal's ``summary``): the scalar fields,
     the field verdict and the ``field`` object, no file written."""
-    scalars, line["field"] = finish(run, stream, None)
+    scalars, line["field"] = finish(run, stream, None, final=False)
     line.update(scalars)
     return line
 
 
-def finish(run, stream: str, summary_path) -> tuple[dict, dict]:
-    """``(scalar fields, field object)`` of a finished rake/field point; writes its file."""
+def finish(run, stream: str, summary_path, final: bool = True) -> tuple[dict, dict]:
+    """``(scalar fields, field object)`` of a finished rake/field point (``final``); writes
+    its file when there is a summary file."""
     snap = run.field.snapshot()
+    if final:  # the point ends: readers keep its last view
+        _set_view(run, snap, final=True)
     scalars = {
         "samples": int(snap.snapshots),
         "duration_s": float(snap.duration_s),

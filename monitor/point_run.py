@@ -18,6 +18,7 @@ readers. Sequence accounting, the stream, the lines and their writing belong to 
 
 from __future__ import annotations
 
+import math
 from collections import Counter
 
 import numpy as np
@@ -75,6 +76,8 @@ class PointRun:
         self.layout_rake, self.layout_grid, self.layout_probes = None, None, None
         self.field = None  # stats.field.FieldStatistics
         self.field_signals = 0  # its verdict changes already signalled (monitor.fields)
+        self.field_view = None  # what readers see of it, and when it may be redone
+        self.field_view_due = -math.inf
         self.targets = None  # stats.Targets, fixed with the layout
 
     @property

@@ -61,6 +61,9 @@ class StreamView:
     #: (SpectrumSnapshot | None, Dissipation | None) of the current point (stats.point_spectra)
     spectrum: tuple | None = None
     quality: Mapping | None = None  # the point's "quality" object (DESIGN §9) + recent "marks"
+    #: a rake or field point (monitor.fields.live_view): "snapshot" (stats.field.FieldSnapshot),
+    #: "grid" or "probes" (the layout announced), "final"; None for one probe
+    field: Mapping | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

@@ -42,6 +42,7 @@ class StreamState:
         self.points_started = 0
         self.finished: list[dict] = []  # point lines of its finished points
         self.last_history: History | None = None  # of the last finished point (display)
+        self.last_field = None  # the last rake/field view (monitor.fields.live_view)
         self.rate_hz: float | None = None
         self.trace = Trace()
         self.receive = ReceiveRate()
@@ -77,6 +78,7 @@ class StreamState:
     def end_point(self) -> None:
         """The current point is over (its line written); its history stays on screen."""
         self.last_history = self.current.history
+        self.last_field = self.current.field_view
         self.current = None
 
     def add_samples(self, velocity, columns, rate_hz, times, t0, now: float) -> None:
@@ -127,4 +129,13 @@ class StreamState:
             converged_wall_age_s=converged_age,
             spectrum=spectrum,
             quality=quality_view(point_run),
+            field=self.last_field if point_run is None else _field_view(point_run, now),
         )
+
+
+def _field_view(point_run, now: float):
+    if point_run.field is None:
+        return None
+    from eddyvigil.monitor import fields
+
+    return fields.live_view(point_run, now)

@@ -1,0 +1,77 @@
+"""The rake/field panel in a real headless Chromium (BROWSER.md setup), fed by a real Pipeline
+with the simulator's ``piv`` and ``rake`` scenarios (the messages ``eddyvigil simulate
+--scenario piv|rake`` sends). Checked: the colour maps carry the grid's image, the rake's
+badges one row per probe, the converged fraction is written, and the screenshot is not blank
+(more than a few colours: a Viridis map alone has dozens; common practice of these tests)."""
+
+from __future__ import annotations
+
+import os
+import shutil
+import time
+from pathlib import Path
+
+import pytest
+from test_browser_dashboard import _browser_or_skip, _png_colours, _ServerThread, _wait_for
+
+from eddyvigil.monitor.pipeline import Pipeline
+from eddyvigil.simulator.fields import field_messages, field_scenario
+
+pytestmark = [pytest.mark.browser, pytest.mark.integration]
+
+
+def _fed_pipeline():
+    p = Pipeline()
+    for name, snapshots in (("piv", 600), ("rake", 8000)):
+        sc = field_scenario(name)
+        sc.snapshots = snapshots
+        for _, frames in list(field_messages(sc, seed=3))[:-1]:  # the points still running
+            assert p.handle_frames(frames) is None
+    return p.publish()
+
+
+def test_field_maps_and_rake_badges_render(tmp_path):
+    snap = _fed_pipeline()
+    driver, profile = _browser_or_skip()
+    srv = _ServerThread(lambda: snap)
+    try:
+        driver.set_window_size(1280, 1600)
+        driver.set_page_load_timeout(30)
+        driver.get(srv.server.url)
+        _wait_for(driver, "return window.Bokeh !== undefined && Bokeh.documents.length > 0",
+                  what="the Bokeh document")
+        model = "Bokeh.documents[0].get_model_by_name"
+        shots = {}
+        for stream in ("piv", "rake"):
+            driver.execute_script(f"{model}('stream_select').value = {stream!r}")
+            _wait_for(driver, f"return {model}('field_summary').text.includes('converged "
+                              f"fraction') && {model}('field_panel').visible",
+                      what=f"the {stream} summary")
+            text = driver.execute_script(f"return {model}('field_summary').text")
+            banner = driver.execute_script(f"return {model}('verdict').text")
+            assert "KEEP ACQUIRING" in banner and "vectors meet every target" in banner
+            if stream == "piv":
+                assert "field of 3072 vectors" in text
+                rows = _wait_for(driver, f"const d = {model}('field_value_source').data;"
+                                         "return d.image.length && d.image[0].length",
+                                 what="the field image")
+                assert rows in (48, 48 * 64)  # (ny, nx) as nested rows or a flat array
+                assert driver.execute_script(
+                    f"return {model}('field_ratio_source').data.image.length") == 1
+            else:
+                assert "rake of 16 vectors" in text
+                n = _wait_for(driver, f"return {model}('rake_source').data.probe.length",
+                              what="the rake badges")
+                assert n == 16
+            time.sleep(0.8)
+            shots[stream] = tmp_path / f"{stream}.png"
+            driver.save_screenshot(str(shots[stream]))
+        keep = os.environ.get("EDDYVIGIL_SCREENSHOT_DIR")
+        for stream, shot in shots.items():
+            if keep:
+                shutil.copy(shot, Path(keep) / f"test_browser_field_{stream}.png")
+            assert shot.stat().st_size > 20_000 and _png_colours(shot) > 8
+    finally:
+        driver.quit()
+        shutil.rmtree(profile, ignore_errors=True)
+        srv.stop()
