@@ -296,7 +296,7 @@ class FieldStatistics:
         # choose_level shares one block-count profile per call: group the probes by theirs
         # (one group when nothing is masked; the profile follows from the valid count alone)
         if P and (self.nb == self.nb[0]).all():
-            groups = [(self.nb[0], np.arange(P))]
+            groups = [(self.nb[0], slice(None))]  # no copies of c0, gamma
         else:
             profiles, inverse = np.unique(self.nb, axis=0, return_inverse=True)
             order = np.argsort(inverse.ravel(), kind="stable")
@@ -307,9 +307,9 @@ class FieldStatistics:
                 continue
             ch = choose_level(c0[rows].reshape(-1, L), gamma[rows].reshape(-1, L), prof,
                               self.base)
-            var[rows] = ch.variance.reshape(len(rows), S)
-            blocks[rows] = ch.blocks.reshape(len(rows), S)
-            rel[rows] = ch.relative_error.reshape(len(rows), S)
+            var[rows] = ch.variance.reshape(-1, S)
+            blocks[rows] = ch.blocks.reshape(-1, S)
+            rel[rows] = ch.relative_error.reshape(-1, S)
         return vals, np.sqrt(var), blocks, rel
 
     def _resolve_targets(self, vals: np.ndarray) -> dict[str, np.ndarray]:
