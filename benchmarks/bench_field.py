@@ -15,6 +15,10 @@ shared machine; the ratios within a round are what to read), snapshots per secon
 - a numpy baseline doing only running sums of u, v, uu, vv, uv per vector (no error bars);
 - and one ``snapshot()`` (the full analysis) in seconds.
 
+Each rate is given per second of wall clock and per CPU second of the process (``cpu``: the
+rate one core would give if the process had it alone; on a shared machine the wall-clock
+rate is lower by the share of the core the process got).
+
 Run: ``OPENBLAS_NUM_THREADS=1 NUMBA_NUM_THREADS=1 python benchmarks/bench_field.py
 [--nx 128] [--ny 128] [--snapshots 4000] [--block 50] [--rounds 3]``.
 """
@@ -87,8 +91,9 @@ def publish(endpoint: str, nx: int, ny: int, snapshots: int, block: int) -> None
     ctx.term()
 
 
-def watch_rate(nx: int, ny: int, snapshots: int, block: int) -> float:
-    """Snapshots/s through Subscriber -> Pipeline (``watch --no-dashboard``) over loopback."""
+def watch_rate(nx: int, ny: int, snapshots: int, block: int) -> tuple[float, float]:
+    """Snapshots/s through Subscriber -> Pipeline (``watch --no-dashboard``) over loopback:
+    per second of wall clock, and per CPU second of the monitor process (all its threads)."""
     from eddyvigil.monitor.pipeline import Pipeline
     from eddyvigil.monitor.subscriber import Subscriber
 
@@ -99,10 +104,10 @@ def watch_rate(nx: int, ny: int, snapshots: int, block: int) -> float:
 
     def on_frames(frames, received_at):
         if state["t_first"] is None and len(frames) == 3:
-            state["t_first"] = time.perf_counter()
+            state["t_first"], state["cpu_first"] = time.perf_counter(), time.process_time()
         pipeline.handle_frames(frames, received_at)
         if pipeline.all_ended:
-            state["t_last"] = time.perf_counter()
+            state["t_last"], state["cpu_last"] = time.perf_counter(), time.process_time()
             sub.stop()
 
     timer = threading.Timer(600.0, sub.stop)  # a safety net only
@@ -121,7 +126,9 @@ def watch_rate(nx: int, ny: int, snapshots: int, block: int) -> float:
     if state["t_last"] is None or samples != snapshots:
         raise RuntimeError(f"the monitor took {samples} of {snapshots} snapshots")
     # the first samples message is received at t_first: the rest were timed
-    return (snapshots - block) / (state["t_last"] - state["t_first"])
+    timed = snapshots - block
+    return (timed / (state["t_last"] - state["t_first"]),
+            timed / (state["cpu_last"] - state["cpu_first"]))
 
 
 def main() -> None:
@@ -144,35 +151,39 @@ def main() -> None:
 
     print(f"field {args.nx} x {args.ny} vectors, 2 components, {n} snapshots, "
           f"blocks of {args.block}; snapshots/s per round")
-    print(f"{'round':>5s} {'update':>8s} {'ingest':>8s} {'watch':>8s} {'numpy':>8s} "
-          f"{'watch/update':>12s} {'update/numpy':>12s} {'snapshot() s':>12s}")
+    print(f"{'round':>5s} {'update':>8s} {'cpu':>6s} {'ingest':>8s} {'cpu':>6s} {'watch':>8s} "
+          f"{'cpu':>6s} {'numpy':>8s} {'watch/update':>12s} {'(cpu)':>6s} {'snapshot() s':>12s}")
     rows = []
     for r in range(args.rounds):
         f = FieldStatistics(("u", "v"), P, 15.0)
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         for b in blocks:
             f.update(b)
-        upd = n / (time.perf_counter() - t0)
+        upd, upd_cpu = n / (time.perf_counter() - t0), n / (time.process_time() - c0)
         g = FieldStatistics(("u", "v"), P, 15.0)
         g.next_check = 2**62  # the ingest kernel alone: no checkpoint evaluations
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         for b in blocks:
             g.update(b)
-        ing = n / (time.perf_counter() - t0)
-        w = watch_rate(args.nx, args.ny, n, args.block)
+        ing, ing_cpu = n / (time.perf_counter() - t0), n / (time.process_time() - c0)
+        del g
+        w, w_cpu = watch_rate(args.nx, args.ny, n, args.block)
         t0 = time.perf_counter()
         _numpy_sums(x, blocks)
         nps = n / (time.perf_counter() - t0)
         t0 = time.perf_counter()
         f.snapshot()
         snap_s = time.perf_counter() - t0
-        rows.append((upd, ing, w, nps))
-        print(f"{r + 1:5d} {upd:8.0f} {ing:8.0f} {w:8.0f} {nps:8.0f} {w / upd:12.2f} "
-              f"{upd / nps:12.2f} {snap_s:12.3f}", flush=True)
+        rows.append((upd, upd_cpu, w, w_cpu))
+        print(f"{r + 1:5d} {upd:8.0f} {upd_cpu:6.0f} {ing:8.0f} {ing_cpu:6.0f} {w:8.0f} "
+              f"{w_cpu:6.0f} {nps:8.0f} {w / upd:12.2f} {w_cpu / upd_cpu:6.2f} "
+              f"{snap_s:12.3f}", flush=True)
     a = np.array(rows)
-    print(f"range: update {a[:, 0].min():.0f}-{a[:, 0].max():.0f}, watch "
-          f"{a[:, 2].min():.0f}-{a[:, 2].max():.0f}, watch/update "
-          f"{(a[:, 2] / a[:, 0]).min():.2f}-{(a[:, 2] / a[:, 0]).max():.2f}")
+    print(f"range: update {a[:, 0].min():.0f}-{a[:, 0].max():.0f} "
+          f"(cpu {a[:, 1].min():.0f}-{a[:, 1].max():.0f}), watch {a[:, 2].min():.0f}-"
+          f"{a[:, 2].max():.0f} (cpu {a[:, 3].min():.0f}-{a[:, 3].max():.0f}), watch/update "
+          f"{(a[:, 2] / a[:, 0]).min():.2f}-{(a[:, 2] / a[:, 0]).max():.2f} (cpu "
+          f"{(a[:, 3] / a[:, 1]).min():.2f}-{(a[:, 3] / a[:, 1]).max():.2f})")
     state = sum(a.nbytes for a in vars(f).values() if isinstance(a, np.ndarray)) / 2**20
     print(f"state: {state:.0f} MiB for {f.levels} levels")
 

@@ -178,21 +178,22 @@ class FieldStatistics:
     def _alloc(self, L: int) -> None:
         P, M = self.P, self.M
         old = getattr(self, "nb", None)
-        # probe-major (field_kernels): all of a probe's levels are one contiguous stretch
+        # level-major (field_kernels): a level's state of neighbouring probes is contiguous,
+        # so a sweep over the probes streams through memory
         new = {
-            "nb": np.zeros((P, L), dtype=np.int64),
-            "S1": np.zeros((P, L, M)),
-            "Q0": np.zeros((P, L, M, M)),
-            "Q1": np.zeros((P, L, M, M)),
-            "first": np.zeros((P, L, M)),
-            "last": np.zeros((P, L, M)),
-            "pend": np.zeros((P, L, M)),
-            "pflag": np.zeros((P, L), dtype=np.bool_),
+            "nb": np.zeros((L, P), dtype=np.int64),
+            "S1": np.zeros((L, P, M)),
+            "Q0": np.zeros((L, P, M, M)),
+            "Q1": np.zeros((L, P, M, M)),
+            "first": np.zeros((L, P, M)),
+            "last": np.zeros((L, P, M)),
+            "pend": np.zeros((L, P, M)),
+            "pflag": np.zeros((L, P), dtype=np.bool_),
         }
         if old is not None:
-            L0 = old.shape[1]
+            L0 = old.shape[0]
             for k, arr in new.items():
-                arr[:, :L0] = getattr(self, k)
+                arr[:L0] = getattr(self, k)
         for k, arr in new.items():
             setattr(self, k, arr)
 
@@ -207,7 +208,7 @@ class FieldStatistics:
 
     @property
     def levels(self) -> int:
-        return int(self.nb.shape[1])
+        return int(self.nb.shape[0])
 
     def _targeted(self) -> tuple[str, ...]:
         return tuple(n for n in self.names if n in self.targets.targets)
@@ -295,10 +296,10 @@ class FieldStatistics:
         rel = np.full((P, S), np.nan)
         # choose_level shares one block-count profile per call: group the probes by theirs
         # (one group when nothing is masked; the profile follows from the valid count alone)
-        if P and (self.nb == self.nb[0]).all():
-            groups = [(self.nb[0], slice(None))]  # no copies of c0, gamma
+        if P and (self.nb == self.nb[:, :1]).all():
+            groups = [(self.nb[:, 0], slice(None))]  # no copies of c0, gamma
         else:
-            profiles, inverse = np.unique(self.nb, axis=0, return_inverse=True)
+            profiles, inverse = np.unique(self.nb.T, axis=0, return_inverse=True)
             order = np.argsort(inverse.ravel(), kind="stable")
             cuts = np.cumsum(np.bincount(inverse.ravel(), minlength=len(profiles)))[:-1]
             groups = list(zip(profiles, np.split(order, cuts), strict=True))

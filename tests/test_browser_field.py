@@ -12,7 +12,13 @@ import time
 from pathlib import Path
 
 import pytest
-from test_browser_dashboard import _browser_or_skip, _png_colours, _ServerThread, _wait_for
+from test_browser_dashboard import (
+    _browser_or_skip,
+    _open_page,
+    _png_colours,
+    _ServerThread,
+    _wait_for,
+)
 
 from eddyvigil.monitor.pipeline import Pipeline
 from eddyvigil.simulator.fields import field_messages, field_scenario
@@ -35,11 +41,7 @@ def test_field_maps_and_rake_badges_render(tmp_path):
     driver, profile = _browser_or_skip()
     srv = _ServerThread(lambda: snap)
     try:
-        driver.set_window_size(1280, 1600)
-        driver.set_page_load_timeout(30)
-        driver.get(srv.server.url)
-        _wait_for(driver, "return window.Bokeh !== undefined && Bokeh.documents.length > 0",
-                  what="the Bokeh document")
+        _open_page(driver, srv.server.url, height=1600)
         model = "Bokeh.documents[0].get_model_by_name"
         shots = {}
         for stream in ("piv", "rake"):

@@ -16,8 +16,7 @@ import json
 
 import numpy as np
 import pytest
-import zmq
-from conftest import tcp_endpoint, wait_for
+from conftest import subscribed_socket, tcp_endpoint
 
 from eddyvigil.monitor import wire
 from eddyvigil.monitor.control import ControlPublisher
@@ -67,21 +66,9 @@ def test_a_rake_signals_converged_and_withdrawn_on_the_control_socket():
     ref = FieldStatistics(("u", "v"), 4, 1000.0, targets=targets, fraction=0.5).update(x)
     assert [c for _, _, c in ref.transitions][:2] == [True, False]
 
-    ep = tcp_endpoint()
-    control = ControlPublisher(ep)
-    ctx = zmq.Context()
-    sub = ctx.socket(zmq.SUB)
-    sub.setsockopt(zmq.LINGER, 0)
-    sub.setsockopt(zmq.SUBSCRIBE, b"")
-    sub.connect(ep)
+    control = ControlPublisher(tcp_endpoint())
+    ctx, sub = subscribed_socket(control)
     try:
-        def subscribed():
-            control.send("hello", {"id": "-"}, 0.0, {})
-            return sub.poll(100)
-
-        wait_for(subscribed, timeout=10, what="the subscription")
-        while sub.poll(200):
-            sub.recv_multipart()  # the hellos
         pipe = Pipeline(targets, summary=None, on_converged=control)
         _feed(pipe, x, rows=500)
         pipe.close()
