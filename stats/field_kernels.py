@@ -9,8 +9,8 @@ against a probe-major layout (all of one probe's levels contiguous, probes outsi
 probes x a chunk of snapshots copied first, snapshots inside): level-major ingests 1.02-1.13x
 faster per CPU second on a 128 x 128 field (interleaved rounds of 4000 snapshots in blocks
 of 50; the prefetcher streams the level-major sweeps, while the probe-major loop fetches each
-probe's levels from memory once per call). No fastmath: re-associated sums would differ in the last bit with the split of
-the rows into calls.
+probe's levels from memory once per call). No fastmath: re-associated sums would differ in the
+last bit with the split of the rows into calls.
 
 Bundles (plain tuples, in the field order of these NamedTuples; DEVELOPERS "The kernels rule"):
 :class:`FieldRunning` and :class:`FieldLevels`, built by ``FieldStatistics._running()`` and
