@@ -27,7 +27,9 @@ picks the level, as for one probe. Memory: O(P M^2 log2 N) for M monomials, N sa
 Convergence: at geometric checkpoints of the snapshot count (``convergence.CHECKPOINT_GROWTH``)
 every targeted statistic of every probe is tested with :func:`~eddyvigil.stats.convergence`'s
 rule (blocks, relative error of the error, margin; no stationarity guard for fields yet) and a
-probe's statistic is converged after ``STREAK`` passes in a row. The field is converged when
+probe's statistic is converged after ``STREAK`` passes in a row; it stays converged while its
+interval is within the target at later checkpoints (the trust tests are not repeated, as for
+one probe), and falls back when the interval grows past it. The field is converged when
 the fraction of probes with valid samples that have every target met reaches ``fraction``
 (default 1: all of them; ``field_fraction`` in the targets file). Each change of that verdict
 at a checkpoint is logged in ``transitions`` (snapshot count, acquisition time, converged):
@@ -346,9 +348,13 @@ class FieldStatistics:
         targets = self._resolve_targets(vals)
         for s, (name, target) in enumerate(targets.items()):
             with np.errstate(invalid="ignore"):
-                ok = ((blocks[:, s] >= MIN_BLOCKS) & (rel[:, s] <= MAX_SE_RELATIVE_ERROR)
-                      & (STOP_MARGIN * hw[:, s] <= target))
-            self.streak[name] = np.where(ok, self.streak[name] + 1, 0)
+                met = STOP_MARGIN * hw[:, s] <= target
+                ok = (blocks[:, s] >= MIN_BLOCKS) & (rel[:, s] <= MAX_SE_RELATIVE_ERROR) & met
+            # a converged vector keeps its verdict while its interval stays within the target:
+            # its error bar, once trusted, does not fall back because a jump of the blocking
+            # level halved its block count for a while (as convergence.Checkpoints.trusted)
+            kept = (self.streak[name] >= STREAK) & met
+            self.streak[name] = np.where(ok | kept, self.streak[name] + 1, 0)
         n = self.snapshots
         self.next_check = max(int(math.ceil(n * CHECKPOINT_GROWTH)), n + 1)
         now = self._field_converged()

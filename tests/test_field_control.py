@@ -107,3 +107,18 @@ def test_field_signals_do_not_depend_on_how_the_snapshots_are_split():
         pipe.close()
         runs.append(seen)
     assert runs[0] == runs[1] and runs[0][:2] and runs[0][0][0] == "c"
+
+
+def test_a_stationary_rake_converges_once_and_is_not_withdrawn():
+    """The simulator's rake (stationary OU per probe, known truth): once every probe meets
+    the default targets, the intervals only shrink (as 1/sqrt(T), common practice), so the
+    field is signalled converged once and never withdrawn over 60 s of record."""
+    from eddyvigil.simulator.fields import FieldGenerator, field_scenario
+
+    sc = field_scenario("rake")
+    gen = FieldGenerator(sc, 11)
+    f = FieldStatistics(("u", "v"), sc.P, sc.rate_hz)
+    for _ in range(240):
+        f.update(gen.block(500))
+    assert [c for _, _, c in f.transitions] == [True]
+    assert f.snapshot().converged_fraction == 1.0
