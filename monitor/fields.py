@@ -29,11 +29,13 @@ from __future__ import annotations
 
 import math
 import re
+import time
 from pathlib import Path
+from types import MappingProxyType
 
 import numpy as np
 
-__all__ = ["feed", "finish", "field_file_path"]
+__all__ = ["feed", "finish", "live_line", "live_view", "field_file_path", "VIEW_INTERVAL_S"]
 
 
 def feed(pipeline, st, msg) -> str | None:
@@ -53,12 +55,17 @@ def feed(pipeline, st, msg) -> str | None:
         run.units = msg.units
         run.columns, run.rate_hz = columns, msg.rate_hz
         run.field = FieldStatistics(columns, msg.probes, msg.rate_hz, targets=pipeline.targets,
-                                    fraction=getattr(pipeline, "field_fraction", 1.0))
+                                    fraction=pipeline.targets.field_fraction)
     elif columns != run.columns or msg.rate_hz != run.rate_hz or msg.probes != run.field.P:
         return "layout_changed"
     run.field.update(msg.velocity, msg.valid)
     st.samples += msg.n
     st.rate_hz = msg.rate_hz
+    # the control signals, as decided at the field's checkpoints (stats.field transitions)
+    for _, at_s, converged in run.field.transitions[run.field_signals:]:
+        run.field_signals += 1
+        if converged != run.signalled:
+            pipeline._signal(st, run, converged=converged, at_s=at_s)
     return None
 
 
@@ -69,14 +76,48 @@ def field_file_path(summary_path, stream: str, index: int, point_id) -> Path:
     return summary_path.parent / (summary_path.name + ".fields") / f"{safe}.npz"
 
 
-def finish(run, stream: str, summary_path) -> tuple[dict, dict]:
-    """``(scalar fields, field object)`` of a finished rake/field point; writes its file."""
+#: A live view of a field is redone at most this often (s), and never more often than 20x
+#: the time its snapshot took (at most 5 % of the monitor's time for a very large field).
+VIEW_INTERVAL_S = 1.0
+
+
+def live_view(run, now: float) -> MappingProxyType:
+    """What the dashboard sees of a running rake/field: ``{"snapshot", "grid", "probes",
+    "final"}``, the field snapshot redone at most every VIEW_INTERVAL_S of the clock ``now``
+    (a full field analysis is costly, the dashboard is not)."""
+    if run.field_view is None or now >= run.field_view_due:
+        start = time.perf_counter()
+        _set_view(run, run.field.snapshot(), final=False)
+        cost = time.perf_counter() - start
+        run.field_view_due = now + max(VIEW_INTERVAL_S, 20.0 * cost)
+    return run.field_view
+
+
+def _set_view(run, snap, final: bool) -> None:
+    run.field_view = MappingProxyType({"snapshot": snap, "grid": run.layout_grid,
+                                       "probes": run.layout_rake, "final": final})
+
+
+def live_line(run, stream: str, line: dict) -> dict:
+    """A running rake/field point's line (a control signal's ``summary``): the scalar fields,
+    the field verdict and the ``field`` object, no file written."""
+    scalars, line["field"] = finish(run, stream, None, final=False)
+    line.update(scalars)
+    return line
+
+
+def finish(run, stream: str, summary_path, final: bool = True) -> tuple[dict, dict]:
+    """``(scalar fields, field object)`` of a finished rake/field point (``final``); writes
+    its file when there is a summary file."""
     snap = run.field.snapshot()
+    if final:  # the point ends: readers keep its last view
+        _set_view(run, snap, final=True)
     scalars = {
         "samples": int(snap.snapshots),
         "duration_s": float(snap.duration_s),
         "converged": bool(snap.field_converged),
         "converged_at_s": snap.converged_at_s,
+        "verdict": snap.verdict().to_json(),
     }
     obj = {
         "file": None,

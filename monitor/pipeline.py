@@ -437,15 +437,18 @@ class Pipeline:
             point_run.snapshot_stale = True
         return None
 
-    def _signal(self, st: StreamState, point_run: PointRun, converged: bool) -> None:
+    def _signal(self, st: StreamState, point_run: PointRun, converged: bool, at_s=None) -> None:
         """Send a converged or withdrawn signal (control socket) with the point's line so far."""
-        at_s = point_run.record_signal(converged, self._clock() if converged else None)
+        at_s = point_run.record_signal(converged, self._clock() if converged else None, at_s)
         callback = self._on_converged if converged else self._on_withdrawn
         if callback is not None:
             try:
-                callback(
-                    st.name, dict(point_run.meta), at_s, self._point_line(st, point_run, False)
-                )
+                line = self._point_line(st, point_run, False)
+                if point_run.field is not None:  # a rake or field (monitor.fields)
+                    from eddyvigil.monitor import fields
+
+                    fields.live_line(point_run, st.name, line)
+                callback(st.name, dict(point_run.meta), at_s, line)
             except Exception:
                 self._internal_error()
 

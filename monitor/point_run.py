@@ -18,6 +18,7 @@ readers. Sequence accounting, the stream, the lines and their writing belong to 
 
 from __future__ import annotations
 
+import math
 from collections import Counter
 
 import numpy as np
@@ -77,6 +78,9 @@ class PointRun:
         # rakes and fields (monitor.fields): the layout announced, the field statistics
         self.layout_rake, self.layout_grid, self.layout_probes = None, None, None
         self.field = None  # stats.field.FieldStatistics
+        self.field_signals = 0  # its verdict changes already signalled (monitor.fields)
+        self.field_view = None  # what readers see of it, and when it may be redone
+        self.field_view_due = -math.inf
         self.targets = None  # stats.Targets, fixed with the layout
         #: stats.budget_targets.DerivedTargets: this point's targets from a [budget] table
         self.derived = None
@@ -243,9 +247,10 @@ class PointRun:
             return self.targets is None or "eps" not in self.targets.targets
         return self.spectra.eps_met(self.point_snapshot, self.meta.get("nu"))
 
-    def record_signal(self, converged: bool, clock: float | None) -> float:
-        """Note a converged (``clock`` = wall time) or withdrawn signal; returns its ``at_s``."""
-        at_s = float(self.point_snapshot.duration_s)
+    def record_signal(self, converged: bool, clock: float | None, at_s=None) -> float:
+        """Note a converged (``clock`` = wall time) or withdrawn signal; returns its ``at_s``
+        (the snapshot's duration unless given: a field's checkpoint time)."""
+        at_s = float(self.point_snapshot.duration_s if at_s is None else at_s)
         self.signalled = converged
         if converged:
             self.signalled_at_s, self.converged_clock = at_s, clock

@@ -69,6 +69,9 @@ class StreamView:
     campaign: Mapping | None = None
     #: (meta, PointSnapshot | None) of the stream's last finished point (shown after ``end``)
     last_point: tuple | None = None
+    #: a rake or field point (monitor.fields.live_view): "snapshot" (stats.field.FieldSnapshot),
+    #: "grid" or "probes" (the layout announced), "final"; None for one probe
+    field: Mapping | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rejected", MappingProxyType(dict(self.rejected)))

@@ -47,6 +47,7 @@ class StreamState:
         self.finished: list[dict] = []  # point lines of its finished points
         self.last_history: History | None = None  # of the last finished point (display)
         self.last_point: tuple | None = None  # (meta, PointSnapshot) of the last finished one
+        self.last_field = None  # the last rake/field view (monitor.fields.live_view)
         self.rate_hz: float | None = None
         self.trace = Trace()
         self.receive = ReceiveRate()
@@ -87,6 +88,7 @@ class StreamState:
         screen."""
         self.last_history = self.current.history
         self.last_point = (dict(self.current.meta), self.current.point_snapshot)
+        self.last_field = self.current.field_view
         self.current = None
 
     def add_samples(self, velocity, columns, rate_hz, times, t0, now: float) -> None:
@@ -145,4 +147,13 @@ class StreamState:
                              if point_run is not None and point_run.derived is not None else None),
             campaign=campaign,
             last_point=self.last_point,
+            field=self.last_field if point_run is None else _field_view(point_run, now),
         )
+
+
+def _field_view(point_run, now: float):
+    if point_run.field is None:
+        return None
+    from eddyvigil.monitor import fields
+
+    return fields.live_view(point_run, now)

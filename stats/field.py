@@ -27,16 +27,20 @@ picks the level, as for one probe. Memory: O(P M^2 log2 N) for M monomials, N sa
 Convergence: at geometric checkpoints of the snapshot count (``convergence.CHECKPOINT_GROWTH``)
 every targeted statistic of every probe is tested with :func:`~eddyvigil.stats.convergence`'s
 rule (blocks, relative error of the error, margin; no stationarity guard for fields yet) and a
-probe's statistic is converged after ``STREAK`` passes in a row. The field is converged when
+probe's statistic is converged after ``STREAK`` passes in a row; it stays converged while its
+interval is within the target at later checkpoints (the trust tests are not repeated, as for
+one probe), and falls back when the interval grows past it. The field is converged when
 the fraction of probes with valid samples that have every target met reaches ``fraction``
-(default 1: all of them).
+(default 1: all of them; ``field_fraction`` in the targets file). Each change of that verdict
+at a checkpoint is logged in ``transitions`` (snapshot count, acquisition time, converged):
+the control signals (monitor/fields.py) are decided there, from the data alone, so a replay
+signals at the same snapshots as the live run.
 """
 
 from __future__ import annotations
 
 import math
 
-import numba
 import numpy as np
 from scipy import special
 
@@ -49,8 +53,11 @@ from eddyvigil.stats.convergence import (
     STOP_MARGIN,
     STREAK,
 )
+from eddyvigil.stats.field_kernels import field_forms, field_ingest
+from eddyvigil.stats.kernels import kernel_view
 from eddyvigil.stats.names import K_FACTORS, mean_names, stress_combinations, stress_names
 from eddyvigil.stats.targets import Targets
+from eddyvigil.stats.verdict import Verdict
 
 __all__ = ["FieldStatistics", "FieldSnapshot", "DEFAULT_FIELD_BASE"]
 
@@ -59,121 +66,9 @@ __all__ = ["FieldStatistics", "FieldSnapshot", "DEFAULT_FIELD_BASE"]
 DEFAULT_FIELD_BASE = 4
 #: Levels allocated at first; more are added when the counts need them.
 _START_LEVELS = 8
-
-
-@numba.njit(cache=True, nogil=True)
-def _field_ingest(x, valid, ref, has_ref, count, tot, bsum, bcnt, base, pa, pb,
-                  nb, S1, Q0, Q1, first, last, pend, pflag):
-    """Add rows of ``x`` (n, P, m) where ``valid`` (n, P) to every probe's sums and levels.
-
-    Per probe: reference on its first valid sample, monomials about it, totals, the base
-    block in progress and, at each full base block, the push of its mean through the levels.
-    """
-    n, P, m = x.shape
-    M = m + pa.shape[0]
-    L = nb.shape[0]
-    y = np.empty(M)
-    b = np.empty(M)
-    for i in range(n):
-        for p in range(P):
-            if not valid[i, p]:
-                continue
-            if not has_ref[p]:
-                for a in range(m):
-                    ref[p, a] = x[i, p, a]
-                has_ref[p] = True
-            for a in range(m):
-                y[a] = x[i, p, a] - ref[p, a]
-            for j in range(pa.shape[0]):
-                y[m + j] = y[pa[j]] * y[pb[j]]
-            count[p] += 1
-            for a in range(M):
-                tot[p, a] += y[a]
-                bsum[p, a] += y[a]
-            bcnt[p] += 1
-            if bcnt[p] < base:
-                continue
-            for a in range(M):
-                b[a] = bsum[p, a] / base
-                bsum[p, a] = 0.0
-            bcnt[p] = 0
-            lev = 0
-            while lev < L:
-                k = nb[lev, p]
-                if k == 0:
-                    for a in range(M):
-                        first[lev, p, a] = b[a]
-                else:
-                    for a in range(M):
-                        la = last[lev, p, a]
-                        for c in range(M):
-                            Q1[lev, p, a, c] += la * b[c]
-                for a in range(M):
-                    S1[lev, p, a] += b[a]
-                    last[lev, p, a] = b[a]
-                    ba = b[a]
-                    for c in range(a, M):  # symmetric: the upper triangle only
-                        Q0[lev, p, a, c] += ba * b[c]
-                nb[lev, p] = k + 1
-                if pflag[lev, p]:
-                    for a in range(M):
-                        b[a] = 0.5 * (pend[lev, p, a] + b[a])
-                    pflag[lev, p] = False
-                    lev += 1
-                else:
-                    for a in range(M):
-                        pend[lev, p, a] = b[a]
-                    pflag[lev, p] = True
-                    break
-
-
-@numba.njit(cache=True, nogil=True)
-def _field_forms(G, Q0, Q1, S1, first, last, nb, c0, gamma):
-    """Lag-0 and lag-1 autocovariances (P, S, L) of every statistic's block means per level.
-
-    For gradient g and the level's block means b_i (i = 1..n) about mu (the base blocks'
-    mean): c0 = g' [Q0/n - (S1 mu' + mu S1')/n + mu mu'] g and
-    gamma = g' [Q1 - (S1 - last) mu' - mu (S1 - first)' + (n - 1) mu mu'] g / n.
-    """
-    P, S, M = G.shape
-    L = nb.shape[0]
-    mu = np.empty(M)
-    for p in range(P):
-        if nb[0, p] < 1:
-            continue
-        for a in range(M):
-            mu[a] = S1[0, p, a] / nb[0, p]
-        for lev in range(L):
-            n = nb[lev, p]
-            if n < 1:
-                break
-            for s in range(S):
-                gm = 0.0
-                gs = 0.0
-                gh = 0.0
-                gt = 0.0
-                for a in range(M):
-                    g = G[p, s, a]
-                    gm += g * mu[a]
-                    gs += g * S1[lev, p, a]
-                    gh += g * (S1[lev, p, a] - last[lev, p, a])
-                    gt += g * (S1[lev, p, a] - first[lev, p, a])
-                q0 = 0.0
-                q1 = 0.0
-                for a in range(M):
-                    ga = G[p, s, a]
-                    if ga == 0.0:
-                        continue
-                    r0 = 0.5 * Q0[lev, p, a, a] * ga  # Q0 holds its upper triangle
-                    r1 = 0.0
-                    for c in range(M):
-                        r1 += Q1[lev, p, a, c] * G[p, s, c]
-                    for c in range(a + 1, M):
-                        r0 += Q0[lev, p, a, c] * G[p, s, c]
-                    q0 += 2.0 * ga * r0
-                    q1 += ga * r1
-                c0[p, s, lev] = (q0 - 2.0 * gs * gm) / n + gm * gm
-                gamma[p, s, lev] = (q1 - gh * gm - gm * gt + (n - 1.0) * gm * gm) / n
+#: What field_ingest gets for ``valid`` when every row is valid (it is not read then).
+_NO_MASK = np.ones((1, 1), dtype=np.bool_)
+_NO_MASK.flags.writeable = False
 
 
 class FieldSnapshot:
@@ -188,6 +83,23 @@ class FieldSnapshot:
 
     def __init__(self, **kw):
         self.__dict__.update(kw)
+
+    def verdict(self) -> Verdict:
+        """The field's verdict in the words of stats/verdict.py: ``met``/``targeted`` count
+        vectors (those with valid samples), ``eta_s`` is the slowest decile's."""
+        seen = int((self.counts > 0).sum())
+        met = int(self.probe_converged.sum())
+        eta = self.eta_slowest_decile_s
+        base = dict(met=met, targeted=seen, eta_s=eta if math.isfinite(eta) else None)
+        if seen == 0:
+            return Verdict("waiting", "no valid vectors yet")
+        if not self.targeted:
+            return Verdict("no-targets", "nothing to converge", **base)
+        words = (f"{100 * self.converged_fraction:.1f} % of {seen} vectors meet every target"
+                 f" ({100 * self.fraction:g} % required)")
+        if self.field_converged:
+            return Verdict("move-on", words, **base)
+        return Verdict("keep-acquiring", words, **base)
 
     def arrays(self) -> dict[str, np.ndarray]:
         """The per-vector arrays of the summary's field file (DESIGN §13 names)."""
@@ -242,6 +154,12 @@ class FieldStatistics:
         self._pb = np.array([b for _, b in pairs], dtype=np.int64)
         self.M = M = m + len(pairs)
         self.names = (*mean_names(self.columns), *stress_names(self.columns), "k")
+        # where each statistic's gradient can be nonzero (field_forms sums over these only)
+        pattern = self._gradients(np.ones((1, M)))[0] != 0.0
+        self._nnz = pattern.sum(axis=1).astype(np.int64)
+        self._nz = np.zeros((len(self.names), M), dtype=np.int64)
+        for s, row in enumerate(pattern):
+            self._nz[s, : row.sum()] = np.flatnonzero(row)
         P = self.P
         self.ref = np.zeros((P, m))
         self.has_ref = np.zeros(P, dtype=np.bool_)
@@ -254,14 +172,16 @@ class FieldStatistics:
         self.streak = {name: np.zeros(P, dtype=np.int64) for name in self._targeted()}
         self.next_check = MIN_BLOCKS * 2 * self.base
         self.converged_at_s: float | None = None
+        #: (snapshots, at_s, converged) at each checkpoint where the field verdict changed
+        self.transitions: list[tuple[int, float, bool]] = []
 
     # ------------------------------------------------------------------ state
 
     def _alloc(self, L: int) -> None:
         P, M = self.P, self.M
         old = getattr(self, "nb", None)
-        # level-major: a level's state of neighbouring probes is contiguous, so a sweep over
-        # the probes streams through memory
+        # level-major (field_kernels): a level's state of neighbouring probes is contiguous,
+        # so a sweep over the probes streams through memory
         new = {
             "nb": np.zeros((L, P), dtype=np.int64),
             "S1": np.zeros((L, P, M)),
@@ -279,6 +199,15 @@ class FieldStatistics:
         for k, arr in new.items():
             setattr(self, k, arr)
 
+    def _running(self) -> tuple:
+        """The FieldRunning bundle (field_kernels), as a plain tuple."""
+        return (self.ref, self.has_ref, self.count, self.tot, self.bsum, self.bcnt)
+
+    def _levels(self) -> tuple:
+        """The FieldLevels bundle (field_kernels), as a plain tuple."""
+        return (self.nb, self.S1, self.Q0, self.Q1, self.first, self.last, self.pend,
+                self.pflag)
+
     @property
     def levels(self) -> int:
         return int(self.nb.shape[0])
@@ -295,26 +224,27 @@ class FieldStatistics:
         x = np.asarray(x)
         if x.dtype not in (np.float32, np.float64):
             x = x.astype(np.float64)
-        x = np.ascontiguousarray(x)
+        x = kernel_view(x)  # one array type per dtype, whatever the source (kernels.py)
         if x.ndim != 3 or x.shape[1:] != (self.P, len(self.columns)):
             raise ValueError(f"expected (n, {self.P}, {len(self.columns)}) snapshots")
         n = x.shape[0]
-        if valid is None:
-            valid = np.ones((n, self.P), dtype=np.bool_)
-        else:
-            valid = np.ascontiguousarray(valid, dtype=np.bool_)
+        if valid is not None:
+            valid = kernel_view(np.asarray(valid, dtype=np.bool_))
             if valid.shape != (n, self.P):
                 raise ValueError("valid must be (n, P)")
+        masked = valid is not None and not valid.all()
+        if not masked:
+            valid = _NO_MASK
         need = max(1, int(math.ceil(math.log2(max(self.count.max() + n, 1) / self.base + 1))) + 1)
         if need > self.levels:
-            self._alloc(max(need, 2 * self.levels))
+            self._alloc(max(need, self.levels + 4))
+        running, levels = self._running(), self._levels()
         # checkpoints fall at their own snapshot counts, however the rows are split into blocks
         start = 0
         while start < n:
             stop = min(n, start + max(self.next_check - self.snapshots, 1))
-            _field_ingest(x[start:stop], valid[start:stop], self.ref, self.has_ref, self.count,
-                          self.tot, self.bsum, self.bcnt, self.base, self._pa, self._pb, self.nb,
-                          self.S1, self.Q0, self.Q1, self.first, self.last, self.pend, self.pflag)
+            field_ingest(x[start:stop], valid[start:stop] if masked else valid, masked, running,
+                         levels, self.base, self._pa, self._pb)
             self.snapshots += stop - start
             start = stop
             if self.snapshots >= self.next_check:
@@ -325,7 +255,7 @@ class FieldStatistics:
 
     def _gradients(self, mono: np.ndarray) -> np.ndarray:
         """(P, S, M): gradient of every statistic w.r.t. the monomial means about ref."""
-        P, M, m = self.P, self.M, len(self.columns)
+        P, M, m = mono.shape[0], self.M, len(self.columns)
         G = np.zeros((P, len(self.names), M))
         for a in range(m):
             G[:, a, a] = 1.0
@@ -350,33 +280,39 @@ class FieldStatistics:
         vals[:, -1] = K_FACTORS[m] * vals[:, normal].sum(axis=1)
         return vals
 
-    def _analyse(self):
-        """Values, standard errors, block counts, relative errors: arrays (P, S)."""
-        P, S = self.P, len(self.names)
+    def _analyse(self, sel: np.ndarray | None = None):
+        """Values (P, S) of every statistic; standard errors, block counts and relative errors
+        (P, len(sel)) of the statistics ``sel`` (indices into ``names``; None: all)."""
+        P = self.P
+        sel = np.arange(len(self.names)) if sel is None else np.asarray(sel, dtype=np.int64)
+        S, L = sel.size, self.levels
         with np.errstate(invalid="ignore", divide="ignore"):
             mono = self.tot / self.count[:, None]
             vals = self._values(mono)
-            G = self._gradients(mono)
-        c0 = np.full((P, S, self.levels), np.nan)
-        gamma = np.full((P, S, self.levels), np.nan)
-        _field_forms(G, self.Q0, self.Q1, self.S1, self.first, self.last, self.nb, c0, gamma)
+            G = np.ascontiguousarray(self._gradients(mono)[:, sel])
+        c0 = np.empty((P, S, L))
+        gamma = np.empty((P, S, L))
+        field_forms(G, self._nz[sel], self._nnz[sel], self._levels(), c0, gamma)
         var = np.full((P, S), np.nan)
         blocks = np.zeros((P, S), dtype=np.int64)
         rel = np.full((P, S), np.nan)
-        # choose_level shares one block-count profile per call: probes with the same number of
-        # valid samples have the same one (all of them, when nothing is masked)
-        # (the block counts of a probe follow from its number of valid samples alone)
-        counts, first_of, inverse = np.unique(self.count, return_index=True, return_inverse=True)
-        for g in range(counts.size):
-            rows = np.flatnonzero(inverse.ravel() == g) if counts.size > 1 else np.arange(P)
-            prof = self.nb[:, first_of[g]]
+        # choose_level shares one block-count profile per call: group the probes by theirs
+        # (one group when nothing is masked; the profile follows from the valid count alone)
+        if P and (self.nb == self.nb[:, :1]).all():
+            groups = [(self.nb[:, 0], slice(None))]  # no copies of c0, gamma
+        else:
+            profiles, inverse = np.unique(self.nb.T, axis=0, return_inverse=True)
+            order = np.argsort(inverse.ravel(), kind="stable")
+            cuts = np.cumsum(np.bincount(inverse.ravel(), minlength=len(profiles)))[:-1]
+            groups = list(zip(profiles, np.split(order, cuts), strict=True))
+        for prof, rows in groups:
             if prof[0] < 2:
                 continue
-            ch = choose_level(c0[rows].reshape(-1, self.levels),
-                              gamma[rows].reshape(-1, self.levels), prof, self.base)
-            var[rows] = ch.variance.reshape(len(rows), S)
-            blocks[rows] = ch.blocks.reshape(len(rows), S)
-            rel[rows] = ch.relative_error.reshape(len(rows), S)
+            ch = choose_level(c0[rows].reshape(-1, L), gamma[rows].reshape(-1, L), prof,
+                              self.base)
+            var[rows] = ch.variance.reshape(-1, S)
+            blocks[rows] = ch.blocks.reshape(-1, S)
+            rel[rows] = ch.relative_error.reshape(-1, S)
         return vals, np.sqrt(var), blocks, rel
 
     def _resolve_targets(self, vals: np.ndarray) -> dict[str, np.ndarray]:
@@ -398,24 +334,34 @@ class FieldStatistics:
 
     def _half_widths(self, se: np.ndarray, blocks: np.ndarray) -> np.ndarray:
         p = 0.5 * (1.0 + self.confidence)
+        # the Student quantile per distinct block count (few: probes share their profiles)
+        kinds, inverse = np.unique(blocks, return_inverse=True)
         with np.errstate(invalid="ignore"):
-            q = np.where(blocks >= 2, special.stdtrit(np.maximum(blocks - 1, 1), p), np.nan)
-        return q * se
+            q = np.where(kinds >= 2, special.stdtrit(np.maximum(kinds - 1, 1), p), np.nan)
+        return q[inverse.reshape(blocks.shape)] * se
 
     def _checkpoint(self) -> None:
-        vals, se, blocks, rel = self._analyse()
+        # only the targeted statistics' errors are needed here
+        sel = [self.names.index(name) for name in self._targeted()]
+        vals, se, blocks, rel = self._analyse(sel)
         hw = self._half_widths(se, blocks)
         targets = self._resolve_targets(vals)
-        for name, target in targets.items():
-            s = self.names.index(name)
+        for s, (name, target) in enumerate(targets.items()):
             with np.errstate(invalid="ignore"):
-                ok = ((blocks[:, s] >= MIN_BLOCKS) & (rel[:, s] <= MAX_SE_RELATIVE_ERROR)
-                      & (STOP_MARGIN * hw[:, s] <= target))
-            self.streak[name] = np.where(ok, self.streak[name] + 1, 0)
+                met = STOP_MARGIN * hw[:, s] <= target
+                ok = (blocks[:, s] >= MIN_BLOCKS) & (rel[:, s] <= MAX_SE_RELATIVE_ERROR) & met
+            # a converged vector keeps its verdict while its interval stays within the target:
+            # its error bar, once trusted, does not fall back because a jump of the blocking
+            # level halved its block count for a while (as convergence.Checkpoints.trusted)
+            kept = (self.streak[name] >= STREAK) & met
+            self.streak[name] = np.where(ok | kept, self.streak[name] + 1, 0)
         n = self.snapshots
         self.next_check = max(int(math.ceil(n * CHECKPOINT_GROWTH)), n + 1)
-        if self.converged_at_s is None and self._field_converged():
+        now = self._field_converged()
+        if self.converged_at_s is None and now:
             self.converged_at_s = self.duration_s
+        if now != (bool(self.transitions) and self.transitions[-1][2]):
+            self.transitions.append((n, self.duration_s, now))
 
     def _probe_converged(self) -> np.ndarray:
         conv = np.ones(self.P, dtype=bool)
@@ -483,5 +429,5 @@ class FieldStatistics:
             probe_converged=probe_conv, converged_fraction=self.converged_fraction(),
             fraction=self.fraction, field_converged=self._field_converged(),
             converged_at_s=self.converged_at_s, eta_slowest_decile_s=slow,
-            confidence=self.confidence,
+            confidence=self.confidence, targeted=self._targeted(),
         )

@@ -30,6 +30,8 @@ is converged before this much record, seconds), ``slowest_period_s`` (the slowes
 the facility's unsteadiness, e.g. a pump or the speed control hunting; it is then treated as
 the longest integral time present: blocks of at least 4 and a record of at least 100 of it) and ``accept_modelled_k = true`` (give k measured with fewer than three components an
 interval; by default such a k is reported without one, as it rests on an isotropy model).
+For rakes and fields, ``field_fraction`` (in (0, 1], default 1: every vector with valid
+samples) is the fraction of vectors that must meet every target for the point to converge.
 
 A ``[budget]`` table asks for k-budget terms directly (``stats/budget_targets.py`` turns it,
 point by point, into tolerances on the statistics that feed each term; README, targets file)::
@@ -162,7 +164,7 @@ _UNITS = {
 }
 
 _TOP_KEYS = ("confidence", "targets", "min_record_s", "slowest_period_s", "accept_modelled_k",
-             "budget")
+             "budget", "field_fraction")
 
 #: k-budget terms a ``[budget]`` table may ask for (the ones the statistics of a point feed
 #: through a derivative across the traverse: stats.budget.derived_tolerances)
@@ -341,6 +343,8 @@ class Targets:
     accept_modelled_k: bool = False
     #: the [budget] table (stats/budget_targets.py), None when the file has none
     budget: BudgetRequest | None = None
+    #: rakes and fields: the fraction of vectors that must meet every target (stats.field)
+    field_fraction: float = 1.0
 
     @property
     def required_record_s(self) -> float:
@@ -364,6 +368,10 @@ class Targets:
             raise TargetsError(
                 f"accept_modelled_k must be true or false, got {self.accept_modelled_k!r}"
             )
+        f = self.field_fraction
+        if not (_is_number(f) and 0.0 < float(f) <= 1.0):
+            raise TargetsError(f"field_fraction must be a number in (0, 1], got {f!r}")
+        object.__setattr__(self, "field_fraction", float(f))
 
     # ----------------------------------------------------------------- constructors
     @classmethod
@@ -409,6 +417,14 @@ class Targets:
             record["accept_modelled_k"] = d["accept_modelled_k"]
         if "budget" in d:
             record["budget"] = _parse_budget(source, d["budget"])
+        if "field_fraction" in d:
+            f = d["field_fraction"]
+            if not (_is_number(f) and 0.0 < float(f) <= 1.0):
+                raise TargetsError(
+                    f"{source}: field_fraction must be a number in (0, 1] (e.g. 0.95: 95 % of "
+                    f"the vectors), got {f!r}"
+                )
+            record["field_fraction"] = float(f)
         if "targets" not in d:
             return cls(confidence=float(confidence), targets=cls.defaults().targets, **record)
         table = d["targets"]
@@ -455,6 +471,8 @@ class Targets:
             d["accept_modelled_k"] = True
         if self.budget is not None:
             d["budget"] = self.budget.to_dict()
+        if self.field_fraction != 1.0:
+            d["field_fraction"] = self.field_fraction
         return d
 
     # ----------------------------------------------------------------- resolving

@@ -65,6 +65,14 @@ def exercise(dtype, columns) -> None:
 
         f = np.geomspace(1.0, 100.0, 12)
         _flattest_band(f, np.ones(12), np.full(12, 400.0), np.ones(12, dtype=bool))
+    if len(columns) == 2:  # rakes and fields (field_kernels): masked and unmasked ingest
+        from eddyvigil.stats.field import FieldStatistics
+
+        snaps = block[:600].reshape(300, 2, 2)
+        field = FieldStatistics(columns, 2, 1000.0)
+        field.update(snaps[:150])
+        field.update(snaps[150:], valid=np.arange(300)[150:, None] % 7 != np.array([3, 4]))
+        field.snapshot()
 
 
 def prepare_kernels() -> float:

@@ -201,6 +201,29 @@ def wait_for(predicate, timeout: float = 30.0, interval: float = 0.05, what: str
     raise AssertionError(f"timed out after {timeout} s waiting for {what}")
 
 
+def subscribed_socket(control, topic: bytes = b""):
+    """``(context, SUB socket)`` connected to a ControlPublisher whose subscription has arrived.
+
+    PUB drops until the subscription reaches it, so hellos are sent (bounded) until one comes
+    through, then drained. The caller closes the socket (LINGER 0) and terms the context."""
+    import zmq
+
+    ctx = zmq.Context()
+    sub = ctx.socket(zmq.SUB)
+    sub.setsockopt(zmq.LINGER, 0)
+    sub.setsockopt(zmq.SUBSCRIBE, topic)
+    sub.connect(control.endpoint)
+
+    def joined():
+        control.send(topic.decode() or "hello", {"id": "hello"}, 0.0, {})
+        return sub.poll(100)
+
+    wait_for(joined, timeout=10, what="the control subscription")
+    while sub.poll(200):
+        sub.recv_multipart()
+    return ctx, sub
+
+
 # --------------------------------------------------------------------------- wire messages
 
 

@@ -97,6 +97,15 @@ def _wait_for(driver, script, timeout_s=20.0, what=""):
     raise AssertionError(f"timed out after {timeout_s} s waiting for {what or script}")
 
 
+def _open_page(driver, url: str, width: int = 1280, height: int = 1400) -> None:
+    """Load the dashboard at ``url`` and wait for its Bokeh document (websocket connected)."""
+    driver.set_window_size(width, height)
+    driver.set_page_load_timeout(30)
+    driver.get(url)
+    _wait_for(driver, "return window.Bokeh !== undefined && Bokeh.documents.length > 0",
+              what="the Bokeh document")
+
+
 def _png_colours(path: Path) -> int:
     """Distinct RGB(A) colours in a PNG (decoded here with zlib; PNG spec, W3C 2003)."""
     data = path.read_bytes()

@@ -22,6 +22,9 @@ def test_prepare_kernels_compiles_both_dtypes():
     assert seconds > 0
     dtypes = {np.dtype(str(sig[0].dtype)) for sig in ingest_block.signatures}
     assert {np.dtype("float32"), np.dtype("float64")} <= dtypes
+    from eddyvigil.stats.field_kernels import field_ingest  # rakes and fields too
+
+    assert {np.dtype(str(sig[0].dtype)) for sig in field_ingest.signatures} == dtypes
 
 
 def test_warmup_sets_its_events_in_order_and_survives_a_failure(monkeypatch):

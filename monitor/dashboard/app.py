@@ -34,6 +34,7 @@ from eddyvigil.monitor.dashboard import views
 from eddyvigil.monitor.dashboard.quality_view import QualityPanel
 from eddyvigil.monitor.dashboard.spectrum import SpectrumPanel
 from eddyvigil.monitor.dashboard.budget_panel import BudgetPanel
+from eddyvigil.monitor.dashboard.field_panel import FieldPanel
 from eddyvigil.monitor.state import RunSnapshot
 
 __all__ = ["build_document", "TICK_MS", "TRACE_ROLLOVER", "HISTORY_ROLLOVER"]
@@ -185,11 +186,14 @@ class _Page:
         self.note = Div(name="style_note", text=f'<div style="font-size:12px;color:#444">'
                                                 f"{views.STYLE_NOTE}</div>")
         self.budget = BudgetPanel(**_PLOT)  # k budget across the traverse (issue 15)
+        self.field = FieldPanel(**_PLOT)  # rakes and PIV fields (issue 17)
+        self.field.select.on_change("value", self._on_select)
         doc.title = title
         doc.add_root(column(
             row(self.header, self.select),
             self.verdict,
             self.campaign,
+            self.field.layout,
             row(self.status, column(self.health, self.flow)),
             self.quality.table,
             row(self.note, self.show_all),
@@ -287,6 +291,7 @@ class _Page:
         self.current_source.data = views.current_profile_columns(view, axis, _PROFILE_COLUMNS)
         self.spectrum.update(view)
         self.budget.update(view, axis)
+        self.field.update(view)
 
     def _update_trace(self, view, reset: bool) -> None:
         cols = views.trace_columns(view)

@@ -165,7 +165,8 @@ def banner(view: StreamView) -> Banner:
         n = len(view.finished)
         return Banner("RUN ENDED", f"the publisher sent end: {n} point{'s' * (n != 1)} "
                       f"finished{tail}", GREY, "#FFFFFF")
-    v = point_verdict(view.stats)
+    # a rake or field: the field's verdict (vectors meeting every target, stats.field)
+    v = point_verdict(view.stats) if view.field is None else view.field["snapshot"].verdict()
     colour, text_colour = KIND_COLOURS[v.kind]
     detail = f"{point}: {html.escape(v.reason)}"
     if v.move_on and view.converged_wall_age_s is not None:
