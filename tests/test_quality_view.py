@@ -79,3 +79,19 @@ def test_terminal_status_warns_with_the_counts():
     q = snap.streams["probe-a"].quality
     line = status_line(snap)
     assert f"v: {q['v']['spikes']} spikes" in line
+
+
+def test_random_sampling_rows_say_spikes_are_not_checked():
+    """Random sampling has no spike check in arrival order (stats.quality.NO_SPIKE_CHECK): the
+    summary's count is null and the table says so in words, not "None"."""
+    rng = np.random.default_rng(3)
+    n = 6000
+    t = np.cumsum(rng.exponential(1e-3, n))
+    x = 10.0 + rng.standard_normal((n, 2))
+    p = Pipeline(summary=io.StringIO())
+    p.begin_point("lda-1", {"id": "L1", "y": 0.0})
+    assert p.feed("lda-1", x, columns=("u", "v"), times=t, weights=np.ones(n)) is None
+    cols = quality_columns(p.publish())
+    assert cols["component"] == ["u", "v"]
+    assert cols["spikes"] == ["not checked", "not checked"]
+    assert all(d.isdigit() for d in cols["dropouts"])

@@ -45,7 +45,8 @@ def quality_columns(snapshot: RunSnapshot | None) -> dict[str, list]:
                 continue
             cols["stream"].append(name)
             cols["component"].append(c)
-            cols["spikes"].append(str(counts["spikes"]))
+            spikes = counts["spikes"]  # null: not checked (random sampling, stats.quality)
+            cols["spikes"].append("not checked" if spikes is None else str(spikes))
             cols["dropouts"].append(str(counts["dropout_samples"]))
             cols["clipped"].append(str(counts["clipped_samples"]))
             cols["step"].append(_fmt(counts["quantisation_step"]))
