@@ -70,8 +70,8 @@ class LevelChoice:
 
 #: false-alarm rate of the slow-content (rise) test at one look (one checkpoint)
 SLOW_ALPHA = 0.01
-#: the rise test's reference: the finest level with at least this many blocks (and above
-#: the row's minimum level) ...
+#: the rise test's reference: the highest level that still has this many blocks (and is
+#: above the row's reference floor, blocks long enough against T_int) ...
 RISE_FINE_BLOCKS = 512
 #: ... against the pooled levels above the highest one with at least this many blocks
 RISE_COARSE_BLOCKS = 64

@@ -122,13 +122,18 @@ def test_tail_accumulator_keeps_the_extremes_exactly():
 def test_heavy_tails_withhold_fourth_order_intervals_but_not_gaussian_ones():
     # Student-t(5) innovations: moments of order >= 5 do not exist (REFERENCES §12), so the
     # flatness (needs the 8th) has no consistent error; a Gaussian record keeps its interval
+    # (a tail-index estimate: in most records, not all; test_coverage_hard.py counts 400)
     rho = np.exp(-0.1)
-    heavy = heavy_ar1(np.random.default_rng(7), 2**17, 1, rho, "t5") + 5.0
-    snap = feed(PointStatistics(("u",), 1000.0), heavy).snapshot()
-    flat = snap.estimate("flat_u")
-    assert flat.state == "no-interval" and math.isnan(flat.half_width)
-    assert "tails too heavy" in flat.reason
-    assert snap.estimate("U").state != "no-interval"  # the mean needs only 2nd moments
+    withheld = 0
+    for seed in range(7, 12):
+        heavy = heavy_ar1(np.random.default_rng(seed), 2**17, 1, rho, "t5") + 5.0
+        snap = feed(PointStatistics(("u",), 1000.0), heavy).snapshot()
+        flat = snap.estimate("flat_u")
+        if flat.state == "no-interval":
+            withheld += 1
+            assert math.isnan(flat.half_width) and "tails too heavy" in flat.reason
+        assert snap.estimate("U").state != "no-interval"  # the mean needs only 2nd moments
+    assert withheld >= 4
     clean = ar1(np.random.default_rng(7), 2**17, 1, rho) + 5.0
     snap = feed(PointStatistics(("u",), 1000.0), clean).snapshot()
     assert snap.estimate("flat_u").state == "untargeted"
