@@ -8,6 +8,10 @@ of REFERENCES §1 and §5: means sigma^2 (1+rho)/(1-rho), second moments the Her
 (1+rho^2)/(1-rho^2)), the predicted/actual total record at 25 % and 50 % of the stop, and the
 share of runs stopping with the truth outside the interval. Prints figures only (no
 assertions). Run: ``nice -n 10 .venv/bin/python benchmarks/bench_stopping.py [reps]``.
+
+``... bench_stopping.py [reps] slow``: the issue-12 slow-content process instead (U within
++-0.025, sqrt(1 - w) AR(1, T = 5) + sqrt(w) AR(1, T = 5000 samples), w = 0.005 and 0.002, no
+period stated, records of 2^20 samples): the share stopped and the share stopped wrong.
 """
 
 from __future__ import annotations
@@ -20,7 +24,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
 
-from processes import MEAN, STRESS, turbulence  # noqa: E402
+from processes import MEAN, STRESS, turbulence, two_scale  # noqa: E402
 from stopping import run_until_converged  # noqa: E402
 
 from eddyvigil.stats import Targets  # noqa: E402
@@ -76,5 +80,26 @@ def main(reps: int = 200) -> None:
     print(f"worst coverage at the stop: {1 - max(miss.values()):.3f}  ({time.perf_counter() - t0:.0f} s)")
 
 
+def slow(reps: int = 400) -> None:
+    targets = Targets.from_dict({"targets": {"U": {"absolute": 0.025}}})
+    for w, seed in ((0.005, 3), (0.002, 4)):
+        t0 = time.perf_counter()
+        runs = []
+        for r in range(reps):
+            x = two_scale(np.random.default_rng(1000 * seed + r), 2**20, w)[:, :1]
+            runs.append(run_until_converged(x, ("u",), targets, {"U": MEAN[0]}, block=2**14))
+        stops = [s.samples for s in runs if s.samples]
+        print(
+            f"slow content w = {w}, {reps} runs: stopped {len(stops) / reps:.3f} (median "
+            f"{np.median(stops) if stops else float('nan'):.0f} samples), stopped with U "
+            f"outside {np.mean([s.miss['U'] for s in runs]):.4f}  "
+            f"({time.perf_counter() - t0:.0f} s)"
+        )
+
+
 if __name__ == "__main__":
-    main(int(sys.argv[1]) if len(sys.argv) > 1 else 200)
+    n = int(sys.argv[1]) if len(sys.argv) > 1 else 200
+    if sys.argv[2:] == ["slow"]:
+        slow(n)
+    else:
+        main(n)

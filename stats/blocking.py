@@ -61,38 +61,71 @@ class LevelChoice:
     blocks: np.ndarray  # number of blocks at the chosen level
     block_samples: np.ndarray  # samples per block at the chosen level
     relative_error: np.ndarray  # relative standard error of sqrt(variance)
-    #: largest variance of a level above the chosen one that rose significantly (NaN: none)
+    #: when the curve rises above the chosen level (slow content): the largest variance of
+    #: a level above it (NaN: no significant rise)
     top_variance: np.ndarray | None = None
-    #: samples per block at the highest level that rose significantly (0: none)
+    #: samples per block at the top level the record resolves, when the curve rises
+    #: significantly above the chosen level (0: none): blocks this long are needed
     slow_block_samples: np.ndarray | None = None
 
 
-#: false-alarm rate of the slow-content (rise) test, shared among the levels tested
+#: false-alarm rate of the slow-content (rise) test at one look (one checkpoint)
 SLOW_ALPHA = 0.01
+#: the rise test's reference: the highest level that still has this many blocks (and is
+#: above the row's reference floor, blocks long enough against T_int) ...
+RISE_FINE_BLOCKS = 512
+#: ... against the pooled levels above the highest one with at least this many blocks
+RISE_COARSE_BLOCKS = 64
 
 
-@lru_cache(maxsize=65536)
-def _rise_ratio(df_k: int, df_j: int, tests: int) -> float:
-    """Critical V_k / V_j: F(df_k, df_j) quantile at 1 - SLOW_ALPHA / tests (Bonferroni)."""
-    return float(special.fdtri(df_k, df_j, 1.0 - SLOW_ALPHA / tests))
+#: one-sided confidence of the lower bounds of the levels above the chosen one
+UPPER_LEVEL_CONFIDENCE = 0.9
+#: fewest blocks of a level whose lower bound counts
+UPPER_LEVEL_BLOCKS = 8
 
 
-def _rise_table(n: np.ndarray, K: int) -> np.ndarray:
-    """fq[j, k] for levels j < k < K: the rise test of level k against the chosen level j.
+@lru_cache(maxsize=4096)
+def _lower_bound_factor(dof: int) -> float:
+    return dof / float(sps.chi2.ppf(UPPER_LEVEL_CONFIDENCE, dof))
 
-    With b blocks a level's variance estimate has b - 1 degrees of freedom (a chi-squared
-    variable on a plateau, Flyvbjerg & Petersen 1989), so V_k / V_j is F(n_k - 1, n_j - 1)
-    distributed while the curve is flat (treating the two as independent: V_j rests on many
-    more blocks); REFERENCES §12.
+
+def _lower_bound_factors(n: np.ndarray, K: int) -> np.ndarray:
+    """(n_k - 1) / chi2_{UPPER_LEVEL_CONFIDENCE}(n_k - 1) per level (0 below
+    UPPER_LEVEL_BLOCKS blocks): V_k times it is a lower confidence bound of the level's
+    variance (chi-squared with n_k - 1 degrees of freedom, REFERENCES §12)."""
+    return np.array(
+        [_lower_bound_factor(int(x) - 1) if x >= UPPER_LEVEL_BLOCKS else 0.0 for x in n[:K]]
+    )
+
+
+def _rise_levels(n: np.ndarray, K: int) -> tuple[int, int]:
+    """``(ref_fine, ref_top)``: the highest levels below K with RISE_FINE_BLOCKS and with
+    RISE_COARSE_BLOCKS blocks (0 when none)."""
+    fine = np.flatnonzero(n[:K] >= RISE_FINE_BLOCKS)
+    top = np.flatnonzero(n[:K] >= RISE_COARSE_BLOCKS)
+    return (int(fine[-1]) if fine.size else 0), (int(top[-1]) if top.size else 0)
+
+
+def _rise_test(ratio, dof_up, dof_ref) -> np.ndarray:
+    """True where the coarse levels' detail energy is significantly above the reference.
+
+    The test (slow content under the turbulence, REFERENCES §12) uses the orthogonal Haar
+    split of the blocking levels: level k's sum of squares is twice level k+1's plus the
+    detail energy 1/2 sum (y_2i - y_2i+1)^2 (plus an unpaired block's square), with n_k -
+    n_{k+1} degrees of freedom; for white block means the details of different levels are
+    independent scaled chi-squared variables, and per degree of freedom, times 2^k, all
+    equal the variance of the mean times N (Percival & Walden 2000, Wavelet Methods for Time
+    Series Analysis, ch. 8, from memory: the Haar wavelet variance). A short-memory signal's
+    details fall short of that by a 1/B term (1.5 T/B of the value for an exponential
+    correlation); the reference 2 det_r - det_{r-1} at a fine level with many blocks cancels
+    it (as the lugsail does for the blocking curve), its degrees of freedom by Satterthwaite's
+    rule (Satterthwaite 1946, from memory). Slow content raises the coarse details above the
+    reference: the pooled ratio is compared with the F(dof_up, dof_ref) quantile at
+    1 - SLOW_ALPHA, one one-sided test per look instead of one F test per level.
     """
-    fq = np.full((K, K), np.inf)
-    nn = [int(x) for x in n[:K]]
-    for j in range(1, K):
-        tests = K - 1 - j
-        for k in range(j + 1, K):
-            if nn[k] >= 2 and nn[j] >= 2:
-                fq[j, k] = _rise_ratio(nn[k] - 1, nn[j] - 1, tests)
-    return fq
+    with np.errstate(invalid="ignore"):
+        p = special.fdtrc(dof_up, dof_ref, ratio)
+    return np.isfinite(p) & (p < SLOW_ALPHA)
 
 
 @lru_cache(maxsize=64)
@@ -104,7 +137,7 @@ def _chi2_99_table(K: int) -> np.ndarray:
 
 
 def choose_level(
-    c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int, min_level=None
+    c0: np.ndarray, gamma: np.ndarray, n: np.ndarray, base: int, min_level=None, ref_floor=None
 ) -> LevelChoice:
     """Jonsson's choice with the lugsail correction, for each row of ``c0``/``gamma`` (S, L).
 
@@ -114,9 +147,11 @@ def choose_level(
     quantile, over the K levels with at least MIN_BLOCKS_PER_LEVEL blocks. ``min_level`` (S,)
     raises the choice where blocks must be longer (the point's minimum block length in
     integral times); a row whose minimum is above the top usable level has no estimate yet.
+    ``ref_floor`` (S,, default ``min_level``): the rise test's reference lies above it.
 
     A rise of the curve above the chosen level is tested too (``top_variance``,
-    ``slow_block_samples``; see _rise_table).
+    ``slow_block_samples``; see _rise_test: one pooled test at the false-alarm rate
+    SLOW_ALPHA per look).
     """
     S, L = c0.shape
     usable = np.flatnonzero(n >= MIN_BLOCKS_PER_LEVEL)
@@ -126,29 +161,44 @@ def choose_level(
     block_samples = np.zeros(S, dtype=np.int64)
     rel = np.full(S, np.nan)
     top = np.full(S, np.nan)
-    slow = np.full(S, -1, dtype=np.int64)
+    ratio, dof_up, dof_ref = np.empty(S), np.empty(S), np.empty(S)
     if usable.size < 2:
         return LevelChoice(var, level, blocks, block_samples, rel, top, np.zeros(S, np.int64))
     K = int(usable[-1]) + 1
+    if L <= K:  # the rise test reads level K too (in a record: at least 2 blocks there)
+        c0 = np.concatenate([c0, np.zeros((S, K + 1 - L))], axis=1)
+        gamma = np.concatenate([gamma, np.zeros((S, K + 1 - L))], axis=1)
+        n = np.concatenate([n, np.zeros(K + 1 - L)])
     jonsson_lugsail(
         np.ascontiguousarray(c0, dtype=np.float64),
         np.ascontiguousarray(gamma, dtype=np.float64),
         np.ascontiguousarray(n, dtype=np.float64),
         _chi2_99_table(K),
-        _rise_table(n, K),
+        _lower_bound_factors(n, K),
+        *_rise_levels(n, K),
         np.zeros(S, dtype=np.int64)
         if min_level is None
         else np.ascontiguousarray(min_level, dtype=np.int64),
+        np.ascontiguousarray(
+            (np.zeros(S) if min_level is None else min_level) if ref_floor is None else ref_floor,
+            dtype=np.int64,
+        ),
         int(base),
         var,
         level,
         blocks,
         block_samples,
         rel,
+        ratio,
+        dof_up,
+        dof_ref,
         top,
-        slow,
     )
-    slow_samples = np.where(slow >= 0, int(base) * 2 ** np.maximum(slow, 0), 0)
+    rises = _rise_test(ratio, dof_up, dof_ref)
+    top = np.where(rises, top, np.nan)
+    # the curve rises up to the top level the record resolves: blocks that long are needed
+    lvl_up = np.maximum(level, _rise_levels(n, K)[1]) + 1
+    slow_samples = np.where(rises, int(base) * 2 ** np.minimum(lvl_up, K - 1), 0)
     return LevelChoice(var, level, blocks, block_samples, rel, top, slow_samples)
 
 

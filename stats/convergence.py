@@ -134,6 +134,9 @@ class Checkpoints:
     #: statistics whose error bar was trustworthy at some checkpoint: they never fall back
     #: to warming-up (a jump of the blocking level halves the block count for a while)
     trusted: set = field(default_factory=set)
+    #: moment row -> blocking level a slow-content rise asked for (its blocks stay at least
+    #: that long from then on; PointStatistics._remember_rise)
+    slow_level: dict = field(default_factory=dict)
 
     def due(self, n: int) -> bool:
         return n >= self.next_n
@@ -141,7 +144,8 @@ class Checkpoints:
     def record(
         self, n: int, results: dict[str, bool], duration_s: float, trusted=(), required=None
     ) -> None:
-        """Record the pass/fail of each targeted statistic at a checkpoint reached at ``n``.
+        """Record the pass/fail of each targeted statistic at a checkpoint reached at ``n``
+        (None: neither, the streak stands).
 
         ``trusted``: names whose error bar was trustworthy here; ``required``: the names the
         point's verdict rests on (default: all of ``results``; rows without an honest
@@ -149,6 +153,8 @@ class Checkpoints:
         """
         self.trusted.update(trusted)
         for name, ok in results.items():
+            if ok is None:  # a level jump alone: the streak stands (PointStatistics._passes)
+                continue
             self.streak[name] = self.streak.get(name, 0) + 1 if ok else 0
         self.next_n = max(int(math.ceil(n * CHECKPOINT_GROWTH)), n + 1)
         need = list(results if required is None else required)
@@ -165,4 +171,5 @@ class Checkpoints:
             dict(self.streak),
             self.converged_at_s,
             set(self.trusted),
+            dict(self.slow_level),
         )

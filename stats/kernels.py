@@ -813,22 +813,31 @@ def influence_autocovariances(grad, n, S, Q, P, first, last, mu, c0, gamma):
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
 def jonsson_lugsail(
-    c0, gamma, n, q, fq, min_level, base, var, level, blocks, block_samples, rel, top, slow
+    c0, gamma, n, q, lbf, ref_fine, ref_top, min_level, ref_floor, base, var, level, blocks,
+    block_samples, rel,
+    ratio, dof_up, dof_ref, top,
 ):
     """Row by row: the first level j >= 1 whose M_j passes, its lugsail variance (choose_level),
-    and the rise test of the levels above j (``top``: the largest significant V_k, else NaN;
-    ``slow``: the highest level k with a significant rise, else -1).
+    and the statistic of the rise test (blocking._rise_test; NaN where none can be formed).
 
-    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2); ``fq[j, k]`` is
-    the critical ratio V_k / V_j of the rise test; ``min_level`` (S,) the lowest level each row
-    may use (blocks long enough against the integral time; above K - 1: unknown).
+    ``c0``, ``gamma`` (S, L'); levels 0 .. K-1 take part, K = q.size (K >= 2), and level K's
+    c0 exists (a level with 4 blocks has one above it). Haar detail energy per degree of
+    freedom, on the scale of the variance of the mean: det_k = (n_k c0_k - 2 n_{k+1}
+    c0_{k+1}) 2^k / (n_k - n_{k+1}). ``ratio``: the pooled det_k of the coarse levels
+    k > max(ref_top, j) over the reference 2 det_r - det_{r-1} at r = max(ref_fine,
+    ref_floor + 1); ``dof_up``, ``dof_ref``: their degrees of freedom; ``top``: the largest
+    V_k of the coarse levels (at least the chosen variance). ``min_level`` (S,) the lowest
+    level each row may use (above K - 1: unknown); ``ref_floor`` (S,) the level whose blocks
+    are just long enough against the integral time (the reference is above it).
     """
     S = c0.shape[0]
     K = q.shape[0]
     r2 = np.empty(K)
     for s in range(S):
         top[s] = np.nan
-        slow[s] = -1
+        ratio[s] = np.nan
+        dof_up[s] = np.nan
+        dof_ref[s] = np.nan
         for jj in range(K):
             r = n[jj] * (gamma[s, jj] / c0[s, jj]) ** 2
             r2[jj] = r if np.isfinite(r) else np.inf
@@ -855,6 +864,11 @@ def jonsson_lugsail(
             v = vj
         if v < 0.0:
             v = 0.0
+        # a level above whose variance is surely higher (its lower confidence bound) raises it
+        for kk in range(j + 1, K):
+            vlb = lbf[kk] * c0[s, kk] / (n[kk] - 1)
+            if vlb > v:
+                v = vlb
         var[s] = v
         level[s] = j
         blocks[s] = np.int64(nj)
@@ -863,13 +877,35 @@ def jonsson_lugsail(
         # = 5/n for white block means at level j-1 (Gaussian, corr(V_j, V_{j-1}) = 1/sqrt(2));
         # the standard error's relative error is half of its square root.
         rel[s] = 0.5 * np.sqrt(5.0 / max(nj - 1, 1.0))
-        # slow content: a level above j whose variance is significantly above the plateau
-        for kk in range(j + 1, K):
+        # slow content: Haar detail energy of the coarse levels against a fine reference
+        r = ref_fine
+        if ref_floor[s] + 1 > r:
+            r = ref_floor[s] + 1
+        u = max(ref_top, j) + 1
+        if r < 1 or r >= K - 1 or u <= r or u > K - 1:
+            continue
+        d_r = n[r] - n[r + 1]
+        d_m = n[r - 1] - n[r]
+        det_r = (n[r] * c0[s, r] - 2.0 * n[r + 1] * c0[s, r + 1]) * 2.0**r / d_r
+        det_m = (n[r - 1] * c0[s, r - 1] - 2.0 * n[r] * c0[s, r]) * 2.0 ** (r - 1) / d_m
+        ref = 2.0 * det_r - det_m
+        if not ref > 0.0:
+            continue
+        up = 0.0
+        dof = 0.0
+        vmax = v
+        for kk in range(u, K):
+            d_k = n[kk] - n[kk + 1]
+            up += (n[kk] * c0[s, kk] - 2.0 * n[kk + 1] * c0[s, kk + 1]) * 2.0**kk
+            dof += d_k
             vk = c0[s, kk] / (n[kk] - 1)
-            if v > 0.0 and vk > fq[j, kk] * v:
-                slow[s] = kk
-                if not (vk <= top[s]):
-                    top[s] = vk
+            if vk > vmax:
+                vmax = vk
+        ratio[s] = up / dof / ref
+        dof_up[s] = dof
+        # Satterthwaite: Var(2 X - Y) for X, Y independent scaled chi-squared (d_r, d_m)
+        dof_ref[s] = 2.0 * ref**2 / (8.0 * det_r**2 / d_r + 2.0 * det_m**2 / d_m)
+        top[s] = vmax
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")

@@ -14,8 +14,9 @@ from functools import lru_cache
 import numpy as np
 from scipy import special
 
-from eddyvigil.stats.blocking import BlockingAccumulator
+from eddyvigil.stats.blocking import BlockingAccumulator, choose_level
 from eddyvigil.stats.convergence import (
+    ETA_MIN_BLOCKS,
     MIN_BLOCK_TINTS,
     MIN_BLOCKS,
     MIN_RECORD_TINTS,
@@ -110,6 +111,9 @@ class _Evaluation:
     no_interval: list  # None, or why no honest interval exists
     unresolved: np.ndarray  # standard error the record does not resolve yet (0 when none)
     error_method: dict | None = None  # row -> how its error was found, where not by blocking
+    #: per name: the blocking level the slow-content test asks for now (-1: none); None when
+    #: the evaluation has no such test (random sampling)
+    rise_level: list | None = None
 
 
 class PointStatistics:
@@ -285,7 +289,21 @@ class PointStatistics:
             ]
             required = [ev.names[i] for i in self._plan.targeted if ev.no_interval[i] is None]
             self.checkpoints.record(self.n, results, self.duration_s, trusted, required)
+            self._remember_rise(ev)
         return self
+
+    def _remember_rise(self, ev: _Evaluation) -> None:
+        """Keep, per targeted moment row, the highest blocking level a checkpoint's rise test
+        asked for: from then on the row's blocks are at least that long (_min_levels), so a
+        rise seen once holds the verdict until the record resolves it."""
+        if ev.rise_level is None:
+            return
+        keep = self.checkpoints.slow_level
+        for i in self._plan.targeted:
+            lvl = ev.rise_level[i]
+            if lvl >= 0:
+                row = self.names[self._source[i]]
+                keep[row] = max(keep.get(row, 0), lvl)
 
     def merge(self, other: PointStatistics, independent: bool = True) -> PointStatistics:
         """A new object holding both points' samples (inputs untouched).
@@ -302,7 +320,8 @@ class PointStatistics:
         statistic passes on the merged state, and restarts the streak at zero if it does not.
         So two converged repeats stay converged only if their union still meets its targets,
         and ``converged_at_s`` is the merged duration when the union is converged. Below the
-        first checkpoint's sample count no streak exists and none is carried.
+        first checkpoint's sample count no streak exists and none is carried. Remembered
+        slow-content levels (:meth:`_remember_rise`) are carried too, the higher of the two.
         """
         if other.columns != self.columns:
             raise ValueError("cannot merge points with different columns")
@@ -332,9 +351,14 @@ class PointStatistics:
                 for i in names
             }
             new.checkpoints.streak.update(streak)
+            kept = new.checkpoints.slow_level
+            for part in (self, other):
+                for row, lvl in part.checkpoints.slow_level.items():
+                    kept[row] = max(kept.get(row, 0), lvl)
             ev = new._evaluate(new._checkpoint_rows)
             new._checkpoint_ev = ev
             new.checkpoints.record(new.n, new._passes(ev), new.duration_s)
+            new._remember_rise(ev)
 
     # ------------------------------------------------------------- evaluation
     def _evaluate(self, rows: np.ndarray | None = None) -> _Evaluation:
@@ -372,19 +396,24 @@ class PointStatistics:
         values, grad = tab.values_and_gradient(raw, ref)
         if rows is not None:
             grad = np.where(rows[:, None], grad, 0.0)  # a zero row costs one pass over levels
-        choice = self.blocking.analyse(grad)
+        curves = self.blocking._autocovariances(grad)  # (c0, gamma, n): one pass, reused
+        base = self.blocking.base
+        choice = choose_level(*curves, base)
         # append integral time scales, effective sample counts and integral lengths
         values = np.concatenate([values, np.empty(3 * m)])
         se = np.empty(S)
         integral_scales(self.duration_s, choice.variance, choice.relative_error, m, values, se)
         # blocks at least MIN_BLOCK_TINTS integral times long (the lugsail estimate is 6 % low
         # in variance at 4 T_int for an exponential correlation, 23 % low at 2 T_int): raise
-        # the level where Jonsson's choice is shorter, and evaluate again (at most twice)
+        # the level where Jonsson's choice is shorter, and evaluate again (at most twice); the
+        # same floor keeps the rise test's reference above the short correlation
+        floor = None
         for _ in range(2):
-            min_level = self._min_levels(values, choice)
-            if min_level is None:
+            floors = self._min_levels(values, choice)
+            if floors is None or (floor is not None and np.array_equal(floors[0], floor)):
                 break
-            choice = self.blocking.analyse(grad, min_level)
+            floor = floors[0]
+            choice = choose_level(*curves, base, *floors)
             integral_scales(
                 self.duration_s, choice.variance, choice.relative_error, m, values, se
             )
@@ -441,9 +470,10 @@ class PointStatistics:
         period = self.targets.slowest_period_s
         return t if period is None or not t < period else period
 
-    def _min_levels(self, values, choice) -> np.ndarray | None:
+    def _min_levels(self, values, choice) -> tuple[np.ndarray, np.ndarray] | None:
         """Lowest blocking level of each moment row whose blocks are MIN_BLOCK_TINTS integral
-        times long; None when every row's choice already satisfies it."""
+        times long, and at least the level a rise test asked for (_remember_rise), and the
+        former alone (the rise test's reference floor); None when every floor is level 0."""
         m = len(self.columns)
         k_stats = len(self.table.names)
         if self.n < 2 or self.duration_s <= 0:
@@ -452,18 +482,23 @@ class PointStatistics:
         per_sample = self.duration_s / self.n
         base = self.blocking.base
         out = np.zeros(k_stats, dtype=np.int64)
+        ref = np.zeros(k_stats, dtype=np.int64)
         raise_any = False
         levels = choice.level.tolist()
+        rise = self.checkpoints.slow_level
         for r in range(k_stats):
-            t = self._slowest_scale(tint, self._comp_idx[r])
-            if not (math.isfinite(t) and t > 0.0) or levels[r] < 0:
+            if levels[r] < 0:
                 continue
-            need = MIN_BLOCK_TINTS * t / per_sample / base  # in base blocks
-            lvl = max(0, math.ceil(math.log2(need))) if need > 1.0 else 0
-            if lvl > levels[r]:
+            t = self._slowest_scale(tint, self._comp_idx[r])
+            lvl = rise.get(self.names[r], 0) if rise else 0
+            if math.isfinite(t) and t > 0.0:
+                need = MIN_BLOCK_TINTS * t / per_sample / base  # in base blocks
+                ref[r] = math.ceil(math.log2(need)) if need > 1.0 else 0
+                lvl = max(lvl, ref[r])
+            if lvl > 0:
                 out[r] = lvl
                 raise_any = True
-        return out if raise_any else None
+        return (out, ref) if raise_any else None
 
     def _by_row(self, choice, plain, field: str) -> np.ndarray:
         """``field`` of the level choice for every statistic: the moment rows from ``choice``
@@ -478,7 +513,9 @@ class PointStatistics:
     def _guards(self, values, se, hw, choice, plain, targets):
         """Minimum record, slow content and tails for every statistic (see _Evaluation).
 
-        Sets the half-width of rows without an honest interval to NaN (in place).
+        Slow content holds a statistic while the rise test fires now, and while its blocks
+        are not yet MIN_BLOCKS at the level a past rise asked for (_remember_rise). Sets the
+        half-width of rows without an honest interval to NaN (in place).
         """
         m = len(self.columns)
         k_stats = len(self.table.names)
@@ -492,7 +529,11 @@ class PointStatistics:
         top = self._by_row(choice, plain, "top_variance").tolist()
         var = self._by_row(choice, plain, "variance").tolist()
         hw_list = hw.tolist()
+        block_counts = blocks.tolist()
+        base = self.blocking.base
+        remembered = self.checkpoints.slow_level
         S = len(self.names)
+        rise_level = [-1] * S
         long_enough, min_total, held, no_interval = [], [], [], []
         unresolved = np.zeros(S)
         for i in range(S):
@@ -505,18 +546,21 @@ class PointStatistics:
             long_enough.append(ok_t and T >= need and block_s >= MIN_BLOCK_TINTS * t_i)
             min_total.append(need)
             reason = None
-            if slow_samples[i] > 0:
-                unresolved[i] = math.sqrt(max(top[i] - var[i], 0.0))
-                slow_s = slow_samples[i] * T / n
-                expect = 2 * MIN_BLOCKS * slow_s
-                target = targets[i]
-                if target is not None and math.isfinite(target) and target > 0 and se[i] > 0:
-                    ratio = STOP_MARGIN * hw_list[i] / target
-                    expect = max(expect, T * ratio**2 * top[i] / var[i])
+            lvl = remembered.get(self.names[self._source[i]], 0) if remembered else 0
+            if slow_samples[i] > 0 or (lvl and block_counts[i] < MIN_BLOCKS):
+                rise_level[i] = (slow_samples[i] // base).bit_length() - 1
+                slow_s = max(slow_samples[i], base << lvl) * T / n
+                expect = MIN_BLOCKS * slow_s
+                if slow_samples[i] > 0:
+                    unresolved[i] = math.sqrt(max(top[i] - var[i], 0.0))
+                    target = targets[i]
+                    if target is not None and math.isfinite(target) and target > 0 and se[i] > 0:
+                        ratio = STOP_MARGIN * hw_list[i] / target
+                        expect = max(expect, T * ratio**2 * top[i] / var[i])
                 reason = (
                     f"slow content: the error of {self.names[i]} is not yet resolved (the "
-                    f"blocking curve still rises at blocks of {slow_s:.3g} s); "
-                    f"expect >= {expect:.3g} s",
+                    f"blocking curve rises up to blocks of {slow_s:.3g} s; {MIN_BLOCKS} of "
+                    f"them are needed): expect >= {expect:.3g} s",
                     expect,
                 )
             held.append(reason)
@@ -538,25 +582,35 @@ class PointStatistics:
             if why is not None:
                 hw[i] = math.nan
                 se[i] = math.nan
-        return long_enough, min_total, held, no_interval, unresolved
+        return long_enough, min_total, held, no_interval, unresolved, rise_level
 
     def _stationary(self, i: int, suspect: dict) -> bool:
         """True when no component statistic ``i`` depends on is flagged in ``suspect``."""
         return not (suspect and self._components[i] & suspect.keys())
 
-    def _passes(self, ev: _Evaluation) -> dict[str, bool]:
+    def _passes(self, ev: _Evaluation) -> dict[str, bool | None]:
+        """Pass/fail of each targeted statistic at a checkpoint; None (the streak neither
+        grows nor restarts) when the only shortfall is the block count of a level that just
+        jumped: a statistic trusted before, with every other condition met and still
+        ETA_MIN_BLOCKS blocks (a jump of the chosen level halves the block count or more,
+        and with it the SE's own relative error)."""
         hw, blocks, rel = ev.half_width.tolist(), ev.blocks.tolist(), ev.se_rel_err.tolist()
-        return {
-            ev.names[i]: passes(
-                hw[i],
-                ev.targets[i],
-                blocks[i],
-                rel[i],
-                self._stationary(i, ev.suspect) and ev.held[i] is None,
-                ev.long_enough[i] and ev.no_interval[i] is None,
-            )
-            for i in self._plan.targeted
-        }
+        trusted = self.checkpoints.trusted
+        out = {}
+        for i in self._plan.targeted:
+            name = ev.names[i]
+            ok_guards = self._stationary(i, ev.suspect) and ev.held[i] is None
+            ok_record = ev.long_enough[i] and ev.no_interval[i] is None
+            ok = passes(hw[i], ev.targets[i], blocks[i], rel[i], ok_guards, ok_record)
+            if (
+                not ok
+                and name in trusted
+                and blocks[i] >= ETA_MIN_BLOCKS
+                and passes(hw[i], ev.targets[i], MIN_BLOCKS, 0.0, ok_guards, ok_record)
+            ):
+                ok = None
+            out[name] = ok
+        return out
 
     def snapshot(self) -> PointSnapshot:
         """An immutable view of every statistic now."""

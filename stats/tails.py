@@ -9,9 +9,10 @@ covered 0.56-0.58 whatever the record length).
 
 The tail index alpha is estimated with Hill's estimator (Hill 1975, Ann. Statist. 3:1163,
 from memory): alpha = 1 / mean(ln(X_(i) / X_(k+1))), i <= k, over the k largest excursions
-|x - mean| of each tail. k = sqrt(N)/2 (a first guess as in common practice, halved because
-the correlated body of a turbulent signal biases alpha upward; measured in
-tests/test_tails.py). The accumulator keeps the ``keep`` largest and smallest samples of each
+|x - mean| of each tail. k = 0.35 sqrt(N) (a first guess as in common practice, cut by a
+third: with a deeper k the body of the distribution enters the estimate, which pulls alpha up
+for a power-law tail (Student-t(5) read 6-8.6 at k = sqrt(N)/2) and down for a light, skewed
+one, so light tails lost intervals they deserve; measured, see TAIL_MARGIN). The accumulator keeps the ``keep`` largest and smallest samples of each
 component seen so far (exact: a sample that is not among them now never will be), so the
 estimate is the one a batch computation over the whole record would give.
 """
@@ -24,7 +25,13 @@ import numpy as np
 
 __all__ = ["TailAccumulator", "hill_index", "needed_order", "TAIL_MARGIN"]
 
-#: an interval that needs moments of order q is shown only when alpha > TAIL_MARGIN * q
+#: an interval that needs moments of order q is shown only when alpha > TAIL_MARGIN * q.
+#: Measured (AR(1), T_int 10 samples, 200 records each; before: k = sqrt(N)/2): Student-t(5)
+#: fourth-moment intervals withheld in 93.5 % of records of 2^16 samples (97.5 %),
+#: third-moment intervals of a light-tailed skewed signal z + 0.2 (z^2 - 1) at 12 000 samples
+#: in 32 % (42.5 %), fourth-moment ones of Laplace innovations at 2^16 in 45 % (59.5 %). A
+#: margin of 1.2 with k = sqrt(N)/4 withheld the t5 variance's intervals (its 4th moment
+#: exists) in 7 % of 400 records: rejected
 TAIL_MARGIN = 1.1
 #: fewest tail samples Hill's estimate is computed from (below: unknown, NaN)
 MIN_TAIL = 16
@@ -120,7 +127,7 @@ class TailAccumulator:
         NaN while there are too few samples to say (fewer than MIN_TAIL in the tail).
         """
         out = np.full(self.m, np.nan)
-        k = min(self.keep - 1, int(math.sqrt(self.n) / 2))
+        k = min(self.keep - 1, int(0.35 * math.sqrt(self.n)))
         if k < MIN_TAIL:
             return out
         for c in range(self.m):

@@ -200,7 +200,10 @@ def test_merge_with_common_reference():
     assert np.array_equal(a.count, counts_a)  # inputs untouched
     g = np.eye(whole.D)[:2]
     v1, v2 = whole.analyse(g).variance, merged.analyse(g).variance
-    np.testing.assert_allclose(v2, v1, rtol=0.15)
+    # statistically equivalent: the top levels' blocks are aligned differently in the two
+    # parts, and a level above with >= 8 blocks may raise the variance to its lower bound
+    # (blocking.UPPER_LEVEL_CONFIDENCE), so a looser tolerance than the chosen level's spread
+    np.testing.assert_allclose(v2, v1, rtol=0.25)
     np.testing.assert_allclose(merged.S[0], whole.S[0], rtol=1e-9)
     with pytest.raises(ValueError):  # different base blocks cannot be joined
         a.merge(BlockingAccumulator(2, base=64).update(x[:100]))

@@ -45,6 +45,26 @@ def test_slow_content_with_the_slowest_period_stated(w, seed):
     assert stopped >= 0.5, stopped  # it does stop once the record can tell
 
 
+@pytest.mark.xfail(
+    strict=True,
+    reason="measured over 400 records: w = 0.005 stopped wrong in 7.5 % (17.25 % before the "
+    "pooled rise test, its memory and the upper levels' lower bounds), w = 0.002 in 11.75 % "
+    "(18.5 %); an open limit (README): state the period",
+)
+@pytest.mark.parametrize(("w", "seed"), [(0.005, 3), (0.002, 4)])
+def test_slow_content_without_a_stated_period(w, seed):
+    # The issue's process: sqrt(1 - w) AR(1, T = 5) + sqrt(w) AR(1, T = 5000 samples)
+    # (REFERENCES §12: N Var(mean) -> 60 for w = 0.005, 30 for w = 0.002, against 10 for the
+    # fast part), no period stated: the guards alone must keep the stops honest
+    targets = Targets.from_dict({"targets": {"U": {"absolute": 0.025}}})
+    runs = []
+    for r in range(REPS):
+        x = two_scale(np.random.default_rng(1000 * seed + r), 2**20, w)
+        runs.append(run_until_converged(x[:, :1], ("u",), targets, {"U": MEAN[0]}, block=2**14))
+    share = miss_shares(runs, ["U"])
+    assert share["U"] <= 0.05, share
+
+
 @pytest.mark.parametrize("kind", ["t5", "laplace"])
 def test_heavy_tails_withhold_or_cover(kind):
     # AR(1), rho = e^-0.1, unit-variance innovations; flatness 3 + excess x (1 - rho^2)^2 /

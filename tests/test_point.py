@@ -7,6 +7,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from processes import ar1, turbulence
+from scipy import stats as sps
 
 from eddyvigil.stats import PointStatistics, Targets, statistic_names
 from eddyvigil.stats.blocking import _chi2_99, choose_level
@@ -267,6 +268,13 @@ def _numpy_choose_level(c0, gamma, n, base):
         vj = c0[np.arange(S), j] / (nj - 1)
         vm = c0[np.arange(S), j - 1] / (nm - 1)
     v = np.maximum(np.maximum(vj, 2.0 * vj - vm), 0.0)
+    # a level above with >= 8 blocks raises v to its lower 90 % bound (chi-squared, n_k - 1)
+    for k in range(1, K):
+        if n[k] >= 8:
+            lbf = (n[k] - 1) / sps.chi2.ppf(0.9, n[k] - 1)
+            with np.errstate(invalid="ignore"):
+                vlb = lbf * c0[:, k] / (n[k] - 1)
+                v = np.where((k > j) & (vlb > v), vlb, v)
     level = np.where(found, j, -1).astype(np.int64)
     return (
         np.where(found, v, np.nan),
