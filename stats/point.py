@@ -110,10 +110,10 @@ class _Evaluation:
     held: list  # None, or (reason, least total record in s) of a guard's hold (slow content)
     no_interval: list  # None, or why no honest interval exists
     unresolved: np.ndarray  # standard error the record does not resolve yet (0 when none)
-    error_method: dict | None = None  # row -> how its error was found, where not by blocking
     #: per name: the blocking level the slow-content test asks for now (-1: none); None when
     #: the evaluation has no such test (random sampling)
     rise_level: list | None = None
+    error_method: dict | None = None  # row -> how its error was found, where not by blocking
 
 
 class PointStatistics:
@@ -430,7 +430,8 @@ class PointStatistics:
                 suspect[c] = verdict.reason or "not stationary"
         targets = self._plan.resolve(values.tolist())
         guards = self._guards(values, se, hw, choice, plain, targets)
-        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, *guards, methods)
+        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, *guards,
+                         error_method=methods)
         if rows is None:
             self._cache = ev
         return ev
@@ -529,7 +530,7 @@ class PointStatistics:
         top = self._by_row(choice, plain, "top_variance").tolist()
         var = self._by_row(choice, plain, "variance").tolist()
         hw_list = hw.tolist()
-        block_counts = blocks.tolist()
+        block_counts = self._by_row(choice, plain, "blocks").tolist()
         base = self.blocking.base
         remembered = self.checkpoints.slow_level
         S = len(self.names)

@@ -89,7 +89,9 @@ def test_a_line_between_bins_is_found_and_its_frequency_refined():
 
 def test_mean_error_of_white_noise_with_a_line_is_sigma_over_sqrt_n():
     # sigma^2 / N (common practice) for the remainder; averaged over 200 records the estimated
-    # variance is within 5 % of it (its own scatter: 5/(n - 1) per record at ~64 blocks)
+    # variance is within 5 % of it (its own scatter: 5/(n - 1) per record at ~64 blocks), less
+    # the slow-content guard's upper-level bound (blocking.choose_level: an upper level's lower
+    # 90 % bound where higher), which by design leans a few per cent high: at most +10 %
     N = 4096
     tau = np.arange(float(N))
     ratio = []
@@ -98,7 +100,7 @@ def test_mean_error_of_white_noise_with_a_line_is_sigma_over_sqrt_n():
         y = rng.normal(size=N) + 2.0 * np.sin(2 * np.pi * 0.031 * tau + rng.uniform(0, 6.28))
         err = line_mean_error(y, tau, [0.031], row_len=1)
         ratio.append((err.variance - err.partial_mean**2) / err.inflation * N)
-    assert abs(np.mean(ratio) - 1.0) < 0.05
+    assert -0.05 < np.mean(ratio) - 1.0 < 0.10
 
 
 def _ou_with_line(seed, n=65_536, tint=50.0, period=1000.0, amp=0.5):
