@@ -31,8 +31,9 @@ point's end). Per window and component:
 
 Cost per window and component: one vectorised pass (sums, repeats, step, extremes: the
 minima and maxima on integer keys of the floats' bits, which LLVM vectorises), the jump
-test vectorised over 64-row chunks with the whole candidate test row by row only in chunks
-holding a jump, a strided sample for the step, and, when due,
+test vectorised over 64-row chunks (skipped where no first difference reaches the jump: a
+jump is at most the larger difference beside it) with the whole candidate test row by row
+only in chunks holding a jump, a strided sample for the step, and, when due,
 median/MAD selections on 256-value subsamples.
 """
 
@@ -258,8 +259,8 @@ def _order_key(b):
 @numba.njit(cache=True, nogil=True, fastmath=_SUMS)
 def _window_pass(col, w0, w1):
     """One vectorised pass over a window: sums of u and u² about its first value
-    (reassociated), the zero first differences, the smallest non-zero |Δu|, the least and
-    greatest value.
+    (reassociated), the zero first differences, the smallest and the largest non-zero |Δu|,
+    the least and greatest value.
 
     Minima and maxima are taken on integer keys of the floats' bits (``_order_key``; for
     |Δu| >= 0 the bits themselves order as the values): LLVM vectorises integer min/max
@@ -274,6 +275,7 @@ def _window_pass(col, w0, w1):
     k_lo = _order_key(_bits(s0))
     k_hi = k_lo
     q_bits = _INF_BITS
+    d_max = 0
     for i in range(c.shape[0]):
         x = c[i]
         a = x - s0
@@ -285,9 +287,10 @@ def _window_pass(col, w0, w1):
         d = _bits(x - p[i]) & _MAGNITUDE  # |Δu|'s bits
         zeros += d == 0
         q_bits = min(q_bits, d if d != 0 else _INF_BITS)
+        d_max = max(d_max, d)
     lo = _from_bits(_order_key(k_lo))
     hi = _from_bits(_order_key(k_hi))
-    return s0, sa, sb, zeros, _from_bits(q_bits), lo, hi
+    return s0, sa, sb, zeros, _from_bits(q_bits), _from_bits(d_max), lo, hi
 
 
 @numba.njit(cache=True, nogil=True)
@@ -383,6 +386,22 @@ def _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2):
 
 
 @numba.njit(cache=True, nogil=True)
+def _may_jump(col, w0, w1, dmax, lo, hi, jump):
+    """Can any row of w0..w1 jump from its neighbours' mean by more than ``jump``?
+
+    The jump e_i = (Δu_i - Δu_(i+1))/2 is at most the larger |Δu| beside row i, so where every
+    difference from row w0 - 1 to row w1 (``dmax`` inside the window, the two edges here) stays
+    below the jump, no row is a candidate and the chunk test need not run. The margin (1e-12
+    of the values' magnitude) covers the rounding of e and of the differences, so the answer
+    is never "no" where the candidate test could say "yes"."""
+    a = col[w0 - 1]
+    b = col[w1]
+    d = max(dmax, abs(col[w0] - a), abs(b - col[w1 - 1]))
+    scale = max(abs(lo), abs(hi), abs(a), abs(b))
+    return d + 1e-12 * scale > jump
+
+
+@numba.njit(cache=True, nogil=True)
 def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
     """Judge rows w0..w1 of one component (``col`` raw, rows 0-1 cleaned context, w1..
     lookahead) for spikes and rows 2..w1 for dropouts; ``y`` receives the cleaned values,
@@ -398,7 +417,7 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
     """
     n = col.shape[0]
     nw = w1 - w0
-    s0, sa, sb, zeros, qmin, lo, hi = _window_pass(col, w0, w1)
+    s0, sa, sb, zeros, qmin, dmax, lo, hi = _window_pass(col, w0, w1)
     longest, long_zeros = _zero_runs(col, w0, w1) if zeros > 0 else (0, 0)
     centre = s0 + sa / nw
     usable = (nw - 1) - long_zeros
@@ -430,7 +449,8 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
     y[:] = col
     new_spikes = 0
     new_drop = 0
-    if w0 > 2 or longest + 1 >= run_min:
+    cleaned = w0 > 2 or longest + 1 >= run_min  # y may then differ from col
+    if cleaned:
         old = fl[:w1].copy()
         for i in range(2, n):  # dropout flags are recomputed over all pending rows
             if i >= w1 or fl[i] == FLAG_DROPOUT:
@@ -449,7 +469,8 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
         jump = lam * su
         i1 = 1.0 / (lam * s1)
         i2 = 1.0 / (lam * s2)
-        new_spikes = _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2)
+        if cleaned or _may_jump(col, w0, w1, dmax, lo, hi, jump):
+            new_spikes = _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2)
     res[0] = new_spikes
     res[1] = new_drop
     res[2] = qmin
