@@ -29,9 +29,11 @@ point's end). Per window and component:
    interpolation and the search repeated, as Goring & Nikora iterate, with the window's
    robust scales held fixed.
 
-Cost per window and component: one vectorised pass of sums, one compare-and-branch scan
-(repeats, step, extremes), the candidate test vectorised over 64-row chunks with a row
-scan only in chunks holding a candidate, a strided sample for the step, and, when due,
+Cost per window and component: one vectorised pass (sums, repeats, step, extremes: the
+minima and maxima on integer keys of the floats' bits, which LLVM vectorises), the jump
+test vectorised over 64-row chunks (skipped where no first difference reaches the jump: a
+jump is at most the larger difference beside it) with the whole candidate test row by row
+only in chunks holding a jump, a strided sample for the step, and, when due,
 median/MAD selections on 256-value subsamples.
 """
 
@@ -41,6 +43,9 @@ import math
 
 import numba
 import numpy as np
+from llvmlite import ir as llvm_ir
+from numba.core import types
+from numba.extending import intrinsic
 
 __all__ = ["STATE_SLOTS", "feed_block", "judge_held", "universal_threshold"]
 
@@ -59,11 +64,14 @@ FLAG_NONE = 0
 FLAG_SPIKE = 1
 FLAG_DROPOUT = 2
 
-#: Rows per vectorised candidate test (a chunk with a candidate is scanned row by row).
+#: Rows per vectorised jump test (a chunk with a jump is scanned row by row).
 _CHUNK = 64
 #: Reassociated sums and min/max of finite samples (the pipeline rejects non-finite ones
 #: before the checks): the window pass vectorises.
 _SUMS = {"reassoc", "nsz", "nnan"}
+#: Bits of a float64 below the sign, and those of +inf (the int64 keys of _window_pass).
+_MAGNITUDE = 0x7FFFFFFFFFFFFFFF
+_INF_BITS = 0x7FF0000000000000
 #: Slots of judge_held's integer state.
 _BASE, _FILL, _JUDGED, _WINDOWS, _ESTIMATES, _N_OUT, _MARKS, _VAR_N = range(8)
 STATE_SLOTS = 8
@@ -212,49 +220,77 @@ def _peak(y, i):
 @numba.njit(cache=True, nogil=True)
 def _candidate(y, i, jump, m1, m2, i1, i2):
     """Is row i a spike candidate: a jump from its neighbours' mean beyond ``jump`` (λ_U σ_u)
-    and (Δu, Δ²u) outside their ellipse? (the same arithmetic as _chunk_hits)"""
+    and (Δu, Δ²u) outside their ellipse? (the jump's arithmetic is _chunk_hits')"""
     e = y[i] - 0.5 * (y[i - 1] + y[i + 1])
     g1 = (0.5 * (y[i + 1] - y[i - 1]) - m1) * i1
     g2 = (0.25 * (y[i + 2] - 2.0 * y[i] + y[i - 2]) - m2) * i2
     return (abs(e) > jump) & (g1 * g1 + g2 * g2 > 1.0)
 
 
-@numba.njit(cache=True, nogil=True, fastmath=_SUMS)
-def _window_sums(col, w0, w1):
-    """Sums over a window of u and u² about its first value (reassociated: vectorised, and
-    the same bits for the same window wherever it sits in memory)."""
-    c = col[w0:w1]
-    s0 = c[0]
-    sa = 0.0
-    sb = 0.0
-    for i in range(c.shape[0]):
-        a = c[i] - s0
-        sa += a
-        sb += a * a
-    return s0, sa, sb
+@intrinsic
+def _bits(typingctx, x):
+    """The IEEE-754 bits of a float64 as an int64 (a bit cast, no conversion)."""
+    sig = types.int64(types.float64)
+
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], llvm_ir.IntType(64))
+
+    return sig, codegen
+
+
+@intrinsic
+def _from_bits(typingctx, x):
+    """The float64 whose IEEE-754 bits are the int64 x (a bit cast)."""
+    sig = types.float64(types.int64)
+
+    def codegen(context, builder, signature, args):
+        return builder.bitcast(args[0], llvm_ir.DoubleType())
+
+    return sig, codegen
 
 
 @numba.njit(cache=True, nogil=True)
-def _window_scan(col, w0, w1):
-    """Zero first differences within a window, the smallest non-zero |Δu|, the least and
-    greatest value (compare-and-branch: rarely taken, so cheap though not vectorised)."""
+def _order_key(b):
+    """An int64 that orders as the float64 of bits b does (finite values; -0 just below +0):
+    negative floats' magnitude bits are flipped. Its own inverse."""
+    return b ^ ((b >> 63) & _MAGNITUDE)
+
+
+@numba.njit(cache=True, nogil=True, fastmath=_SUMS)
+def _window_pass(col, w0, w1):
+    """One vectorised pass over a window: sums of u and u² about its first value
+    (reassociated), the zero first differences, the smallest and the largest non-zero |Δu|,
+    the least and greatest value.
+
+    Minima and maxima are taken on integer keys of the floats' bits (``_order_key``; for
+    |Δu| >= 0 the bits themselves order as the values): LLVM vectorises integer min/max
+    reductions but not the float compare-and-select ones, and on finite values the result is
+    the same value exactly. The same bits for the same window wherever it sits in memory."""
+    c = col[w0 + 1 : w1]
+    p = col[w0 : w1 - 1]
+    s0 = col[w0]
+    sa = 0.0
+    sb = 0.0
     zeros = 0
-    qmin = np.inf
-    lo = col[w0]
-    hi = col[w0]
-    for i in range(w0 + 1, w1):
-        x = col[i]
-        if x < lo:
-            lo = x
-        elif x > hi:
-            hi = x
-        d = abs(x - col[i - 1])
-        if d < qmin:
-            if d == 0.0:
-                zeros += 1
-            else:
-                qmin = d
-    return zeros, qmin, lo, hi
+    k_lo = _order_key(_bits(s0))
+    k_hi = k_lo
+    q_bits = _INF_BITS
+    d_max = 0
+    for i in range(c.shape[0]):
+        x = c[i]
+        a = x - s0
+        sa += a
+        sb += a * a
+        k = _order_key(_bits(x))
+        k_lo = min(k_lo, k)
+        k_hi = max(k_hi, k)
+        d = _bits(x - p[i]) & _MAGNITUDE  # |Δu|'s bits
+        zeros += d == 0
+        q_bits = min(q_bits, d if d != 0 else _INF_BITS)
+        d_max = max(d_max, d)
+    lo = _from_bits(_order_key(k_lo))
+    hi = _from_bits(_order_key(k_hi))
+    return s0, sa, sb, zeros, _from_bits(q_bits), _from_bits(d_max), lo, hi
 
 
 @numba.njit(cache=True, nogil=True)
@@ -300,21 +336,18 @@ def _whole_share(col, w0, w1, step):
 
 
 @numba.njit(cache=True, nogil=True)
-def _chunk_hits(y, i, j, jump, m1, m2, i1, i2):
-    """How many of rows i..j are spike candidates (a branch-free, vectorised count)."""
+def _chunk_hits(y, i, j, jump):
+    """How many of rows i..j jump from their neighbours' mean by more than ``jump`` (a
+    branch-free, vectorised count): the first half of the candidate test, which clean data
+    pass rarely; the rows of a chunk with a hit get the whole test (``_candidate``)."""
     # shifted views indexed from 0: no negative-index wraparound test, so LLVM vectorises;
-    # the arithmetic is _candidate's, term for term
+    # the arithmetic is _candidate's, term for term, so no candidate is missed
     c = y[i:j]
-    cm2 = y[i - 2 : j - 2]
     cm1 = y[i - 1 : j - 1]
     cp1 = y[i + 1 : j + 1]
-    cp2 = y[i + 2 : j + 2]
     hits = 0
     for k in range(c.shape[0]):
-        e = c[k] - 0.5 * (cm1[k] + cp1[k])
-        g1 = (0.5 * (cp1[k] - cm1[k]) - m1) * i1
-        g2 = (0.25 * (cp2[k] - 2.0 * c[k] + cm2[k]) - m2) * i2
-        hits += (abs(e) > jump) & (g1 * g1 + g2 * g2 > 1.0)
+        hits += abs(c[k] - 0.5 * (cm1[k] + cp1[k])) > jump
     return hits
 
 
@@ -322,8 +355,8 @@ def _chunk_hits(y, i, j, jump, m1, m2, i1, i2):
 def _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2):
     """Flag and replace the spikes of rows w0..w1 of y; return how many.
 
-    The candidate test runs vectorised over 64-row chunks; a chunk with a candidate is
-    scanned row by row: a confirmed spike is replaced at once (interpolation over its
+    The jump test runs vectorised over 64-row chunks; a chunk with a jump is scanned row by
+    row (the whole candidate test): a confirmed spike is replaced at once (interpolation over its
     flagged run) and the scan steps back two rows (Goring & Nikora's iteration done
     locally; with the scales fixed only rows within ±2 of a replacement change, so the scan
     runs on past the chunk while a replacement reaches beyond it)."""
@@ -331,7 +364,7 @@ def _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2):
     i = w0
     while i < w1:
         j = min(i + _CHUNK, w1)
-        if _chunk_hits(y, i, j, jump, m1, m2, i1, i2) == 0:
+        if _chunk_hits(y, i, j, jump) == 0:
             i = j
             continue
         r = i
@@ -353,6 +386,22 @@ def _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2):
 
 
 @numba.njit(cache=True, nogil=True)
+def _may_jump(col, w0, w1, dmax, lo, hi, jump):
+    """Can any row of w0..w1 jump from its neighbours' mean by more than ``jump``?
+
+    The jump e_i = (Δu_i - Δu_(i+1))/2 is at most the larger |Δu| beside row i, so where every
+    difference from row w0 - 1 to row w1 (``dmax`` inside the window, the two edges here) stays
+    below the jump, no row is a candidate and the chunk test need not run. The margin (1e-12
+    of the values' magnitude) covers the rounding of e and of the differences, so the answer
+    is never "no" where the candidate test could say "yes"."""
+    a = col[w0 - 1]
+    b = col[w1]
+    d = max(dmax, abs(col[w0] - a), abs(b - col[w1 - 1]))
+    scale = max(abs(lo), abs(hi), abs(a), abs(b))
+    return d + 1e-12 * scale > jump
+
+
+@numba.njit(cache=True, nogil=True)
 def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
     """Judge rows w0..w1 of one component (``col`` raw, rows 0-1 cleaned context, w1..
     lookahead) for spikes and rows 2..w1 for dropouts; ``y`` receives the cleaned values,
@@ -361,14 +410,14 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
     multiples of it, the window's centre and its sum of squares about it, its least and
     greatest value.
 
-    Cost: two vectorised passes (sums; the candidate test, 64 rows at a time), one scalar
-    pass only over the 64-row chunks that hold a candidate, a strided sample for the step
+    Cost: two vectorised passes (sums, repeats, step, extremes; the jump test, 64 rows at a
+    time), one scalar pass only over the 64-row chunks that hold a jump, a strided sample for
+    the step
     and, when due, the scale estimates; dropout runs only where repeats are long enough.
     """
     n = col.shape[0]
     nw = w1 - w0
-    s0, sa, sb = _window_sums(col, w0, w1)
-    zeros, qmin, lo, hi = _window_scan(col, w0, w1)
+    s0, sa, sb, zeros, qmin, dmax, lo, hi = _window_pass(col, w0, w1)
     longest, long_zeros = _zero_runs(col, w0, w1) if zeros > 0 else (0, 0)
     centre = s0 + sa / nw
     usable = (nw - 1) - long_zeros
@@ -400,7 +449,8 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
     y[:] = col
     new_spikes = 0
     new_drop = 0
-    if w0 > 2 or longest + 1 >= run_min:
+    cleaned = w0 > 2 or longest + 1 >= run_min  # y may then differ from col
+    if cleaned:
         old = fl[:w1].copy()
         for i in range(2, n):  # dropout flags are recomputed over all pending rows
             if i >= w1 or fl[i] == FLAG_DROPOUT:
@@ -410,8 +460,8 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
             if fl[i] == FLAG_DROPOUT and old[i] != FLAG_DROPOUT:
                 new_drop += 1
         _interpolate(y, fl, 2, n)
-    # --- spikes: the candidate test vectorised over 64-row chunks; a chunk with a candidate
-    # is scanned row by row: a confirmed spike is replaced at once (interpolation over its
+    # --- spikes: the jump test vectorised over 64-row chunks; a chunk with a jump is
+    # scanned row by row (the whole candidate test): a confirmed spike is replaced at once (interpolation over its
     # flagged run) and the scan steps back two rows (Goring & Nikora's iteration done
     # locally; with the scales fixed only rows within ±2 of a replacement change, so the
     # scan runs on past the chunk while a replacement reaches beyond it)
@@ -419,7 +469,8 @@ def _judge_column(col, fl, y, w0, w1, lam, hist, nest, estimate, spikes, res):
         jump = lam * su
         i1 = 1.0 / (lam * s1)
         i2 = 1.0 / (lam * s2)
-        new_spikes = _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2)
+        if cleaned or _may_jump(col, w0, w1, dmax, lo, hi, jump):
+            new_spikes = _spike_scan(y, fl, w0, w1, jump, m1, m2, i1, i2)
     res[0] = new_spikes
     res[1] = new_drop
     res[2] = qmin

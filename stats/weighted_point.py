@@ -28,7 +28,7 @@ from eddyvigil.stats.point import (
     _t_quantiles,
 )
 from eddyvigil.stats.slotting import SlottedCorrelation
-from eddyvigil.stats.stationarity import assess_columns
+from eddyvigil.stats.stationarity import MIN_SEGMENTS, assess_columns
 from eddyvigil.stats.weighted import WEIGHTINGS, TimeBlocks, WeightedMoments, sample_weights
 
 __all__ = ["WeightedPointStatistics", "MIN_SAMPLES_PER_TINT"]
@@ -37,6 +37,13 @@ __all__ = ["WeightedPointStatistics", "MIN_SAMPLES_PER_TINT"]
 MIN_SAMPLES_PER_TINT = 10.0
 #: slots of the autocorrelation, each one mean inter-arrival gap wide
 SLOTS = 128
+#: The stationarity guard's segments: at most this many (stats.stationarity is tuned on 32-63
+#: nearly independent segment means) ...
+GUARD_SEGMENTS = 63
+#: ... each, where T_int is known, at least this many integral times long while
+#: stats.stationarity.MIN_SEGMENTS remain (adjacent means then correlate by about 0.1;
+#: stats.verdict's minimum record rests on the same figure)
+GUARD_SEGMENT_TINTS = 10.0
 
 
 class WeightedPointStatistics(PointStatistics):
@@ -200,7 +207,7 @@ class WeightedPointStatistics(PointStatistics):
                 rel_all[row] = math.sqrt(0.5 / (groups - 1)) if groups > 1 else math.nan
         hw = INTERVAL_INFLATION * _t_quantiles(0.5 * (1.0 + self.confidence), blocks) * se
         suspect = {}
-        verdicts = assess_columns(self.tblocks.block_means(), se[:m].tolist())
+        verdicts = assess_columns(self._guard_segments(tints), se[:m].tolist())
         for c, verdict in zip(self.columns, verdicts, strict=True):
             if not verdict.stationary:
                 suspect[c] = verdict.reason or "not stationary"
@@ -214,6 +221,33 @@ class WeightedPointStatistics(PointStatistics):
         if rows is None:
             self._cache = ev
         return ev
+
+    def _guard_segments(self, tints) -> np.ndarray:
+        """(N, m) weighted means of equal-duration segments for the stationarity guard.
+
+        The time blocks are sized for the error analysis (a few inter-arrival gaps at first,
+        128-256 of them), not for the guard: fed to it directly, their means are many (so the
+        guard's levels, tuned on 32-63 values, do not hold) and, early in a record, shorter
+        than an integral time, so neighbours correlate and a stationary record is called
+        drifting (5 % of 1-component velocity-biased records at 200 T_int instead of about
+        1 %). So neighbouring blocks are joined in groups of g (a power of two): at most
+        GUARD_SEGMENTS segments, and longer while a segment is under GUARD_SEGMENT_TINTS
+        integral times of the slowest component and MIN_SEGMENTS would remain. Blocks past
+        the last complete group are left out (as the uniform path's segment store does).
+        """
+        tb = self.tblocks
+        used = tb.used
+        g = 1
+        while used // g > GUARD_SEGMENTS:
+            g *= 2
+        slowest = float(np.max(tints)) if len(tints) and np.all(np.isfinite(tints)) else 0.0
+        while g * tb.tau < GUARD_SEGMENT_TINTS * slowest and used // (2 * g) >= MIN_SEGMENTS:
+            g *= 2
+        b = (used // g) * g
+        W = tb.Wb[:b].reshape(-1, g).sum(axis=1)
+        S = tb.Sb[:b, : tb.m].reshape(-1, g, tb.m).sum(axis=1)
+        keep = W > 0
+        return S[keep] / W[keep, None] + tb.ref
 
     def _weighted_guards(self, tints, se, hw):
         """The minimum record and the modelled-k rule of PointStatistics._guards, for random
