@@ -34,7 +34,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.fft
-from eddyvigil.stats.spectral_kernels import accumulate_pairs, fold_pairs, window_pairs
+from eddyvigil.stats.spectral_kernels import accumulate_pairs, window_pairs
 from scipy import signal as sps
 from scipy import stats as sst
 
@@ -161,6 +161,17 @@ def chi2_interval(psd, dof, confidence: float = 0.95) -> tuple[np.ndarray, np.nd
     low[bad] = np.nan
     high[bad] = np.nan
     return low, high
+
+
+def _fold_pairs(sums: np.ndarray) -> np.ndarray:
+    """``(S_f + S_{n-f}) / 2`` for f = 0 .. n // 2 of the sums (m, n) of packed pairs
+    (``spectral_kernels.accumulate_pairs``): the sums of the segments' ``|X_f|^2``, (m, n//2+1)."""
+    n = sums.shape[1]
+    nf = n // 2 + 1
+    out = np.empty((sums.shape[0], nf))
+    out[:, 0] = sums[:, 0]
+    out[:, 1:] = 0.5 * (sums[:, 1:nf] + sums[:, n - 1 : n - nf : -1])
+    return out
 
 
 @dataclass(frozen=True)
@@ -458,7 +469,8 @@ class SpectrumAccumulator:
         if not self.segments:
             return None
         n = self.segment
-        psd = np.ascontiguousarray(fold_pairs(self._sums()).T) * (self._scale / self.segments)  # (nfreq, m)
+        folded = np.ascontiguousarray(_fold_pairs(self._sums()).T)
+        psd = folded * (self._scale / self.segments)  # (nfreq, m)
         psd[1 : (n + 1) // 2] *= 2.0  # one-sided: all but DC (and Nyquist for even n)
         dof = np.full(psd.shape[0], welch_dof(self.window, self.hop * self.stride, self.segments))
         dof[0] /= 2.0

@@ -15,7 +15,7 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["accumulate_pairs", "flattest_run", "fold_pairs", "segment_sum", "window_pairs"]
+__all__ = ["accumulate_pairs", "flattest_run", "segment_sum", "window_pairs"]
 
 
 @numba.njit(cache=True, nogil=True)
@@ -89,7 +89,7 @@ def accumulate_pairs(spec: np.ndarray, out: np.ndarray) -> None:  # pragma: no c
     Z = A + iB is the transform of two real segments a, b packed by :func:`window_pairs`. Since
     ``A_f = (Z_f + conj Z_{n-f}) / 2`` and ``B_f = (Z_f - conj Z_{n-f}) / 2i``, the pair's power
     ``|A_f|^2 + |B_f|^2 = (|Z_f|^2 + |Z_{n-f}|^2) / 2``: the sums are kept over all n bins and
-    folded once, by :func:`fold_pairs`, when the spectrum is read (an odd last segment, B = 0,
+    folded once, by ``spectra._fold_pairs``, when the spectrum is read (an odd last segment, B = 0,
     gives ``|A_f|^2``). ``|Z|^2`` is formed in float64 and added pair by pair in order, so the
     sums do not depend on how the pairs were batched.
     """
@@ -102,17 +102,6 @@ def accumulate_pairs(spec: np.ndarray, out: np.ndarray) -> None:  # pragma: no c
                 re = np.float64(z[t].real)
                 im = np.float64(z[t].imag)
                 o[t] += re * re + im * im
-
-
-def fold_pairs(sums: np.ndarray) -> np.ndarray:
-    """``(S_f + S_{n-f}) / 2`` for f = 0 .. n // 2 of sums (m, n) from :func:`accumulate_pairs`:
-    the sums of the segments' ``|X_f|^2`` (m, n // 2 + 1)."""
-    n = sums.shape[1]
-    nf = n // 2 + 1
-    out = np.empty((sums.shape[0], nf))
-    out[:, 0] = sums[:, 0]
-    out[:, 1:] = 0.5 * (sums[:, 1:nf] + sums[:, n - 1 : n - nf : -1])
-    return out
 
 
 @numba.njit(cache=True, nogil=True)
