@@ -2,6 +2,7 @@
 
     python benchmarks/bench_spectra.py [--seconds 60] [--repeat 5] [--rows 16384]
                                        [--baseline DIR]
+    python benchmarks/bench_spectra.py --eps-coverage 40 [--seconds 10]
 
 The frames ``watch`` receives (3 float32 columns at 20 kHz, ``--rows`` per message, points of
 ``--seconds``) are encoded once, then fed through ``Pipeline.handle_frames`` (decode, every
@@ -23,7 +24,14 @@ round, the arms interleaved:
 Prints samples per CPU second of each arm per round, the median extra CPU over ``off`` in %
 with its range over the rounds, the largest relative difference of the summary's ``eps``,
 ``eps_inertial`` and ``eps_iso`` between ``before`` and ``on``, and the CPU time of one
-``dissipation()`` evaluation and of the Welch update of one point. No assertions.
+``dissipation()`` evaluation and of the Welch update of one point (with ``--baseline``, also
+its ratio to the "before" code's, alone, in interleaved rounds). No assertions.
+
+``--eps-coverage N`` measures instead how often the 95 % interval of ``eps_iso`` holds the
+generator's ε on N seeded points of ``--seconds`` each of the demo's wake-centre point
+(``PopeShapeGenerator``: U = 8.5 m/s, the wake's stresses, L11 = 40 mm, 20 kHz), with u unskewed
+and with the wake's skew parameter (-0.06), and the inertial fit's bias that Pope's model
+spectrum itself implies at the wake's Reynolds numbers (its compensated E11 peak against C1).
 """
 
 from __future__ import annotations
@@ -144,6 +152,42 @@ def cpu_per_call(fn, calls: int = 5) -> float:
     return best
 
 
+def eps_coverage(points: int, seconds: float) -> None:
+    """Coverage of eps_iso's interval with u unskewed and skewed (see the module docstring)."""
+    from eddyvigil.simulator.signals import PopeShapeGenerator, pope_for_length
+
+    mean = [8.5, 0.0, 0.0]
+    stress = [[0.37, -0.05, 0.0], [-0.05, 0.31, 0.0], [0.0, 0.0, 0.26]]  # the wake's centre
+    nu = 1.5e-5
+    for skew in (0.0, -0.06):
+        held, err, half = [], [], []
+        for seed in range(points):
+            gen = PopeShapeGenerator(mean, stress, 0.04, nu, RATE, seed=100 + seed,
+                                     skew=[skew, 0.1, 0.0])
+            x = generate(gen, int(seconds * RATE))
+            spec = SpectrumAccumulator(("u", "v", "w"), RATE).update(x.astype("<f4")).snapshot()
+            q = dissipation(spec, mean[0], nu=nu, variance=float(np.var(x[:, 0]))).eps_iso
+            truth = gen.epsilon()
+            held.append(q.ci_low <= truth <= q.ci_high)
+            err.append(q.value / truth - 1)
+            half.append((q.ci_high - q.ci_low) / 2 / q.value)
+        print(
+            f"u skew parameter {skew:+.2f}, {points} points of {seconds:g} s: eps_iso's 95 % "
+            f"interval held the truth in {np.mean(held):.2f}; error mean {100 * np.mean(err):+.2f} "
+            f"%, sd {100 * np.std(err, ddof=1):.2f} %; mean half-width {100 * np.mean(half):.2f} %"
+        )
+    for u2 in (0.37, 0.2, 0.1):  # u'^2 across the wake, L11 = 40 mm
+        sp = pope_for_length(1.5 * u2, 0.04, nu)
+        f = np.geomspace(0.1, 1e5, 4000)
+        k = 2 * np.pi * f / mean[0]
+        comp = mean[0] * sp.psd(f, mean[0]) / (2 * np.pi) * k ** (5 / 3) / sp.eps ** (2 / 3)
+        peak = float(comp.max())
+        print(
+            f"Pope's model at Re_lambda {sp.re_lambda:.0f}: compensated E11 peaks at {peak:.3f} "
+            f"(C1 = 0.49): an inertial fit reads eps {100 * ((peak / 0.49) ** 1.5 - 1):+.1f} %"
+        )
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, default=60.0, help="point length (s of data)")
@@ -151,7 +195,12 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=5)
     ap.add_argument("--rows", type=int, default=16384)
     ap.add_argument("--baseline", type=Path, help="a checkout whose spectra modules are 'before'")
+    ap.add_argument("--eps-coverage", type=int, metavar="N",
+                    help="only measure eps_iso's coverage on N points (see the docstring)")
     a = ap.parse_args()
+    if a.eps_coverage:
+        eps_coverage(a.eps_coverage, a.seconds)
+        return
     n = int(a.seconds * RATE) * a.points
     gen = PopeGenerator([5.0, 0.0, 0.0], 1.5, 4.0, 1.5e-5, RATE, 1)
     x = generate(gen, n).astype("<f4")
@@ -217,9 +266,9 @@ def main() -> None:
     point = x[: int(a.seconds * RATE)]
     blocks = [point[i : i + a.rows] for i in range(0, point.shape[0], a.rows)]
 
-    def welch():
-        acc = SpectrumAccumulator(("u", "v", "w"), RATE)
-        for b in blocks:
+    def welch(cls=SpectrumAccumulator, parts=blocks):
+        acc = cls(("u", "v", "w"), RATE)
+        for b in parts:
             acc.update(b)
         return acc.snapshot()
 
@@ -229,6 +278,18 @@ def main() -> None:
         f"{cpu_per_call(welch, 2) * 1e3:.1f} ms CPU; one dissipation() evaluation: "
         f"{cpu_per_call(lambda: dissipation(spec, 5.0)) * 1e3:.1f} ms CPU"
     )
+    if a.baseline is not None:  # the Welch update alone, now and before, interleaved rounds
+        old_cls = sys.modules["_before_spectra"].SpectrumAccumulator
+        for kind, parts in (("float32", blocks), ("float64", [b.astype("<f8") for b in blocks])):
+            ratios = []
+            for _ in range(2 * a.repeat + 1):
+                now = cpu_per_call(functools.partial(welch, SpectrumAccumulator, parts), 1)
+                was = cpu_per_call(functools.partial(welch, old_cls, parts), 1)
+                ratios.append(now / was)
+            print(
+                f"one point's Welch update alone, {kind}, now / before: median "
+                f"{statistics.median(ratios):.2f} (rounds {min(ratios):.2f}-{max(ratios):.2f})"
+            )
 
 
 if __name__ == "__main__":

@@ -4,9 +4,10 @@ Welch (1967, IEEE Trans. Audio Electroacoust. 15:70) averages the periodograms o
 overlapping segments. Here the average is kept as a *sum* of periodograms and a count, so a
 point's spectrum is updated block by block and two records merge exactly (sums add). Each
 segment is detrended by its own mean (as ``scipy.signal.welch``'s default) and windowed with a
-periodic Hann window in one numba pass (``spectral_kernels.window_segments``); complete segments
-go through ``scipy.fft.rfft`` in batches of :data:`FFT_BATCH` per column (a snapshot takes the
-rest): no per-sample Python.
+periodic Hann window in one numba pass (``spectral_kernels.window_pairs``); complete segments
+go through ``scipy.fft.fft`` two per complex transform (real and imaginary parts), in batches of
+:data:`FFT_BATCH` segments per column (a snapshot adds the rest to a copy of the sums): no
+per-sample Python.
 
 Uncertainty: the Welch average of ``K`` segments at 50 % overlap is ~ ``S chi2_nu / nu`` with
 the equivalent degrees of freedom (Percival & Walden 1993, *Spectral Analysis for Physical
@@ -27,12 +28,13 @@ The segment length is chosen so the resolution is well below ``1/T_int``:
 
 from __future__ import annotations
 
+import copy
 import math
 from dataclasses import dataclass
 
 import numpy as np
 import scipy.fft
-from eddyvigil.stats.spectral_kernels import accumulate_power, window_segments
+from eddyvigil.stats.spectral_kernels import accumulate_pairs, window_pairs
 from scipy import signal as sps
 from scipy import stats as sst
 
@@ -54,11 +56,13 @@ __all__ = [
 RESOLUTION_FACTOR = 20.0
 MIN_SEGMENT = 256
 MAX_SEGMENT = 1 << 16
-#: segments transformed per column in one scipy.fft call (a multiple of it): pocketfft runs
-#: float32 transforms 4 at a time in SIMD lanes (float64: 2), so a batch of 4 segments per
-#: column costs ~13 us per 8192-point float32 segment where 1 or 2 cost ~28 us (scipy 1.17
-#: on this project's CI machine); the others wait in the buffer for the next block
-FFT_BATCH = 4
+#: segments transformed per column in one scipy.fft call (a multiple of it), two per complex
+#: transform: pocketfft runs complex64 transforms 4 at a time in SIMD lanes, so 8 segments
+#: per column (4 packed pairs; 12 pairs for 3 columns) cost ~10 us per 8192-point float32
+#: segment, where real transforms in batches of 4 cost ~12.5 us and packed pairs in batches of
+#: 4 segments ~14 us (float64: ~19 against ~24.5 us; scipy 1.17, this project's CI machine,
+#: benchmarks/bench_spectra.py); the others wait in the buffer for the next block
+FFT_BATCH = 8
 
 
 def segment_length(rate_hz: float, tint_s: float | None) -> int:
@@ -78,18 +82,21 @@ def segment_length(rate_hz: float, tint_s: float | None) -> int:
 def integral_time_estimate(x: np.ndarray, rate_hz: float) -> float:
     """Integral time scale (s) of the slowest column: the ACF integrated to its first zero.
 
-    Used only to pick the segment length, so a rough value is enough.
+    Used only to pick the segment length, so a rough value is enough: float32 samples take the
+    float32 transform (about 20 % cheaper; its rounding moves the estimate by ~1e-8 relative).
     """
-    x = np.asarray(x, dtype=np.float64)
+    x = np.asarray(x)
     if x.ndim == 1:
         x = x[:, None]
     n = x.shape[0]
     if n < 16:
         return float("nan")
-    y = (x - x.mean(axis=0)).T  # (m, n): each column's transform on contiguous rows
-    nfft = scipy.fft.next_fast_len(2 * n)
-    spec = scipy.fft.rfft(y, nfft, axis=1)
-    acf = scipy.fft.irfft(np.abs(spec) ** 2, nfft, axis=1)[:, :n]
+    ftype = np.float32 if x.dtype == np.float32 else np.float64
+    # each column's transform on contiguous rows, the mean removed in float64
+    y = np.ascontiguousarray((x - x.mean(axis=0, dtype=np.float64)).T, dtype=ftype)
+    nfft = scipy.fft.next_fast_len(2 * n - 1, real=True)
+    spec = scipy.fft.rfft(y, nfft, axis=1, overwrite_x=True)
+    acf = scipy.fft.irfft(spec.real**2 + spec.imag**2, nfft, axis=1, overwrite_x=True)[:, :n]
     out = 0.0
     for j in range(acf.shape[0]):
         if acf[j, 0] <= 0:
@@ -97,7 +104,7 @@ def integral_time_estimate(x: np.ndarray, rate_hz: float) -> float:
         r = acf[j] / acf[j, 0]
         neg = np.flatnonzero(r <= 0)
         stop = int(neg[0]) if neg.size else n
-        out = max(out, (r[:stop].sum() - 0.5) / rate_hz)
+        out = max(out, (float(r[:stop].sum(dtype=np.float64)) - 0.5) / rate_hz)
     return out if out > 0 else float("nan")
 
 
@@ -154,6 +161,17 @@ def chi2_interval(psd, dof, confidence: float = 0.95) -> tuple[np.ndarray, np.nd
     low[bad] = np.nan
     high[bad] = np.nan
     return low, high
+
+
+def _fold_pairs(sums: np.ndarray) -> np.ndarray:
+    """``(S_f + S_{n-f}) / 2`` for f = 0 .. n // 2 of the sums (m, n) of packed pairs
+    (``spectral_kernels.accumulate_pairs``): the sums of the segments' ``|X_f|^2``, (m, n//2+1)."""
+    n = sums.shape[1]
+    nf = n // 2 + 1
+    out = np.empty((sums.shape[0], nf))
+    out[:, 0] = sums[:, 0]
+    out[:, 1:] = 0.5 * (sums[:, 1:nf] + sums[:, n - 1 : n - nf : -1])
+    return out
 
 
 @dataclass(frozen=True)
@@ -296,7 +314,8 @@ class SpectrumAccumulator:
         self.hop = n - n // 2  # scipy.signal.welch's default overlap n // 2
         self.window = sps.get_window("hann", n)  # periodic Hann, as scipy.signal.welch
         self._scale = 1.0 / (self.rate_hz * float(np.dot(self.window, self.window)))
-        self._sum = np.zeros((self._m, n // 2 + 1))  # per column, transposed by snapshot()
+        # per column, all n bins of the packed pairs' |Z|^2, folded by snapshot()
+        self._sum = np.zeros((self._m, n))
 
     @property
     def n(self) -> int:
@@ -328,9 +347,23 @@ class SpectrumAccumulator:
         n, step = self.segment, self.hop * self.stride
         return 0 if self._fill < n else 1 + (self._fill - n) // step
 
+    def _add_power(self, k: int, out: np.ndarray) -> None:
+        """Window and transform the first ``k`` complete segments held, two per complex
+        transform (segments 0 and 1, 2 and 3, ...), and add their power to ``out``."""
+        n, step = self.segment, self.hop * self.stride
+        pairs = (k + 1) // 2
+        size = self._m * pairs * n
+        ctype = np.complex64 if self._buf.dtype == np.float32 else np.complex128
+        if self._work.size < size or self._work.dtype != ctype:
+            self._work = np.empty(size, dtype=ctype)
+        work = self._work[:size].reshape(self._m, pairs, n)
+        window_pairs(self._buf, self._head, step, k, self.window, work)
+        # one batched transform for the whole batch (m pairs complex rows, contiguous)
+        accumulate_pairs(scipy.fft.fft(work, axis=2, overwrite_x=True), out)
+
     def _transform(self, flush: bool) -> None:
-        """Window, transform and add to the sums the complete segments held (``flush`` False: a
-        multiple of :data:`FFT_BATCH` of them, the rest wait for the next block)."""
+        """Add the complete segments held to the sums (``flush`` False: a multiple of
+        :data:`FFT_BATCH` of them, the rest wait for the next block)."""
         if self.segment is None:
             return
         k = self._complete()
@@ -338,14 +371,8 @@ class SpectrumAccumulator:
             k -= k % FFT_BATCH
         if k == 0:
             return
-        n, step, have = self.segment, self.hop * self.stride, self._fill
-        size = self._m * k * n
-        if self._work.size < size or self._work.dtype != self._buf.dtype:
-            self._work = np.empty(size, dtype=self._buf.dtype)
-        work = self._work[:size].reshape(self._m, k, n)
-        window_segments(self._buf, self._head, step, self.window, work)
-        # one batched transform for the whole batch (m k segments, contiguous rows)
-        accumulate_power(scipy.fft.rfft(work, axis=2, overwrite_x=True), self._sum)
+        step, have = self.hop * self.stride, self._fill
+        self._add_power(k, self._sum)
         self._done += k
         self._skip = max(0, k * step - have)  # a stride may step past the data held
         keep = max(0, have - k * step)
@@ -353,15 +380,25 @@ class SpectrumAccumulator:
         self._fill = keep
 
     def flush(self) -> SpectrumAccumulator:
-        """Add the complete segments still waiting for a full batch to the sums.
+        """Add every complete segment still waiting for a full batch to the sums.
 
-        Not an observable change: every segment's window, transform and power are the same bits
-        whichever batch carries it, and the sums add segment by segment in order (the tests of
-        block-splitting invariance check it), so a snapshot taken at any moment does not change
-        later results (live = replay).
+        An odd last segment then goes alone, and the pairs after it start one segment later:
+        the sums' last bits depend on where flushes happened, so only a change in the data
+        (a float64 block after float32 ones) or a merge flushes; a snapshot does not (it adds
+        the waiting segments to a copy of the sums, see :meth:`_sums`).
         """
         self._transform(flush=True)
         return self
+
+    def _sums(self) -> np.ndarray:
+        """The sums with the complete segments still waiting added, pair by pair in order as a
+        later batch will add them, in a copy (the state does not change: live = replay)."""
+        k = self._complete() if self.segment is not None else 0
+        if k == 0:
+            return self._sum
+        out = self._sum.copy()
+        self._add_power(k, out)
+        return out
 
     @property
     def segments(self) -> int:
@@ -378,7 +415,8 @@ class SpectrumAccumulator:
         means, the windowing and the sums of periodograms are float64 either way.
         """
         if self._buf.dtype != np.float64 and x.dtype != np.float32:
-            # complete segments still waiting go in float32, as a snapshot would have sent them
+            # complete segments still waiting go in float32 (a change in the data, so the pairs
+            # after it start where they would whatever the blocks and snapshots)
             self._transform(flush=True)
             head, fill = self._head, self._fill
             self._buf, self._head = self._buf[:, head : head + fill].astype(np.float64), 0
@@ -412,13 +450,15 @@ class SpectrumAccumulator:
             )
         if self.stride != other.stride:
             raise ValueError("spectra taken with different strides cannot be merged")
-        self.flush()
-        other.flush()  # not an observable change (see flush)
+        # other's waiting segments go in, its incomplete tail goes on (a flushed copy: the
+        # inputs are untouched); self's waiting segments count, its tail is the lost seam
+        tail = copy.deepcopy(other).flush()
         out = SpectrumAccumulator(
             self.columns, self.rate_hz, segment=self.segment, stride=self.stride
         )
-        out._sum = self._sum + other._sum
-        out._done = self._done + other._done
+        out._sum = self._sums() + tail._sum
+        out._done = self.segments + tail._done
+        other = tail
         out._buf = other._buf[:, other._head : other._head + other._fill].copy()
         out._fill = other._fill
         out._skip = other._skip
@@ -426,11 +466,11 @@ class SpectrumAccumulator:
 
     def snapshot(self) -> SpectrumSnapshot | None:
         """The current estimate, or None before the first complete segment."""
-        self.flush()
         if not self.segments:
             return None
         n = self.segment
-        psd = np.ascontiguousarray(self._sum.T) * (self._scale / self.segments)  # (nfreq, m)
+        folded = np.ascontiguousarray(_fold_pairs(self._sums()).T)
+        psd = folded * (self._scale / self.segments)  # (nfreq, m)
         psd[1 : (n + 1) // 2] *= 2.0  # one-sided: all but DC (and Nyquist for even n)
         dof = np.full(psd.shape[0], welch_dof(self.window, self.hop * self.stride, self.segments))
         dof[0] /= 2.0
