@@ -22,7 +22,10 @@ Set-up (all real processes on 127.0.0.1):
 Every ``--sample-every`` seconds: watch's RSS, open file descriptors, threads, CPU share,
 dashboard connections, and the latest page lag. At the end every message is accounted for:
 messages sent by all publishers = messages the run line counts; samples sent = samples
-counted; malformed sent = rejected; lost = gaps = 0 (PUSH/PULL loses nothing).
+counted (less the rows of a restarted publisher's stragglers, rejected as ``late_session``);
+malformed sent = the other rejections; lost = gaps = 0 (PUSH/PULL loses nothing). Before the
+monitor is stopped the script waits until its recording stops growing (``drain_s``): a
+lagging monitor still holds messages ZeroMQ delivered.
 """
 
 from __future__ import annotations
@@ -54,6 +57,27 @@ def free_port() -> int:
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         return s.getsockname()[1]
+
+
+def recording_bytes(rec: Path) -> int:
+    """Bytes the monitor has recorded so far (it records every frame it has handled)."""
+    return sum(f.stat().st_size for f in rec.rglob("*") if f.is_file()) if rec.exists() else 0
+
+
+def wait_until_drained(rec: Path, quiet_s: float = 3.0, limit_s: float = 600.0) -> float:
+    """Wait until the recording stops growing for ``quiet_s`` (the monitor has handled every
+    message ZeroMQ delivered to it; a lagging monitor may hold many), at most ``limit_s``.
+    Returns the seconds waited: stopping the monitor earlier would drop what it still holds."""
+    start = last_change = time.monotonic()
+    size = recording_bytes(rec)
+    while time.monotonic() - start < limit_s:
+        time.sleep(0.5)
+        now_size = recording_bytes(rec)
+        if now_size != size:
+            size, last_change = now_size, time.monotonic()
+        elif time.monotonic() - last_change >= quiet_s:
+            break
+    return time.monotonic() - start
 
 
 # ----------------------------------------------------------------------- child processes
@@ -364,7 +388,8 @@ def run_soak(seconds: float, *, streams: int = 64, rate: float = 20_000.0, rows:
                 c.kill()
                 killed.append(" ".join(c.args[2:4]))
         time.sleep(2.0)
-        settle = {"dash_conns_after_browsers": sum(
+        drained_s = wait_until_drained(workdir / "rec")
+        settle = {"drain_s": drained_s, "dash_conns_after_browsers": sum(
             1 for c in proc.net_connections(kind="tcp")
             if c.laddr and c.laddr.port == dport and c.status == "ESTABLISHED")}
         watch.send_signal(signal.SIGTERM)
@@ -403,7 +428,8 @@ def summarise(res: dict, log=print) -> None:
     rej = sum(run["rejected"].values())
     log(f"messages: sent {res['sent_messages']}, counted {run['messages']}; samples: sent "
         f"{res['sent_rows']}, counted {run['samples']}; malformed sent {res['garbage_sent']}, "
-        f"rejected {rej}; lost {run['lost']}, gaps {run['gaps']}; restarts made "
+        f"rejected {rej} (late_session {run['rejected'].get('late_session', 0)}, drained in "
+        f"{res.get('drain_s', 0):.1f} s); lost {run['lost']}, gaps {run['gaps']}; restarts made "
         f"{res['restarts_made']}, counted {run['restarts']}")
     if s:
         rss = [r["rss_mib"] for r in s]

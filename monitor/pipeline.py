@@ -97,6 +97,7 @@ __all__ = [
 #: Reasons the pipeline itself rejects a well-formed message for (in addition to the wire's).
 PIPELINE_REJECTION_REASONS = (
     "duplicate_seq",
+    "late_session",
     "layout_changed",
     "units_changed",
     "time_backwards",
@@ -269,7 +270,11 @@ class Pipeline:
 
     def _check_sequence(self, st: StreamState, session: str, seq: int) -> str | None:
         """Sequence accounting (monitor.sequence); a restart finishes the current point and a
-        loss is charged to the current point, or to the next when none is current."""
+        loss is charged to the current point, or to the next when none is current. A late
+        message of a session a restart ended (PULL interleaves a lagging old connection with
+        the new one) is rejected as ``late_session``: its point is already finished."""
+        if st.sequence.is_late(session):
+            return "late_session"
         if st.sequence.is_restart(session):
             if st.current is not None:
                 self._finish_point(st, complete=False)  # its line names the old session

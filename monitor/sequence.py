@@ -10,6 +10,11 @@ numbers alone :class:`SequenceAccount` tells a repeated message from a lost one:
   that arrived in the meantime but were too broken to read a ``seq`` from (they consumed a
   ``seq`` yet cannot be placed: :meth:`SequenceAccount.unreadable`).
 - A new session is a publisher restart: fresh expectations, one more restart counted.
+- A message of a session that a restart already ended is *late* (:meth:`is_late`): with
+  PUSH/PULL a lagging monitor may still hold messages of the old connection when the
+  restarted publisher's arrive, and ZeroMQ queues the two connections fairly, so they
+  interleave. Such a message is not another restart (the pipeline rejects it as
+  ``late_session``): otherwise every interleaving would end a point.
 
 It knows nothing of points: the stream charges a loss to its current point or the next
 (:meth:`eddyvigil.monitor.stream.StreamState.charge_loss`), and the pipeline finishes the
@@ -29,6 +34,7 @@ SeqOutcome(duplicate=True, lost=0)
 
 from __future__ import annotations
 
+from collections import deque
 from typing import NamedTuple
 
 __all__ = ["SeqOutcome", "SequenceAccount"]
@@ -41,11 +47,16 @@ class SeqOutcome(NamedTuple):
     lost: int
 
 
+#: Ended sessions remembered per stream (late messages of older ones count as restarts).
+ENDED_SESSIONS = 64
+
+
 class SequenceAccount:
     """Session, expected ``seq``, gaps, losses and restarts of one stream (totals of the run)."""
 
     def __init__(self) -> None:
         self.session: str | None = None
+        self.ended: deque[str] = deque(maxlen=ENDED_SESSIONS)  # sessions a restart ended
         self.expected_seq: int | None = None
         self.unreadable_pending = 0
         self.gaps = 0
@@ -55,6 +66,10 @@ class SequenceAccount:
     def is_restart(self, session: str) -> bool:
         """True when ``session`` is not the stream's current one (a baseline exists)."""
         return self.session is not None and session != self.session
+
+    def is_late(self, session: str) -> bool:
+        """True when ``session`` is one a restart of this stream already ended."""
+        return session != self.session and session in self.ended
 
     def unreadable(self) -> None:
         """A message of this stream arrived too broken to read its ``seq``: it consumed one."""
@@ -66,6 +81,7 @@ class SequenceAccount:
             if self.session is not None:
                 self.restarts += 1
                 self.unreadable_pending = 0
+                self.ended.append(self.session)
             self.session, self.expected_seq = session, seq + 1
             return SeqOutcome(False, 0)
         if seq < self.expected_seq:

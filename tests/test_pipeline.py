@@ -188,6 +188,33 @@ def test_publisher_restart_finishes_point_incomplete_and_starts_fresh():
     assert run["restarts"] == 1 and run["points"] == 2
 
 
+def test_late_messages_of_an_ended_session_are_rejected_not_restarts():
+    # PUSH/PULL queues connections fairly (ZeroMQ guide, "fair-queuing"; common practice): a
+    # lagging monitor can receive the old connection's last messages after the restarted
+    # publisher's first. One restart, the old point untouched, the stragglers counted.
+    p, buf = new_pipeline()
+    a = StreamWriter(session="first")
+    data = blocks(8, 6)
+    p.handle_frames(a.point("P1"))
+    p.handle_frames(a.samples(data[0]))
+    b = StreamWriter(session="second")
+    p.handle_frames(b.point("P1"))
+    p.handle_frames(b.samples(data[1]))
+    assert p.handle_frames(a.samples(data[2])) == "late_session"
+    p.handle_frames(b.samples(data[3]))
+    assert p.handle_frames(a.samples(data[4])) == "late_session"
+    p.handle_frames(b.samples(data[5]))
+    p.handle_frames(b.end())
+    p.close()
+    first, second, run = lines_of(buf)
+    assert first["samples"] == 4096 and first["session"] == "first"
+    assert second["samples"] == 3 * 4096 and second["rejected"]["late_session"] == 2
+    assert sum(second["rejected"].values()) == 2
+    assert run["restarts"] == 1 and run["points"] == 2
+    assert {k: v for k, v in run["rejected"].items() if v} == {"late_session": 2}
+    assert run["messages"] == 9
+
+
 def test_implicit_point_samples_point_and_shutdown_incomplete():
     p, buf = new_pipeline()
     w = StreamWriter()

@@ -42,8 +42,12 @@ def test_two_minute_soak_accounts_for_every_message(tmp_path):
     assert res["watch_exit"] == 0 and res["tracebacks"] == 0
     assert res["publisher_reports"] == 2 + res["restarts_made"]
     assert run["messages"] == res["sent_messages"]
-    assert run["samples"] == res["sent_rows"] > 0
-    assert sum(run["rejected"].values()) == res["garbage_sent"] > 0
+    # a restarted publisher's old connection may still deliver after the new one (PULL queues
+    # connections fairly): those stragglers are rejected as late_session, rows and all
+    late = run["rejected"].get("late_session", 0)
+    assert res["sent_rows"] - 1024 * late <= run["samples"] <= res["sent_rows"]
+    assert run["samples"] > 0 and (late > 0 or run["samples"] == res["sent_rows"])
+    assert sum(run["rejected"].values()) - late == res["garbage_sent"] > 0
     assert run["lost"] == 0 and run["gaps"] == 0
     assert run["restarts"] == res["restarts_made"] >= 3
     assert len(run["streams"]) == 16
