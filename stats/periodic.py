@@ -1,5 +1,5 @@
-"""Periodic content and the errors of the means and second moments: a line (vortex shedding, a vibrating probe) taken
-out before blocking.
+"""Periodic content and the errors of the means and second moments: a line (vortex shedding, a
+vibrating probe) taken out before blocking.
 
 A sinusoid of period P adds to the variance of block means as (A^2/2) sinc^2(pi b / P) at block
 length b: the blocking curve of a mean over-states its error wherever blocks are not much longer
@@ -477,8 +477,9 @@ class RowStore:
         a, ta, da = self._coarsened(length)
         b, tb, db = other._coarsened(length)
         delta = other.ref - self.ref
-        b = np.concatenate([b[:, : self.m] + delta, _shift2(b[:, self.m :], b[:, : self.m],
-                                                            delta, 1.0)], axis=1)
+        b = np.concatenate(
+            [b[:, : self.m] + delta, _shift2(b[:, self.m :], b[:, : self.m], delta, 1.0)], axis=1
+        )
         rows = np.concatenate([a, b])
         times = np.concatenate([ta, tb + self.seen])
         dropped = da + db + self.carry_n

@@ -3,8 +3,8 @@
 ``row_push`` turns samples into the row means of :class:`eddyvigil.stats.periodic.RowStore`:
 equal-length rows of ``x - ref`` and of the second-order products ``(x - ref)_a (x - ref)_b``
 (a <= b, in the order of ``monomials.layout(m).combos[2]``) with the centre time of each row,
-halving the row count by pairing neighbours whenever the store is full. Checked against numpy's reshape-and-mean in
-tests/test_periodic.py.
+halving the row count by pairing neighbours whenever the store is full. Checked against numpy's
+reshape-and-mean in tests/test_periodic.py.
 """
 
 from __future__ import annotations
