@@ -1,5 +1,5 @@
-"""Periodic content and the error of the mean: a line (vortex shedding, a vibrating probe) taken
-out before blocking.
+"""Periodic content and the errors of the means and second moments: a line (vortex shedding, a
+vibrating probe) taken out before blocking.
 
 A sinusoid of period P adds to the variance of block means as (A^2/2) sinc^2(pi b / P) at block
 length b: the blocking curve of a mean over-states its error wherever blocks are not much longer
@@ -8,9 +8,10 @@ the record, falls as 1/T, not 1/sqrt(T). The remedy here treats an identified li
 deterministic and blocks the remainder:
 
 1. :class:`RowStore` keeps the record as at most ``ROWS`` equal-length row means per component
-   (with each row's centre time), halving the count by pairing neighbours when full: bounded
-   memory (ROWS x (m + 1) doubles), mergeable, and it always spans the whole record, so a line
-   with up to ~ROWS/4 periods in the record is resolved.
+   and per product of two components (with each row's centre time), halving the count by
+   pairing neighbours when full: bounded memory (ROWS x (m + 1) (m + 2) / 2 doubles),
+   mergeable, and it always spans the whole record, so a line with up to ~ROWS/4 periods in
+   the record is resolved.
 2. :func:`find_lines`, run again each time the record has grown by SEARCH_GROWTH (the
    frequencies kept in the state): a twice zero-padded Hann periodogram of the rows; a bin is
    a line when it stands above the larger of the mean levels of FLANK natural bins on either
@@ -32,9 +33,19 @@ deterministic and blocks the remainder:
    known size d, a normal error and the interval 1.96 sqrt(V + d^2) cover 0.950 or more
    whatever d / sqrt(V); from the normal distribution).
 
-Only the means (U, V, W) are corrected: the stresses' influence series need every monomial's
-rows, ~10x the memory, and a fitted line changes the stresses themselves. With no line found
-nothing is changed (the point's errors are exactly the blocking ones).
+4. :meth:`RowStore.second_errors`: a second moment (uu, uv, k, ...) is a smooth function of the
+   means of x - ref and of the products (x - ref)_a (x - ref)_b, so the row means of its
+   influence series are ``rows @ g1 + rows2 @ g2`` (g: its gradient, exact for the
+   linearisation the blocking errors use). The store keeps the m (m + 1) / 2 product rows
+   beside the m first-order ones (4096 x (m + 1) (m + 2) / 2 doubles). Lines at f_a and f_b in
+   components a and b put lines at f_a + f_b and |f_a - f_b| into the products (sin^2 = (1 -
+   cos 2 w t) / 2), aliased into the rows' band; those at f_a cancel against the mean's term
+   of the gradient. They are fitted and the remainder blocked as for a mean (3.); the
+   statistic itself is unchanged (a line is part of the variance it measures).
+
+Skewness, flatness and the other higher moments keep blocking's errors (their rows would need
+the monomials of degree 3 and 4). With no line found nothing is changed (the point's errors
+are exactly the blocking ones).
 """
 
 from __future__ import annotations
@@ -80,6 +91,10 @@ MAX_LINES = 2
 #: lines are looked for again each time the record has grown by this factor (their
 #: frequencies kept in the state; amplitude and phase are fitted afresh at every evaluation)
 SEARCH_GROWTH = 1.5
+#: highest frequency (cycles per row) of a derived line in a second moment's rows (sum and
+#: difference frequencies; kept clear of the rows' Nyquist frequency, where a sinusoid's two
+#: columns become one)
+MAX_FOLDED = 0.45
 #: fine-grid points across +- half a natural bin when refining a line's frequency
 REFINE = 11
 
@@ -267,6 +282,37 @@ def line_mean_error(
     )
 
 
+def _fold(f: float) -> float:
+    """A frequency (cycles per row) as the rows see it: aliased into [0, 0.5]."""
+    f = abs(f) % 1.0
+    return 1.0 - f if f > 0.5 else f
+
+
+def _distinct(freqs: list[float], rows: int) -> list[float]:
+    """``freqs`` without those within a natural bin (1 / rows) of one kept before (two
+    sinusoids closer than that are one column of the fit, nearly)."""
+    kept: list[float] = []
+    for f in freqs:
+        if all(abs(f - g) * rows >= 1.0 for g in kept):
+            kept.append(f)
+    return kept
+
+
+def _shift2(p2: np.ndarray, p1: np.ndarray, delta: np.ndarray, count: float) -> np.ndarray:
+    """Second-order products (or their sums over ``count`` samples) about a reference moved
+    by ``-delta``: (y + delta)_a (y + delta)_b = y_a y_b + delta_a y_b + delta_b y_a +
+    delta_a delta_b, pairs a <= b in ``combos[2]`` order; ``p1``: the first-order values."""
+    a, b = _pairs(delta.size)
+    return p2 + delta[a] * p1[..., b] + delta[b] * p1[..., a] + count * delta[a] * delta[b]
+
+
+@lru_cache(maxsize=8)
+def _pairs(m: int) -> tuple[np.ndarray, np.ndarray]:
+    """The components (a, b), a <= b, of each second-order column, in ``combos[2]`` order."""
+    a, b = np.triu_indices(m)
+    return a, b
+
+
 @dataclass(frozen=True)
 class RowsSnapshot:
     """What a row store holds: samples taken, row length, the rows (values of x) and their
@@ -298,8 +344,14 @@ class RowStore:
         # the first block's mean unless given
         self.ref: np.ndarray | None = None if ref is None else np.asarray(ref, dtype=np.float64)
         self.rows = np.zeros((rows, m))
+        # row means of the second-order products (x - ref)_a (x - ref)_b, a <= b: the rows of
+        # any second moment's influence series (second_errors)
+        self.rows2 = np.zeros((rows, m * (m + 1) // 2))
         self.times = np.zeros(rows)  # centre sample index of each row
         self.carry = np.zeros(m)
+        self.carry2 = np.zeros(m * (m + 1) // 2)
+        #: highest order of the rows kept (1: a state saved before the second-order rows)
+        self.orders = 2
         self.full = 0
         self.row_len = 1
         self.carry_n = 0
@@ -377,7 +429,8 @@ class RowStore:
             due = self.next_search()
             take = n - i if not self.clock else min(n - i, due - self.seen)
             state = np.array([self.full, self.row_len, self.carry_n, self.seen], dtype=np.int64)
-            row_push(block[i : i + take], self.ref, (self.rows, self.times, self.carry, state))
+            bundle = (self.rows, self.rows2, self.times, self.carry, self.carry2, state)
+            row_push(block[i : i + take], self.ref, bundle)
             self.full, self.row_len, self.carry_n, self.seen = (int(v) for v in state)
             i += take
             if self.clock and self.seen == due:
@@ -392,8 +445,10 @@ class RowStore:
         return max(int(SEARCH_GROWTH * self.searched_at), self.searched_at + 1)
 
     def _coarsened(self, row_len: int) -> tuple[np.ndarray, np.ndarray, int]:
-        """(rows, times, samples dropped) paired up to ``row_len``."""
-        rows, times = self.rows[: self.full], self.times[: self.full]
+        """(rows, times, samples dropped) paired up to ``row_len``; rows: the first- and
+        second-order rows side by side."""
+        rows = np.concatenate([self.rows[: self.full], self.rows2[: self.full]], axis=1)
+        times = self.times[: self.full]
         length, dropped = self.row_len, 0
         while length < row_len:
             half = rows.shape[0] // 2
@@ -421,7 +476,10 @@ class RowStore:
         length = max(self.row_len, other.row_len)
         a, ta, da = self._coarsened(length)
         b, tb, db = other._coarsened(length)
-        b = b + (other.ref - self.ref)
+        delta = other.ref - self.ref
+        b = np.concatenate(
+            [b[:, : self.m] + delta, _shift2(b[:, self.m :], b[:, : self.m], delta, 1.0)], axis=1
+        )
         rows = np.concatenate([a, b])
         times = np.concatenate([ta, tb + self.seen])
         dropped = da + db + self.carry_n
@@ -432,14 +490,18 @@ class RowStore:
             times = 0.5 * (times[0 : 2 * half : 2] + times[1 : 2 * half : 2])
             length *= 2
         new.rows = np.zeros_like(self.rows)
+        new.rows2 = np.zeros_like(self.rows2)
         new.times = np.zeros_like(self.times)
-        new.rows[: rows.shape[0]] = rows
+        new.rows[: rows.shape[0]] = rows[:, : self.m]
+        new.rows2[: rows.shape[0]] = rows[:, self.m :]
         new.times[: rows.shape[0]] = times
         new.full = rows.shape[0]
         new.row_len = length
         # other's unfinished row continues (its samples about self.ref)
         new.carry_n = other.carry_n
-        new.carry = other.carry + other.carry_n * (other.ref - self.ref)
+        new.carry = other.carry + other.carry_n * delta
+        new.carry2 = _shift2(other.carry2, other.carry, delta, float(other.carry_n))
+        new.orders = min(self.orders, other.orders)
         if new.carry_n >= length:  # cannot happen (carry_n < other.row_len <= length)
             raise AssertionError("unfinished row longer than a row")
         new.seen = self.seen + other.seen
@@ -464,15 +526,56 @@ class RowStore:
             freqs = [
                 f for f in cyc.tolist() if MIN_PERIODS <= f * self.full and f <= MAX_CYCLES_PER_ROW
             ]
-            if not freqs:
-                continue
-            t = tint_s[c]
-            need = min_block_tints * t / per_sample_s / self.row_len if t > 0 else 0.0
-            min_level = max(0, math.ceil(math.log2(need))) if need > 1.0 else 0
-            err = line_mean_error(y, tau, freqs, self.row_len, min_level)
+            err = self._error(y, tau, freqs, tint_s[c], per_sample_s, min_block_tints)
             if err is not None:
                 out[c] = err
         return out
+
+    def second_errors(
+        self, grads: dict, per_sample_s: float, tint_s: dict, min_block_tints: float
+    ) -> dict:
+        """``{key: MeanError}`` for second-order statistics whose components carry a line.
+
+        ``grads``: ``{key: (g1, g2)}``, a statistic's gradient with respect to the means of
+        ``x - ref`` (``g1``, m) and of the products (``g2``, in ``combos[2]`` order) about
+        this store's ``ref``: its influence series has the row means ``rows @ g1 + rows2 @
+        g2`` (exact for the moments' linearisation). Where products of components a, b carry
+        lines at f_a and f_b, the series carries lines at f_a + f_b and |f_a - f_b| (folded
+        into the rows' band; the lines at f_a cancel with the mean's term); those are fitted
+        and the remainder blocked as for a mean (line_mean_error). ``tint_s``: ``{key:
+        integral time (s)}`` for the minimum block length."""
+        if self.orders < 2 or not self.clock or self.full < MIN_ROWS or not per_sample_s > 0:
+            return {}
+        if np.isnan(self.lines).all():
+            return {}
+        tau = self._tau()
+        pa, pb = _pairs(self.m)
+        out = {}
+        for key, (g1, g2) in grads.items():
+            freqs: list[float] = []
+            for q in np.flatnonzero(g2).tolist():
+                fa = self.lines[pa[q]][~np.isnan(self.lines[pa[q]])] * self.row_len
+                fb = self.lines[pb[q]][~np.isnan(self.lines[pb[q]])] * self.row_len
+                for x in fa.tolist():
+                    for y in fb.tolist():
+                        freqs += [_fold(x + y), _fold(x - y)]
+            freqs = _distinct(
+                [f for f in freqs if MIN_PERIODS <= f * self.full and f <= MAX_FOLDED], self.full
+            )
+            y = self.rows[: self.full] @ g1 + self.rows2[: self.full] @ g2
+            err = self._error(y, tau, freqs, tint_s[key], per_sample_s, min_block_tints)
+            if err is not None:
+                out[key] = err
+        return out
+
+    def _error(self, y, tau, freqs, t, per_sample_s, min_block_tints) -> MeanError | None:
+        """line_mean_error of the rows ``y`` with the lines ``freqs`` (cycles per row), blocks
+        at least ``min_block_tints`` integral times ``t`` (s) long; None without a line."""
+        if not freqs:
+            return None
+        need = min_block_tints * t / per_sample_s / self.row_len if t > 0 else 0.0
+        min_level = max(0, math.ceil(math.log2(need))) if need > 1.0 else 0
+        return line_mean_error(y, tau, freqs, self.row_len, min_level)
 
 
 def method_text(err: MeanError, rate_hz: float) -> str:

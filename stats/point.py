@@ -419,7 +419,7 @@ class PointStatistics:
             )
         se_blocking = se[:m].tolist()  # the stationarity guard's scale: the line is in segments
         plain = choice
-        choice, methods = self._periodic(values, choice, se)
+        choice, methods = self._periodic(values, choice, se, rows)
         blocks = self._by_row(choice, plain, "blocks")
         rel = self._by_row(choice, plain, "relative_error")
         hw = INTERVAL_INFLATION * _t_quantiles(0.5 * (1.0 + self.confidence), blocks) * se
@@ -436,17 +436,18 @@ class PointStatistics:
             self._cache = ev
         return ev
 
-    def _periodic(self, values, choice, se):
-        """The means' errors with identified lines taken out (stats.periodic), in place of
-        blocking's for the components with a line: ``(choice, {row: method})``; unchanged
-        (the same ``choice``, ``{}``) when no line is found. Tint, N_eff and L keep the
-        blocking variance."""
+    def _periodic(self, values, choice, se, rows=None):
+        """The errors of the means and second moments with identified lines taken out
+        (stats.periodic), in place of blocking's for the rows with a line: ``(choice, {row:
+        method})``; unchanged (the same ``choice``, ``{}``) when no line is found. Tint, N_eff
+        and L keep the blocking variance. ``rows``: the moment rows evaluated (None: all)."""
         if self.periodic is None:
             return choice, {}
         m = len(self.columns)
         k_stats = len(self.table.names)
         tint = values[k_stats : k_stats + m].tolist()
         fixes = self.periodic.mean_errors(1.0 / self.rate_hz, tint, MIN_BLOCK_TINTS)
+        fixes.update(self._periodic_second(tint, rows))
         if not fixes:
             return choice, {}
         fields = {
@@ -463,6 +464,26 @@ class PointStatistics:
             se[c] = math.sqrt(err.variance)
             methods[c] = method_text(err, self.rate_hz)
         return type(choice)(**fields), methods
+
+    def _periodic_second(self, tint, rows=None) -> dict:
+        """``{row: MeanError}`` for the second-moment rows (gradient on monomials of degree
+        <= 2 only, e.g. uu, uv, k) whose components carry a line (RowStore.second_errors);
+        ``rows``: the moment rows evaluated (None: all; a checkpoint's, the others skipped)."""
+        st = self.periodic
+        if st.ref is None or np.isnan(st.lines).all():
+            return {}
+        m = len(self.columns)
+        off = self.moments.layout.mono_offset
+        _, grad = self.table.values_and_gradient(self.moments.raw_about(st.ref), st.ref)
+        grads, scales = {}, {}
+        for r in range(m, grad.shape[0]):
+            if rows is not None and not rows[r]:
+                continue
+            g2 = grad[r, off[1] : off[2]]
+            if g2.any() and not grad[r, off[2] :].any() and np.isfinite(grad[r, : off[2]]).all():
+                grads[r] = (grad[r, :m], g2)
+                scales[r] = self._slowest_scale(tint, self._comp_idx[r])
+        return st.second_errors(grads, 1.0 / self.rate_hz, scales, MIN_BLOCK_TINTS)
 
     def _slowest_scale(self, tint, comps) -> float:
         """The integral time (s) that statistic rows with components ``comps`` must respect:

@@ -13,8 +13,11 @@ arrays ``moments.mean``, ``moments.s2``, ``moments.s3``, ``moments.s4`` and ``bl
 for every array of :class:`~eddyvigil.stats.blocking.BlockingAccumulator` (``ref`` absent while
 empty); scalars in ``meta["moments"]``, ``meta["blocking"]``, ``meta["checkpoints"]``.
 Version 2 adds the periodic row store (``periodic.<name>`` arrays, ``meta["periodic"]``
-scalars; absent for random sampling). A version 1 state still loads: its point has no rows
-and no clock, so no line is ever fitted on it (its errors are blocking's, as they were).
+scalars; absent for random sampling), with the second-order rows ``periodic.rows2`` and
+``periodic.carry2`` and ``meta["periodic"]["orders"]`` (2). A version 1 state still loads: its
+point has no rows and no clock, so no line is ever fitted on it (its errors are blocking's, as
+they were); a version 2 state saved without ``periodic.rows2`` loads with ``orders`` 1 (the
+means corrected, the second moments keep blocking's errors).
 
 Version 2 also adds points of randomly sampled (laser-Doppler) data,
 :class:`~eddyvigil.stats.weighted_point.WeightedPointStatistics`, marked by
@@ -277,6 +280,9 @@ def _load_periodic(ps, meta, arrays) -> None:
     for k, v in meta["periodic"].items():
         setattr(st, k, v)
     _load_arrays(st, "periodic.", arrays, trailing=False)
+    if "periodic.rows2" not in arrays:
+        # saved before the second-order rows: the means' correction only
+        st.orders = 1
 
 
 def _load_arrays(obj, prefix: str, arrays, trailing: bool) -> None:

@@ -129,19 +129,69 @@ def test_no_line_leaves_every_error_exactly_as_blocking_gives_it():
     assert all("error_method" not in e for e in a.statistics_json())
 
 
-def test_a_line_corrects_the_means_only_and_says_so():
+def test_a_line_corrects_the_means_and_second_moments_only_and_says_so():
     a, b = _snapshots(_ou_with_line(11, amp=1.0))
-    for name in ("U", "V"):
+    # the means carry the line at 1 Hz (period 1000 samples at 1 kHz), the second moments its
+    # double (sin^2 = (1 - cos 2 w t) / 2, from memory)
+    for name, line_hz in (("U", 1.0), ("V", 1.0), ("uu", 2.0), ("vv", 2.0), ("uv", 2.0)):
         e, plain = a.estimate(name), b.estimate(name)
         assert e.value == plain.value  # the statistic itself never changes
         assert e.error_method is not None
         hz = float(e.error_method.split(" Hz")[0].split()[-1])
-        assert abs(hz - 1.0) < 0.01  # the line at 1 Hz (period 1000 samples at 1 kHz)
+        assert abs(hz - line_hz) < 0.01 * line_hz
         assert e.stderr != plain.stderr and e.blocks > 0
         assert e.to_json()["error_method"] == e.error_method
     for e in a.estimates:
-        if e.name not in ("U", "V"):
+        if e.name not in ("U", "V", "uu", "vv", "uv", "k"):
             assert e.to_json() == b.estimate(e.name).to_json()
+
+
+def test_second_order_rows_are_numpys_row_means_of_the_products_whatever_the_split():
+    # numpy reshape-and-mean of (x - ref)_a (x - ref)_b, a <= b (common practice)
+    x = np.random.default_rng(12).normal(5.0, 2.0, size=(40_000, 3))
+    ref = x[:100].mean(axis=0)
+    a = RowStore(3, ref=ref).update(x)
+    b = RowStore(3, ref=ref)
+    for part in np.array_split(x, 7):
+        b.update(part)
+    assert a == b  # one sequential sum per row whatever the split: bit for bit
+    d = x - a.ref
+    i, j = np.triu_indices(3)
+    want = (d[:, i] * d[:, j]).reshape(2500, 16, 6).mean(axis=1)
+    np.testing.assert_allclose(a.rows2[: a.full], want, rtol=1e-12, atol=1e-12)
+
+
+def test_a_second_moments_rows_are_its_influence_series_row_means():
+    # the influence series of uv is (u - U)(v - V) - uv (delta method, common practice); its
+    # row means from the store's rows with the point's gradient equal numpy's, given U, V
+    x = _ou_with_line(13, n=32_768)
+    ps = PointStatistics(("u", "v"), rate_hz=1000.0).update(x)
+    st = ps.periodic
+    _, grad = ps.table.values_and_gradient(ps.moments.raw_about(st.ref), st.ref)
+    r = ps.table.names.index("uv")
+    y = st.rows[: st.full] @ grad[r, :2] + st.rows2[: st.full] @ grad[r, 2:5]
+    mu = x.mean(axis=0)
+    infl = (x[:, 0] - mu[0]) * (x[:, 1] - mu[1])
+    want = infl.reshape(st.full, st.row_len).mean(axis=1)
+    np.testing.assert_allclose(y - y.mean(), want - want.mean(), rtol=0, atol=1e-9)
+
+
+def test_merge_of_records_with_different_references_keeps_the_second_order_rows():
+    # the rows about the left part's reference (the products re-centred exactly: the binomial
+    # expansion, common practice) equal one pass's on the same reference
+    x = np.random.default_rng(14).normal(3.0, 1.0, size=(30_000, 2))
+    whole = RowStore(2, ref=x[:4096].mean(axis=0)).update(x)
+    cut = 16_384
+    left, right = RowStore(2, ref=x[:4096].mean(axis=0)).update(x[:cut]), RowStore(2)
+    right.update(x[cut:])
+    assert not np.array_equal(left.ref, right.ref)
+    joined = left.merge(right, independent=False)
+    assert joined.full == whole.full and joined.carry_n == whole.carry_n
+    np.testing.assert_allclose(joined.rows2[: joined.full], whole.rows2[: whole.full],
+                               rtol=0, atol=1e-12)
+    np.testing.assert_allclose(joined.carry2, whole.carry2, rtol=0, atol=1e-9)
+    # the same split merged twice: the same state, bit for bit
+    assert joined == left.merge(right, independent=False)
 
 
 def test_state_round_trip_keeps_the_rows():
@@ -159,6 +209,20 @@ def test_version_1_state_loads_without_a_clock():
     arrays = {k: v for k, v in arrays.items() if not k.startswith("periodic.")}
     back = from_state(meta, arrays)
     assert not back.periodic.clock
+
+
+def test_state_saved_without_second_order_rows_corrects_the_means_only():
+    x = _ou_with_line(15, amp=1.0)
+    ps = PointStatistics(("u", "v"), rate_hz=1000.0).update(x)
+    meta, arrays = to_state(ps)
+    assert "periodic.rows2" in arrays and meta["periodic"]["orders"] == 2
+    del meta["periodic"]["orders"]
+    arrays = {k: v for k, v in arrays.items() if k not in ("periodic.rows2", "periodic.carry2")}
+    back = from_state(meta, arrays)
+    assert back.periodic.orders == 1
+    new, old = ps.snapshot(), back.snapshot()
+    assert old.estimate("U").to_json() == new.estimate("U").to_json()
+    assert old.estimate("uu").error_method is None and new.estimate("uu").error_method
 
 
 def test_a_constant_record_has_no_line():

@@ -23,7 +23,8 @@ TINT = 50.0
 RHO = np.exp(-1 / TINT)
 
 
-def _record(seed, n, period, amp, drift):
+def record_with_phases(seed, n, period, amp, drift):
+    """The record (n, 2) and the sinusoid's phase on each component."""
     rng = np.random.default_rng(seed)
     z = ar1(rng, n, 2, RHO)
     t = np.arange(n)
@@ -33,7 +34,34 @@ def _record(seed, n, period, amp, drift):
         phase = 2 * np.pi * np.cumsum(f)
     else:
         phase = 2 * np.pi * t / period
-    return z + amp * np.sin(phase[:, None] + rng.uniform(0, 2 * np.pi, 2))
+    phi = rng.uniform(0, 2 * np.pi, 2)
+    return z + amp * np.sin(phase[:, None] + phi), phi
+
+
+def _record(seed, n, period, amp, drift):
+    return record_with_phases(seed, n, period, amp, drift)[0]
+
+
+def with_and_without_rows(x):
+    """Snapshots of a point fed ``x`` in blocks of 8192: with its lines taken out, and with
+    blocking's errors alone (the row store removed)."""
+    ps = PointStatistics(("u", "v"), rate_hz=1000.0)
+    for k in range(0, x.shape[0], 8192):
+        ps.update(x[k : k + 8192])
+    snap = ps.snapshot()
+    ps.periodic, ps._cache = None, None
+    return snap, ps.snapshot()
+
+
+def forced_line(rng):
+    """A stand-in for find_lines that "finds" one line at a log-uniform frequency of the
+    searched range in every record."""
+
+    def forced(y, tau, max_lines=periodic.MAX_LINES):
+        lo, hi = 22.0 / y.size, periodic.MAX_CYCLES_PER_ROW
+        return [float(np.exp(rng.uniform(np.log(lo), np.log(hi))))]
+
+    return forced
 
 
 def run(n, period, amp, drift=0.0, seed0=50_000):
@@ -44,13 +72,7 @@ def run(n, period, amp, drift=0.0, seed0=50_000):
     hit = plain_hit = found = 0
     se, se_plain = [], []
     for r in range(REPS):
-        x = _record(seed0 + r, n, period, amp, drift)
-        ps = PointStatistics(("u", "v"), rate_hz=1000.0)
-        for k in range(0, n, 8192):
-            ps.update(x[k : k + 8192])
-        snap = ps.snapshot()
-        ps.periodic, ps._cache = None, None
-        plain = ps.snapshot()
+        snap, plain = with_and_without_rows(_record(seed0 + r, n, period, amp, drift))
         for name in ("U", "V"):
             e, p = snap.estimate(name), plain.estimate(name)
             if e.error_method is None:
@@ -88,13 +110,7 @@ def test_a_false_line_never_under_covers(monkeypatch):
     # in every record: the fit takes out broadband content, which the degrees-of-freedom
     # correction must pay for (coverage >= 0.93). A short record (330 T_int, the chosen level
     # with few blocks) is where the degrees of freedom taken weigh most
-    rng = np.random.default_rng(7)
-
-    def forced(y, tau, max_lines=periodic.MAX_LINES):
-        lo, hi = 22.0 / y.size, periodic.MAX_CYCLES_PER_ROW
-        return [float(np.exp(rng.uniform(np.log(lo), np.log(hi))))]
-
-    monkeypatch.setattr(periodic, "find_lines", forced)
+    monkeypatch.setattr(periodic, "find_lines", forced_line(np.random.default_rng(7)))
     cov, cov_plain, found, se, se_plain = run(2**14, 1000.0, 0.0, seed0=90_000)
     print(f"forced false line: coverage {cov:.3f} (blocking alone {cov_plain:.3f}), "
           f"SE/true {se:.3f} (blocking alone {se_plain:.3f})")
