@@ -337,8 +337,15 @@ class Subscriber:
                 if on_event is not None:
                     on_event(text)
 
-    def close(self) -> None:
-        """Close both sockets with LINGER 0 (and the private context)."""
+    def close(self, leave_curve_open: bool = False) -> None:
+        """Close both sockets with LINGER 0 (and the private context).
+
+        ``leave_curve_open``: with CURVE, stop taking connections and close the socket
+        monitor, but leave the data socket, its context and the ZAP handler to the process's
+        exit. libzmq 4.3 aborts the process (zap_client.cpp:50) when a refused peer's retried
+        handshake sends its ZAP request while the socket closes, whatever the grace period;
+        ``watch`` uses this and then ends with ``os._exit`` once every output is flushed.
+        """
         if self.curve is not None:
             self._close_curve_quietly()
         try:
@@ -346,6 +353,8 @@ class Subscriber:
         except zmq.ZMQError:
             pass
         self._monitor.close(linger=0)
+        if leave_curve_open and self.curve is not None:
+            return
         self.socket.close(linger=0)
         if self.curve is not None:
             time.sleep(CURVE_CLOSE_GRACE_S)

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import signal
 import sys
 import threading
@@ -372,6 +373,18 @@ def install_stop_signals(stop) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    """``eddyvigil watch``; with CURVE the process ends here by ``os._exit`` after flushing
+    (libzmq can abort while closing a CURVE socket that a refused peer keeps dialling: the
+    socket is left to the exit, see Subscriber.close)."""
+    code = _run(args)
+    if getattr(args, "curve_secret", None):
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(int(code))
+    return code
+
+
+def _run(args: argparse.Namespace) -> int:
     from eddyvigil.monitor.outputs import (
         OutputRefused,
         check_record_dir,
@@ -454,7 +467,8 @@ def run(args: argparse.Namespace) -> int:
             return _fail(ExitCode.ADDRESS_IN_USE, str(exc))
         except SubscriberError as exc:
             return _fail(ExitCode.ENDPOINT, str(exc))
-        closers.append(sub.close)
+        # with CURVE the data socket is left to the process's exit (Subscriber.close; run())
+        closers.append(lambda: sub.close(leave_curve_open=curve is not None))
         control = None
         if args.control:
             from eddyvigil.monitor.control import ControlPublisher
