@@ -376,15 +376,16 @@ def run(args: argparse.Namespace) -> int:
     """``eddyvigil watch``; with CURVE the process ends here by ``os._exit`` after flushing
     (libzmq can abort while closing a CURVE socket that a refused peer keeps dialling: the
     socket is left to the exit, see Subscriber.close)."""
-    code = _run(args)
-    if getattr(args, "curve_secret", None):
+    left_open: list = []  # set when a CURVE socket was left to the exit
+    code = _run(args, left_open)
+    if left_open:
         sys.stdout.flush()
         sys.stderr.flush()
         os._exit(int(code))
     return code
 
 
-def _run(args: argparse.Namespace) -> int:
+def _run(args: argparse.Namespace, left_open: list) -> int:
     from eddyvigil.monitor.outputs import (
         OutputRefused,
         check_record_dir,
@@ -468,7 +469,12 @@ def _run(args: argparse.Namespace) -> int:
         except SubscriberError as exc:
             return _fail(ExitCode.ENDPOINT, str(exc))
         # with CURVE the data socket is left to the process's exit (Subscriber.close; run())
-        closers.append(lambda: sub.close(leave_curve_open=curve is not None))
+        def close_sub():
+            sub.close(leave_curve_open=curve is not None)
+            if curve is not None:
+                left_open.append(sub)
+
+        closers.append(close_sub)
         control = None
         if args.control:
             from eddyvigil.monitor.control import ControlPublisher
