@@ -100,3 +100,73 @@ def test_page_models_carry_the_names_tests_rely_on():
     assert len(doc.session_callbacks) == 1  # ONE periodic callback per page
     assert len(doc.get_model_by_name("finished_source").data["id"]) == 2
     assert "KEEP ACQUIRING" in doc.get_model_by_name("verdict").text
+
+
+def _patch_doc_fragments() -> list[str]:
+    """The text frames of one PATCH-DOC message, as a browser tab sends them."""
+    import json
+
+    header = {"msgid": "7", "msgtype": "PATCH-DOC"}
+    return [json.dumps(header), json.dumps({}), json.dumps({"events": []})]
+
+
+def _handler_with_released_session(cls):
+    """A websocket handler (no tornado request behind it) whose tab's session was released,
+    as Bokeh leaves it after ``on_close``: the connection is kept, its session is None."""
+    from bokeh.protocol import Protocol
+    from bokeh.protocol.receiver import Receiver
+    from bokeh.server.connection import ServerConnection
+    from bokeh.server.protocol_handler import ProtocolHandler
+
+    handler = cls.__new__(cls)
+    connection = ServerConnection.__new__(ServerConnection)
+    connection._session = None
+    connection._protocol = Protocol()
+    handler.connection = connection
+    handler.receiver = Receiver(Protocol())
+    handler.handler = ProtocolHandler()
+    handler.closed_with = []
+    handler.close = lambda code=None, reason=None: handler.closed_with.append((code, reason))
+    return handler
+
+
+def test_frames_from_a_released_tab_are_dropped_without_a_server_error(caplog):
+    """Issue 16: closing a tab mid-update leaves no server error. Bokeh's own handler, given
+    the frames tornado had buffered before the close, logs an AssertionError traceback (the
+    case seen in the soak); the dashboard's handler drops them."""
+    import asyncio
+    import logging
+
+    from bokeh.server.views.ws import WSHandler
+
+    from eddyvigil.monitor.dashboard.server import _ClosedTabWSHandler
+
+    bokeh_own = _handler_with_released_session(WSHandler)
+    with caplog.at_level(logging.DEBUG):
+        for fragment in _patch_doc_fragments():
+            asyncio.run(bokeh_own.on_message(fragment))
+    errors = [r for r in caplog.records if r.levelno >= logging.ERROR]
+    assert errors and errors[0].exc_info and errors[0].exc_info[0] is AssertionError
+    caplog.clear()
+
+    ours = _handler_with_released_session(_ClosedTabWSHandler)
+    with caplog.at_level(logging.DEBUG):
+        for fragment in _patch_doc_fragments():
+            asyncio.run(ours.on_message(fragment))
+    assert [r for r in caplog.records if r.levelno >= logging.WARNING] == []
+    assert ours.closed_with == []
+    assert any("session was released" in r.getMessage() for r in caplog.records)
+
+
+def test_the_server_routes_websockets_through_the_closed_tab_handler():
+    from eddyvigil.monitor.dashboard.server import _ClosedTabWSHandler
+
+    t, stop, info, errors = _serve_in_thread()
+    try:
+        assert not errors
+        app = info["server"]._server._tornado
+        targets = [rule.target for rule in app.wildcard_router.rules]
+        assert _ClosedTabWSHandler in targets
+    finally:
+        stop.set()
+        t.join(20)
