@@ -212,8 +212,15 @@ def noise_floor(spec: SpectrumSnapshot, col: int = 0) -> NoiseFloor | None:
 
 
 def _derivative_variance(spec, col, cutoff_hz, floor_level, floor_stderr):
-    """int_0^fc (2 pi f)^2 (S - floor) df over fine bins and its standard error (chi^2 per bin,
-    neighbouring bins correlated as the window makes them)."""
+    """int_0^fc (2 pi f)^2 (S - floor) df over fine bins, its standard error, the integrand's
+    relative size at the cut-off, and the degrees of freedom of the error (inf: chi^2).
+
+    The error is the larger of two: Welch's chi^2 per bin (neighbouring bins correlated as the
+    window makes them), which holds for Gaussian signals, and the batch-means scatter of the
+    same integral between groups of segments (``stats/segment_groups.py``, B - 1 dof), which
+    also holds when the small scales' amplitude follows the large scales (skewed, intermittent
+    signals). The noise floor's own error is added to either.
+    """
     f, s, dof = spec.f_hz, spec.psd[:, col], spec.dof
     sel = (f > 0) & (f <= cutoff_hz)
     w = (2 * math.pi * f[sel]) ** 2 * spec.df_hz
@@ -224,11 +231,18 @@ def _derivative_variance(spec, col, cutoff_hz, floor_level, floor_stderr):
     var = float(np.dot(v, v)) + sum(
         2.0 * r[j - 1] * float(np.dot(v[:-j], v[j:])) for j in range(1, 4) if v.size > j
     )
+    err_dof = math.inf
+    groups = getattr(spec, "groups", None)
+    if groups is not None and sel.any():
+        rel, gdof = groups.relative_error(col, int(np.flatnonzero(sel)[-1]))
+        batch = (rel * float(np.dot(w, s[sel]))) ** 2  # the scatter of the unfloored integral
+        if math.isfinite(rel) and batch > var:
+            var, err_dof = batch, gdof
     var += (float(w.sum()) * floor_stderr) ** 2
     g = w * net
     peak = float(g.max()) if g.size else 0.0
     tail = float(np.mean(g[-max(1, g.size // 50) :])) / peak if peak > 0 else float("inf")
-    return value, math.sqrt(max(var, 0.0)), tail
+    return value, math.sqrt(max(var, 0.0)), tail, err_dof
 
 
 def isotropic_derivative(
@@ -246,12 +260,13 @@ def isotropic_derivative(
     ):
         why = "the spectrum never rises ten times above the noise floor: no derivative estimate"
         return Quantity.missing(why), 0.0, 0.0, float("inf")
-    d, d_se, tail = _derivative_variance(spec, col, fc, level, level_se)
+    d, d_se, tail, d_dof = _derivative_variance(spec, col, fc, level, level_se)
     if not d > 0:
         return Quantity.missing("no derivative variance above the noise floor"), d, d_se, tail
     k = 15.0 * nu / speed_ms**2
     eps = k * d
-    z = _z(confidence)
+    # Student's t for the batch-means error of few groups (B - 1 dof), else the normal quantile
+    z = _z(confidence) if math.isinf(d_dof) else float(special.stdtrit(d_dof, 0.5 + confidence / 2))
     if tail > RESOLVED_FRACTION:
         why = (
             f"dissipation range not resolved: (2 pi f)^2 S at the cut-off {fc:.4g} Hz is "
@@ -517,7 +532,7 @@ def dissipation(
     ratio = None
     if len(spec.columns) > 1 and du > 0:
         fv = floors[spec.columns[1]]
-        dv, dv_se, _ = _derivative_variance(
+        dv, dv_se, _, _ = _derivative_variance(
             spec, 1, cutoff, fv.level if fv else 0.0, fv.level_stderr if fv else 0.0
         )
         if dv > 0:

@@ -34,7 +34,17 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.fft
-from eddyvigil.stats.spectral_kernels import accumulate_pairs, window_pairs
+from eddyvigil.stats.segment_groups import (
+    SEGMENTS_PER_GROUP,
+    GroupStore,
+    SegmentGroups,
+    band_layout,
+)
+from eddyvigil.stats.spectral_kernels import (
+    accumulate_pairs,
+    accumulate_pairs_banded,
+    window_pairs,
+)
 from scipy import signal as sps
 from scipy import stats as sst
 
@@ -232,6 +242,8 @@ class SpectrumSnapshot:
     psd: np.ndarray  # (nfreq, m), one-sided, units^2/Hz
     dof: np.ndarray  # (nfreq,)
     window: np.ndarray
+    #: per-group band sums for batch-means errors of spectral integrals (stats/segment_groups.py)
+    groups: SegmentGroups | None = None
 
     @property
     def df_hz(self) -> float:
@@ -316,6 +328,8 @@ class SpectrumAccumulator:
         self._scale = 1.0 / (self.rate_hz * float(np.dot(self.window, self.window)))
         # per column, all n bins of the packed pairs' |Z|^2, folded by snapshot()
         self._sum = np.zeros((self._m, n))
+        edges, self._band, self._band_weight = band_layout(n)
+        self._groups = GroupStore(self._m, edges)
 
     @property
     def n(self) -> int:
@@ -347,9 +361,10 @@ class SpectrumAccumulator:
         n, step = self.segment, self.hop * self.stride
         return 0 if self._fill < n else 1 + (self._fill - n) // step
 
-    def _add_power(self, k: int, out: np.ndarray) -> None:
+    def _add_power(self, k: int, out: np.ndarray, groups: bool = False) -> None:
         """Window and transform the first ``k`` complete segments held, two per complex
-        transform (segments 0 and 1, 2 and 3, ...), and add their power to ``out``."""
+        transform (segments 0 and 1, 2 and 3, ...), and add their power to ``out``; with
+        ``groups``, their band sums go to the segment groups too (stats/segment_groups.py)."""
         n, step = self.segment, self.hop * self.stride
         pairs = (k + 1) // 2
         size = self._m * pairs * n
@@ -359,7 +374,17 @@ class SpectrumAccumulator:
         work = self._work[:size].reshape(self._m, pairs, n)
         window_pairs(self._buf, self._head, step, k, self.window, work)
         # one batched transform for the whole batch (m pairs complex rows, contiguous)
-        accumulate_pairs(scipy.fft.fft(work, axis=2, overwrite_x=True), out)
+        spec = scipy.fft.fft(work, axis=2, overwrite_x=True)
+        if not groups:
+            accumulate_pairs(spec, out)
+            return
+        per = SEGMENTS_PER_GROUP // 2
+        g = -(-pairs // per)
+        bands = np.zeros((g, self._m, self._groups.edges.size))
+        accumulate_pairs_banded(spec, out, self._band, self._band_weight, per, bands)
+        counts = np.full(g, SEGMENTS_PER_GROUP, dtype=np.int64)
+        counts[-1] = k - SEGMENTS_PER_GROUP * (g - 1)
+        self._groups.add(counts, bands)
 
     def _transform(self, flush: bool) -> None:
         """Add the complete segments held to the sums (``flush`` False: a multiple of
@@ -372,7 +397,7 @@ class SpectrumAccumulator:
         if k == 0:
             return
         step, have = self.hop * self.stride, self._fill
-        self._add_power(k, self._sum)
+        self._add_power(k, self._sum, groups=True)
         self._done += k
         self._skip = max(0, k * step - have)  # a stride may step past the data held
         keep = max(0, have - k * step)
@@ -456,8 +481,10 @@ class SpectrumAccumulator:
         out = SpectrumAccumulator(
             self.columns, self.rate_hz, segment=self.segment, stride=self.stride
         )
-        out._sum = self._sums() + tail._sum
-        out._done = self.segments + tail._done
+        head = copy.deepcopy(self).flush()  # self's waiting segments too (same bits as _sums())
+        out._sum = head._sum + tail._sum
+        out._groups = head._groups.extend(tail._groups)
+        out._done = head._done + tail._done
         other = tail
         out._buf = other._buf[:, other._head : other._head + other._fill].copy()
         out._fill = other._fill
@@ -480,5 +507,6 @@ class SpectrumAccumulator:
         for a in (f, psd, dof):
             a.flags.writeable = False
         return SpectrumSnapshot(
-            self.columns, self.rate_hz, n, self.segments, f, psd, dof, self.window
+            self.columns, self.rate_hz, n, self.segments, f, psd, dof, self.window,
+            self._groups.snapshot(),
         )

@@ -15,7 +15,9 @@ from __future__ import annotations
 import numba
 import numpy as np
 
-__all__ = ["accumulate_pairs", "flattest_run", "segment_sum", "window_pairs"]
+__all__ = [
+    "accumulate_pairs", "accumulate_pairs_banded", "flattest_run", "segment_sum", "window_pairs",
+]
 
 
 @numba.njit(cache=True, nogil=True)
@@ -172,3 +174,32 @@ def flattest_run(
             if worst <= tol and chi2 <= limit[n] and span > best:
                 best_a, best_b, best = a, b, span
     return best_a, best_b
+
+
+@numba.njit(cache=True, nogil=True)
+def accumulate_pairs_banded(
+    spec: np.ndarray,
+    out: np.ndarray,
+    band: np.ndarray,
+    weight: np.ndarray,
+    pairs_per_group: int,
+    groups: np.ndarray,
+) -> None:  # pragma: no cover - compiled
+    """:func:`accumulate_pairs`, and beside it per group of ``pairs_per_group`` pairs the sums
+    ``groups[g, j, band[t]] += weight[t] |Z[j, p, t]|^2`` (g = p // pairs_per_group; bins with
+    ``band[t] < 0`` left out): the band sums of ``b^2 |X_b|^2`` of
+    ``segment_groups.band_layout``, for the batch-means error of spectral integrals."""
+    m, pairs, n = spec.shape
+    for j in range(m):
+        o = out[j]
+        for p in range(pairs):
+            z = spec[j, p]
+            g = groups[p // pairs_per_group, j]
+            for t in range(n):
+                re = np.float64(z[t].real)
+                im = np.float64(z[t].imag)
+                pw = re * re + im * im
+                o[t] += pw
+                b = band[t]
+                if b >= 0:
+                    g[b] += weight[t] * pw
