@@ -106,6 +106,11 @@ PIPELINE_REJECTION_REASONS = (
 )
 #: Streams tracked at most (protects memory against a flood of invented stream names).
 MAX_STREAMS = 256
+#: Streams with rejected messages only (no message ever accepted) kept at most: a misconfigured
+#: publisher stays visible with its reasons, but a sender of garbage under ever new names
+#: cannot fill the MAX_STREAMS slots and lock real streams out. The oldest is forgotten first;
+#: its rejections, losses and gaps stay in the run's totals.
+MAX_REJECTED_ONLY = 16
 #: Transport events kept for the snapshot.
 MAX_TRANSPORT_EVENTS = 50
 
@@ -182,6 +187,8 @@ class Pipeline:
         # the traverse's points (watch --points; monitor.campaign), for the campaign ETA
         self.points = [dict(p) for p in points] if points is not None else None
         self._streams: dict[str, StreamState] = {}
+        self._unconfirmed: dict[str, None] = {}  # names created, not yet known to be active
+        self._forgotten = {"lost": 0, "gaps": 0, "restarts": 0, "streams": 0}
         self._rejected: Counter = Counter()  # of the whole run
         self._received = 0  # messages of the whole run
         self._points_finished = 0
@@ -505,6 +512,8 @@ class Pipeline:
         line = run_line(
             self._streams.values(), self._received, self._rejected, self._points_finished
         )
+        for key in ("lost", "gaps", "restarts"):  # of streams forgotten with rejections only
+            line[key] += self._forgotten[key]
         if self.refused_peers is not None:
             line["refused_peers"] = int(self.refused_peers)
         return line
@@ -525,11 +534,28 @@ class Pipeline:
     def _stream(self, name: str) -> StreamState | None:
         st = self._streams.get(name)
         if st is None:
+            self._forget_rejected_only(MAX_REJECTED_ONLY - 1)
             if len(self._streams) >= MAX_STREAMS:
                 return None
             st = self._streams[name] = StreamState(name, Campaign(
                 self.points, self.targets.required_record_s, float(self.targets.confidence)))
+            self._unconfirmed[name] = None
         return st
+
+    def _forget_rejected_only(self, keep: int) -> None:
+        """Keep at most ``keep`` streams that never had a message accepted (the oldest go;
+        MAX_REJECTED_ONLY). Their counts stay in the run's totals."""
+        for n in list(self._unconfirmed):
+            if self._streams[n].active:
+                del self._unconfirmed[n]
+        while len(self._unconfirmed) > keep:
+            n = next(iter(self._unconfirmed))
+            del self._unconfirmed[n]
+            st = self._streams.pop(n)
+            self._forgotten["lost"] += st.sequence.lost
+            self._forgotten["gaps"] += st.sequence.gaps
+            self._forgotten["restarts"] += st.sequence.restarts
+            self._forgotten["streams"] += 1
 
     def _maybe_publish(self, force: bool = False) -> None:
         if force or self._clock() - self._last_publish >= self._interval:

@@ -167,6 +167,40 @@ def test_duplicate_seq_is_rejected_and_bad_objects_never_raise():
     assert sum(run["rejected"].values()) == 1 + 6
 
 
+def test_garbage_under_ever_new_names_cannot_lock_real_streams_out():
+    # A sender of malformed messages, each on a new topic (the soak's garbage sender does
+    # this): more names than MAX_STREAMS. Every message is rejected and counted; at most
+    # MAX_REJECTED_ONLY such names stay on the board; a real stream that starts afterwards
+    # is accepted, and one with accepted messages is never forgotten.
+    from eddyvigil.monitor.pipeline import MAX_REJECTED_ONLY, MAX_STREAMS
+
+    p, buf = new_pipeline()
+    real = StreamWriter("probe-a")
+    p.handle_frames(real.point("P"))
+    junk = MAX_STREAMS + 40
+    for i in range(junk):
+        w = StreamWriter(f"junk-{i}")
+        frames = w.malformed("bad_dtype", blocks(1, 1, n=64)[0])
+        assert p.handle_frames(frames) == "bad_dtype"
+    late = StreamWriter("probe-b")
+    assert p.handle_frames(late.point("P")) is None
+    assert p.handle_frames(late.samples(blocks(2, 1)[0])) is None
+    assert p.handle_frames(real.samples(blocks(3, 1)[0])) is None
+    snap = p.publish()
+    shown = [n for n in snap.streams if n.startswith("junk-")]
+    assert len(shown) <= MAX_REJECTED_ONLY
+    assert f"junk-{junk - 1}" in shown  # the most recent stay visible
+    assert {"probe-a", "probe-b"} <= set(snap.streams)
+    for w in (real, late):
+        p.handle_frames(w.end())
+    p.close()
+    run = lines_of(buf)[-1]
+    assert run["rejected"]["bad_dtype"] == junk
+    assert run["rejected"].get("too_many_streams", 0) == 0
+    assert run["streams"] == ["probe-a", "probe-b"]
+    assert run["messages"] == junk + 6
+
+
 def test_publisher_restart_finishes_point_incomplete_and_starts_fresh():
     p, buf = new_pipeline()
     a = StreamWriter(session="first")
