@@ -472,6 +472,10 @@ class Pipeline:
             point_run.point_snapshot is None or point_run.snapshot_stale
         ):
             point_run.take_snapshot()
+        if point_run.signalled and point_run.field is None and not point_run.final_move_on():
+            # the final evaluation also sees the rows after the last checkpoint: a point the
+            # traverse may already have left on `converged` is taken back, with the reason
+            self._signal(st, point_run, converged=False)
         line = self._point_line(st, point_run, complete)
         if point_run.field is not None:  # a rake or field: per-vector arrays go to a file
             from eddyvigil.monitor import fields

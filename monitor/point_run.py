@@ -241,6 +241,15 @@ class PointRun:
             self.take_snapshot(history=False)
         return None
 
+    def final_move_on(self) -> bool:
+        """The verdict of the point's current full snapshot says move on (targets met, record
+        long enough, nothing suspect) and a target on eps is met: what ``converged`` promised."""
+        from eddyvigil.stats.verdict import point_verdict
+
+        if self.point_snapshot is None:
+            return False
+        return point_verdict(self.point_snapshot).move_on and self.eps_met()
+
     def eps_met(self) -> bool:
         """A target on eps (judged beside the moments, stats/eps_target.py) is met too."""
         if self.spectra is None:  # no spectrum: an eps target cannot be met

@@ -139,6 +139,51 @@ def test_terminal_summary_and_dashboard_show_the_same_verdict(drift):
     assert all(f in point_line for f in POINT_SIGNAL_FIELDS)
 
 
+def test_a_point_turned_by_its_final_evaluation_is_withdrawn_at_its_end():
+    """Signalled converged, then u saturates (an amplifier at its rail: 400 rows at one value
+    above every other, 1.3 % of the point clipped, above the 0.1 % that makes a point suspect)
+    in the last 0.4 s: rows that wait for the next group of 0.5 s (monitor/coalesce.py) and so
+    reach the statistics only at the point's end. No checkpoint sees them, the final
+    evaluation does; the traverse, which may already have left the point, hears ``withdrawn``
+    with the final verdict's reason before the line is written."""
+
+    class Heard:
+        def __init__(self):
+            self.kinds, self.messages = [], []
+
+        def __call__(self, stream, point, at_s, line):
+            self.kinds.append("converged")
+            self.messages.append((at_s, line))
+
+        def withdrawn(self, stream, point, at_s, line):
+            self.kinds.append("withdrawn")
+            self.messages.append((at_s, line))
+
+    heard = Heard()
+    targets = Targets.from_dict({"targets": {"U": {"relative": 0.02}}})
+    lines = io.StringIO()
+    p = Pipeline(targets, summary=lines, on_converged=heard, snapshot_interval_s=3600.0)
+    w = StreamWriter(rate_hz=RATE_HZ)
+    p.handle_frames(w.point("P1", y=0.02))
+    x = _record(np.random.default_rng(11), 30_000)
+    for start in range(0, len(x), 1000):
+        p.handle_frames(w.samples(x[start:start + 1000].astype(np.float32)))
+    assert heard.kinds == ["converged"]
+    rail = _record(np.random.default_rng(12), 400)
+    rail[:, 0] = x[:, 0].max() + 1.0
+    p.handle_frames(w.samples(rail.astype(np.float32)))
+    assert heard.kinds == ["converged"]  # the rows wait: no checkpoint saw them
+    p.handle_frames(w.end())
+    p.close()
+    assert heard.kinds == ["converged", "withdrawn"]
+    at_s, live = heard.messages[1]
+    line = json.loads(lines.getvalue().splitlines()[0])
+    assert at_s == pytest.approx(30.4) and line["withdrawn_at_s"] == at_s
+    assert line["converged"] is False and line["verdict"]["kind"] == "check-signal"
+    assert "clipped" in live["verdict"]["reason"]
+    assert live["verdict"] == line["verdict"]
+
+
 def test_a_drifting_point_is_signalled_then_withdrawn_on_a_real_control_socket():
     """Stationary for 20 s (converges under loose targets), then u drifts by 3 sigma: the
     guard catches it while data keep coming, and the traverse hears ``withdrawn``."""
