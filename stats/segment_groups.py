@@ -20,15 +20,16 @@ and that, and the groups grow with the record (the batches of batch means).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
 __all__ = [
-    "MAX_GROUPS", "MIN_GROUPS", "SEGMENTS_PER_GROUP", "GroupStore", "SegmentGroups", "band_layout",
+    "MAX_GROUPS", "MIN_GROUPS", "SEGMENTS_PER_GROUP", "BandLayout", "GroupStore", "SegmentGroups", "band_layout",
 ]
 
-#: segments in a new group (two packed pairs of one batched transform)
-SEGMENTS_PER_GROUP = 4
+#: segments in a new group (the four packed pairs of one batch of FFT_BATCH segments)
+SEGMENTS_PER_GROUP = 8
 #: at most this many groups are kept; beyond it neighbours are merged pairwise
 MAX_GROUPS = 128
 #: fewer groups than this give no batch-means error (the chi-squared error alone is used)
@@ -37,15 +38,18 @@ MIN_GROUPS = 8
 BANDS = 64
 
 
-def band_layout(n: int, bands: int = BANDS) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def band_layout(n: int, bands: int = BANDS) -> BandLayout:
     """For a segment of ``n`` samples: the band edges (last folded bin of each band, (E,)),
     and, for each of the ``n`` bins of a packed-pair transform, its band (-1 for DC) and the
     weight of its ``|Z|^2`` in ``b^2 |X_b|^2`` after folding (see
-    ``spectral_kernels.accumulate_pairs``: a folded bin is half the sum of bins b and n - b).
+    ``spectral_kernels.accumulate_pairs``: a folded bin is half the sum of bins b and n - b);
+    ``lo`` and ``hi`` give each band's two ranges of bins (below and above n/2).
 
-    >>> edges, band, weight = band_layout(8, bands=3)
+    >>> edges, band, weight, lo, hi = band_layout(8, bands=3)
     >>> edges.tolist(), band.tolist(), weight.tolist()
     ([1, 2, 4], [-1, 0, 1, 2, 2, 2, 1, 0], [0.0, 0.5, 2.0, 4.5, 16.0, 4.5, 2.0, 0.5])
+    >>> lo.tolist(), hi.tolist()
+    ([[1, 2, 3], [7, 6, 5]], [[2, 3, 5], [8, 7, 6]])
     """
     nf = n // 2 + 1
     edges = np.unique(np.round(np.geomspace(1, max(nf - 1, 1), bands)).astype(np.int64))
@@ -56,7 +60,23 @@ def band_layout(n: int, bands: int = BANDS) -> tuple[np.ndarray, np.ndarray, np.
     weight = 0.5 * folded.astype(np.float64) ** 2
     if n % 2 == 0:
         weight[n // 2] *= 2.0  # the Nyquist bin has no partner: the fold keeps it whole
-    return edges, band, weight
+    k = np.arange(edges.size)
+    half = n // 2
+    up = band[1 : half + 1]  # bins 1 .. n/2: bands ascending
+    down = band[half + 1 :][::-1]  # bins n-1 .. n/2+1: bands ascending
+    lo = np.stack([1 + np.searchsorted(up, k, "left"),
+                   n - np.searchsorted(down, k, "right")]).astype(np.int64)
+    hi = np.stack([1 + np.searchsorted(up, k, "right"),
+                   n - np.searchsorted(down, k, "left")]).astype(np.int64)
+    return BandLayout(edges, band, weight, lo, hi)
+
+
+class BandLayout(NamedTuple):
+    edges: np.ndarray  # (E,) last folded bin of each band
+    band: np.ndarray  # (n,) band of each transform bin, -1 for DC
+    weight: np.ndarray  # (n,) weight of |Z_t|^2 in b^2 |X_b|^2
+    lo: np.ndarray  # (2, E) first bin of each band, in bins 1..n/2 and in the mirrored ones
+    hi: np.ndarray  # (2, E) one past the last
 
 
 @dataclass(frozen=True)
@@ -111,38 +131,52 @@ class GroupStore:
     def __init__(self, m: int, edges: np.ndarray):
         self.edges = edges
         self.size = SEGMENTS_PER_GROUP
-        self._counts = np.zeros(0, dtype=np.int64)
-        self._bands = np.zeros((0, m, edges.size))
+        self._used = 0
+        self._counts_buf = np.zeros(MAX_GROUPS + 1, dtype=np.int64)
+        self._bands_buf = np.zeros((MAX_GROUPS + 1, m, edges.size))
+
+    @property
+    def _counts(self) -> np.ndarray:
+        return self._counts_buf[: self._used]
+
+    @property
+    def _bands(self) -> np.ndarray:
+        return self._bands_buf[: self._used]
 
     def add(self, counts, bands: np.ndarray) -> None:
         """Add groups in order: ``counts`` (G,) segments and ``bands`` (G, m, E) per-band sums."""
         for c, b in zip(np.asarray(counts, dtype=np.int64), bands, strict=True):
             if c <= 0:
                 continue
-            if self._counts.size and self._counts[-1] < self.size:
-                self._counts[-1] += c
-                self._bands[-1] += b
+            last = self._used - 1
+            if self._used and self._counts_buf[last] < self.size:
+                self._counts_buf[last] += c
+                self._bands_buf[last] += b
             else:
-                self._counts = np.append(self._counts, c)
-                self._bands = np.concatenate([self._bands, b[None]])
-            if self._counts.size > MAX_GROUPS:
+                self._counts_buf[self._used] = c
+                self._bands_buf[self._used] = b
+                self._used += 1
+            if self._used > MAX_GROUPS:
                 self._halve()
                 self.size *= 2
 
     def _halve(self) -> None:
-        """Merge neighbours pairwise (an odd last group stays alone)."""
-        c, b = self._counts, self._bands
-        even = c.size - c.size % 2
-        merged_c = c[:even:2] + c[1:even:2]
-        merged_b = b[:even:2] + b[1:even:2]
-        if even < c.size:
-            merged_c = np.concatenate([merged_c, c[even:]])
-            merged_b = np.concatenate([merged_b, b[even:]])
-        self._counts, self._bands = merged_c, merged_b
+        """Merge neighbours pairwise, in place (an odd last group stays alone)."""
+        c, b, used = self._counts_buf, self._bands_buf, self._used
+        even = used - used % 2
+        half = even // 2
+        c[:half] = c[0:even:2] + c[1:even:2]
+        b[:half] = b[0:even:2] + b[1:even:2]
+        if even < used:
+            c[half], b[half] = c[even], b[even]
+            half += 1
+        c[half:used] = 0
+        b[half:used] = 0.0
+        self._used = half
 
     def extend(self, other: GroupStore) -> GroupStore:
         """A new store with ``other``'s groups after this one's (inputs untouched)."""
-        out = GroupStore(self._bands.shape[1], self.edges)
+        out = GroupStore(self._bands_buf.shape[1], self.edges)
         out.size = max(self.size, other.size)
         out.add(self._counts, self._bands)
         out.add(other._counts, other._bands)

@@ -41,8 +41,8 @@ from eddyvigil.stats.segment_groups import (
     band_layout,
 )
 from eddyvigil.stats.spectral_kernels import (
+    accumulate_pair_groups,
     accumulate_pairs,
-    accumulate_pairs_banded,
     window_pairs,
 )
 from scipy import signal as sps
@@ -328,8 +328,8 @@ class SpectrumAccumulator:
         self._scale = 1.0 / (self.rate_hz * float(np.dot(self.window, self.window)))
         # per column, all n bins of the packed pairs' |Z|^2, folded by snapshot()
         self._sum = np.zeros((self._m, n))
-        edges, self._band, self._band_weight = band_layout(n)
-        self._groups = GroupStore(self._m, edges)
+        self._bands = band_layout(n)
+        self._groups = GroupStore(self._m, self._bands.edges)
 
     @property
     def n(self) -> int:
@@ -381,7 +381,8 @@ class SpectrumAccumulator:
         per = SEGMENTS_PER_GROUP // 2
         g = -(-pairs // per)
         bands = np.zeros((g, self._m, self._groups.edges.size))
-        accumulate_pairs_banded(spec, out, self._band, self._band_weight, per, bands)
+        lay = self._bands
+        accumulate_pair_groups(spec, out, per, lay.lo, lay.hi, lay.weight, bands)
         counts = np.full(g, SEGMENTS_PER_GROUP, dtype=np.int64)
         counts[-1] = k - SEGMENTS_PER_GROUP * (g - 1)
         self._groups.add(counts, bands)

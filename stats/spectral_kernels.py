@@ -16,7 +16,7 @@ import numba
 import numpy as np
 
 __all__ = [
-    "accumulate_pairs", "accumulate_pairs_banded", "flattest_run", "segment_sum", "window_pairs",
+    "accumulate_pair_groups", "accumulate_pairs", "flattest_run", "segment_sum", "window_pairs",
 ]
 
 
@@ -177,29 +177,47 @@ def flattest_run(
 
 
 @numba.njit(cache=True, nogil=True)
-def accumulate_pairs_banded(
+def accumulate_pair_groups(
     spec: np.ndarray,
     out: np.ndarray,
-    band: np.ndarray,
-    weight: np.ndarray,
     pairs_per_group: int,
-    groups: np.ndarray,
+    lo: np.ndarray,
+    hi: np.ndarray,
+    weight: np.ndarray,
+    bands: np.ndarray,
 ) -> None:  # pragma: no cover - compiled
-    """:func:`accumulate_pairs`, and beside it per group of ``pairs_per_group`` pairs the sums
-    ``groups[g, j, band[t]] += weight[t] |Z[j, p, t]|^2`` (g = p // pairs_per_group; bins with
-    ``band[t] < 0`` left out): the band sums of ``b^2 |X_b|^2`` of
-    ``segment_groups.band_layout``, for the batch-means error of spectral integrals."""
+    """:func:`accumulate_pairs` (the same sums, added in the same order: the same bits), and
+    beside it, per group of ``pairs_per_group`` pairs, ``bands[g, j, k] += sum weight[t]
+    |Z[j, p, t]|^2`` over the group's pairs p and the bins t of band k, which lie in the two
+    ranges ``lo[h, k] <= t < hi[h, k]`` (h = 0: bins up to n/2; h = 1: the mirrored bins above;
+    ``segment_groups.band_layout``). A group's power is summed in a scratch row first (plain
+    stores, which vectorise), then once per band with two interleaved partial sums."""
     m, pairs, n = spec.shape
+    nb = lo.shape[1]
+    row = np.empty(n)
     for j in range(m):
         o = out[j]
-        for p in range(pairs):
-            z = spec[j, p]
-            g = groups[p // pairs_per_group, j]
-            for t in range(n):
-                re = np.float64(z[t].real)
-                im = np.float64(z[t].imag)
-                pw = re * re + im * im
-                o[t] += pw
-                b = band[t]
-                if b >= 0:
-                    g[b] += weight[t] * pw
+        for first in range(0, pairs, pairs_per_group):
+            row[:] = 0.0
+            for p in range(first, min(first + pairs_per_group, pairs)):
+                z = spec[j, p]
+                for t in range(n):
+                    re = np.float64(z[t].real)
+                    im = np.float64(z[t].imag)
+                    pw = re * re + im * im
+                    o[t] += pw
+                    row[t] += pw
+            g = first // pairs_per_group
+            for k in range(nb):
+                s0 = 0.0
+                s1 = 0.0
+                for h in range(2):
+                    t = lo[h, k]
+                    stop = hi[h, k]
+                    while t + 1 < stop:
+                        s0 += weight[t] * row[t]
+                        s1 += weight[t + 1] * row[t + 1]
+                        t += 2
+                    if t < stop:
+                        s0 += weight[t] * row[t]
+                bands[g, j, k] += s0 + s1

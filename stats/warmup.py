@@ -58,7 +58,7 @@ def exercise(dtype, columns) -> None:
         quality = SignalQuality(columns, "exclude")
         quality.update(block[:4200])
         quality.flush()
-    # the Welch kernels (window_pairs, accumulate_pairs, accumulate_pairs_banded) for this dtype,
+    # the Welch kernels (window_pairs, accumulate_pairs, accumulate_pair_groups) for this dtype,
     # through the class
     SpectrumAccumulator(columns, 1000.0, segment=256).update(block[:1500]).snapshot()
     if dtype is np.float64 and len(columns) == 3:  # dissipation's flat-range search (float64)

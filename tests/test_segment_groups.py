@@ -4,7 +4,13 @@ import numpy as np
 import pytest
 from scipy import signal as sps
 
-from eddyvigil.stats.segment_groups import MAX_GROUPS, MIN_GROUPS, GroupStore, band_layout
+from eddyvigil.stats.segment_groups import (
+    MAX_GROUPS,
+    MIN_GROUPS,
+    SEGMENTS_PER_GROUP,
+    GroupStore,
+    band_layout,
+)
 from eddyvigil.stats.spectra import SpectrumAccumulator
 from tests.processes import ar1
 
@@ -33,10 +39,10 @@ def test_group_band_sums_add_up_to_the_welch_integral_at_every_edge():
 
 
 def test_store_stays_bounded_and_groups_stay_about_equal():
-    edges, _, _ = band_layout(64)
+    edges = band_layout(64).edges
     store = GroupStore(1, edges)
     for _ in range(1000):
-        store.add(np.array([4, 4]), np.ones((2, 1, edges.size)))
+        store.add(np.array([4, 4]), np.ones((2, 1, edges.size)))  # half groups join up
     snap = store.snapshot()
     assert MAX_GROUPS // 2 <= snap.groups <= MAX_GROUPS
     assert int(snap.counts.sum()) == 8000
@@ -47,16 +53,16 @@ def test_batch_means_error_matches_the_spread_of_independent_groups():
     # Independent groups (one value per group, unit band sums times a random level): the
     # relative error is the textbook standard error of a mean of B iid values over their
     # mean (common practice), here with equal group sizes.
-    edges, _, _ = band_layout(64)
+    edges = band_layout(64).edges
     rng = np.random.default_rng(11)
     levels = rng.gamma(5.0, 1.0, size=40)
     store = GroupStore(1, edges)
-    store.add(np.full(40, 4), levels[:, None, None] * np.ones((40, 1, edges.size)) / edges.size)
+    store.add(np.full(40, SEGMENTS_PER_GROUP), levels[:, None, None] * np.ones((40, 1, edges.size)) / edges.size)
     rel, dof = store.snapshot().relative_error(0, int(edges[-1]))
     assert dof == 39
     assert rel == pytest.approx(levels.std(ddof=1) / np.sqrt(40) / levels.mean(), rel=1e-12)
     few = GroupStore(1, edges)
-    few.add(np.full(MIN_GROUPS - 1, 4), np.ones((MIN_GROUPS - 1, 1, edges.size)))
+    few.add(np.full(MIN_GROUPS - 1, SEGMENTS_PER_GROUP), np.ones((MIN_GROUPS - 1, 1, edges.size)))
     assert np.isnan(few.snapshot().relative_error(0, 10)[0])
 
 
