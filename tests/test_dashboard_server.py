@@ -125,6 +125,7 @@ def _handler_with_released_session(cls):
     handler.connection = connection
     handler.receiver = Receiver(Protocol())
     handler.handler = ProtocolHandler()
+    handler.close_code, handler.close_reason = 1001, None  # what tornado's close sets
     handler.closed_with = []
     handler.close = lambda code=None, reason=None: handler.closed_with.append((code, reason))
     return handler
@@ -156,6 +157,26 @@ def test_frames_from_a_released_tab_are_dropped_without_a_server_error(caplog):
     assert [r for r in caplog.records if r.levelno >= logging.WARNING] == []
     assert ours.closed_with == []
     assert any("session was released" in r.getMessage() for r in caplog.records)
+
+
+def test_a_close_after_the_keep_alive_released_the_session_is_no_server_error(caplog):
+    """Bokeh's keep-alive ping that finds a socket closed releases the session
+    (``client_lost``); tornado's ``on_close`` comes afterwards. Bokeh's own handler then logs
+    an AssertionError (5 tracebacks in a 60-minute soak); the dashboard's handler does not."""
+    import logging
+
+    from bokeh.server.views.ws import WSHandler
+
+    from eddyvigil.monitor.dashboard.server import _ClosedTabWSHandler
+
+    bokeh_own = _handler_with_released_session(WSHandler)
+    with pytest.raises(AssertionError):  # tornado logs this one with its traceback
+        bokeh_own.on_close()
+    ours = _handler_with_released_session(_ClosedTabWSHandler)
+    with caplog.at_level(logging.DEBUG):
+        ours.on_close()
+    assert [r for r in caplog.records if r.levelno >= logging.WARNING] == []
+    assert any("after its session was released" in r.getMessage() for r in caplog.records)
 
 
 def test_the_server_routes_websockets_through_the_closed_tab_handler():

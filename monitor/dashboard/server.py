@@ -110,22 +110,33 @@ def _listen(host: str, port: int) -> socket.socket:
 
 
 class _ClosedTabWSHandler(WSHandler):
-    """Bokeh's websocket handler, dropping what a tab sent after its session was released.
+    """Bokeh's websocket handler, quiet about a tab whose session was already released.
 
-    Tornado reports a closed socket as soon as it sees the close, but still delivers the frames
-    it had already read. Bokeh then releases the session (``on_close`` detaches it from the
-    connection) and handles the buffered frames anyway: a PATCH-DOC reaches
-    ``ServerConnection.session`` with no session and Bokeh logs an ``AssertionError`` traceback
-    (seen 2 times in a 45-minute soak with three tabs coming and going). Such a message has no
-    document to change and nobody to answer, so it is dropped here, with a debug line.
+    Bokeh releases a tab's session (``client_lost`` detaches it from the connection) in two
+    places: when tornado reports the close (``on_close``) and when its keep-alive ping finds the
+    socket closed. Afterwards two things still reach the handler and meet
+    ``ServerConnection.session`` with no session, where Bokeh logs an ``AssertionError``
+    traceback: frames tornado had read before the close (a PATCH-DOC; seen 2 times in a
+    45-minute soak with three tabs coming and going), and tornado's own ``on_close`` after the
+    ping released the session (seen 5 times in the next 60-minute soak). Neither has a
+    document to change or anybody to tell, so both end here with a debug line.
     """
 
-    async def on_message(self, fragment: str | bytes) -> None:
+    def _released(self) -> bool:
         connection = self.connection
-        if connection is not None and getattr(connection, "_session", True) is None:
+        return connection is not None and getattr(connection, "_session", True) is None
+
+    async def on_message(self, fragment: str | bytes) -> None:
+        if self._released():
             log.debug("dropped a websocket frame from a tab whose session was released")
             return None
         return await super().on_message(fragment)
+
+    def on_close(self) -> None:
+        if self._released():
+            log.debug("websocket closed after its session was released (keep-alive ping)")
+            return None
+        return super().on_close()
 
 
 class _OwnResourcesTornado(BokehTornado):
