@@ -47,7 +47,7 @@ def test_slow_content_with_the_slowest_period_stated(w, seed):
 
 @pytest.mark.xfail(
     strict=True,
-    reason="measured over 400 records: w = 0.005 stopped wrong in 7.5 % (17.25 % before the "
+    reason="measured over 400 records: w = 0.005 stopped wrong in 7 % (17.25 % before the "
     "pooled rise test, its memory and the upper levels' lower bounds), w = 0.002 in 11.75 % "
     "(18.5 %); an open limit (README): state the period",
 )
