@@ -74,8 +74,10 @@ def _report(label, runs, n_star, truth, t0) -> None:
         f"[{label}] share of runs stopping with the truth outside:",
         {n: round(v, 3) for n, v in miss.items()},
     )
-    print(f"[{label}] worst coverage at the stop: {1 - max(miss.values()):.3f}  "
-          f"({time.perf_counter() - t0:.0f} s)")
+    print(
+        f"[{label}] worst coverage at the stop: {1 - max(miss.values()):.3f}  "
+        f"({time.perf_counter() - t0:.0f} s)"
+    )
 
 
 def main(reps: int = 200, compare: bool = False) -> None:

@@ -204,6 +204,8 @@ class _Evaluation:
     error_method: dict | None = None  # row -> how its error was found, where not by blocking
     #: interval centre minus value per name (None: every interval symmetric about the value)
     shift: np.ndarray | None = None
+    #: the widening of each interval (_inflation; None: INTERVAL_INFLATION throughout)
+    widening: np.ndarray | None = None
 
 
 class PointStatistics:
@@ -532,7 +534,7 @@ class PointStatistics:
         targets = self._plan.resolve(values.tolist())
         guards = self._guards(values, se, hw, choice, plain, targets)
         ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, *guards,
-                         error_method=methods, shift=shift)
+                         error_method=methods, shift=shift, widening=infl)
         if rows is None:
             self._cache = ev
         return ev
@@ -759,6 +761,9 @@ class PointStatistics:
         se_rel_err = ev.se_rel_err.tolist()
         unresolved = ev.unresolved.tolist()
         shifts = [0.0] * len(values) if ev.shift is None else ev.shift.tolist()
+        widening = (
+            [INTERVAL_INFLATION] * len(values) if ev.widening is None else ev.widening.tolist()
+        )
         methods = ev.error_method or {}
         cp = self.checkpoints
         for i in indices:
@@ -788,7 +793,7 @@ class PointStatistics:
                     if converged
                     # the widening falls to INTERVAL_INFLATION as blocks come (_inflation)
                     else eta_seconds(
-                        hw * INTERVAL_INFLATION / float(_inflation(np.array(blocks))),
+                        hw * INTERVAL_INFLATION / widening[i],
                         target, blocks, T, streak, ev.min_total_s[i],
                     )
                 )
