@@ -9,6 +9,12 @@ of REFERENCES §1 and §5: means sigma^2 (1+rho)/(1-rho), second moments the Her
 share of runs stopping with the truth outside the interval. Prints figures only (no
 assertions). Run: ``nice -n 10 .venv/bin/python benchmarks/bench_stopping.py [reps]``.
 
+``... bench_stopping.py [reps] compare``: the default-target runs twice on the same records,
+interleaved: as shipped, and as before the short-record work ("former"): every interval
+symmetric (the log-scale, skew and kurtosis corrections of uu, vv, ww and k off:
+``stats.point.VARIANCE_ROWS`` emptied) and widened by 1.05 whatever the block count
+(``stats.point.INFLATION_BLOCKS`` = 2).
+
 ``... bench_stopping.py [reps] slow``: the issue-12 slow-content process instead (U within
 +-0.025, sqrt(1 - w) AR(1, T = 5) + sqrt(w) AR(1, T = 5000 samples), w = 0.005 and 0.002, no
 period stated, records of 2^20 samples): the share stopped and the share stopped wrong.
@@ -48,7 +54,35 @@ def oracle(rho: float, targets: Targets) -> float:
     return max(need)
 
 
-def main(reps: int = 200) -> None:
+def _report(label, runs, n_star, truth, t0) -> None:
+    stops = np.array([s.samples or np.nan for s in runs]) / n_star
+    miss = {n: np.mean([s.miss[n] for s in runs]) for n in truth}
+    e25 = np.array([s.eta_ratio(0.25) for s in runs])
+    e50 = np.array([s.eta_ratio(0.5) for s in runs])
+    print(f"[{label}] never converged within 4x: {np.isnan(stops).sum()}")
+    print(
+        f"[{label}] stop / oracle: median {np.nanmedian(stops):.3f}, mean "
+        f"{np.nanmean(stops):.3f}, p95 {np.nanpercentile(stops, 95):.3f} (stops fall on "
+        f"4096-sample blocks: steps of {4096 / n_star:.2f})"
+    )
+    print(
+        f"[{label}] ETA predicted/actual total: at 25 % median {np.nanmedian(e25):.3f} "
+        f"(under in {np.nanmean(e25 < 1):.2f}), at 50 % median {np.nanmedian(e50):.3f} "
+        f"(under in {np.nanmean(e50 < 1):.2f})"
+    )
+    print(
+        f"[{label}] share of runs stopping with the truth outside:",
+        {n: round(v, 3) for n, v in miss.items()},
+    )
+    print(
+        f"[{label}] worst coverage at the stop: {1 - max(miss.values()):.3f}  "
+        f"({time.perf_counter() - t0:.0f} s)"
+    )
+
+
+def main(reps: int = 200, compare: bool = False) -> None:
+    from eddyvigil.stats import point
+
     rho = np.exp(-1 / 10)
     targets = Targets.defaults()
     n_star = oracle(rho, targets)
@@ -57,27 +91,20 @@ def main(reps: int = 200) -> None:
         for j, b in enumerate("uvw"):
             if j >= i:
                 truth[a + b] = STRESS[i, j]
+    shipped = (point.VARIANCE_ROWS, point.INFLATION_BLOCKS)
+    arms = {"shipped": shipped, "former": (frozenset(), 2)} if compare else {"shipped": shipped}
     t0 = time.perf_counter()
-    runs = []
+    runs = {a: [] for a in arms}
     for r in range(reps):
         x = turbulence(np.random.default_rng(300_000 + r), int(4 * n_star), rho)
-        runs.append(run_until_converged(x, ("u", "v", "w"), targets, truth))
-    stops = np.array([s.samples or np.nan for s in runs]) / n_star
-    miss = {n: np.mean([s.miss[n] for s in runs]) for n in truth}
-    e25 = np.array([s.eta_ratio(0.25) for s in runs])
-    e50 = np.array([s.eta_ratio(0.5) for s in runs])
+        for arm, (rows, blocks) in arms.items():
+            point.VARIANCE_ROWS, point.INFLATION_BLOCKS = rows, blocks
+            runs[arm].append(run_until_converged(x, ("u", "v", "w"), targets, truth))
+    point.VARIANCE_ROWS, point.INFLATION_BLOCKS = shipped
     print(f"default targets, 3-component Gaussian AR(1), T_int = 10 samples, {reps} runs")
-    print(f"oracle {n_star:.0f} samples; never converged within 4x: {np.isnan(stops).sum()}")
-    print(
-        f"stop / oracle: median {np.nanmedian(stops):.3f}, p95 {np.nanpercentile(stops, 95):.3f}"
-    )
-    print(
-        f"ETA predicted/actual total: at 25 % median {np.nanmedian(e25):.3f} "
-        f"(under in {np.nanmean(e25 < 1):.2f}), at 50 % median {np.nanmedian(e50):.3f} "
-        f"(under in {np.nanmean(e50 < 1):.2f})"
-    )
-    print("share of runs stopping with the truth outside:", {n: round(v, 3) for n, v in miss.items()})
-    print(f"worst coverage at the stop: {1 - max(miss.values()):.3f}  ({time.perf_counter() - t0:.0f} s)")
+    print(f"oracle {n_star:.0f} samples")
+    for arm in arms:
+        _report(arm, runs[arm], n_star, truth, t0)
 
 
 def slow(reps: int = 400) -> None:
@@ -102,4 +129,4 @@ if __name__ == "__main__":
     if sys.argv[2:] == ["slow"]:
         slow(n)
     else:
-        main(n)
+        main(n, compare=sys.argv[2:] == ["compare"])

@@ -111,6 +111,22 @@ def format_value(x, digits: int = 4) -> str:
     return f"{x:.{digits}g}"
 
 
+def value_text(e) -> str:
+    """A statistic's value with its interval: ``value ± half-width``, or ``value +up −down``
+    where the interval is not centred on the value (variances: stats.point._variance_intervals).
+
+    >>> from types import SimpleNamespace as E
+    >>> value_text(E(value=1.0, half_width=0.2, ci_low=0.8, ci_high=1.2))
+    '1 ± 0.2'
+    >>> value_text(E(value=1.0, half_width=0.2, ci_low=0.87, ci_high=1.27))
+    '1 +0.27 −0.13'
+    """
+    v, lo, hi, hw = _num(e.value), _num(e.ci_low), _num(e.ci_high), _num(e.half_width)
+    if math.isfinite(lo) and math.isfinite(hi) and abs((hi - v) - (v - lo)) > 0.1 * hw:
+        return f"{format_value(v)} +{format_value(hi - v, 2)} −{format_value(v - lo, 2)}"
+    return f"{format_value(v)} ± {format_value(hw, 2)}"
+
+
 def format_duration(seconds) -> str:
     """Seconds for people: ``42 s``, ``3 min 05 s``, ``1 h 02 min``; en dash when unknown.
 
@@ -327,7 +343,7 @@ def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
             cols["stream"].append(name)
             cols["point"].append(pid)
             cols["name"].append(e.name)
-            cols["value"].append(f"{format_value(e.value)} ± {format_value(e.half_width, 2)}")
+            cols["value"].append(value_text(e))
             cols["target"].append(f"± {format_value(e.target, 2)}"
                                   + (f" ({derived[e.name]})" if e.name in derived else ""))
             state = display_state(e)
