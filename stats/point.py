@@ -107,6 +107,12 @@ VARIANCE_ROWS = frozenset(("uu", "vv", "ww", "k"))
 #: a chi-squared count, equal weights, would give 2 and 6, the least at a given variance)
 BLOCK_SKEW = 3.0
 BLOCK_KURTOSIS = 15.0
+#: the log-scale interval is used up to this half-width on the log scale (w t SE / value);
+#: beyond it the plain symmetric interval (_variance_intervals)
+MAX_LOG_HALF_WIDTH = 0.5
+#: a statistic that converged at a checkpoint is no longer shown converged once its interval
+#: has grown past this many times its target (the signal changed since; see _estimates)
+LAPSE_FACTOR = 1.5
 
 
 def _inflation(blocks: np.ndarray) -> np.ndarray:
@@ -175,9 +181,12 @@ def _variance_intervals(p, values, se, blocks, plain, inflation=INTERVAL_INFLATI
         t[ok] = special.stdtrit(dof[ok], p)
         shift_log = BLOCK_SKEW * r * (2.0 * t * t + 1.0) / 6.0 * r
         a = inflation * t * r
-        # a factor e^50 is no interval at all; the cap keeps the arithmetic finite
-        lo = v * np.exp(np.minimum(shift_log - a, 50.0))
-        hi = v * np.exp(np.minimum(shift_log + a, 50.0))
+        # the corrections are the first terms of expansions in r: beyond a half-width of
+        # about half the value (where no target stops) they are no guide, and for r ~ 1 they
+        # would put the whole interval far above the value; the plain interval is kept there
+        ok &= a <= MAX_LOG_HALF_WIDTH
+        lo = v * np.exp(np.where(ok, shift_log - a, 0.0))
+        hi = v * np.exp(np.where(ok, shift_log + a, 0.0))
     half = np.where(ok, 0.5 * (hi - lo), plain)
     shift = np.where(ok, 0.5 * (hi + lo) - v, 0.0)
     return half, shift
@@ -787,6 +796,10 @@ class PointStatistics:
                 any_target = True
                 held = bool(bad) or ev.held[i] is not None
                 converged = cp.is_converged(name) and not held
+                # the streak is judged at checkpoints; between them (and at the point's end)
+                # an interval that has grown far past its target is not shown converged
+                lapsed = converged and hw > LAPSE_FACTOR * target
+                converged = converged and not lapsed
                 streak = cp.streak.get(name, 0)
                 eta = (
                     0.0
@@ -802,6 +815,12 @@ class PointStatistics:
                 elif ev.held[i] is not None:
                     (state, reason), slow_need = ("suspect", ev.held[i][0]), ev.held[i][1]
                     eta = max(slow_need - T, eta or 0.0)
+                elif lapsed:
+                    state = "suspect"
+                    reason = (
+                        f"the interval has grown to {hw / target:.1f} times its target since it "
+                        f"converged: the signal changed"
+                    )
                 elif converged:
                     state = "converged"
                 elif not trusted:

@@ -184,6 +184,47 @@ def test_a_point_turned_by_its_final_evaluation_is_withdrawn_at_its_end():
     assert live["verdict"] == line["verdict"]
 
 
+def test_a_level_step_after_the_last_checkpoint_lapses_the_converged_state():
+    """Signalled converged at 10 s, then u steps by 40 sigma for the last 0.4 s (a probe
+    knocked, a flow that broke down), rows that reach the statistics only at the point's end.
+    U's blocking error then sees the step (its interval grows to about 7 times its target);
+    the checkpoint's streak alone would still say converged. A converged row whose interval
+    has grown past 1.5 times its target is shown suspect, the point is not converged, and
+    the traverse hears ``withdrawn``. The variances' interval at such a large relative error
+    is the plain symmetric one and holds the value."""
+    heard = []
+    targets = Targets.from_dict({"targets": {"U": {"relative": 0.02}}})
+    lines = io.StringIO()
+
+    class Heard:
+        def __call__(self, stream, point, at_s, line):
+            heard.append("converged")
+
+        def withdrawn(self, stream, point, at_s, line):
+            heard.append("withdrawn")
+
+    p = Pipeline(targets, summary=lines, on_converged=Heard(), snapshot_interval_s=3600.0)
+    w = StreamWriter(rate_hz=RATE_HZ)
+    p.handle_frames(w.point("P1", y=0.02))
+    x = _record(np.random.default_rng(11), 30_000)
+    for start in range(0, len(x), 1000):
+        p.handle_frames(w.samples(x[start:start + 1000].astype(np.float32)))
+    step = _record(np.random.default_rng(12), 400) + np.array([40 * 0.9, 0.0, 0.0])
+    p.handle_frames(w.samples(step.astype(np.float32)))
+    p.handle_frames(w.end())
+    p.close()
+    assert heard == ["converged", "withdrawn"]
+    line = json.loads(lines.getvalue().splitlines()[0])
+    rows = {r["name"]: r for r in line["statistics"]}
+    u = rows["U"]
+    assert (u["ci_high"] - u["ci_low"]) / 2 > 1.5 * u["target"]
+    assert u["state"] == "suspect" and u["converged"] is False
+    assert line["converged"] is False and line["verdict"]["kind"] == "check-signal"
+    assert "grown to" in line["verdict"]["reason"]
+    uu = rows["uu"]
+    assert uu["ci_low"] <= uu["value"] <= uu["ci_high"]
+
+
 def test_a_drifting_point_is_signalled_then_withdrawn_on_a_real_control_socket():
     """Stationary for 20 s (converges under loose targets), then u drifts by 3 sigma: the
     guard catches it while data keep coming, and the traverse hears ``withdrawn``."""
