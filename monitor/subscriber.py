@@ -340,20 +340,24 @@ class Subscriber:
     def close(self, leave_curve_open: bool = False) -> None:
         """Close both sockets with LINGER 0 (and the private context).
 
-        ``leave_curve_open``: with CURVE, stop taking connections and close the socket
-        monitor, but leave the data socket, its context and the ZAP handler to the process's
+        ``leave_curve_open``: with CURVE, close the socket monitor only and leave the data
+        socket (still bound or connected), its context and the ZAP handler to the process's
         exit. libzmq 4.3 aborts the process (zap_client.cpp:50) when a refused peer's retried
         handshake sends its ZAP request while the socket closes, whatever the grace period;
         ``watch`` uses this and then ends with ``os._exit`` once every output is flushed.
         """
-        if self.curve is not None:
+        leave = leave_curve_open and self.curve is not None
+        if self.curve is not None and not leave:
             self._close_curve_quietly()
         try:
             self.socket.disable_monitor()
         except zmq.ZMQError:
             pass
         self._monitor.close(linger=0)
-        if leave_curve_open and self.curve is not None:
+        if leave:
+            # not even unbind/disconnect: ending a session while a refused peer's handshake
+            # sends its ZAP request is what aborts (seen with a SUB that connects to a
+            # stranger's PUB: "Transport endpoint is not connected (src/zap_client.cpp:50)")
             return
         self.socket.close(linger=0)
         if self.curve is not None:
