@@ -224,15 +224,13 @@ class PointRun:
         checkpoints), so replay = live.
         """
         from eddyvigil.stats import quality
-        from eddyvigil.stats.verdict import point_verdict
 
         snap = self.statistics.targeted_snapshot()
         snap = quality.hold_suspect(snap, self.quality.suspect_reasons())
         self.history.add(snap)
         if not self.signalled and snap.converged:
             self.take_snapshot(history=False)  # the summary line needs all
-            move_on = point_verdict(self.point_snapshot).move_on and self.eps_met()
-            return "converged" if move_on else None
+            return "converged" if self.final_move_on() else None
         if self.signalled and any(e.state == "suspect" for e in snap.targeted()):
             self.take_snapshot(history=False)
             return "withdrawn"
