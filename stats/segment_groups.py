@@ -25,7 +25,13 @@ from typing import NamedTuple
 import numpy as np
 
 __all__ = [
-    "MAX_GROUPS", "MIN_GROUPS", "SEGMENTS_PER_GROUP", "BandLayout", "GroupStore", "SegmentGroups", "band_layout",
+    "MAX_GROUPS",
+    "MIN_GROUPS",
+    "SEGMENTS_PER_GROUP",
+    "BandLayout",
+    "GroupStore",
+    "SegmentGroups",
+    "band_layout",
 ]
 
 #: segments in a new group (the four packed pairs of one batch of FFT_BATCH segments)
