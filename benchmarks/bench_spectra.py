@@ -10,11 +10,13 @@ statistic, the summary line at each point end, snapshots on the real clock) once
 round, the arms interleaved:
 
   - ``off``: the spectra switched off (the pipeline's PointSpectra replaced by nothing);
-  - ``on``: the spectra as the monitor runs them (Welch on every 50 %-overlapped segment,
-    eps/scales/peaks at each point end and for the dashboard's live view);
+  - ``on``: the spectra as the monitor runs them (Welch on every 50 %-overlapped segment, its
+    windowing and transforms on the pipeline's spectra worker thread, eps/scales/peaks at each
+    point end and for the dashboard's live view);
+  - ``on inline``: the same on the caller's thread (``Pipeline(spectra_thread=False)``);
   - ``welch only``: the Welch spectra without eps/scales/peaks (what is per sample; the
-    evaluations are per point and per live view);
-  - ``stride 4``: transforming only every 4th segment (fewer dof; not the default);
+    evaluations are per point and per live view), inline;
+  - ``stride 4``: transforming only every 4th segment (fewer dof; not the default), inline;
   - ``before`` (with ``--baseline DIR``): the same with the spectra modules of another checkout
     (``DIR/stats/{spectral_kernels,spectra,dissipation,point_spectra}.py``, loaded under private
     names, numba without its disk cache so nothing is written there), e.g. the main branch;
@@ -22,7 +24,9 @@ round, the arms interleaved:
     float64 FFT).
 
 Prints samples per CPU second of each arm per round, the median extra CPU over ``off`` in %
-with its range over the rounds, the largest relative difference of the summary's ``eps``,
+(every thread of the process counted) with its range over the rounds, the ingest rate in wall
+time against ``off`` (what the worker thread changes where a second core is free; wall time
+needs a quiet machine), the largest relative difference of the summary's ``eps``,
 ``eps_inertial`` and ``eps_iso`` between ``before`` and ``on``, and the CPU time of one
 ``dissipation()`` evaluation and of the Welch update of one point (with ``--baseline``, also
 its ratio to the "before" code's, alone, in interleaved rounds). No assertions.
@@ -111,22 +115,22 @@ def load_baseline(root: Path):
     return sys.modules[alias["point_spectra"]].PointSpectra
 
 
-def run(frames, factory) -> tuple[float, str]:
-    """CPU seconds to feed ``frames`` and the summary written; ``factory`` builds each point's
-    spectra (None: spectra off)."""
+def run(frames, factory, thread: bool = True) -> tuple[float, float, str]:
+    """CPU and wall seconds to feed ``frames`` and the summary written; ``factory`` builds
+    each point's spectra (None: spectra off); ``thread``: the pipeline's spectra worker."""
     # monitor.point_run builds each point's spectra through this module attribute
     point_spectra.PointSpectra = factory if factory is not None else (lambda *a, **k: None)
     try:
         out = io.StringIO()
-        p = Pipeline(summary=out)
-        # CPU time of this process (the path is single-threaded): on a machine shared with
-        # other jobs, wall-clock rounds differed by 5x, CPU time far less
-        t = time.process_time()
+        p = Pipeline(summary=out, spectra_thread=thread)
+        # CPU time of this process, every thread (the spectra's worker too): on a machine
+        # shared with other jobs, wall-clock rounds differed by 5x, CPU time far less
+        t, w = time.process_time(), time.perf_counter()
         for f in frames:
             p.handle_frames(f)
             p.snapshot  # noqa: B018 - what a reader does
         p.close()
-        return time.process_time() - t, out.getvalue()
+        return time.process_time() - t, time.perf_counter() - w, out.getvalue()
     finally:
         point_spectra.PointSpectra = _PointSpectra
 
@@ -207,36 +211,44 @@ def main() -> None:
     frames = {"f4": frames_of(x, a.rows, a.points)}
     # the same samples sent as float64: the spectra then take the float64 FFT
     frames["f8"] = frames_of(x.astype("<f8"), a.rows, a.points)
-    arms = {
-        "off": ("f4", None),
-        "on": ("f4", _PointSpectra),
-        "welch only": ("f4", WelchOnly),
-        "stride 4": ("f4", functools.partial(_PointSpectra, stride=4)),
-        "off f8": ("f8", None),
-        "on f8": ("f8", _PointSpectra),
+    inline = functools.partial(_PointSpectra)  # the same class, on the caller's thread
+    arms = {  # name: (frames, spectra factory, the pipeline's spectra worker)
+        "off": ("f4", None, False),
+        "on": ("f4", _PointSpectra, True),
+        "on inline": ("f4", inline, False),
+        "welch only": ("f4", WelchOnly, False),
+        "stride 4": ("f4", functools.partial(_PointSpectra, stride=4), False),
+        "off f8": ("f8", None, False),
+        "on f8": ("f8", _PointSpectra, True),
     }
     if a.baseline is not None:
         before = load_baseline(a.baseline.resolve())
-        arms["before"] = ("f4", before)
-        arms["before f8"] = ("f8", before)
-    for kind, factory in arms.values():
-        run(frames[kind][:40], factory)  # compile and warm every path once
+        # an older PointSpectra may not take the executor: always inline
+        arms["before"] = ("f4", lambda *p, executor=None, **k: before(*p, **k), False)
+        arms["before f8"] = ("f8", arms["before"][1], False)
+    for kind, factory, thread in arms.values():
+        run(frames[kind][:40], factory, thread)  # compile and warm every path once
     times = {v: [] for v in arms}
+    walls = {v: [] for v in arms}
     summaries = {}
     for r in range(a.repeat):
-        for v, (kind, factory) in arms.items():  # side by side, interleaved
-            t, summaries[v] = run(frames[kind], factory)
+        for v, (kind, factory, thread) in arms.items():  # side by side, interleaved
+            t, w, summaries[v] = run(frames[kind], factory, thread)
             times[v].append(t)
+            walls[v].append(w)
         row = ", ".join(f"{v} {x.shape[0] / times[v][-1] / 1e6:5.2f}" for v in arms)
         print(f"round {r + 1} (M samples/CPU s): {row}")
     for v in arms:
         if v.startswith("off"):
             continue
-        ref = times["off f8" if v.endswith("f8") else "off"]
-        extra = [100 * (t / b - 1) for t, b in zip(times[v], ref, strict=True)]
+        ref = "off f8" if v.endswith("f8") else "off"
+        extra = [100 * (t / b - 1) for t, b in zip(times[v], times[ref], strict=True)]
+        rate = [b / t for t, b in zip(walls[v], walls[ref], strict=True)]
         print(
             f"spectra + eps, {v:10s}: median extra CPU {statistics.median(extra):5.1f} % "
-            f"(rounds {min(extra):.0f}-{max(extra):.0f} %) over the path without spectra"
+            f"(rounds {min(extra):.0f}-{max(extra):.0f} %) over the path without spectra; "
+            f"ingest rate (wall) {statistics.median(rate):.2f}x "
+            f"({min(rate):.2f}-{max(rate):.2f}x) the rate without"
         )
     for kind in ("", " f8"):
         if f"before{kind}" in times:  # the spectra's own CPU, now over before, round by round

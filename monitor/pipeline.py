@@ -64,6 +64,7 @@ import time
 import traceback
 from collections import Counter
 from collections.abc import Callable, Mapping, Sequence
+from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
 
@@ -150,6 +151,11 @@ class Pipeline:
         Consecutive blocks of a point (uniform sampling) go to its accumulators together once
         they span this much data (:mod:`eddyvigil.monitor.coalesce`); 0: every block alone.
         A replay must use the value the live run used to reproduce it bit for bit.
+    spectra_thread : bool
+        Run the spectra's windowing and transforms on one worker thread of the pipeline's own,
+        beside the statistics (scipy.fft and the numba kernels release the GIL): the same
+        results, bit for bit, in less wall time where a second core is free
+        (benchmarks/bench_spectra.py). False: inline.
     """
 
     def __init__(
@@ -167,8 +173,16 @@ class Pipeline:
         weighting: str = "arrival",
         coalesce_s: float = COALESCE_S,
         points: Sequence[Mapping] | None = None,
+        spectra_thread: bool = True,
     ):
         from eddyvigil import stats  # the numba-compiled core loads only when a pipeline is built
+
+        # one worker for every point's spectra; its thread starts with the first transform
+        self._spectra_pool = (
+            ThreadPoolExecutor(max_workers=1, thread_name_prefix="eddyvigil-spectra")
+            if spectra_thread
+            else None
+        )
 
         self._coalesce_s = float(coalesce_s)
 
@@ -382,6 +396,8 @@ class Pipeline:
         self._writer.write(self.run_line())
         self._writer.close()
         self.publish()
+        if self._spectra_pool is not None:
+            self._spectra_pool.shutdown(wait=True)
 
     # ------------------------------------------------------------------ a point's lifecycle
 
@@ -393,6 +409,7 @@ class Pipeline:
     def _start_point(self, st: StreamState, meta: dict | None,
                      header: Mapping | None = None) -> PointRun:
         point_run = st.start_point(meta, history_rows=HISTORY_ROWS, header=header, now=self._clock())
+        point_run.spectra_executor = self._spectra_pool
         if self.targets.budget is not None:  # [budget]: targets from the finished neighbours
             point_run.derive_targets(self.targets, st.finished, st.name)
         return point_run

@@ -62,6 +62,8 @@ class PointRun:
         self.spectra = None  # stats.point_spectra.PointSpectra (uniform sampling only)
         self.quality = None  # stats.quality.SignalQuality
         self.random = None  # monitor.random_sampling.RandomFeed (random sampling only)
+        #: the pipeline's one-worker executor for the spectra's transforms (None: inline)
+        self.spectra_executor = None
         # blocks waiting to go to the accumulators together (monitor.coalesce; set by the
         # pipeline for uniform sampling, None: every block goes on alone)
         self.pending = None
@@ -139,7 +141,9 @@ class PointRun:
             self.spectra = (
                 None
                 if rate_hz is None
-                else point_spectra.PointSpectra(columns, rate_hz, targets=targets)
+                else point_spectra.PointSpectra(
+                    columns, rate_hz, targets=targets, executor=self.spectra_executor
+                )
             )
             # spikes only for uniform sampling: arrival order is not a time series
             self.quality = quality.SignalQuality(
@@ -168,9 +172,12 @@ class PointRun:
         """The one place a block enters the point's accumulators.
 
         Quality first (one call per block; "exclude" hands on replaced rows, later), then the
-        statistics and the spectra get the same rows, a continuous series.
+        statistics and the spectra get the same rows, a continuous series. The spectra go first:
+        with the pipeline's executor their transforms run while the statistics update.
         """
         cleaned = self.quality.update(velocity)  # the same block, or replaced rows ("exclude")
+        if self.spectra is not None and cleaned.shape[0]:
+            self.spectra.update(cleaned)  # the rows the statistics see: a continuous series
         if self.rate_hz is None:  # a duration waits for rows when "exclude" holds them back
             self.held_s += duration_s
             self.random.feed(cleaned, times, weights, self.held_s)
@@ -178,8 +185,6 @@ class PointRun:
                 self.held_s = 0.0
         else:
             self.statistics.update(cleaned)
-        if self.spectra is not None and cleaned.shape[0]:
-            self.spectra.update(cleaned)  # the rows the statistics see: a continuous series
 
     def flush(self) -> None:
         """At the point's end: the pending rows, then the rows the quality checks still hold,

@@ -47,6 +47,7 @@ class StreamState:
         self.finished: list[dict] = []  # point lines of its finished points
         self.last_history: History | None = None  # of the last finished point (display)
         self.last_point: tuple | None = None  # (meta, PointSnapshot) of the last finished one
+        self.last_spectrum: tuple | None = None  # its (spectrum, dissipation, eps status)
         self.last_field = None  # the last rake/field view (monitor.fields.live_view)
         self.rate_hz: float | None = None
         self.trace = Trace()
@@ -88,6 +89,11 @@ class StreamState:
         screen."""
         self.last_history = self.current.history
         self.last_point = (dict(self.current.meta), self.current.point_snapshot)
+        spectra = self.current.spectra
+        self.last_spectrum = None
+        if spectra is not None:  # the point line's evaluation (cached), for the display
+            at_end = spectra.evaluate(self.current.point_snapshot, self.current.meta.get("nu"))
+            self.last_spectrum = (*at_end, spectra.eps_status)
         self.last_field = self.current.field_view
         self.current = None
 
@@ -105,7 +111,8 @@ class StreamState:
         if point_run is None:
             # after a point ends its running estimates stay on screen until the next begins
             shown = self.last_history
-            meta = point_snapshot = converged_age = spectrum = None
+            meta = point_snapshot = converged_age = None
+            spectrum = self.last_spectrum
             point_index = self.points_started - 1
             campaign = self.campaign.view(live=True)
         else:

@@ -38,6 +38,7 @@ class PointSpectra:
     stride : transform every ``stride``-th Welch segment only (cheaper, fewer dof)
     targets : the run's ``stats.Targets``; a target on ``eps`` is judged here
         (``stats/eps_target.py``)
+    executor : a one-worker executor for the Welch transforms (see ``SpectrumAccumulator``)
     """
 
     def __init__(
@@ -50,6 +51,7 @@ class PointSpectra:
         fit_range_hz=None,
         stride: int = 1,
         targets=None,
+        executor=None,
     ):
         self.columns = tuple(columns)
         t = None if targets is None else targets.targets.get("eps")
@@ -58,7 +60,9 @@ class PointSpectra:
         self.rate_hz = float(rate_hz)
         self.c1 = float(c1)
         self.fit_range_hz = fit_range_hz
-        self.welch = SpectrumAccumulator(self.columns, self.rate_hz, segment=segment, stride=stride)
+        self.welch = SpectrumAccumulator(
+            self.columns, self.rate_hz, segment=segment, stride=stride, executor=executor
+        )
         self._cache: tuple | None = None
         self._live: tuple | None = None
 

@@ -218,7 +218,12 @@ def test_a_normal_end_looks_finished():
     board = views.status_columns(snap)
     line = view.finished[-1]
     targeted = [x["name"] for x in line["statistics"] if x.get("target") is not None]
-    assert board["name"] == targeted and set(board["point"]) == {"P1 (finished)"}
+    # ... with its eps, eta and Re_lambda, as the spectrum panel keeps its spectrum
+    assert board["name"] == targeted + list(views.SPECTRAL_STATUS)
+    assert set(board["point"]) == {"P1 (finished)"}
+    eps_row = next(x for x in line["statistics"] if x["name"] == "eps")
+    shown = board["value"][board["name"].index("eps")]
+    assert shown.startswith(views.format_value(eps_row["value"]))
     badge = views.banner(view)
     assert badge.headline == "RUN ENDED" and "1 point finished" in badge.detail
     health = views.health_html(snap)

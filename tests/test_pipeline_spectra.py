@@ -37,8 +37,12 @@ def test_point_line_carries_log_binned_spectra_eps_and_scales():
     view = p.publish().streams["probe"]
     assert view.spectrum is not None and view.spectrum[1] is not None  # live, for the dashboard
     p.end("probe")
+    after = p.publish().streams["probe"]  # the finished point's spectrum stays on screen
+    assert after.spectrum is not None and after.spectrum[1] is not None
     p.close()
     line = json.loads(buf.getvalue().splitlines()[0])
+    assert after.spectrum[0].segments == line["spectra_segments"]
+    assert after.spectrum[1].eps.value == _rows(line)["eps"]["value"]
     assert line["nu"] == nu and line["nu_source"] == "point"
     assert line["eps_method"].startswith("iso")
     spec = line["spectra"]["u"]
@@ -110,3 +114,32 @@ def test_point_spectra_merge_pools_segments_like_scipy():
     ) / (ka + kb)
     np.testing.assert_allclose(both.psd, ref, rtol=1e-11)
     assert pa.welch.segments == ka  # untouched
+
+
+def test_spectra_on_the_worker_thread_give_the_same_bits_as_inline():
+    # The worker only moves the Welch transforms off the caller's thread; the operations and
+    # their order are the same, so every summary line must be identical to the character
+    # (numpy's and scipy's float rounding is deterministic for the same calls: common practice).
+    rate = 20_000.0
+    x = generate(PopeGenerator([5.0, 0.0, 0.0], 1.5, 4.0, 1.5e-5, rate, 3), 3 << 17)
+    lines = {}
+    for thread in (True, False):
+        buf = io.StringIO()
+        p = Pipeline(summary=buf, clock=FakeClock(), spectra_thread=thread)
+        live = []
+        for k, cut in enumerate((0, 1 << 17, 2 << 17)):
+            p.begin_point("probe", {"id": f"P{k}", "x": 0.0, "y": 0.01 * k, "z": 0.0})
+            part = x[cut : cut + (1 << 17)].astype("<f4" if k != 1 else "<f8")
+            for i in range(0, part.shape[0], 5000):  # blocks that do not fit the segments
+                assert p.feed("probe", part[i : i + 5000], rate_hz=rate) is None
+                if i % 40_000 == 0:  # a reader in between (the dashboard's view)
+                    view = p.publish().streams["probe"]
+                    if view.spectrum is not None and view.spectrum[0] is not None:
+                        live.append(view.spectrum[0].psd.copy())
+        p.end("probe")
+        p.close()
+        lines[thread] = (buf.getvalue(), live)
+    assert lines[True][0] == lines[False][0]
+    assert len(lines[True][1]) == len(lines[False][1]) > 0
+    for a, b in zip(lines[True][1], lines[False][1], strict=True):
+        assert np.array_equal(a, b)

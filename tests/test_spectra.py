@@ -87,6 +87,33 @@ def test_segment_length_from_integral_time():
     assert integral_time_estimate(x, 1.0) == pytest.approx(50.0, rel=0.3)
 
 
+
+@pytest.mark.parametrize("tint", [12.0, 50.0, 300.0])
+def test_probe_on_row_means_keeps_the_integral_time(monkeypatch, tint):
+    # A 40 000-row probe is averaged in groups of 4 rows before its ACF: the long-run variance
+    # of the group means is that of the rows over 4 (common practice), so the estimate must
+    # agree with the one on every row and with the analytic AR(1) value (1 + rho) / (2 (1 - rho))
+    # (REFERENCES §1), and pick the same segment length.
+    import eddyvigil.stats.spectra as spectra
+
+    rng = np.random.default_rng(int(tint))
+    rho = np.exp(-1 / tint)
+    truth = (1 + rho) / (2 * (1 - rho))
+    ratios, errors = [], []
+    for _ in range(10):
+        x = ar1(rng, 40_000, 3, rho).astype(np.float32)
+        decimated = integral_time_estimate(x, 1.0)
+        monkeypatch.setattr(spectra, "PROBE_ROWS", 10**9)
+        every_row = integral_time_estimate(x, 1.0)
+        monkeypatch.setattr(spectra, "PROBE_ROWS", 8192)
+        assert segment_length(1.0, decimated) == segment_length(1.0, every_row)
+        ratios.append(decimated / every_row)
+        errors.append(decimated / truth - 1)
+    assert abs(np.mean(ratios) - 1) < 0.01 and max(abs(r - 1) for r in ratios) < 0.1
+    if tint <= 50:  # (at 300 rows, 133 T_int per record, the first zero of the ACF wanders far)
+        # the slowest of 3 columns: high by a few %, low by never much
+        assert -0.1 < np.mean(errors) < 0.25, errors
+
 def test_segment_chosen_from_probe_samples():
     rng = np.random.default_rng(5)
     rho = np.exp(-1 / 50)  # T_int ~ 50 samples at 1 kHz = 0.05 s -> N >= 1000 -> 1024
