@@ -266,9 +266,12 @@ def test_status_board_and_profile_show_eps_eta_re_lambda(targeted):
     for name in ("eps", "eta", "Re_lambda"):
         q = d.rows()[name]
         assert q.ci_low is not None  # this stream resolves its dissipation range
-        assert cols["value"][rows[name]] == (f"{views.format_value(q.value)} "
-                                             f"[{views.format_value(q.ci_low)}, "
-                                             f"{views.format_value(q.ci_high)}]")
+        up, down = q.ci_high - q.value, q.value - q.ci_low
+        assert cols["value"][rows[name]] in (
+            f"{views.format_value(q.value)} +{views.format_value(up, 2)} "
+            f"−{views.format_value(down, 2)}",
+            f"{views.format_value(q.value)} ± {views.format_value((up + down) / 2, 2)}",
+        )
         # and the interval holds the model's value (REFERENCES §7 scales of Pope's spectrum)
         assert q.ci_low <= truth[name] <= q.ci_high
     i = rows["eps"]

@@ -12,6 +12,7 @@ import html
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from types import SimpleNamespace
 
 import numpy as np
 
@@ -375,7 +376,7 @@ def _spectral_quantity(view: StreamView | None, name: str):
 
 
 def _spectral_status_rows(cols: dict[str, list], stream: str, pid: str, v: StreamView) -> None:
-    """ε, η and Re_λ of the current point with their intervals (asymmetric: shown as [lo, hi]).
+    """ε, η and Re_λ of the current point with their intervals (as :func:`value_text`).
 
     ε carries its target, state and ETA when it is targeted (``stats/eps_target.py``); a value
     without an honest interval says so instead of showing one.
@@ -387,7 +388,12 @@ def _spectral_status_rows(cols: dict[str, list], stream: str, pid: str, v: Strea
         q = _spectral_quantity(v, n)
         honest = q is not None and q.value is not None and q.ci_low is not None
         if honest:
-            text = f"{format_value(q.value)} [{format_value(q.ci_low)}, {format_value(q.ci_high)}]"
+            # as the moments' rows: "value ± h" or "value +up −down" (η's bounds in full,
+            # "0.0001659 [0.0001651, 0.0001667]", did not fit the column)
+            text = value_text(
+                SimpleNamespace(value=q.value, ci_low=q.ci_low, ci_high=q.ci_high,
+                                half_width=0.5 * (q.ci_high - q.ci_low))
+            )
         elif q is not None and q.value is not None:
             text = f"{format_value(q.value)} (no interval)"
         else:
