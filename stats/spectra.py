@@ -401,7 +401,8 @@ class SpectrumAccumulator:
             )
         if self._executor is None:
             self._transform(flush=False)
-        elif self._complete() >= FFT_BATCH:  # a batch to transform: on the worker
+        elif self._complete() >= FFT_BATCH:  # a batch to transform, on the worker (handing
+            # over 4 batches at a time measured worse: 0.86x the rate without spectra, not 0.89x)
             self._pending = self._executor.submit(self._transform, False)
         return self
 
