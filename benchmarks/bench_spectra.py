@@ -3,6 +3,7 @@
     python benchmarks/bench_spectra.py [--seconds 60] [--repeat 5] [--rows 16384]
                                        [--baseline DIR]
     python benchmarks/bench_spectra.py --eps-coverage 40 [--seconds 10]
+    python benchmarks/bench_spectra.py --transport [--seconds 60] [--repeat 5]
 
 The frames ``watch`` receives (3 float32 columns at 20 kHz, ``--rows`` per message, points of
 ``--seconds``) are encoded once, then fed through ``Pipeline.handle_frames`` (decode, every
@@ -30,6 +31,13 @@ needs a quiet machine), the largest relative difference of the summary's ``eps``
 ``eps_inertial`` and ``eps_iso`` between ``before`` and ``on``, and the CPU time of one
 ``dissipation()`` evaluation and of the Welch update of one point (with ``--baseline``, also
 its ratio to the "before" code's, alone, in interleaved rounds). No assertions.
+
+``--transport`` measures instead the ingest rate of ``watch``'s own path: a child process
+PUSHes the same frames over tcp loopback as fast as it can, a PULL ``Subscriber`` hands them to
+``Pipeline.handle_frames`` (what ``watch --no-dashboard`` runs, without the recorder), spectra
+off / on (worker thread) / on inline, interleaved; samples per wall second from the first
+samples message to the end, and each arm's ratio to ``off`` per round (the publisher shares
+the 2 cores).
 
 ``--eps-coverage N`` measures instead how often the 95 % interval of ``eps_iso`` holds the
 generator's ε on N seeded points of ``--seconds`` each of the demo's wake-centre point
@@ -135,6 +143,72 @@ def run(frames, factory, thread: bool = True) -> tuple[float, float, str]:
         point_spectra.PointSpectra = _PointSpectra
 
 
+def _push(endpoint: str, frames) -> None:
+    """Child process (forked: the frames are inherited): PUSH every frame list, then linger."""
+    import zmq
+
+    ctx = zmq.Context()
+    sock = ctx.socket(zmq.PUSH)
+    sock.setsockopt(zmq.IMMEDIATE, 1)
+    sock.connect(endpoint)
+    for f in frames:
+        sock.send_multipart(f, copy=False)
+    sock.close(linger=120_000)
+    ctx.term()
+
+
+def over_transport(frames, factory, thread: bool) -> float:
+    """Samples per wall second through Subscriber -> Pipeline, the frames sent by a child."""
+    import multiprocessing as mp
+    import socket
+
+    from eddyvigil.monitor.subscriber import Subscriber
+
+    with socket.socket() as so:
+        so.bind(("127.0.0.1", 0))
+        endpoint = f"tcp://127.0.0.1:{so.getsockname()[1]}"
+    point_spectra.PointSpectra = factory if factory is not None else (lambda *a, **k: None)
+    sub = Subscriber(endpoint, bind=True, socket="pull")
+    pipeline = Pipeline(summary=io.StringIO(), spectra_thread=thread)
+    state = {}
+
+    def on_frames(f, received_at):
+        if "t0" not in state and len(f) == 3:
+            state["t0"] = time.perf_counter()
+        pipeline.handle_frames(f, received_at)
+        if pipeline.all_ended:
+            state["t1"] = time.perf_counter()
+            sub.stop()
+
+    child = mp.get_context("fork").Process(target=_push, args=(endpoint, frames))
+    child.start()
+    try:
+        sub.run(on_frames)
+    finally:
+        sub.close()
+        child.join(60)
+        point_spectra.PointSpectra = _PointSpectra
+    samples = pipeline.run_line()["samples"]
+    pipeline.close()
+    return samples / (state["t1"] - state["t0"])
+
+
+def transport(frames, repeat: int) -> None:
+    arms = {"off": (None, False), "on": (_PointSpectra, True), "on inline": (_PointSpectra, False)}
+    for factory, thread in arms.values():
+        over_transport(frames[:40] + frames[-1:], factory, thread)  # compile, warm
+    rates = {v: [] for v in arms}
+    for r in range(repeat):
+        for v, (factory, thread) in arms.items():
+            rates[v].append(over_transport(frames, factory, thread))
+        print(f"round {r + 1} (M samples/s): "
+              + ", ".join(f"{v} {rates[v][-1] / 1e6:5.2f}" for v in arms))
+    for v in ("on", "on inline"):
+        ratio = [a / b for a, b in zip(rates[v], rates["off"], strict=True)]
+        print(f"watch's path, spectra {v:9s}: ingest rate {statistics.median(ratio):.2f}x the "
+              f"rate without (rounds {min(ratio):.2f}-{max(ratio):.2f}x)")
+
+
 def eps_values(summary: str) -> list[float]:
     vals = []
     for line in summary.splitlines():
@@ -199,6 +273,8 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=5)
     ap.add_argument("--rows", type=int, default=16384)
     ap.add_argument("--baseline", type=Path, help="a checkout whose spectra modules are 'before'")
+    ap.add_argument("--transport", action="store_true",
+                    help="only the ingest rate over tcp loopback (see the docstring)")
     ap.add_argument("--eps-coverage", type=int, metavar="N",
                     help="only measure eps_iso's coverage on N points (see the docstring)")
     a = ap.parse_args()
@@ -210,6 +286,9 @@ def main() -> None:
     x = generate(gen, n).astype("<f4")
     frames = {"f4": frames_of(x, a.rows, a.points)}
     # the same samples sent as float64: the spectra then take the float64 FFT
+    if a.transport:
+        transport(frames["f4"], a.repeat)
+        return
     frames["f8"] = frames_of(x.astype("<f8"), a.rows, a.points)
     inline = functools.partial(_PointSpectra)  # the same class, on the caller's thread
     arms = {  # name: (frames, spectra factory, the pipeline's spectra worker)
