@@ -316,3 +316,31 @@ def test_merge_and_snapshots_leave_the_inputs_later_bits_unchanged():
     _, pb = sps.welch(x[4_800:8_800].astype(np.float64), fs=1000.0, nperseg=512, axis=0)
     ka, kb = 1 + (4_800 - 512) // 256, 1 + (4_000 - 512) // 256
     np.testing.assert_allclose(both.snapshot().psd, (ka * pa + kb * pb) / (ka + kb), rtol=2e-5)
+
+
+def test_worker_transforms_match_inline_and_surface_their_errors(monkeypatch):
+    # With a one-worker executor the transforms run in the background: the same sums to the
+    # bit as inline (scipy.signal.welch as the outside reference), and an error there is raised
+    # by the next call, never lost.
+    from concurrent.futures import ThreadPoolExecutor
+
+    rng = np.random.default_rng(12)
+    x = rng.normal(size=(70_000, 2)).astype(np.float32)
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        bg = SpectrumAccumulator(("u", "v"), 100.0, segment=512, executor=pool)
+        fg = SpectrumAccumulator(("u", "v"), 100.0, segment=512)
+        for i in range(0, x.shape[0], 3000):
+            bg.update(x[i : i + 3000])
+            fg.update(x[i : i + 3000])
+        assert bg.segments == fg.segments
+        assert np.array_equal(bg.snapshot().psd, fg.snapshot().psd)
+        _, p = sps.welch(x[:, 0].astype(np.float64), fs=100.0, nperseg=512)
+        np.testing.assert_allclose(bg.snapshot().psd[:, 0], p, rtol=1e-5)
+
+        def broken(self, flush):
+            raise RuntimeError("transform failed")
+
+        monkeypatch.setattr(SpectrumAccumulator, "_transform", broken)
+        bg.update(x[:5000])  # 8 more segments: handed to the worker, which fails
+        with pytest.raises(RuntimeError, match="transform failed"):
+            bg.snapshot()
