@@ -14,8 +14,15 @@ from functools import lru_cache
 import numpy as np
 from scipy import special
 
-from eddyvigil.stats.blocking import BlockingAccumulator, choose_level
+from eddyvigil.stats import slow_spectrum
+from eddyvigil.stats.blocking import (
+    MIN_BLOCKS_PER_LEVEL,
+    BlockingAccumulator,
+    choose_level,
+    rise_block_samples,
+)
 from eddyvigil.stats.convergence import (
+    CHECKPOINT_GROWTH,
     ETA_MIN_BLOCKS,
     MIN_BLOCK_TINTS,
     MIN_BLOCKS,
@@ -31,6 +38,7 @@ from eddyvigil.stats.kernels import integral_scales
 from eddyvigil.stats.moments import MomentAccumulator
 from eddyvigil.stats.names import components_of, family, statistic_names
 from eddyvigil.stats.periodic import RowStore, method_text
+from eddyvigil.stats.slow_spectrum import SPECTRAL_ALPHA, low_frequency_rise
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 from eddyvigil.stats.stationarity import assess_columns
 from eddyvigil.stats.tails import TAIL_MARGIN, TailAccumulator, needed_order
@@ -667,6 +675,24 @@ class PointStatistics:
         base = self.blocking.base
         remembered = self.checkpoints.slow_level
         S = len(self.names)
+        rows = self.periodic
+        maybe = {}
+        if rows is not None and rows.clock and self.blocking.count[1] >= MIN_BLOCKS_PER_LEVEL:
+            # the whole record's lowest frequencies (stats.slow_spectrum) for each targeted
+            # mean the blocking test did not hold: a rise asks for blocks as a blocking one;
+            # a weaker one keeps a mean not yet converged from converging at this look
+            for c in range(m):
+                if targets[c] is None or slow_samples[c] > 0 or not tint[c] > 0:
+                    continue
+                p = low_frequency_rise(rows.rows[: rows.full, c], rows.row_len, tint[c] * n / T)
+                if p < SPECTRAL_ALPHA:
+                    level = int(choice.level[c])
+                    slow_samples[c] = int(rise_block_samples(self.blocking.count, base, level))
+                    top[c] = var[c]  # the periodogram does not size the unresolved part
+                elif p < slow_spectrum.LOOK_ALPHA and not self.checkpoints.is_converged(
+                    self.names[c]
+                ):
+                    maybe[c] = p
         rise_level = [-1] * S
         long_enough, min_total, held, no_interval = [], [], [], []
         unresolved = np.zeros(S)
@@ -696,6 +722,12 @@ class PointStatistics:
                     f"blocking curve rises up to blocks of {slow_s:.3g} s; {MIN_BLOCKS} of "
                     f"them are needed): expect >= {expect:.3g} s",
                     expect,
+                )
+            if reason is None and i in maybe:
+                reason = (
+                    f"slow content? the lowest frequencies of {self.names[i]} stand above its "
+                    f"flat spectrum (p = {maybe[i]:.2g}); not converged while they do",
+                    T * CHECKPOINT_GROWTH,
                 )
             held.append(reason)
             why = None
