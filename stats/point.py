@@ -681,10 +681,12 @@ class PointStatistics:
             # the whole record's lowest frequencies (stats.slow_spectrum) for each targeted
             # mean the blocking test did not hold: a rise asks for blocks as a blocking one;
             # a weaker one keeps a mean not yet converged from converging at this look
+            # (its flat band ends below the slowest scale: a stated facility period too)
             for c in range(m):
-                if targets[c] is None or slow_samples[c] > 0 or not tint[c] > 0:
+                t_c = self._slowest_scale(tint, (c,))
+                if targets[c] is None or slow_samples[c] > 0 or not t_c > 0:
                     continue
-                p = low_frequency_rise(rows.rows[: rows.full, c], rows.row_len, tint[c] * n / T)
+                p = low_frequency_rise(rows.rows[: rows.full, c], rows.row_len, t_c * n / T)
                 if p < SPECTRAL_ALPHA:
                     level = int(choice.level[c])
                     slow_samples[c] = int(rise_block_samples(self.blocking.count, base, level))
