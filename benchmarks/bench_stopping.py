@@ -22,9 +22,9 @@ period stated, records of 2^20 samples): the share stopped and the share stopped
 Measured with the periodogram rise test (stats.slow_spectrum; before it in brackets, same
 seeds): ``... 200``: median stop/oracle 1.319 (1.319), mean 1.401 (1.390), p95 1.798 (1.678),
 not converged by 4x 7 (4), worst coverage at the stop 0.955 (0.955), ETA at 25 / 50 % 1.080 /
-1.004 (1.090 / 1.018); ``... 600``: 1.319 (1.319), mean 1.384 (1.373), not converged 29 (14),
-worst coverage 0.950 (0.950). ``... 400 slow``: w = 0.005 stopped 0.107, wrong 0.030 (0.070);
-w = 0.002 stopped 0.468, wrong 0.080 (0.1175).
+1.004 (1.090 / 1.018); ``... 600``: 1.319 (1.319), mean 1.393 (1.373), p95 1.948 (1.678), not
+converged 24 (14), worst coverage 0.950 (0.950). ``... 400 slow``: w = 0.005 stopped 0.107,
+wrong 0.030 (0.070); w = 0.002 stopped 0.500, wrong 0.0825 (0.1175).
 """
 
 from __future__ import annotations

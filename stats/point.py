@@ -687,7 +687,9 @@ class PointStatistics:
                 if targets[c] is None or slow_samples[c] > 0 or not t_c > 0:
                     continue
                 p = low_frequency_rise(rows.rows[: rows.full, c], rows.row_len, t_c * n / T)
-                if p < SPECTRAL_ALPHA:
+                # a rise remembered already is not raised by it (it does not size the scale:
+                # a clean record's chance excess would otherwise ask for ever longer blocks)
+                if p < SPECTRAL_ALPHA and not remembered.get(self.names[c]):
                     level = int(choice.level[c])
                     slow_samples[c] = int(rise_block_samples(self.blocking.count, base, level))
                     top[c] = var[c]  # the periodogram does not size the unresolved part

@@ -56,7 +56,7 @@ def test_slow_content_with_the_slowest_period_stated(w, seed):
             4,
             marks=pytest.mark.xfail(
                 strict=True,
-                reason="measured over 400 records: 8.0 % stopped wrong (11.75 % before the "
+                reason="measured over 400 records: 8.25 % stopped wrong (11.75 % before the "
                 "periodogram rise test, 18.5 % before the blocking one): the rise is too weak "
                 "to see in the lowest frequencies when the fast part alone first meets the "
                 "target; an open limit (README): state the period",
