@@ -38,6 +38,7 @@ __all__ = [
     "BlockingSnapshot",
     "LevelChoice",
     "choose_level",
+    "rise_block_samples",
     "MIN_BLOCKS_PER_LEVEL",
 ]
 
@@ -196,10 +197,19 @@ def choose_level(
     )
     rises = _rise_test(ratio, dof_up, dof_ref)
     top = np.where(rises, top, np.nan)
-    # the curve rises up to the top level the record resolves: blocks that long are needed
-    lvl_up = np.maximum(level, _rise_levels(n, K)[1]) + 1
-    slow_samples = np.where(rises, int(base) * 2 ** np.minimum(lvl_up, K - 1), 0)
+    slow_samples = np.where(rises, rise_block_samples(n, base, level), 0)
     return LevelChoice(var, level, blocks, block_samples, rel, top, slow_samples)
+
+
+def rise_block_samples(n: np.ndarray, base: int, level):
+    """Samples per block a rise of the blocking curve asks for, given the blocks per level
+    ``n`` and the chosen ``level`` (array or int): the curve rises up to the top level the
+    record resolves, so blocks one level above both the chosen one and the highest with
+    RISE_COARSE_BLOCKS blocks are needed (at most the top level with MIN_BLOCKS_PER_LEVEL)."""
+    n = np.asarray(n)
+    K = int(np.flatnonzero(n >= MIN_BLOCKS_PER_LEVEL)[-1]) + 1
+    lvl_up = np.maximum(level, _rise_levels(n, K)[1]) + 1
+    return int(base) * 2 ** np.minimum(lvl_up, K - 1)
 
 
 @dataclass(frozen=True)

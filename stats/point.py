@@ -14,8 +14,14 @@ from functools import lru_cache
 import numpy as np
 from scipy import special
 
-from eddyvigil.stats.blocking import BlockingAccumulator, choose_level
+from eddyvigil.stats.blocking import (
+    MIN_BLOCKS_PER_LEVEL,
+    BlockingAccumulator,
+    choose_level,
+    rise_block_samples,
+)
 from eddyvigil.stats.convergence import (
+    CHECKPOINT_GROWTH,
     ETA_MIN_BLOCKS,
     MIN_BLOCK_TINTS,
     MIN_BLOCKS,
@@ -31,6 +37,7 @@ from eddyvigil.stats.kernels import integral_scales
 from eddyvigil.stats.moments import MomentAccumulator
 from eddyvigil.stats.names import components_of, family, statistic_names
 from eddyvigil.stats.periodic import RowStore, method_text
+from eddyvigil.stats.slow_spectrum import LOOK_ALPHA, SPECTRAL_ALPHA, low_frequency_rise
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 from eddyvigil.stats.stationarity import assess_columns
 from eddyvigil.stats.tails import TAIL_MARGIN, TailAccumulator, needed_order
@@ -667,6 +674,27 @@ class PointStatistics:
         base = self.blocking.base
         remembered = self.checkpoints.slow_level
         S = len(self.names)
+        rows = self.periodic
+        maybe, spectral = {}, set()
+        if rows is not None and rows.clock and self.blocking.count[1] >= MIN_BLOCKS_PER_LEVEL:
+            # the whole record's lowest frequencies (stats.slow_spectrum) for each targeted
+            # mean the blocking test did not hold: a rise asks for blocks as a blocking one;
+            # a weaker one keeps a mean not yet converged from converging at this look
+            # (its flat band ends below the slowest scale: a stated facility period too)
+            for c in range(m):
+                t_c = self._slowest_scale(tint, (c,))
+                if targets[c] is None or slow_samples[c] > 0 or not t_c > 0:
+                    continue
+                p = low_frequency_rise(rows.rows[: rows.full, c], rows.row_len, t_c * n / T)
+                # a rise remembered already is not raised by it (it does not size the scale:
+                # a clean record's chance excess would otherwise ask for ever longer blocks)
+                if p < SPECTRAL_ALPHA and not remembered.get(self.names[c]):
+                    level = int(choice.level[c])
+                    slow_samples[c] = int(rise_block_samples(self.blocking.count, base, level))
+                    top[c] = var[c]  # the periodogram does not size the unresolved part
+                    spectral.add(c)
+                elif p < LOOK_ALPHA and not self.checkpoints.is_converged(self.names[c]):
+                    maybe[c] = p
         rise_level = [-1] * S
         long_enough, min_total, held, no_interval = [], [], [], []
         unresolved = np.zeros(S)
@@ -691,11 +719,21 @@ class PointStatistics:
                     if target is not None and math.isfinite(target) and target > 0 and se[i] > 0:
                         ratio = STOP_MARGIN * hw_list[i] / target
                         expect = max(expect, T * ratio**2 * top[i] / var[i])
+                seen = (
+                    "the lowest frequencies of the record rise"
+                    if i in spectral
+                    else f"the blocking curve rises up to blocks of {slow_s:.3g} s"
+                )
                 reason = (
-                    f"slow content: the error of {self.names[i]} is not yet resolved (the "
-                    f"blocking curve rises up to blocks of {slow_s:.3g} s; {MIN_BLOCKS} of "
-                    f"them are needed): expect >= {expect:.3g} s",
+                    f"slow content: the error of {self.names[i]} is not yet resolved ({seen}; "
+                    f"{MIN_BLOCKS} blocks of {slow_s:.3g} s are needed): expect >= {expect:.3g} s",
                     expect,
+                )
+            if reason is None and i in maybe:
+                reason = (
+                    f"slow content? the lowest frequencies of {self.names[i]} stand above its "
+                    f"flat spectrum (p = {maybe[i]:.2g}); not converged while they do",
+                    T * CHECKPOINT_GROWTH,
                 )
             held.append(reason)
             why = None

@@ -8,12 +8,22 @@ Ornstein-Uhlenbeck sampling of REFERENCES §10) against the nominal SLOW_ALPHA.
 """
 
 import numpy as np
+import pytest
 from processes import ar1, two_scale
 
 from eddyvigil.stats import PointStatistics, Targets
 from eddyvigil.stats.blocking import SLOW_ALPHA, BlockingAccumulator
 from eddyvigil.stats.convergence import STREAK, Checkpoints
 from eddyvigil.stats.pointstate import from_state, to_state
+from eddyvigil.stats.slow_spectrum import (
+    LOOK_ALPHA,
+    LOW_BINS,
+    REF_START,
+    REF_TINTS,
+    SPECTRAL_ALPHA,
+    low_frequency_rise,
+    rise_p_value,
+)
 
 
 def test_detail_energy_is_the_haar_split_of_the_level_sums_of_squares():
@@ -129,3 +139,109 @@ def test_the_verdict_does_not_regress_when_the_level_jumps():
             assert e.converged, (ps.n, prev.blocks, e.blocks, e.state, e.reason)
         prev = e
     assert jumps >= 2
+
+
+def _rows(x, rows=4096):
+    """Row means as stats.periodic.RowStore keeps them (equal rows, a power of two long)."""
+    row_len = 1
+    while x.size // row_len > rows:
+        row_len *= 2
+    n = x.size // row_len
+    return x[: n * row_len].reshape(n, row_len).mean(axis=1), row_len
+
+
+def test_low_frequency_rise_ordinates_are_numpys_periodogram():
+    # the statistic is the 1/k-weighted mean of the lowest ordinates over the mean of the
+    # reference band, rebuilt here from numpy's FFT
+    y = np.random.default_rng(8).normal(size=4096)
+    tint = 4.0
+    p = low_frequency_rise(y, 8, tint)
+    power = np.abs(np.fft.rfft(y - y.mean())) ** 2
+    edge = min(int(4096 * 8 / (REF_TINTS * tint)), 4096 // 4)
+    w = 1.0 / np.arange(1, LOW_BINS + 1)
+    low = np.sum(w * power[1 : LOW_BINS + 1]) / w.sum()
+    ratio = low / power[REF_START:edge].mean()
+    assert p == pytest.approx(rise_p_value(ratio, 2 * (edge - REF_START)), rel=1e-12)
+    # too short a record against T_int: no flat reference band, no test
+    assert np.isnan(low_frequency_rise(y[:512], 1, 50.0))
+
+
+def test_rise_p_value_is_the_tail_of_weighted_exponentials_over_a_chi_squared():
+    # the null law (a flat spectrum: independent unit exponentials, Priestley 1981 §6.1, from
+    # memory) simulated with numpy: 400 000 seeded draws of sum w_k E_k / (chi2_nu / nu),
+    # w_k proportional to 1/k; the exact tail within 4 binomial standard errors
+    rng = np.random.default_rng(12)
+    w = 1.0 / np.arange(1, LOW_BINS + 1)
+    w /= w.sum()
+    draws = 400_000
+    for nu in (32.0, 200.0):
+        x = rng.exponential(size=(draws, LOW_BINS)) @ w / (rng.chisquare(nu, draws) / nu)
+        for ratio in (1.5, 2.0, 2.5, 3.0):
+            want = np.mean(x > ratio)
+            se = np.sqrt(want * (1 - want) / draws)
+            assert abs(rise_p_value(ratio, nu) - want) <= 4 * se, (nu, ratio, want)
+
+
+def test_low_frequency_rise_false_alarms_per_look_on_short_memory_data():
+    # AR(1) (REFERENCES §10) at T_int 5, 10 and 50 samples, one look at each of 2^15 .. 2^18
+    # samples of 100 records: the share of looks below SPECTRAL_ALPHA stays within three
+    # binomial standard errors of it (periodogram ordinates of a short-memory series are
+    # independent exponentials near zero frequency; Priestley 1981, §6.1, from memory)
+    # (measured: 5 of 900 looks below 0.005; T 5: 2 / 400, T 10: 2 / 400, T 50: 1 / 100); the
+    # same for the looser LOOK_ALPHA, which only delays a stop by a look (51 of 900 below 0.05)
+    ps = []
+    for t, seed in ((5.0, 500), (10.0, 600), (50.0, 700)):
+        for r in range(100):
+            x = ar1(np.random.default_rng(seed + r), 2**18, 1, np.exp(-1 / t))[:, 0]
+            for n in (2**15, 2**16, 2**17, 2**18):
+                ps.append(low_frequency_rise(*_rows(x[:n]), t))
+    ps = np.array(ps)
+    ps = ps[np.isfinite(ps)]
+    assert ps.size >= 900
+    for alpha in (SPECTRAL_ALPHA, LOOK_ALPHA):
+        bound = alpha + 3 * np.sqrt(alpha * (1 - alpha) / ps.size)
+        assert np.mean(ps < alpha) <= bound, (alpha, np.mean(ps < alpha), ps.size)
+
+
+def test_low_frequency_rise_sees_the_slow_content_the_blocks_miss():
+    # the issue-12 process at w = 0.005 (N Var(mean) 60 against 10 for the fast part, REFERENCES
+    # §12): by 2^17 samples the periodogram test fires in most records at one look
+    fired = [
+        low_frequency_rise(
+            *_rows(two_scale(np.random.default_rng(900 + r), 2**17, 0.005)[:, 0]), 6.0
+        )
+        < SPECTRAL_ALPHA
+        for r in range(50)
+    ]
+    assert np.mean(fired) >= 0.7, np.mean(fired)
+
+
+def test_a_low_frequency_rise_holds_a_targeted_mean():
+    # wiring: at every checkpoint, the periodogram test on the point's own rows (recomputed
+    # here) holds U when it fires at SPECTRAL_ALPHA, and keeps U from converging at that look
+    # when its p-value is below LOOK_ALPHA; both cases occur on the issue-12 process at w =
+    # 0.005 (REFERENCES §12)
+    targets = Targets.from_dict({"targets": {"U": {"absolute": 0.025}}})
+    seen = {"rise": 0, "look": 0}
+    for r in range(6):
+        x = two_scale(np.random.default_rng(1200 + r), 2**18, 0.005)[:, :1]
+        ps = PointStatistics(("u",), 1000.0, targets=targets)
+        for k in range(0, x.shape[0], 2**14):
+            ps.update(x[k : k + 2**14])
+            if ps._checkpoint_ev is None:
+                continue
+            e = ps.targeted_snapshot().estimate("U")
+            tint = ps._checkpoint_ev.values[ps.names.index("Tint_u")] * 1000.0
+            st = ps.periodic
+            p = low_frequency_rise(st.rows[: st.full, 0], st.row_len, tint)
+            if p < SPECTRAL_ALPHA:
+                # held (this guard or the stationarity guard speaks) and remembered
+                seen["rise"] += 1
+                assert e.state == "suspect" and "U" in ps.checkpoints.slow_level, e
+            elif p < LOOK_ALPHA and e.reason is not None and e.reason.startswith("slow content?"):
+                seen["look"] += 1
+                assert not e.converged
+            elif p < LOOK_ALPHA:
+                # another guard speaks first, or U had converged before this look
+                assert e.state == "suspect" or ps.checkpoints.is_converged("U"), e
+    assert seen["rise"] and seen["look"], seen
