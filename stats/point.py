@@ -730,11 +730,14 @@ class PointStatistics:
                     expect,
                 )
             if reason is None and i in maybe:
+                # a look's wait, not a hold: the row keeps its state (shown converging, not
+                # suspect: clean records see it at 5 % of looks) with this reason
+                # (below SPECTRAL_ALPHA with a level remembered already it is a hold again)
                 reason = (
                     f"slow content? the lowest frequencies of {self.names[i]} stand above its "
                     f"flat spectrum (p = {maybe[i]:.2g}); not converged while they do",
                     T * CHECKPOINT_GROWTH,
-                )
+                ) + (() if maybe[i] < SPECTRAL_ALPHA else ("wait",))
             held.append(reason)
             why = None
             a = min(alpha[c] for c in comps)
@@ -848,9 +851,10 @@ class PointStatistics:
                         target, blocks, T, streak, ev.min_total_s[i],
                     )
                 )
+                wait = ev.held[i] is not None and ev.held[i][2:] == ("wait",)
                 if bad:
                     state, reason = "suspect", "; ".join(f"{c}: {ev.suspect[c]}" for c in bad)
-                elif ev.held[i] is not None:
+                elif ev.held[i] is not None and not wait:
                     (state, reason), slow_need = ("suspect", ev.held[i][0]), ev.held[i][1]
                     eta = max(slow_need - T, eta or 0.0)
                 elif lapsed:
@@ -868,6 +872,8 @@ class PointStatistics:
                     state = "confirming"
                 else:
                     state = "converging"
+                if wait and reason is None:
+                    reason = ev.held[i][0]
                 if not converged:
                     all_conv = False
             estimates.append(
