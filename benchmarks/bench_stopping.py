@@ -15,6 +15,10 @@ symmetric (the log-scale, skew and kurtosis corrections of uu, vv, ww and k off:
 ``stats.point.VARIANCE_ROWS`` emptied) and widened by 1.05 whatever the block count
 (``stats.point.INFLATION_BLOCKS`` = 2).
 
+``... bench_stopping.py [reps] blocks [4096 1024 ...]``: the default-target runs with updates
+of each size on the same records (the stop falls at an update: 4096 samples are 12 % of the
+oracle here, while the monitor updates every 0.5 s of data).
+
 ``... bench_stopping.py [reps] slow``: the issue-12 slow-content process instead (U within
 +-0.025, sqrt(1 - w) AR(1, T = 5) + sqrt(w) AR(1, T = 5000 samples), w = 0.005 and 0.002, no
 period stated, records of 2^20 samples): the share stopped and the share stopped wrong.
@@ -61,7 +65,7 @@ def oracle(rho: float, targets: Targets) -> float:
     return max(need)
 
 
-def _report(label, runs, n_star, truth, t0) -> None:
+def _report(label, runs, n_star, truth, t0, block: int = 4096) -> None:
     stops = np.array([s.samples or np.nan for s in runs]) / n_star
     miss = {n: np.mean([s.miss[n] for s in runs]) for n in truth}
     e25 = np.array([s.eta_ratio(0.25) for s in runs])
@@ -70,7 +74,7 @@ def _report(label, runs, n_star, truth, t0) -> None:
     print(
         f"[{label}] stop / oracle: median {np.nanmedian(stops):.3f}, mean "
         f"{np.nanmean(stops):.3f}, p95 {np.nanpercentile(stops, 95):.3f} (stops fall on "
-        f"4096-sample blocks: steps of {4096 / n_star:.2f})"
+        f"{block}-sample blocks: steps of {block / n_star:.2f})"
     )
     print(
         f"[{label}] ETA predicted/actual total: at 25 % median {np.nanmedian(e25):.3f} "
@@ -85,6 +89,30 @@ def _report(label, runs, n_star, truth, t0) -> None:
         f"[{label}] worst coverage at the stop: {1 - max(miss.values()):.3f}  "
         f"({time.perf_counter() - t0:.0f} s)"
     )
+
+
+def by_block(reps: int, blocks=(4096, 1024)) -> None:
+    """The default-target runs with updates of each size in ``blocks``, on the same records:
+    the stop can only fall at an update, so coarse updates add up to one update to every stop
+    (4096 samples are 12 % of this oracle; the monitor updates every 0.5 s of data)."""
+    rho = np.exp(-1 / 10)
+    targets = Targets.defaults()
+    n_star = oracle(rho, targets)
+    truth = {"U": MEAN[0], "V": MEAN[1], "W": MEAN[2], "k": 0.5 * np.trace(STRESS)}
+    for i, a in enumerate("uvw"):
+        for j, b in enumerate("uvw"):
+            if j >= i:
+                truth[a + b] = STRESS[i, j]
+    t0 = time.perf_counter()
+    runs = {b: [] for b in blocks}
+    for r in range(reps):
+        x = turbulence(np.random.default_rng(300_000 + r), int(4 * n_star), rho)
+        for b in blocks:
+            runs[b].append(run_until_converged(x, ("u", "v", "w"), targets, truth, block=b))
+    print(f"default targets, 3-component Gaussian AR(1), T_int = 10 samples, {reps} runs")
+    print(f"oracle {n_star:.0f} samples")
+    for b in blocks:
+        _report(f"{b}-sample updates", runs[b], n_star, truth, t0, b)
 
 
 def main(reps: int = 200, compare: bool = False) -> None:
@@ -135,5 +163,7 @@ if __name__ == "__main__":
     n = int(sys.argv[1]) if len(sys.argv) > 1 else 200
     if sys.argv[2:] == ["slow"]:
         slow(n)
+    elif sys.argv[2:3] == ["blocks"]:
+        by_block(n, tuple(int(b) for b in sys.argv[3:]) or (4096, 1024))
     else:
         main(n, compare=sys.argv[2:] == ["compare"])
