@@ -91,18 +91,24 @@ def _report(label, runs, n_star, truth, t0, block: int = 4096) -> None:
     )
 
 
-def by_block(reps: int, blocks=(4096, 1024)) -> None:
-    """The default-target runs with updates of each size in ``blocks``, on the same records:
-    the stop can only fall at an update, so coarse updates add up to one update to every stop
-    (4096 samples are 12 % of this oracle; the monitor updates every 0.5 s of data)."""
+def default_case():
+    """The default-target case: AR(1) rho (T_int = 10 samples), the targets, the oracle
+    record and the true value of every targeted statistic."""
     rho = np.exp(-1 / 10)
     targets = Targets.defaults()
-    n_star = oracle(rho, targets)
     truth = {"U": MEAN[0], "V": MEAN[1], "W": MEAN[2], "k": 0.5 * np.trace(STRESS)}
     for i, a in enumerate("uvw"):
         for j, b in enumerate("uvw"):
             if j >= i:
                 truth[a + b] = STRESS[i, j]
+    return rho, targets, oracle(rho, targets), truth
+
+
+def by_block(reps: int, blocks=(4096, 1024)) -> None:
+    """The default-target runs with updates of each size in ``blocks``, on the same records:
+    the stop can only fall at an update, so coarse updates add up to one update to every stop
+    (4096 samples are 12 % of this oracle; the monitor updates every 0.5 s of data)."""
+    rho, targets, n_star, truth = default_case()
     t0 = time.perf_counter()
     runs = {b: [] for b in blocks}
     for r in range(reps):
@@ -118,14 +124,7 @@ def by_block(reps: int, blocks=(4096, 1024)) -> None:
 def main(reps: int = 200, compare: bool = False) -> None:
     from eddyvigil.stats import point
 
-    rho = np.exp(-1 / 10)
-    targets = Targets.defaults()
-    n_star = oracle(rho, targets)
-    truth = {"U": MEAN[0], "V": MEAN[1], "W": MEAN[2], "k": 0.5 * np.trace(STRESS)}
-    for i, a in enumerate("uvw"):
-        for j, b in enumerate("uvw"):
-            if j >= i:
-                truth[a + b] = STRESS[i, j]
+    rho, targets, n_star, truth = default_case()
     shipped = (point.VARIANCE_ROWS, point.INFLATION_BLOCKS)
     arms = {"shipped": shipped, "former": (frozenset(), 2)} if compare else {"shipped": shipped}
     t0 = time.perf_counter()
