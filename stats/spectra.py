@@ -101,9 +101,10 @@ def integral_time_estimate(x: np.ndarray, rate_hz: float) -> float:
     More than 2 :data:`PROBE_ROWS` rows are first averaged in groups of ``D`` consecutive rows
     (a transform ``D`` times shorter). The long-run variance of the group means is that of the
     rows over ``D`` (common practice), so ``T = D (c_0 / 2 + sum_{k >= 1} c_k) / sigma^2`` with
-    ``c_k`` the means' autocovariance and ``sigma^2`` the rows' own variance; on AR(1) records
-    of 40 000 rows it is within 1 % of the undecimated estimate for T_int >= 10 rows
-    (tests/test_spectra.py), and below that the segment is the shortest anyway.
+    ``c_k`` the means' autocovariance and ``sigma^2`` the rows' own variance. On AR(1) records
+    of 40 000 rows x 3, T_int 3-1000 rows, its mean ratio to the estimate on every row was
+    0.9997-1.005 (sd <= 2.3 %, at most 10 % at T_int 9) with the same segment length in 160 of
+    160 records (tests/test_spectra.py checks T_int 12, 50, 300).
     """
     x = np.asarray(x)
     if x.ndim == 1:
