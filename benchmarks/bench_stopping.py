@@ -23,11 +23,14 @@ oracle here, while the monitor updates every 0.5 s of data).
 +-0.025, sqrt(1 - w) AR(1, T = 5) + sqrt(w) AR(1, T = 5000 samples), w = 0.005 and 0.002, no
 period stated, records of 2^20 samples): the share stopped and the share stopped wrong.
 
-Measured with the periodogram rise test (stats.slow_spectrum; before it in brackets, same
-seeds): ``... 200``: median stop/oracle 1.319 (1.319), mean 1.401 (1.390), p95 1.798 (1.678),
-not converged by 4x 7 (4), worst coverage at the stop 0.955 (0.955), ETA at 25 / 50 % 1.080 /
-1.004 (1.090 / 1.018); ``... 600``: 1.319 (1.319), mean 1.393 (1.373), p95 1.948 (1.678), not
-converged 24 (14), worst coverage 0.950 (0.950). ``... 400 slow``: w = 0.005 stopped 0.107,
+Measured at 3 % checkpoints (``stats.convergence.CHECKPOINT_GROWTH`` 1.03) with 1024-sample
+updates (``UPDATE``): ``... 600``: median stop/oracle 1.259, mean 1.309, p95 1.798, not
+converged by 4x 14, worst coverage at the stop 0.953, ETA at 25 / 50 % 1.055 / 0.989;
+``... 2000``: 1.259, mean 1.322, p95 1.978, not converged 34, coverage 0.956, ETA 1.027 /
+0.994. The same 600 records at 5 % checkpoints (ETA factor 1.1): median 1.319, ETA 1.141 /
+1.075, coverage 0.953. With 5 % checkpoints and 4096-sample updates, the periodogram rise test
+(stats.slow_spectrum) cost (before it in brackets): ``... 200`` p95 1.798 (1.678), not
+converged 7 (4), median 1.319 and coverage 0.955 both. ``... 400 slow``: w = 0.005 stopped 0.107,
 wrong 0.030 (0.070); w = 0.002 stopped 0.500, wrong 0.0825 (0.1175).
 """
 
@@ -47,6 +50,9 @@ from stopping import run_until_converged  # noqa: E402
 from eddyvigil.stats import Targets  # noqa: E402
 
 Z = 1.959964
+#: samples per update in the default and ``compare`` modes: 3 % of the oracle record, as the
+#: monitor's 0.5 s updates are a small part of a point's record (4096 until 2026-12: 12 %)
+UPDATE = 1024
 
 
 def oracle(rho: float, targets: Targets) -> float:
@@ -133,12 +139,14 @@ def main(reps: int = 200, compare: bool = False) -> None:
         x = turbulence(np.random.default_rng(300_000 + r), int(4 * n_star), rho)
         for arm, (rows, blocks) in arms.items():
             point.VARIANCE_ROWS, point.INFLATION_BLOCKS = rows, blocks
-            runs[arm].append(run_until_converged(x, ("u", "v", "w"), targets, truth))
+            runs[arm].append(
+                run_until_converged(x, ("u", "v", "w"), targets, truth, block=UPDATE)
+            )
     point.VARIANCE_ROWS, point.INFLATION_BLOCKS = shipped
     print(f"default targets, 3-component Gaussian AR(1), T_int = 10 samples, {reps} runs")
     print(f"oracle {n_star:.0f} samples")
     for arm in arms:
-        _report(arm, runs[arm], n_star, truth, t0)
+        _report(arm, runs[arm], n_star, truth, t0, UPDATE)
 
 
 def slow(reps: int = 400) -> None:

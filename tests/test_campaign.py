@@ -53,9 +53,10 @@ def test_a_linear_profile_is_interpolated_exactly_and_ends_take_the_nearest():
 
 def test_the_point_in_progress_counts_what_it_still_needs_and_limits_cut():
     f = forecast(_done([0.0], [100.0]), [{"y": 0.02}], current={"y": 0.01})
-    assert f.seconds == pytest.approx(2 * 110.0)
-    assert f.left(30.0).seconds == pytest.approx(80.0 + 110.0)
-    assert f.left(500.0).seconds == pytest.approx(110.0)  # never below zero
+    rec = ETA_CALIBRATION * 100.0
+    assert f.seconds == pytest.approx(2 * rec)
+    assert f.left(30.0).seconds == pytest.approx(rec - 30.0 + rec)
+    assert f.left(500.0).seconds == pytest.approx(rec)  # never below zero
     cut = forecast(_done([0.0], [100.0]), [{"y": 0.02}], current={"y": 0.01},
                    limits_s=[60.0], current_limit_s=50.0)
     assert cut.seconds == pytest.approx(50.0 + 60.0)
