@@ -21,7 +21,9 @@ oracle here, while the monitor updates every 0.5 s of data).
 
 ``... bench_stopping.py [reps] slow``: the issue-12 slow-content process instead (U within
 +-0.025, sqrt(1 - w) AR(1, T = 5) + sqrt(w) AR(1, T = 5000 samples), w = 0.005 and 0.002, no
-period stated, records of 2^20 samples): the share stopped and the share stopped wrong.
+period stated, records of 2^20 samples): the share stopped and the share stopped wrong, with
+the means' low-band floor (stats.slow_spectrum) and without it on the same records; then a
+clean control where the mean binds (w = 0, at most 200 runs): stop/oracle and coverage.
 
 Measured at 3 % checkpoints (``stats.convergence.CHECKPOINT_GROWTH`` 1.03) with 1024-sample
 updates (``UPDATE``): ``... 600``: median stop/oracle 1.259, mean 1.309, p95 1.798, not
@@ -30,8 +32,24 @@ converged by 4x 14, worst coverage at the stop 0.953, ETA at 25 / 50 % 1.055 / 0
 0.994. The same 600 records at 5 % checkpoints (ETA factor 1.1): median 1.319, ETA 1.141 /
 1.075, coverage 0.953. With 5 % checkpoints and 4096-sample updates, the periodogram rise test
 (stats.slow_spectrum) cost (before it in brackets): ``... 200`` p95 1.798 (1.678), not
-converged 7 (4), median 1.319 and coverage 0.955 both. ``... 400 slow``: w = 0.005 stopped 0.107,
-wrong 0.030 (0.070); w = 0.002 stopped 0.500, wrong 0.0825 (0.1175).
+converged 7 (4), median 1.319 and coverage 0.955 both.
+``... 400 slow`` before the low-band floor:
+w = 0.005 stopped 0.107, wrong 0.030 (0.070 before the periodogram test); w = 0.002 stopped
+0.500, wrong 0.0825 (0.1175), 5 % checkpoints.
+
+``... 400 slow`` with the means' low-band floor (10 cosine terms; "no floor" in brackets, same
+records, checkpoints 3 % apart): w = 0.005 stopped 0.052 (0.107), wrong 0.0125 (0.030); w =
+0.002 stopped 0.427 (0.507, median stop 163 840 samples against 98 304), wrong 0.0475
+(0.0825); clean control (U binding, 200 runs): stop/oracle median 1.328 (1.262), mean 1.544
+(1.298), p95 2.404 (1.793), not converged within 8.5x 1 (1), coverage at the stop 0.965
+(0.940). Tried on the same seeds (w = 0.002 wrong / clean median, p95): 8 terms 0.045 /
+1.395, 2.79; 12 terms 0.0525; 16 terms 0.0525 / 1.328, 2.29; the
+floor's z quantile instead of t: 0.0525 (8 terms); only where the periodogram p-value is below
+0.25: 0.08 on the first 200 records (floor always: 0.055); the t-scaled excess added to
+blocking's interval instead of a floor, sqrt(hw^2 + t^2 (V_low - V)): 0.050 (8 terms) / 1.328,
+2.21. ``... 200 blocks 1024`` (default targets, means not binding): median 1.289, mean 1.320,
+p95 1.798, not converged 4 with and without the floor; coverage of U, V, W at the stop 0.980,
+0.970, 0.970 (0.965, 0.960, 0.955).
 """
 
 from __future__ import annotations
@@ -150,20 +168,54 @@ def main(reps: int = 200, compare: bool = False) -> None:
 
 
 def slow(reps: int = 400) -> None:
+    """The issue-12 cases with the means' low-band floor as shipped and off
+    (``stats.slow_spectrum.LOW_BAND_TERMS`` = 0) on the same records, and a clean control
+    where the mean binds (w = 0: AR(1), T = 5 samples, U within +-0.025, 4096-sample
+    updates, records of 2^19 samples = 8.5x the oracle 61 650 of the exact N Var(mean),
+    REFERENCES §1): stop/oracle and coverage at the stop."""
+    from eddyvigil.stats import slow_spectrum
+
+    shipped = slow_spectrum.LOW_BAND_TERMS
+    arms = {f"floor nu={shipped}": shipped, "no floor": 0}
     targets = Targets.from_dict({"targets": {"U": {"absolute": 0.025}}})
-    for w, seed in ((0.005, 3), (0.002, 4)):
+    rho = np.exp(-1 / 5)
+    n_star = Z**2 * (1 + rho) / (1 - rho) / 0.025**2
+    for w, seed in ((0.005, 3), (0.002, 4), (0.0, 7)):
         t0 = time.perf_counter()
-        runs = []
-        for r in range(reps):
-            x = two_scale(np.random.default_rng(1000 * seed + r), 2**20, w)[:, :1]
-            runs.append(run_until_converged(x, ("u",), targets, {"U": MEAN[0]}, block=2**14))
-        stops = [s.samples for s in runs if s.samples]
-        print(
-            f"slow content w = {w}, {reps} runs: stopped {len(stops) / reps:.3f} (median "
-            f"{np.median(stops) if stops else float('nan'):.0f} samples), stopped with U "
-            f"outside {np.mean([s.miss['U'] for s in runs]):.4f}  "
-            f"({time.perf_counter() - t0:.0f} s)"
-        )
+        runs = {a: [] for a in arms}
+        for r in range(reps if w else min(reps, 200)):
+            if w:
+                x = two_scale(np.random.default_rng(1000 * seed + r), 2**20, w)[:, :1]
+            else:
+                x = two_scale(np.random.default_rng(7000 + r), 2**19, 0.0)[:, :1]
+            for arm, terms in arms.items():
+                slow_spectrum.LOW_BAND_TERMS = terms
+                runs[arm].append(
+                    run_until_converged(
+                        x, ("u",), targets, {"U": MEAN[0]}, block=2**14 if w else 2**12
+                    )
+                )
+        slow_spectrum.LOW_BAND_TERMS = shipped
+        for arm in arms:
+            stops = np.array([s.samples or np.nan for s in runs[arm]], dtype=float)
+            wrong = np.mean([s.miss["U"] for s in runs[arm]])
+            if w:
+                print(
+                    f"[{arm}] slow content w = {w}, {len(stops)} runs: stopped "
+                    f"{np.mean(~np.isnan(stops)):.3f} (median {np.nanmedian(stops):.0f} "
+                    f"samples), stopped with U outside {wrong:.4f}  "
+                    f"({time.perf_counter() - t0:.0f} s)"
+                )
+            else:
+                stopped = np.sum(~np.isnan(stops))
+                print(
+                    f"[{arm}] clean AR(1) T = 5, U binding, {len(stops)} runs: stop / oracle "
+                    f"median {np.nanmedian(stops) / n_star:.3f}, mean "
+                    f"{np.nanmean(stops) / n_star:.3f}, p95 "
+                    f"{np.nanpercentile(stops, 95) / n_star:.3f}; not converged within "
+                    f"8.5x {len(stops) - stopped}; coverage at the stop "
+                    f"{1 - wrong * len(stops) / stopped:.3f}  ({time.perf_counter() - t0:.0f} s)"
+                )
 
 
 if __name__ == "__main__":

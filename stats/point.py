@@ -14,6 +14,7 @@ from functools import lru_cache
 import numpy as np
 from scipy import special
 
+from eddyvigil.stats import slow_spectrum
 from eddyvigil.stats.blocking import (
     MIN_BLOCKS_PER_LEVEL,
     BlockingAccumulator,
@@ -37,7 +38,12 @@ from eddyvigil.stats.kernels import integral_scales
 from eddyvigil.stats.moments import MomentAccumulator
 from eddyvigil.stats.names import components_of, family, statistic_names
 from eddyvigil.stats.periodic import RowStore, method_text
-from eddyvigil.stats.slow_spectrum import LOOK_ALPHA, SPECTRAL_ALPHA, low_frequency_rise
+from eddyvigil.stats.slow_spectrum import (
+    LOOK_ALPHA,
+    SPECTRAL_ALPHA,
+    low_band_variance,
+    low_frequency_rise,
+)
 from eddyvigil.stats.snapshot import Estimate, PointSnapshot
 from eddyvigil.stats.stationarity import assess_columns
 from eddyvigil.stats.tails import TAIL_MARGIN, TailAccumulator, needed_order
@@ -90,6 +96,12 @@ def _t_quantile(p: float, blocks: int) -> float:
     if blocks < 2:
         return math.nan
     return float(special.stdtrit(LUGSAIL_DOF * (blocks - 1), p))
+
+
+@lru_cache(maxsize=64)
+def _t_low_band(p: float, dof: int) -> float:
+    """Student t quantile ``p`` on ``dof`` degrees of freedom (the low-band floor's)."""
+    return float(special.stdtrit(dof, p))
 
 
 def _t_quantiles(p: float, blocks: np.ndarray) -> np.ndarray:
@@ -542,13 +554,14 @@ class PointStatistics:
             hw[vr], shift[vr] = _variance_intervals(
                 p, values[vr], se[vr], blocks[vr], hw[vr], infl[vr]
             )
+        low_band = self._low_band_floor(p, se, hw, methods)
         suspect = {}
         verdicts = assess_columns(self.blocking.segment_means(), se_blocking)
         for c, verdict in zip(self.columns, verdicts, strict=True):
             if not verdict.stationary:
                 suspect[c] = verdict.reason or "not stationary"
         targets = self._plan.resolve(values.tolist())
-        guards = self._guards(values, se, hw, choice, plain, targets)
+        guards = self._guards(values, se, hw, choice, plain, targets, low_band)
         ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, *guards,
                          error_method=methods, shift=shift, widening=infl)
         if rows is None:
@@ -583,6 +596,30 @@ class PointStatistics:
             se[c] = math.sqrt(err.variance)
             methods[c] = method_text(err, self.rate_hz)
         return type(choice)(**fields), methods
+
+    def _low_band_floor(self, p, se, hw, methods) -> dict:
+        """Each mean's interval at least the low-band one: Student-t on LOW_BAND_TERMS degrees
+        of freedom times the square root of stats.slow_spectrum.low_band_variance of the whole
+        record's row means. Where that is wider, ``hw`` takes it (in place) and the row's
+        unresolved standard error, the low-band variance's excess over blocking's (``se``,
+        the resolved part, unchanged), is returned as ``{row: unresolved}``. Regular sampling
+        with a time axis only; a mean whose line was taken out (``methods``) keeps its
+        error; so does one without a blocking interval yet (NaN)."""
+        rows = self.periodic
+        nu = slow_spectrum.LOW_BAND_TERMS  # read here: 0 turns the floor off (benchmarks)
+        if rows is None or not rows.clock or nu < 1:
+            return {}
+        t = _t_low_band(p, nu)
+        out = {}
+        for c in range(len(self.columns)):
+            if c in methods:
+                continue
+            var = low_band_variance(rows.rows[: rows.full, c], nu)
+            if not var > 0.0 or not t * math.sqrt(var) > hw[c]:
+                continue
+            out[c] = math.sqrt(max(var - se[c] ** 2, 0.0))
+            hw[c] = t * math.sqrt(var)
+        return out
 
     def _periodic_second(self, tint, rows=None) -> dict:
         """``{row: MeanError}`` for the second-moment rows (gradient on monomials of degree
@@ -651,7 +688,7 @@ class PointStatistics:
             out[k:] = getattr(plain, field)[self._source[k:]]
         return out
 
-    def _guards(self, values, se, hw, choice, plain, targets):
+    def _guards(self, values, se, hw, choice, plain, targets, low_band=None):
         """Minimum record, slow content and tails for every statistic (see _Evaluation).
 
         Slow content holds a statistic while the rise test fires now, and while its blocks
@@ -738,6 +775,9 @@ class PointStatistics:
                     f"flat spectrum (p = {maybe[i]:.2g}); not converged while they do",
                     T * CHECKPOINT_GROWTH,
                 ) + (() if maybe[i] < SPECTRAL_ALPHA else ("wait",))
+            if low_band and i in low_band:
+                # the low-band floor's excess over blocking (the means' rows come first)
+                unresolved[i] = max(unresolved[i], low_band[i])
             held.append(reason)
             why = None
             a = min(alpha[c] for c in comps)

@@ -18,6 +18,22 @@ runs it on
 each targeted mean at every checkpoint: below SPECTRAL_ALPHA it is a rise (held and
 remembered as a blocking one); below LOOK_ALPHA it only keeps a mean that has not yet
 converged from converging at that look.
+
+The same rows also give a low-band estimate of the mean's variance (low_band_variance): the
+equal-weighted cosine estimator of the long-run variance from the record's LOW_BAND_TERMS
+lowest cosine transforms (Mueller 2007, "A theory of robust long-run variance estimation",
+J. Econometrics 141; Lazarus, Lewis, Stock & Watson 2018, "HAR inference: recommendations for
+practice", J. Business & Economic Statistics 36). Where the spectrum is flat over its band
+(frequencies up to LOW_BAND_TERMS / (2 N) cycles per sample) the transforms are independent
+normals of variance N Var(mean), so the estimate is Var(mean) chi-squared(nu) / nu, nu =
+LOW_BAND_TERMS, and the mean's error over its square root is Student-t on nu degrees of
+freedom. Its band reaches periods of 2 N / nu samples, far longer than the blocks blocking
+can use (tens of them in the record), so it sees slow content that blocking only hints at: on
+the issue-12 process at its first stops (N ~ 20 slow time scales) about 0.63 of the slow
+part's variance (tests/test_slow_guard.py). Where the spectrum is flat it costs time instead:
+chi-squared noise on nu degrees of freedom and t's wider quantile. PointStatistics uses the
+t interval as a floor of each mean's interval (_low_band_floor); LOW_BAND_TERMS = 10 is the
+measured trade (benchmarks/bench_stopping.py, slow mode; README "Before you rely on it").
 """
 
 from __future__ import annotations
@@ -26,7 +42,7 @@ import math
 from functools import lru_cache
 
 import numpy as np
-from scipy.fft import rfft
+from scipy.fft import dct, rfft
 
 __all__ = [
     "SPECTRAL_ALPHA",
@@ -35,6 +51,8 @@ __all__ = [
     "REF_START",
     "REF_TINTS",
     "MIN_REF_BINS",
+    "LOW_BAND_TERMS",
+    "low_band_variance",
     "low_frequency_rise",
     "rise_p_value",
 ]
@@ -47,6 +65,9 @@ REF_START = 4 * LOW_BINS
 REF_TINTS = 60.0
 #: fewest reference bins for a test
 MIN_REF_BINS = 16
+#: cosine transforms (and degrees of freedom) of the low-band variance estimate
+LOW_BAND_TERMS = 10
+
 #: false-alarm rate per look (per targeted mean and checkpoint); half the blocking test's
 #: SLOW_ALPHA: each false alarm costs a clean record a doubling of its blocks
 SPECTRAL_ALPHA = 0.005
@@ -97,3 +118,16 @@ def low_frequency_rise(y: np.ndarray, row_len: int, tint_samples: float) -> floa
     w, _ = _weights()
     low = float(w @ power[1 : LOW_BINS + 1])
     return rise_p_value(low / ref, 2.0 * (edge - REF_START))
+
+
+def low_band_variance(y: np.ndarray, terms: int = LOW_BAND_TERMS) -> float:
+    """Variance of the mean of the row means ``y`` (n,) from their ``terms`` lowest cosine
+    transforms (equal weights; see the module text): mean(A_j^2) / n with A_j = sqrt(2 / n)
+    sum_t y_t cos(pi j (t + 1/2) / n), j = 1 .. terms (DCT-II, orthonormal; orthogonal to
+    the constant, so the reference of the rows does not matter). NaN with fewer than 4 x
+    ``terms`` rows."""
+    n = int(y.shape[0])
+    if n < 4 * terms:
+        return math.nan
+    a = dct(np.asarray(y, dtype=np.float64), type=2, norm="ortho")[1 : terms + 1]
+    return float(a @ a) / (terms * n)
