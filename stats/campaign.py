@@ -49,7 +49,7 @@ Not in the range: the spread of the moment a noisy stopping rule fires (its mean
 >>> f = forecast([Finished(position={"y": 0.0}, need_s=100.0, blocks=None, tint_s=0.01)],
 ...              [{"y": 0.01}, {"y": 0.02}])
 >>> round(f.seconds, 1), f.points_done, f.points_left
-(220.0, 1, 2)
+(200.0, 1, 2)
 """
 
 from __future__ import annotations

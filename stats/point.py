@@ -104,6 +104,13 @@ def _t_low_band(p: float, dof: int) -> float:
     return float(special.stdtrit(dof, p))
 
 
+@lru_cache(maxsize=8)
+def _excess_ratio(dof: int) -> float:
+    """The upper EXCESS_ALPHA point of chi-squared(dof) / dof: a low-band variance above
+    blocking's by more than this factor is published as unresolved error."""
+    return float(special.chdtri(dof, slow_spectrum.EXCESS_ALPHA)) / dof
+
+
 def _t_quantiles(p: float, blocks: np.ndarray) -> np.ndarray:
     """Student t quantile ``p`` on ``LUGSAIL_DOF (blocks - 1)`` degrees of freedom, NaN below
     2 blocks.
@@ -602,7 +609,8 @@ class PointStatistics:
         of freedom times the square root of stats.slow_spectrum.low_band_variance of the whole
         record's row means. Where that is wider, ``hw`` takes it (in place) and the row's
         unresolved standard error, the low-band variance's excess over blocking's (``se``,
-        the resolved part, unchanged), is returned as ``{row: unresolved}``. Regular sampling
+        the resolved part, unchanged), is returned as ``{row: unresolved}`` where that excess
+        is significant (above :func:`_excess_ratio` times blocking's variance). Regular sampling
         with a time axis only; a mean whose line was taken out (``methods``) keeps its
         error; so does one without a blocking interval yet (NaN)."""
         rows = self.periodic
@@ -617,7 +625,8 @@ class PointStatistics:
             var = low_band_variance(rows.rows[: rows.full, c], nu)
             if not var > 0.0 or not t * math.sqrt(var) > hw[c]:
                 continue
-            out[c] = math.sqrt(max(var - se[c] ** 2, 0.0))
+            if var > _excess_ratio(nu) * se[c] ** 2:
+                out[c] = math.sqrt(max(var - se[c] ** 2, 0.0))
             hw[c] = t * math.sqrt(var)
         return out
 

@@ -52,6 +52,7 @@ __all__ = [
     "REF_TINTS",
     "MIN_REF_BINS",
     "LOW_BAND_TERMS",
+    "EXCESS_ALPHA",
     "low_band_variance",
     "low_frequency_rise",
     "rise_p_value",
@@ -67,6 +68,12 @@ REF_TINTS = 60.0
 MIN_REF_BINS = 16
 #: cosine transforms (and degrees of freedom) of the low-band variance estimate
 LOW_BAND_TERMS = 10
+#: the low-band variance's excess over blocking's is published as the unresolved part of a
+#: mean's error only where it is this unlikely on a flat spectrum (the estimate is then
+#: blocking's variance times chi-squared(nu) / nu): the floor widens the interval whenever
+#: it is wider, which on clean records is often (noise of 10 degrees of freedom), but the
+#: board and the summary name slow content in 5 % of clean points only
+EXCESS_ALPHA = 0.05
 
 #: false-alarm rate per look (per targeted mean and checkpoint); half the blocking test's
 #: SLOW_ALPHA: each false alarm costs a clean record a doubling of its blocks

@@ -64,7 +64,9 @@ class Estimate(NamedTuple):
     blocks: int = 0
     reason: str | None = None
     #: standard error the record does not resolve yet (slow content: sqrt(V_top - V) of the
-    #: blocking curve's rise above the chosen level); ``stderr`` is the resolved part
+    #: blocking curve's rise above the chosen level, or sqrt(V_low - V) of the means' low-band
+    #: estimate, stats.slow_spectrum); ``stderr`` is the resolved part. In the summary entry
+    #: as ``unresolved`` when above 0; on the status board beside the value
     unresolved: float = 0.0
     #: how the error was found where it was not by plain blocking (None: blocking), e.g. a
     #: line taken out first (stats.periodic)
@@ -86,6 +88,8 @@ class Estimate(NamedTuple):
         }
         if self.error_method is not None:
             out["error_method"] = self.error_method
+        if self.unresolved > 0 and math.isfinite(self.unresolved):
+            out["unresolved"] = float(self.unresolved)
         return out
 
 

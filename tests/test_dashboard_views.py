@@ -298,3 +298,49 @@ def test_the_campaign_line_names_each_stream_with_a_known_traverse():
     assert "probe-a traverse: 5 of 12 points done, about 14 min left (10–19 min)" in text
     assert "probe-b" not in text
     assert views.campaign_html(_run(unknown)) == ""
+
+
+def test_the_unresolved_part_of_a_mean_is_published_on_the_board_and_in_the_summary():
+    # issue 12: "publish the resolved and unresolved parts of the error". A real point on the
+    # two-time-scale process of REFERENCES §12 (w = 0.005, T = 5 and 5000 samples: N Var(mean)
+    # 60 against the fast part's 10) at 98 304 samples, where the means' low-band estimate
+    # sees slow content that blocking does not: where its excess is significant (above the 95 %
+    # point of chi2_10 / 10; measured in 22 of 100 such records, 2-3 % of clean ones) the
+    # summary entry carries `unresolved` (absent otherwise) and the board writes both standard
+    # errors beside the value.
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from processes import ar1, two_scale
+
+    from eddyvigil.stats import PointStatistics, Targets
+
+    targets = Targets.from_dict({"targets": {"U": {"absolute": 0.025}}})
+
+    def point(x):
+        ps = PointStatistics(("u",), 1000.0, targets=targets)
+        for k in range(0, x.shape[0], 2**14):
+            ps.update(x[k : k + 2**14])
+        return ps.snapshot()
+
+    seen = 0
+    for r in range(12):
+        snap = point(two_scale(np.random.default_rng(1300 + r), 98_304, 0.005)[:, :1])
+        e = snap.estimate("U")
+        entry = next(s for s in snap.statistics_json() if s["name"] == "U")
+        if e.unresolved <= 0:
+            assert "unresolved" not in entry
+            continue
+        seen += 1
+        assert entry["unresolved"] == pytest.approx(e.unresolved)
+        assert entry["stderr"] == pytest.approx(e.stderr)
+        view = _view([e], point={"id": "P01", "y": 0.0})
+        (text,) = views.status_columns(_run(view))["value"]
+        assert text == (f"{views.format_value(e.value)} ± {views.format_value(e.half_width, 2)}"
+                        f" (std. error: resolved {views.format_value(e.stderr, 2)}, "
+                        f"unresolved {views.format_value(e.unresolved, 2)})")
+    assert seen >= 3, seen
+    clean = point(1.0 + ar1(np.random.default_rng(7), 98_304, 1, np.exp(-1 / 5)))
+    assert "unresolved" not in next(s for s in clean.statistics_json() if s["name"] == "U")
+    assert "std. error" not in views.value_text(clean.estimate("U"))

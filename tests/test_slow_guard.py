@@ -10,7 +10,7 @@ Ornstein-Uhlenbeck sampling of REFERENCES §10) against the nominal SLOW_ALPHA.
 import numpy as np
 import pytest
 from processes import MEAN, ar1, ar1_mean_variance, two_scale
-from scipy import stats
+from scipy import special, stats
 
 from eddyvigil.stats import PointStatistics, Targets, slow_spectrum
 from eddyvigil.stats.blocking import SLOW_ALPHA, BlockingAccumulator
@@ -320,7 +320,10 @@ def test_the_low_band_floor_widens_a_mean_and_sizes_its_unresolved_part():
             slow_spectrum.LOW_BAND_TERMS = terms
         assert e.half_width == pytest.approx(max(b.half_width, q * lb), rel=1e-12)
         assert b.stderr == e.stderr  # the resolved part stays blocking's
-        excess = np.sqrt(max(lb**2 - e.stderr**2, 0.0)) if q * lb > b.half_width else 0.0
+        # published only where significant: above the 95 % point of chi2_10 / 10 (1.831,
+        # scipy.special.chdtri) times blocking's variance
+        big = q * lb > b.half_width and lb**2 > special.chdtri(10, 0.05) / 10 * e.stderr**2
+        excess = np.sqrt(lb**2 - e.stderr**2) if big else 0.0
         assert e.unresolved == pytest.approx(max(b.unresolved, excess), rel=1e-9, abs=1e-15)
         floored += q * lb > b.half_width
         hit_floor += abs(e.value - MEAN[0]) <= e.half_width

@@ -114,18 +114,29 @@ def format_value(x, digits: int = 4) -> str:
 
 def value_text(e) -> str:
     """A statistic's value with its interval: ``value ± half-width``, or ``value +up −down``
-    where the interval is not centred on the value (variances: stats.point._variance_intervals).
+    where the interval is not centred on the value (variances: stats.point._variance_intervals);
+    where slow content leaves part of the error unresolved (``Estimate.unresolved`` > 0), the
+    two standard errors follow: the resolved one (blocking's) and the unresolved one.
 
     >>> from types import SimpleNamespace as E
     >>> value_text(E(value=1.0, half_width=0.2, ci_low=0.8, ci_high=1.2))
     '1 ± 0.2'
     >>> value_text(E(value=1.0, half_width=0.2, ci_low=0.87, ci_high=1.27))
     '1 +0.27 −0.13'
+    >>> value_text(E(value=9.5, half_width=0.05, ci_low=9.45, ci_high=9.55, stderr=0.012,
+    ...              unresolved=0.017))
+    '9.5 ± 0.05 (std. error: resolved 0.012, unresolved 0.017)'
     """
     v, lo, hi, hw = _num(e.value), _num(e.ci_low), _num(e.ci_high), _num(e.half_width)
     if math.isfinite(lo) and math.isfinite(hi) and abs((hi - v) - (v - lo)) > 0.1 * hw:
-        return f"{format_value(v)} +{format_value(hi - v, 2)} −{format_value(v - lo, 2)}"
-    return f"{format_value(v)} ± {format_value(hw, 2)}"
+        text = f"{format_value(v)} +{format_value(hi - v, 2)} −{format_value(v - lo, 2)}"
+    else:
+        text = f"{format_value(v)} ± {format_value(hw, 2)}"
+    u = _num(getattr(e, "unresolved", 0.0))
+    if u > 0:
+        text += (f" (std. error: resolved {format_value(getattr(e, 'stderr', None), 2)}, "
+                 f"unresolved {format_value(u, 2)})")
+    return text
 
 
 def format_duration(seconds) -> str:
