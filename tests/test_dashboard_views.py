@@ -306,8 +306,8 @@ def test_the_unresolved_part_of_a_mean_is_published_on_the_board_and_in_the_summ
     # 60 against the fast part's 10) at 98 304 samples, where the means' low-band estimate
     # sees slow content that blocking does not: where its excess is significant (above the 95 %
     # point of chi2_10 / 10; measured in 22 of 100 such records, 2-3 % of clean ones) the
-    # summary entry carries `unresolved` (absent otherwise) and the board writes both standard
-    # errors beside the value.
+    # summary entry carries `unresolved` (absent otherwise) and the board's "unresolved σ"
+    # column writes it with the total standard error.
     import sys
     from pathlib import Path
 
@@ -336,11 +336,12 @@ def test_the_unresolved_part_of_a_mean_is_published_on_the_board_and_in_the_summ
         assert entry["unresolved"] == pytest.approx(e.unresolved)
         assert entry["stderr"] == pytest.approx(e.stderr)
         view = _view([e], point={"id": "P01", "y": 0.0})
-        (text,) = views.status_columns(_run(view))["value"]
-        assert text == (f"{views.format_value(e.value)} ± {views.format_value(e.half_width, 2)}"
-                        f" (std. error: resolved {views.format_value(e.stderr, 2)}, "
-                        f"unresolved {views.format_value(e.unresolved, 2)})")
+        board = views.status_columns(_run(view))
+        total = np.hypot(e.stderr, e.unresolved)
+        assert board["unresolved"] == [f"{views.format_value(e.unresolved, 2)} (of "
+                                       f"{views.format_value(total, 2)})"]
+        assert board["value"] == [views.value_text(e)]  # the interval already holds both
     assert seen >= 3, seen
     clean = point(1.0 + ar1(np.random.default_rng(7), 98_304, 1, np.exp(-1 / 5)))
     assert "unresolved" not in next(s for s in clean.statistics_json() if s["name"] == "U")
-    assert "std. error" not in views.value_text(clean.estimate("U"))
+    assert views.unresolved_text(clean.estimate("U")) == ""

@@ -87,11 +87,12 @@ class _Page:
             views.status_columns(RunSnapshot(0, 0.0)), name="status_source")
         coloured = StringFormatter(text_color="colour", font_style="bold")
         self.status = DataTable(
-            name="status", source=self.status_source, height=370, width=690, index_position=None,
+            name="status", source=self.status_source, height=370, width=790, index_position=None,
             columns=[TableColumn(field="stream", title="stream", width=70),
                      TableColumn(field="point", title="point", width=95),
                      TableColumn(field="name", title="statistic", width=60),
                      TableColumn(field="value", title="value ± half-width", width=205),
+                     TableColumn(field="unresolved", title="unresolved σ", width=100),
                      TableColumn(field="target", title="target", width=70),
                      TableColumn(field="state", title="state", formatter=coloured, width=105),
                      TableColumn(field="eta", title="ETA", width=55)])

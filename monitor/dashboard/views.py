@@ -114,29 +114,33 @@ def format_value(x, digits: int = 4) -> str:
 
 def value_text(e) -> str:
     """A statistic's value with its interval: ``value ± half-width``, or ``value +up −down``
-    where the interval is not centred on the value (variances: stats.point._variance_intervals);
-    where slow content leaves part of the error unresolved (``Estimate.unresolved`` > 0), the
-    two standard errors follow: the resolved one (blocking's) and the unresolved one.
+    where the interval is not centred on the value (variances: stats.point._variance_intervals).
 
     >>> from types import SimpleNamespace as E
     >>> value_text(E(value=1.0, half_width=0.2, ci_low=0.8, ci_high=1.2))
     '1 ± 0.2'
     >>> value_text(E(value=1.0, half_width=0.2, ci_low=0.87, ci_high=1.27))
     '1 +0.27 −0.13'
-    >>> value_text(E(value=9.5, half_width=0.05, ci_low=9.45, ci_high=9.55, stderr=0.012,
-    ...              unresolved=0.017))
-    '9.5 ± 0.05 (std. error: resolved 0.012, unresolved 0.017)'
     """
     v, lo, hi, hw = _num(e.value), _num(e.ci_low), _num(e.ci_high), _num(e.half_width)
     if math.isfinite(lo) and math.isfinite(hi) and abs((hi - v) - (v - lo)) > 0.1 * hw:
-        text = f"{format_value(v)} +{format_value(hi - v, 2)} −{format_value(v - lo, 2)}"
-    else:
-        text = f"{format_value(v)} ± {format_value(hw, 2)}"
+        return f"{format_value(v)} +{format_value(hi - v, 2)} −{format_value(v - lo, 2)}"
+    return f"{format_value(v)} ± {format_value(hw, 2)}"
+
+
+def unresolved_text(e) -> str:
+    """The board's "unresolved σ" cell: the standard error slow content leaves unresolved
+    (``Estimate.unresolved``) beside the resolved one, blank when there is none.
+
+    >>> from types import SimpleNamespace as E
+    >>> unresolved_text(E(stderr=0.012, unresolved=0.017)), unresolved_text(E(stderr=0.01))
+    ('0.017 (of 0.021)', '')
+    """
     u = _num(getattr(e, "unresolved", 0.0))
-    if u > 0:
-        text += (f" (std. error: resolved {format_value(getattr(e, 'stderr', None), 2)}, "
-                 f"unresolved {format_value(u, 2)})")
-    return text
+    if not u > 0:
+        return ""
+    total = math.hypot(_num(getattr(e, "stderr", None)), u)
+    return f"{format_value(u, 2)} (of {format_value(total, 2)})"
 
 
 def format_duration(seconds) -> str:
@@ -342,7 +346,7 @@ def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
     """The status board: one row per targeted statistic of every stream's current point, or,
     between points and after ``end``, of its last finished point (point "P3 (finished)")."""
     cols: dict[str, list] = {k: [] for k in (
-        "stream", "point", "name", "value", "target", "state", "eta", "colour")}
+        "stream", "point", "name", "value", "unresolved", "target", "state", "eta", "colour")}
     for name, v in snapshot.streams.items():
         stats, point, tag = v.stats, v.point, ""
         if stats is None and v.last_point is not None:
@@ -356,6 +360,7 @@ def status_columns(snapshot: RunSnapshot) -> dict[str, list]:
             cols["point"].append(pid)
             cols["name"].append(e.name)
             cols["value"].append(value_text(e))
+            cols["unresolved"].append(unresolved_text(e))
             cols["target"].append(f"± {format_value(e.target, 2)}"
                                   + (f" ({derived[e.name]})" if e.name in derived else ""))
             state = display_state(e)
@@ -419,6 +424,7 @@ def _spectral_status_rows(cols: dict[str, list], stream: str, pid: str, v: Strea
         cols["point"].append(pid)
         cols["name"].append(n)
         cols["value"].append(text)
+        cols["unresolved"].append("")
         cols["target"].append(target)
         cols["state"].append(state_words(state))
         cols["eta"].append(eta)
