@@ -90,12 +90,12 @@ class _Page:
             name="status", source=self.status_source, height=370, width=790, index_position=None,
             columns=[TableColumn(field="stream", title="stream", width=70),
                      TableColumn(field="point", title="point", width=95),
-                     TableColumn(field="name", title="statistic", width=60),
-                     TableColumn(field="value", title="value ± half-width", width=205),
-                     TableColumn(field="unresolved", title="unresolved σ", width=100),
+                     TableColumn(field="name", title="statistic", width=75),
+                     TableColumn(field="value", title="value ± half-width", width=190),
+                     TableColumn(field="unresolved", title="unresolved σ", width=95),
                      TableColumn(field="target", title="target", width=70),
                      TableColumn(field="state", title="state", formatter=coloured, width=105),
-                     TableColumn(field="eta", title="ETA", width=55)])
+                     TableColumn(field="eta", title="ETA", width=80)])
 
         _redraw_on_new_data(self.status_source, self.status)
 
