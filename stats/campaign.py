@@ -74,8 +74,9 @@ SEED = 15
 #: the method in words (the summary's ``campaign.method``)
 METHOD = (f"per point still to come: max({ETA_CALIBRATION:g} x time to target, 200 T_int) "
           "interpolated in position from the finished points, cut at the announced time "
-          "limit, plus the median gap between points; range: Monte Carlo over the chi-square spread of each finished "
-          "point's time to target and a Brownian profile of its logarithm along the traverse")
+          "limit, plus the median gap between points; range: Monte Carlo over the chi-square "
+          "spread of each finished point's time to target and a Brownian profile of its "
+          "logarithm along the traverse")
 
 _AXES = ("x", "y", "z")
 

@@ -108,8 +108,8 @@ def eta_seconds(
     """Predicted acquisition time still needed, from Var ~ 1/T and the block-count floor.
 
     ``streak``: consecutive checkpoints already passed; a statistic that meets its target now
-    still waits for the rest of its streak (each checkpoint CHECKPOINT_GROWTH further on). None while it
-    cannot be predicted (no target, unknown error, too few blocks). ``min_total_s``: the
+    still waits for the rest of its streak (each checkpoint a factor CHECKPOINT_GROWTH further
+    on). None while it cannot be predicted (no target, unknown error, too few blocks). ``min_total_s``: the
     least record the guards ask for (minimum record, block length).
     """
     if target is None or not (math.isfinite(target) and target > 0):

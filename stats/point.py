@@ -10,6 +10,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from functools import lru_cache
+from typing import NamedTuple
 
 import numpy as np
 from scipy import special
@@ -218,6 +219,17 @@ def _variance_intervals(p, values, se, blocks, plain, inflation=INTERVAL_INFLATI
     return half, shift
 
 
+class Hold(NamedTuple):
+    """Why a slow-content guard keeps a targeted statistic from converging at this look."""
+
+    reason: str
+    #: the least total record (s) the hold asks for (its ETA)
+    need_s: float
+    #: only a look's wait (the periodogram test's p below LOOK_ALPHA, not SPECTRAL_ALPHA): the
+    #: row keeps its own state and shows the reason; not a `suspect` hold
+    wait: bool = False
+
+
 @dataclass(frozen=True)
 class _Evaluation:
     names: tuple[str, ...]
@@ -230,7 +242,7 @@ class _Evaluation:
     targets: list  # resolved target of each name: float (NaN: not yet known), None: untargeted
     long_enough: list  # record and blocks long enough against the integral time (bool)
     min_total_s: list  # least record (s) the minimum-record guards ask for
-    held: list  # None, or (reason, least total record in s) of a guard's hold (slow content)
+    held: list  # None, or the Hold of a slow-content guard
     no_interval: list  # None, or why no honest interval exists
     unresolved: np.ndarray  # standard error the record does not resolve yet (0 when none)
     #: per name: the blocking level the slow-content test asks for now (-1: none); None when
@@ -770,7 +782,7 @@ class PointStatistics:
                     if i in spectral
                     else f"the blocking curve rises up to blocks of {slow_s:.3g} s"
                 )
-                reason = (
+                reason = Hold(
                     f"slow content: the error of {self.names[i]} is not yet resolved ({seen}; "
                     f"{MIN_BLOCKS} blocks of {slow_s:.3g} s are needed): expect >= {expect:.3g} s",
                     expect,
@@ -779,11 +791,12 @@ class PointStatistics:
                 # a look's wait, not a hold: the row keeps its state (shown converging, not
                 # suspect: clean records see it at 5 % of looks) with this reason
                 # (below SPECTRAL_ALPHA with a level remembered already it is a hold again)
-                reason = (
+                reason = Hold(
                     f"slow content? the lowest frequencies of {self.names[i]} stand above its "
                     f"flat spectrum (p = {maybe[i]:.2g}); not converged while they do",
                     T * CHECKPOINT_GROWTH,
-                ) + (() if maybe[i] < SPECTRAL_ALPHA else ("wait",))
+                    wait=maybe[i] >= SPECTRAL_ALPHA,
+                )
             if low_band and i in low_band:
                 # the low-band floor's excess over blocking (the means' rows come first)
                 unresolved[i] = max(unresolved[i], low_band[i])
@@ -900,11 +913,11 @@ class PointStatistics:
                         target, blocks, T, streak, ev.min_total_s[i],
                     )
                 )
-                wait = ev.held[i] is not None and ev.held[i][2:] == ("wait",)
+                wait = ev.held[i] is not None and ev.held[i].wait
                 if bad:
                     state, reason = "suspect", "; ".join(f"{c}: {ev.suspect[c]}" for c in bad)
                 elif ev.held[i] is not None and not wait:
-                    (state, reason), slow_need = ("suspect", ev.held[i][0]), ev.held[i][1]
+                    state, reason, slow_need = "suspect", ev.held[i].reason, ev.held[i].need_s
                     eta = max(slow_need - T, eta or 0.0)
                 elif lapsed:
                     state = "suspect"
@@ -922,7 +935,7 @@ class PointStatistics:
                 else:
                     state = "converging"
                 if wait and reason is None:
-                    reason = ev.held[i][0]
+                    reason = ev.held[i].reason
                 if not converged:
                     all_conv = False
             estimates.append(
