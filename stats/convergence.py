@@ -109,8 +109,8 @@ def eta_seconds(
 
     ``streak``: consecutive checkpoints already passed; a statistic that meets its target now
     still waits for the rest of its streak (each checkpoint a factor CHECKPOINT_GROWTH further
-    on). None while it cannot be predicted (no target, unknown error, too few blocks). ``min_total_s``: the
-    least record the guards ask for (minimum record, block length).
+    on). None while it cannot be predicted (no target, unknown error, too few blocks).
+    ``min_total_s``: the least record the guards ask for (minimum record, block length).
     """
     if target is None or not (math.isfinite(target) and target > 0):
         return None
