@@ -241,20 +241,26 @@ return {rows: rows, banner: doc.get_model_by_name('verdict').text,
 """
 
 
+#: the status board's columns as rendered (monitor/dashboard/app.py), and two of them by place
+STATUS_COLUMNS = ("stream", "point", "statistic", "value", "unresolved", "target", "state", "eta")
+VALUE, STATE = STATUS_COLUMNS.index("value"), STATUS_COLUMNS.index("state")
+
+
 def _rendered(driver):
     got = driver.execute_script(_RENDERED)
     # the status board is the table whose rows carry a ± in their value column
-    got["rows"] = [r for r in got["rows"] if len(r) == 7 and "±" in r[3]]
+    got["rows"] = [r for r in got["rows"]
+                   if len(r) == len(STATUS_COLUMNS) and "±" in r[VALUE]]
     return got
 
 
 def _in_step(got):
     """The rendered rows are the server's current rows and tell the banner's story."""
-    assert [r[3] for r in got["rows"]] == got["model"], "rendered cells differ from the data"
+    assert [r[VALUE] for r in got["rows"]] == got["model"], "rendered cells differ from the data"
     banner = got["banner"]
     points = {r[1] for r in got["rows"]}
     assert len(points) == 1 and f"point {points.pop()}" in banner
-    converged = sum(1 for r in got["rows"] if r[5] == "converged")
+    converged = sum(1 for r in got["rows"] if r[STATE] == "converged")
     if "MOVE ON" in banner:
         assert converged == len(got["rows"])
     elif "targets met" in banner:
@@ -290,8 +296,8 @@ def test_rendered_table_follows_the_banner_and_a_late_tab_and_closing_a_tab(capl
         first = at(2.0, "t = 2 s")
         second = at(5.0, "t = 5 s")  # same point, later: values and states move on
         assert first["rows"][0][1] == second["rows"][0][1] == "P00"
-        assert [r[3] for r in first["rows"]] != [r[3] for r in second["rows"]]
-        assert [r[5] for r in first["rows"]] != [r[5] for r in second["rows"]]
+        assert [r[VALUE] for r in first["rows"]] != [r[VALUE] for r in second["rows"]]
+        assert [r[STATE] for r in first["rows"]] != [r[STATE] for r in second["rows"]]
         home = driver.current_window_handle
         # a second tab opened mid-point shows this point's rows, and the next point's later
         driver.switch_to.new_window("tab")
