@@ -777,14 +777,20 @@ class PointStatistics:
                     if target is not None and math.isfinite(target) and target > 0 and se[i] > 0:
                         ratio = STOP_MARGIN * hw_list[i] / target
                         expect = max(expect, T * ratio**2 * top[i] / var[i])
-                seen = (
-                    "the lowest frequencies of the record rise"
-                    if i in spectral
-                    else f"the blocking curve rises up to blocks of {slow_s:.3g} s"
-                )
+                need = f"{MIN_BLOCKS} blocks of {slow_s:.3g} s are needed"
+                if i in spectral:
+                    said = f"is not yet resolved (the record's lowest frequencies rise; {need})"
+                elif unresolved[i] > 0:
+                    said = (f"is not yet resolved (the blocking curve rises up to blocks of "
+                            f"{slow_s:.3g} s; {need})")
+                else:
+                    # the chosen level already holds the rise: the error is sized, by too few
+                    # blocks to trust (nothing is shown unresolved)
+                    said = (f"rests on too few blocks (the blocking curve rises up to blocks "
+                            f"of {slow_s:.3g} s; {need})")
                 reason = Hold(
-                    f"slow content: the error of {self.names[i]} is not yet resolved ({seen}; "
-                    f"{MIN_BLOCKS} blocks of {slow_s:.3g} s are needed): expect >= {expect:.3g} s",
+                    f"slow content: the error of {self.names[i]} {said}: expect >= "
+                    f"{expect:.3g} s",
                     expect,
                 )
             if reason is None and i in maybe:

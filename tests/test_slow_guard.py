@@ -331,3 +331,27 @@ def test_the_low_band_floor_widens_a_mean_and_sizes_its_unresolved_part():
     assert floored >= 0.5 * reps, floored
     assert hit_floor / reps >= 0.89, (hit_floor, hit_blocking)
     assert hit_blocking < hit_floor, (hit_floor, hit_blocking)
+
+
+def test_a_held_mean_says_unresolved_only_when_something_is_shown_unresolved():
+    # the hold's words and the board's "unresolved σ" column must not contradict each other:
+    # where the chosen blocking level already holds the rise (the error is sized, by fewer
+    # than 64 blocks) nothing is unresolved and the reason says it rests on too few blocks;
+    # "not yet resolved" (blocking's rise) comes with an unresolved part above 0. The
+    # issue-12 process at w = 0.005 (REFERENCES §12), records of 2^17 samples
+    targets = Targets.from_dict({"targets": {"U": {"absolute": 0.025}}})
+    words = {"too few": 0, "unresolved": 0}
+    for r in range(12):
+        x = two_scale(np.random.default_rng(1300 + r), 2**17, 0.005)[:, :1]
+        ps = PointStatistics(("u",), 1000.0, targets=targets)
+        for k in range(0, x.shape[0], 2**14):
+            ps.update(x[k : k + 2**14])
+        e = ps.snapshot().estimate("U")
+        if not (e.reason or "").startswith("slow content: the error of U"):
+            continue
+        if "rests on too few blocks" in e.reason:
+            words["too few"] += 1
+        elif "blocking curve" in e.reason:
+            words["unresolved"] += 1
+            assert e.unresolved > 0, e.reason
+    assert words["too few"] >= 1 and words["unresolved"] >= 1, words  # measured: 5 and 6
