@@ -30,7 +30,7 @@ function walk(root) {
     if (el.shadowRoot) walk(el.shadowRoot);
     if (el.classList && el.classList.contains('slick-row')) {
       const c = Array.from(el.querySelectorAll('.slick-cell')).map(x => x.textContent);
-      if (c.length === 7 && c[3].includes('±')) cells.push(c[3]);
+      if (c.length === 8 && c[3].includes('±')) cells.push(c[3]);  // 8 columns, value 4th
     }
   }
 }

@@ -87,15 +87,15 @@ class _Page:
             views.status_columns(RunSnapshot(0, 0.0)), name="status_source")
         coloured = StringFormatter(text_color="colour", font_style="bold")
         self.status = DataTable(
-            name="status", source=self.status_source, height=370, width=790, index_position=None,
-            columns=[TableColumn(field="stream", title="stream", width=70),
-                     TableColumn(field="point", title="point", width=95),
-                     TableColumn(field="name", title="statistic", width=75),
-                     TableColumn(field="value", title="value ± half-width", width=190),
-                     TableColumn(field="unresolved", title="unresolved σ", width=95),
-                     TableColumn(field="target", title="target", width=70),
-                     TableColumn(field="state", title="state", formatter=coloured, width=105),
-                     TableColumn(field="eta", title="ETA", width=80)])
+            name="status", source=self.status_source, height=370, width=740, index_position=None,
+            columns=[TableColumn(field="stream", title="stream", width=65),
+                     TableColumn(field="point", title="point", width=90),
+                     TableColumn(field="name", title="statistic", width=72),
+                     TableColumn(field="value", title="value ± half-width", width=165),
+                     TableColumn(field="unresolved", title="unresolved σ", width=90),
+                     TableColumn(field="target", title="target", width=62),
+                     TableColumn(field="state", title="state", formatter=coloured, width=118),
+                     TableColumn(field="eta", title="ETA", width=72)])
 
         _redraw_on_new_data(self.status_source, self.status)
 
