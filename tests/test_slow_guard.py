@@ -285,6 +285,15 @@ def test_low_band_variance_is_chi_squared_and_its_t_interval_covers_on_short_mem
     assert abs(np.mean(hit) - 0.95) <= 4 * np.sqrt(0.05 * 0.95 / reps)
 
 
+def _u_point(seed, n, w, targets):
+    """A point of u alone fed the issue-12 process (REFERENCES §12) in updates of 2^14."""
+    x = two_scale(np.random.default_rng(seed), n, w)[:, :1]
+    ps = PointStatistics(("u",), 1000.0, targets=targets)
+    for k in range(0, n, 2**14):
+        ps.update(x[k : k + 2**14])
+    return ps
+
+
 def test_the_low_band_floor_widens_a_mean_and_sizes_its_unresolved_part():
     # wiring: each mean's half-width is the wider of blocking's and t_nu(0.975) x the
     # low-band standard error of the point's own rows (recomputed here); where the floor
@@ -303,10 +312,7 @@ def test_the_low_band_floor_widens_a_mean_and_sizes_its_unresolved_part():
     n, reps = 98_304, 200
     hit_floor, hit_blocking, floored = 0, 0, 0
     for r in range(reps):
-        x = two_scale(np.random.default_rng(1300 + r), n, 0.002)[:, :1]
-        ps = PointStatistics(("u",), 1000.0, targets=targets)
-        for k in range(0, n, 2**14):
-            ps.update(x[k : k + 2**14])
+        ps = _u_point(1300 + r, n, 0.002, targets)
         e = ps.snapshot().estimate("U")
         st = ps.periodic
         lb = np.sqrt(low_band_variance(st.rows[: st.full, 0]))
@@ -342,11 +348,7 @@ def test_a_held_mean_says_unresolved_only_when_something_is_shown_unresolved():
     targets = Targets.from_dict({"targets": {"U": {"absolute": 0.025}}})
     words = {"too few": 0, "unresolved": 0}
     for r in range(12):
-        x = two_scale(np.random.default_rng(1300 + r), 2**17, 0.005)[:, :1]
-        ps = PointStatistics(("u",), 1000.0, targets=targets)
-        for k in range(0, x.shape[0], 2**14):
-            ps.update(x[k : k + 2**14])
-        e = ps.snapshot().estimate("U")
+        e = _u_point(1300 + r, 2**17, 0.005, targets).snapshot().estimate("U")
         if not (e.reason or "").startswith("slow content: the error of U"):
             continue
         if "rests on too few blocks" in e.reason:
