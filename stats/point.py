@@ -106,10 +106,10 @@ def _t_low_band(p: float, dof: int) -> float:
 
 
 @lru_cache(maxsize=8)
-def _excess_ratio(dof: int) -> float:
-    """The upper EXCESS_ALPHA point of chi-squared(dof) / dof: a low-band variance above
+def _excess_ratio(dof: int, alpha: float) -> float:
+    """The upper ``alpha`` point of chi-squared(dof) / dof: a low-band variance above
     blocking's by more than this factor is published as unresolved error."""
-    return float(special.chdtri(dof, slow_spectrum.EXCESS_ALPHA)) / dof
+    return float(special.chdtri(dof, alpha)) / dof
 
 
 def _t_quantiles(p: float, blocks: np.ndarray) -> np.ndarray:
@@ -580,9 +580,14 @@ class PointStatistics:
             if not verdict.stationary:
                 suspect[c] = verdict.reason or "not stationary"
         targets = self._plan.resolve(values.tolist())
-        guards = self._guards(values, se, hw, choice, plain, targets, low_band)
-        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, *guards,
-                         error_method=methods, shift=shift, widening=infl)
+        enough, least, held, no_interval, unresolved, rise = self._guards(
+            values, se, hw, choice, plain, targets
+        )
+        for c, part in low_band.items():  # the means' rows come first
+            unresolved[c] = max(unresolved[c], part)
+        ev = _Evaluation(names, values, se, blocks, rel, hw, suspect, targets, enough, least,
+                         held, no_interval, unresolved, rise, error_method=methods,
+                         shift=shift, widening=infl)
         if rows is None:
             self._cache = ev
         return ev
@@ -637,7 +642,7 @@ class PointStatistics:
             var = low_band_variance(rows.rows[: rows.full, c], nu)
             if not var > 0.0 or not t * math.sqrt(var) > hw[c]:
                 continue
-            if var > _excess_ratio(nu) * se[c] ** 2:
+            if var > _excess_ratio(nu, slow_spectrum.EXCESS_ALPHA) * se[c] ** 2:
                 out[c] = math.sqrt(max(var - se[c] ** 2, 0.0))
             hw[c] = t * math.sqrt(var)
         return out
@@ -709,7 +714,7 @@ class PointStatistics:
             out[k:] = getattr(plain, field)[self._source[k:]]
         return out
 
-    def _guards(self, values, se, hw, choice, plain, targets, low_band=None):
+    def _guards(self, values, se, hw, choice, plain, targets):
         """Minimum record, slow content and tails for every statistic (see _Evaluation).
 
         Slow content holds a statistic while the rise test fires now, and while its blocks
@@ -803,9 +808,6 @@ class PointStatistics:
                     T * CHECKPOINT_GROWTH,
                     wait=maybe[i] >= SPECTRAL_ALPHA,
                 )
-            if low_band and i in low_band:
-                # the low-band floor's excess over blocking (the means' rows come first)
-                unresolved[i] = max(unresolved[i], low_band[i])
             held.append(reason)
             why = None
             a = min(alpha[c] for c in comps)

@@ -133,13 +133,15 @@ def unresolved_text(e) -> str:
     (``Estimate.unresolved``) beside the resolved one, blank when there is none.
 
     >>> from types import SimpleNamespace as E
-    >>> unresolved_text(E(stderr=0.012, unresolved=0.017)), unresolved_text(E(stderr=0.01))
-    ('0.017 (of 0.021)', '')
+    >>> unresolved_text(E(stderr=0.012, unresolved=0.017))
+    '0.017 (of 0.021)'
+    >>> unresolved_text(E(stderr=0.01, unresolved=0.0))
+    ''
     """
-    u = _num(getattr(e, "unresolved", 0.0))
+    u = _num(e.unresolved)
     if not u > 0:
         return ""
-    total = math.hypot(_num(getattr(e, "stderr", None)), u)
+    total = math.hypot(_num(e.stderr), u)
     return f"{format_value(u, 2)} (of {format_value(total, 2)})"
 
 
